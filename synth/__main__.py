@@ -1,0 +1,5 @@
+"""Allow ``python -m synth`` as an alias of the ``barwright`` command."""
+
+from synth.cli import main
+
+main()

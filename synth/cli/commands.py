@@ -1,0 +1,6 @@
+"""Import every command module so that its commands register on the app.
+
+The order here is the order of ``barwright --help``.
+"""
+
+from synth.cli import cmd_bench  # noqa: F401  bench

@@ -1,0 +1,141 @@
+"""Shared pieces of the command line: error handling, tables, progress, JSON.
+
+Only the ``synth.cli`` package prints or exits; everything below it returns data.
+"""
+
+from __future__ import annotations
+
+import functools
+import json
+import math
+import sys
+from collections.abc import Callable, Iterable, Sequence
+from typing import Any
+
+import typer
+
+from synth.errors import SynthError
+
+EXIT_BAD_INPUT = 2
+"""Exit code for input the user can fix (the usage-error code of click/typer)."""
+
+
+def fail(message: str) -> typer.Exit:
+    """Print one line on stderr and return the Exit to raise (code 2)."""
+    typer.echo(f"barwright: error: {message}", err=True)
+    return typer.Exit(code=EXIT_BAD_INPUT)
+
+
+def handle_errors(func: Callable) -> Callable:
+    """Turn a SynthError raised by a command into one stderr line and exit code 2."""
+
+    @functools.wraps(func)
+    def wrapper(*args, **kwargs):
+        try:
+            return func(*args, **kwargs)
+        except SynthError as exc:
+            raise fail(str(exc)) from None
+        except KeyboardInterrupt:
+            typer.echo("barwright: interrupted", err=True)
+            raise typer.Exit(code=130) from None
+
+    return wrapper
+
+
+def warn(message: str) -> None:
+    """Print a warning line on stderr."""
+    typer.echo(f"barwright: warning: {message}", err=True)
+
+
+def info(message: str) -> None:
+    """Print a progress or status line on stderr (stdout stays for results)."""
+    typer.echo(message, err=True)
+
+
+def print_json(obj: Any) -> None:
+    """Write ``obj`` as indented JSON on stdout (NaN becomes null)."""
+    typer.echo(json.dumps(_clean(obj), indent=2))
+
+
+def _clean(obj: Any) -> Any:
+    if isinstance(obj, float):
+        return obj if math.isfinite(obj) else None
+    if isinstance(obj, dict):
+        return {str(k): _clean(v) for k, v in obj.items()}
+    if isinstance(obj, list | tuple):
+        return [_clean(v) for v in obj]
+    if hasattr(obj, "tolist"):
+        return _clean(obj.tolist())
+    return obj
+
+
+def format_table(headers: Sequence[str], rows: Iterable[Sequence[Any]],
+                 align: str | None = None, title: str | None = None) -> str:
+    """Lay out rows as a plain-text table.
+
+    Parameters
+    ----------
+    headers : sequence of str
+        Column titles (units in the title, e.g. ``"freq Hz"``).
+    rows : iterable of sequences
+        Cells, already formatted as strings or numbers.
+    align : str, optional
+        One letter per column, ``l`` or ``r``; numbers default to right.
+    title : str, optional
+        A line printed above the table.
+    """
+    rows = [["" if c is None else str(c) for c in r] for r in rows]
+    n = len(headers)
+    widths = [len(h) for h in headers]
+    for r in rows:
+        for i, c in enumerate(r[:n]):
+            widths[i] = max(widths[i], len(c))
+    if align is None:
+        align = "l" + "r" * (n - 1)
+
+    def line(cells):
+        out = []
+        for i, c in enumerate(cells):
+            out.append(c.ljust(widths[i]) if align[i] == "l" else c.rjust(widths[i]))
+        return "  ".join(out).rstrip()
+
+    parts = []
+    if title:
+        parts.append(title)
+    parts.append(line(list(headers)))
+    parts.append("  ".join("-" * w for w in widths))
+    parts.extend(line(r + [""] * (n - len(r))) for r in rows)
+    return "\n".join(parts)
+
+
+class Progress:
+    """A progress bar on stderr when it is a terminal; silent when piped.
+
+    Use as ``with Progress(total, "tuning") as step: ... step(1, "F3")``.
+    """
+
+    def __init__(self, total: int, label: str):
+        self.total = max(int(total), 1)
+        self.label = label
+        self.done = 0
+        self.enabled = sys.stderr.isatty()
+
+    def __enter__(self):
+        return self.advance
+
+    def advance(self, n: int = 1, note: str = "") -> None:
+        """Move the bar forward by ``n`` steps."""
+        self.done = min(self.total, self.done + n)
+        if not self.enabled:
+            return
+        width = 30
+        filled = int(width * self.done / self.total)
+        bar = "#" * filled + "." * (width - filled)
+        sys.stderr.write(f"\r{self.label} [{bar}] {self.done}/{self.total} {note:<12}")
+        sys.stderr.flush()
+
+    def __exit__(self, *exc):
+        if self.enabled:
+            sys.stderr.write("\n")
+            sys.stderr.flush()
+        return False
