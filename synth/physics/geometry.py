@@ -1,0 +1,360 @@
+"""Bar geometry: a rectangular blank with an optional undercut (arch) beneath.
+
+The top face is flat; the undercut removes metal from the underside, so the local
+thickness ``h(x)`` falls below the blank thickness ``h0`` where the arch is cut.
+Positions ``x`` run from one end of the bar (0) to the other (``length_m``).
+
+Undercut forms
+--------------
+``StationUndercut``
+    A table of (x, thickness) stations as measured with calipers; thickness is
+    interpolated linearly between stations (or with a monotone cubic, PCHIP, when
+    ``smooth`` is set) and is the blank thickness outside the first and last
+    station.
+``ArchUndercut``
+    A power-law arch ``h = h0 - depth (1 - u**exponent)`` for ``u = |x - c| /
+    (span / 2) < 1``; exponent 2 is the parabolic arch, 4 a flatter-bottomed one.
+``FlatArchUndercut``
+    A flat bottom of length ``flat_m`` at depth ``depth_m``, reached by two ramps
+    (straight or rounded) that together with the flat span ``span_m``.
+
+TOML keys (inside ``[undercut]``)
+---------------------------------
+stations: ``x_m = [...]``, ``thickness_m = [...]``, optional ``smooth = true``.
+parametric: ``family = "parabolic" | "power" | "flat"``, ``depth_m``, ``span_m``,
+optional ``center_m`` (default: the middle), ``exponent`` (``power`` only),
+``flat_m`` and ``ramp = "straight" | "round"`` (``flat`` only).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, replace
+
+import numpy as np
+from scipy.interpolate import PchipInterpolator
+
+from synth.config import Section
+from synth.errors import ConfigError
+
+DEFAULT_MIN_THICKNESS_M = 0.002
+"""Default thinnest metal left by an undercut, m (shop default, common practice, no source)."""
+
+
+class Undercut:
+    """Base of the undercut forms: a thickness profile below a flat top."""
+
+    def thickness(self, x: np.ndarray, blank_thickness_m: float, length_m: float) -> np.ndarray:
+        """Return the local thickness at positions ``x`` (m)."""
+        raise NotImplementedError
+
+    def breakpoints(self, length_m: float) -> list[float]:
+        """Return the positions where the profile has a kink (mesh nodes go there)."""
+        raise NotImplementedError
+
+    def describe(self) -> str:
+        """Return a short human description."""
+        raise NotImplementedError
+
+    def to_table(self) -> dict:
+        """Return the TOML table that reproduces this undercut."""
+        raise NotImplementedError
+
+    def validate(self, bar: BarGeometry, sec: Section | None = None) -> None:
+        """Raise ConfigError if the undercut does not fit the bar."""
+
+
+@dataclass(frozen=True)
+class StationUndercut(Undercut):
+    """Undercut given as measured (position, thickness) stations."""
+
+    x_m: tuple[float, ...]
+    thickness_m: tuple[float, ...]
+    smooth: bool = False
+
+    def thickness(self, x, blank_thickness_m, length_m):
+        x = np.asarray(x, dtype=float)
+        xs = np.asarray(self.x_m)
+        hs = np.asarray(self.thickness_m)
+        out = np.full_like(x, blank_thickness_m)
+        inside = (x >= xs[0]) & (x <= xs[-1])
+        if self.smooth and len(xs) >= 3:
+            out[inside] = PchipInterpolator(xs, hs)(x[inside])
+        else:
+            out[inside] = np.interp(x[inside], xs, hs)
+        # Outside the stations the blank is untouched; between the end station and
+        # the blank the caller's table decides (a maker measures the whole cut).
+        return out
+
+    def breakpoints(self, length_m):
+        return [float(v) for v in self.x_m] if not self.smooth else [self.x_m[0], self.x_m[-1]]
+
+    def describe(self):
+        kind = "smooth" if self.smooth else "linear"
+        return f"{len(self.x_m)} stations ({kind}), thinnest {min(self.thickness_m) * 1e3:.2f} mm"
+
+    def to_table(self):
+        table = {"x_m": [float(v) for v in self.x_m],
+                 "thickness_m": [float(v) for v in self.thickness_m]}
+        if self.smooth:
+            table["smooth"] = True
+        return table
+
+    def validate(self, bar, sec=None):
+        def err(key, msg):
+            if sec is not None:
+                return sec.error(key, msg)
+            return ConfigError(f"{key}: {msg}")
+
+        if len(self.x_m) != len(self.thickness_m):
+            raise err("thickness_m", f"needs one value per station ({len(self.x_m)} in x_m)")
+        if any(b <= a for a, b in zip(self.x_m, self.x_m[1:], strict=False)):
+            raise err("x_m", "stations must be strictly increasing")
+        if self.x_m[0] < 0 or self.x_m[-1] > bar.length_m:
+            raise err("x_m", f"stations must lie inside the bar, 0 to {bar.length_m:g} m")
+        for h in self.thickness_m:
+            if h > bar.thickness_m * (1 + 1e-9):
+                raise err("thickness_m", f"{h:g} m exceeds the blank thickness "
+                                         f"{bar.thickness_m:g} m")
+            if h <= 0:
+                raise err("thickness_m", "an undercut may not cut through the bar (thickness > 0)")
+            if h < bar.min_thickness_m * (1 - 1e-9):
+                raise err("thickness_m", f"{h:g} m is below the minimum thickness "
+                                         f"{bar.min_thickness_m:g} m (min_thickness_m)")
+
+
+@dataclass(frozen=True)
+class ArchUndercut(Undercut):
+    """Power-law arch: ``h = h0 - depth (1 - u**exponent)``, ``u = |x - c| / (span/2)``."""
+
+    depth_m: float
+    span_m: float
+    exponent: float = 2.0
+    center_m: float | None = None
+
+    def _center(self, length_m):
+        return 0.5 * length_m if self.center_m is None else self.center_m
+
+    def thickness(self, x, blank_thickness_m, length_m):
+        x = np.asarray(x, dtype=float)
+        u = np.abs(x - self._center(length_m)) / (0.5 * self.span_m)
+        cut = np.where(u < 1.0, self.depth_m * (1.0 - np.minimum(u, 1.0) ** self.exponent), 0.0)
+        return blank_thickness_m - cut
+
+    def breakpoints(self, length_m):
+        c = self._center(length_m)
+        return [c - 0.5 * self.span_m, c, c + 0.5 * self.span_m]
+
+    def describe(self):
+        name = "parabolic" if self.exponent == 2.0 else f"power {self.exponent:g}"
+        return f"{name} arch, depth {self.depth_m * 1e3:.2f} mm over {self.span_m * 1e3:.1f} mm"
+
+    def to_table(self):
+        table = {"family": "parabolic" if self.exponent == 2.0 else "power",
+                 "depth_m": float(self.depth_m), "span_m": float(self.span_m)}
+        if self.exponent != 2.0:
+            table["exponent"] = float(self.exponent)
+        if self.center_m is not None:
+            table["center_m"] = float(self.center_m)
+        return table
+
+    def validate(self, bar, sec=None):
+        _validate_span(self, bar, sec, self.depth_m, self.span_m, self._center(bar.length_m))
+
+
+@dataclass(frozen=True)
+class FlatArchUndercut(Undercut):
+    """Flat-bottomed arch: a flat of ``flat_m`` at ``depth_m`` between two ramps."""
+
+    depth_m: float
+    span_m: float
+    flat_m: float
+    ramp: str = "round"
+    center_m: float | None = None
+
+    def _center(self, length_m):
+        return 0.5 * length_m if self.center_m is None else self.center_m
+
+    def thickness(self, x, blank_thickness_m, length_m):
+        x = np.asarray(x, dtype=float)
+        d = np.abs(x - self._center(length_m))
+        half_flat = 0.5 * self.flat_m
+        ramp_len = 0.5 * (self.span_m - self.flat_m)
+        s = np.clip((0.5 * self.span_m - d) / ramp_len, 0.0, 1.0) if ramp_len > 0 else (
+            (d <= 0.5 * self.span_m).astype(float))
+        frac = 0.5 * (1.0 - np.cos(np.pi * s)) if self.ramp == "round" else s
+        frac = np.where(d <= half_flat, 1.0, frac)
+        return blank_thickness_m - self.depth_m * frac
+
+    def breakpoints(self, length_m):
+        c = self._center(length_m)
+        return [c - 0.5 * self.span_m, c - 0.5 * self.flat_m, c + 0.5 * self.flat_m,
+                c + 0.5 * self.span_m]
+
+    def describe(self):
+        return (f"flat-bottomed arch, depth {self.depth_m * 1e3:.2f} mm, flat "
+                f"{self.flat_m * 1e3:.1f} of {self.span_m * 1e3:.1f} mm, {self.ramp} ramps")
+
+    def to_table(self):
+        table = {"family": "flat", "depth_m": float(self.depth_m), "span_m": float(self.span_m),
+                 "flat_m": float(self.flat_m), "ramp": self.ramp}
+        if self.center_m is not None:
+            table["center_m"] = float(self.center_m)
+        return table
+
+    def validate(self, bar, sec=None):
+        _validate_span(self, bar, sec, self.depth_m, self.span_m, self._center(bar.length_m))
+        if not 0 <= self.flat_m < self.span_m:
+            msg = f"flat_m = {self.flat_m:g}: must be >= 0 and shorter than span_m {self.span_m:g}"
+            raise (sec.error(None, msg) if sec else ConfigError(msg))
+
+
+def _validate_span(uc, bar, sec, depth, span, center):
+    def err(key, msg):
+        return sec.error(key, msg) if sec is not None else ConfigError(f"undercut.{key}: {msg}")
+
+    if depth >= bar.thickness_m:
+        raise err("depth_m", f"cuts through the bar (blank thickness {bar.thickness_m:g} m)")
+    if bar.thickness_m - depth < bar.min_thickness_m * (1 - 1e-9):
+        raise err("depth_m", f"leaves {bar.thickness_m - depth:g} m, below the minimum thickness "
+                             f"{bar.min_thickness_m:g} m; deepest allowed "
+                             f"{bar.thickness_m - bar.min_thickness_m:g} m")
+    if center - 0.5 * span < -1e-12 or center + 0.5 * span > bar.length_m + 1e-12:
+        raise err("span_m", f"the arch must fit inside the bar (length {bar.length_m:g} m)")
+
+
+@dataclass(frozen=True)
+class BarGeometry:
+    """A bar blank with an optional undercut; all lengths in metres.
+
+    Attributes
+    ----------
+    length_m, width_m, thickness_m : float
+        Blank size (thickness is the blank's, i.e. at the ends).
+    undercut : Undercut or None
+        The arch under the bar.
+    min_thickness_m : float
+        Thinnest metal the undercut may leave.
+    """
+
+    length_m: float
+    width_m: float
+    thickness_m: float
+    undercut: Undercut | None = None
+    min_thickness_m: float = DEFAULT_MIN_THICKNESS_M
+
+    def thickness_at(self, x) -> np.ndarray:
+        """Return the local thickness h(x) in m."""
+        x = np.asarray(x, dtype=float)
+        if self.undercut is None:
+            return np.full_like(x, self.thickness_m)
+        return self.undercut.thickness(x, self.thickness_m, self.length_m)
+
+    def breakpoints(self) -> list[float]:
+        """Sorted positions in (0, L) where the profile kinks."""
+        pts = [] if self.undercut is None else self.undercut.breakpoints(self.length_m)
+        eps = 1e-9 * self.length_m
+        return sorted({round(p, 12) for p in pts if eps < p < self.length_m - eps})
+
+    def thinnest_m(self, n: int = 4001) -> float:
+        """Return the thinnest section of the bar."""
+        x = np.unique(np.concatenate([np.linspace(0, self.length_m, n), self.breakpoints()]))
+        return float(self.thickness_at(x).min())
+
+    def mass_kg(self, density_kg_m3: float) -> float:
+        """Return the bar's mass (Gauss quadrature between breakpoints)."""
+        edges = [0.0, *self.breakpoints(), self.length_m]
+        xg, wg = np.polynomial.legendre.leggauss(12)
+        total = 0.0
+        for a, b in zip(edges[:-1], edges[1:], strict=True):
+            x = 0.5 * (b - a) * xg + 0.5 * (a + b)
+            total += 0.5 * (b - a) * np.sum(wg * self.thickness_at(x))
+        return float(density_kg_m3 * self.width_m * total)
+
+    def scaled(self, factor: float) -> BarGeometry:
+        """Return the bar with every length scaled by ``factor`` (thermal expansion)."""
+        uc = self.undercut
+        if isinstance(uc, StationUndercut):
+            uc = StationUndercut(tuple(v * factor for v in uc.x_m),
+                                 tuple(v * factor for v in uc.thickness_m), uc.smooth)
+        elif isinstance(uc, ArchUndercut | FlatArchUndercut):
+            kw = {"depth_m": uc.depth_m * factor, "span_m": uc.span_m * factor}
+            if uc.center_m is not None:
+                kw["center_m"] = uc.center_m * factor
+            if isinstance(uc, FlatArchUndercut):
+                kw["flat_m"] = uc.flat_m * factor
+            uc = replace(uc, **kw)
+        return BarGeometry(self.length_m * factor, self.width_m * factor,
+                           self.thickness_m * factor, uc, self.min_thickness_m * factor)
+
+    def validate(self, sec: Section | None = None) -> BarGeometry:
+        """Check the undercut against the blank; return self."""
+        if self.undercut is not None:
+            self.undercut.validate(self, sec)
+        return self
+
+    def to_table(self) -> dict:
+        """Return the TOML keys that reproduce this geometry."""
+        table = {"length_m": float(self.length_m), "width_m": float(self.width_m),
+                 "thickness_m": float(self.thickness_m),
+                 "min_thickness_m": float(self.min_thickness_m)}
+        if self.undercut is not None:
+            table["undercut"] = self.undercut.to_table()
+        return table
+
+
+UNDERCUT_FAMILIES = ("parabolic", "power", "flat")
+
+
+def parse_undercut(sec: Section) -> Undercut:
+    """Build an Undercut from an ``[undercut]`` table (see the module docstring)."""
+    if "family" not in sec:
+        sec.check_keys({"x_m", "thickness_m", "smooth"})
+        x = sec.numbers("x_m", ge=0, min_len=2, increasing=True, unit="m")
+        h = sec.numbers("thickness_m", gt=0, length=len(x), unit="m")
+        return StationUndercut(tuple(x), tuple(h), sec.boolean("smooth", False))
+    family = sec.string("family", choices=UNDERCUT_FAMILIES)
+    center = sec.number("center_m", None, gt=0, unit="m")
+    if family in ("parabolic", "power"):
+        sec.check_keys({"family", "depth_m", "span_m", "center_m", "exponent"})
+        exponent = 2.0 if family == "parabolic" else sec.number("exponent", ge=1.0, le=12.0)
+        if family == "parabolic" and "exponent" in sec:
+            raise sec.error("exponent", "only with family = \"power\"; a parabolic arch has 2")
+        return ArchUndercut(sec.number("depth_m", gt=0, unit="m"),
+                            sec.number("span_m", gt=0, unit="m"), exponent, center)
+    sec.check_keys({"family", "depth_m", "span_m", "center_m", "flat_m", "ramp"})
+    return FlatArchUndercut(sec.number("depth_m", gt=0, unit="m"),
+                            sec.number("span_m", gt=0, unit="m"),
+                            sec.number("flat_m", ge=0, unit="m"),
+                            sec.string("ramp", "round", choices=("straight", "round")), center)
+
+
+GEOMETRY_KEYS = ("length_m", "width_m", "thickness_m", "min_thickness_m", "undercut")
+
+
+def parse_geometry(sec: Section, defaults: dict | None = None) -> BarGeometry:
+    """Build and validate a BarGeometry from a bar table (keys in GEOMETRY_KEYS).
+
+    ``defaults`` supplies values for keys the table leaves out (an instrument's
+    graduated blank, for instance).
+    """
+    defaults = defaults or {}
+
+    def num(key, **kw):
+        if key in sec or key not in defaults:
+            return sec.number(key, **kw)
+        return defaults[key]
+
+    length = num("length_m", gt=0, unit="m")
+    width = num("width_m", gt=0, unit="m")
+    thick = num("thickness_m", gt=0, unit="m")
+    min_t = sec.number("min_thickness_m", defaults.get("min_thickness_m",
+                                                       DEFAULT_MIN_THICKNESS_M), gt=0, unit="m")
+    if min_t >= thick:
+        raise sec.error("min_thickness_m", f"must be below the blank thickness {thick:g} m")
+    uc_sec = sec.section("undercut", None)
+    if uc_sec is not None:
+        uc = parse_undercut(uc_sec)
+    else:
+        uc = defaults.get("undercut")
+    bar = BarGeometry(length, width, thick, uc, min_t)
+    return bar.validate(uc_sec)
