@@ -535,7 +535,7 @@ def solve_bar(
     tolerance: float = 1e-4,
     degree: int = 5,
     n_elements: int | None = None,
-    max_elements: int = 512,
+    max_elements: int | None = None,
 ) -> BarModes:
     """Compute the bar's modes, refining the mesh until the frequencies settle.
 
@@ -554,8 +554,9 @@ def solve_bar(
         Use exactly this mesh and skip the refinement (for repeated solves of
         similar bars, e.g. inside an optimiser, once a mesh has been found to be
         converged).  ``change`` is then reported as NaN.
-    max_elements : int
-        Refinement gives up (ModelError) beyond this many elements.
+    max_elements : int, optional
+        Refinement gives up (ModelError) beyond this many elements (default: 512,
+        or 8 per profile segment for long station tables).
 
     Returns
     -------
@@ -572,6 +573,7 @@ def solve_bar(
             res, sec = _solve_once(bar, material, mesh, counts)
             return _package(bar, material, mesh, res, sec, float("nan"))
         n = _start_elements(bar, degree)
+        limit = max_elements or max(512, 8 * n)
         prev = None
         while True:
             mesh = make_mesh(bar, n, degree)
@@ -584,9 +586,9 @@ def solve_bar(
                     log.debug("converged at %d elements, change %.2e", mesh.n_elements, change)
                     return _package(bar, material, mesh, res, sec, change)
             prev = freqs
-            if 2 * n > max_elements:
+            if 2 * n > limit:
                 raise ModelError(
-                    f"no convergence to {tolerance:g} within {max_elements} elements"
+                    f"no convergence to {tolerance:g} within {limit} elements"
                 )
             n *= 2
 
