@@ -369,11 +369,13 @@ class ContactResult:
         Number of separate contacts (1 for a clean single strike).
     peak_force_n : float
         Largest contact force, N.
+    max_compression_m : float
+        Largest compression d of the head, m (sampled at the steps).
     impulse_n_s : float
         Momentum given to the bar, int F dt, N s (= m (v0 - v_end)).
     rebound_velocity_m_s : float
         Head speed away from the bar after the strike, m/s (> 0 when it bounces off).
-    displacement_m, velocity_m_s_end : ndarray, shape (n_modes,)
+    modal_displacement_m, modal_velocity_m_s : ndarray, shape (n_modes,)
         Modal coordinates q_n and dq_n/dt at ``contact_time_s`` (units of q: metres
         per unit mode-shape value).
     omega_rad_s, modal_mass_kg, shape_value, damping_ratio : ndarray, shape (n_modes,)
@@ -400,10 +402,11 @@ class ContactResult:
     contact_time_s: float
     n_contacts: int
     peak_force_n: float
+    max_compression_m: float
     impulse_n_s: float
     rebound_velocity_m_s: float
-    displacement_m: np.ndarray
-    velocity_m_s_end: np.ndarray
+    modal_displacement_m: np.ndarray
+    modal_velocity_m_s: np.ndarray
     omega_rad_s: np.ndarray
     modal_mass_kg: np.ndarray
     shape_value: np.ndarray
@@ -418,7 +421,7 @@ class ContactResult:
 
     @property
     def end_time_s(self) -> float:
-        """Time at which ``displacement_m`` and ``velocity_m_s_end`` hold, s."""
+        """Time at which ``modal_displacement_m`` and ``modal_velocity_m_s`` hold, s."""
         return self.contact_time_s
 
     @property
@@ -447,7 +450,7 @@ class ContactResult:
         return (
             0.5
             * self.modal_mass_kg
-            * (self.velocity_m_s_end**2 + (self.omega_rad_s * self.displacement_m) ** 2)
+            * (self.modal_velocity_m_s**2 + (self.omega_rad_s * self.modal_displacement_m) ** 2)
         )
 
     @property
@@ -695,12 +698,14 @@ def simulate_contact(
     in_contact = True
     n_contacts = 1
     end_state = None
+    max_compression = 0.0
     end_time = 0.0
     end_index = 0
     for i in range(max_steps):
         s_new, f0 = c.step(s, dt)
         forces.append(f0)
         d_new, _ = c.compression(s_new)
+        max_compression = max(max_compression, d_new)
         if in_contact and d_new <= 0.0:
             # Separation inside this step: find the step length where d = 0.
             def compression_after(h: float, s0: np.ndarray = s) -> float:
@@ -748,8 +753,8 @@ def simulate_contact(
     arrays = {
         "time_s": time_s,
         "force_n": force_n,
-        "displacement_m": q,
-        "velocity_m_s_end": qd,
+        "modal_displacement_m": q,
+        "modal_velocity_m_s": qd,
         "omega_rad_s": om,
         "modal_mass_kg": mass,
         "shape_value": phi,
@@ -766,6 +771,7 @@ def simulate_contact(
         contact_time_s=float(end_time),
         n_contacts=n_contacts,
         peak_force_n=float(force_n.max()),
+        max_compression_m=float(max_compression),
         impulse_n_s=float(end_state[4]),
         rebound_velocity_m_s=-v_end,
         mallet_energy_in_j=0.5 * m * v0**2,
@@ -840,17 +846,32 @@ def force_transform(result: ContactResult, frequency_hz: Any) -> np.ndarray:
     ----------
     result : ContactResult
     frequency_hz : array_like
-        Frequencies, Hz.
+        Frequencies, Hz, below the step's Nyquist frequency 1/(2 step_s) (higher ones
+        alias).
 
     Returns
     -------
     ndarray of complex, shape of ``frequency_hz``
-        F(f) = int F(t) exp(-2 pi i f t) dt, N s, trapezoidal rule on the recorded
-        samples.
+        F(f) = int F(t) exp(-2 pi i f t) dt, N s, by the trapezoidal rule on the
+        recorded samples.
+
+    Notes
+    -----
+    The pulse starts and ends at zero force, so the trapezoidal rule behaves like
+    the sampled (discrete-time) transform and is accurate for content well below
+    the Nyquist frequency: a linear or Filon-type interpolation would instead damp
+    the force ripple that the ringing modes put into the pulse at their own
+    frequencies by sinc^2(om dt/2).
     """
     f = np.asarray(frequency_hz, dtype=float)
-    phase = np.exp(-2j * np.pi * f.reshape(-1, 1) * result.time_s.reshape(1, -1))
-    values = np.trapezoid(phase * result.force_n, result.time_s, axis=1)
+    t = result.time_s
+    flat = f.reshape(-1)
+    values = np.empty(flat.size, dtype=complex)
+    block = 256  # frequencies per pass, to bound the (frequency x sample) work array
+    for start in range(0, flat.size, block):
+        chunk = flat[start : start + block].reshape(-1, 1)
+        phase = np.exp(-2j * np.pi * chunk * t.reshape(1, -1))
+        values[start : start + block] = np.trapezoid(phase * result.force_n, t, axis=1)
     return values.reshape(f.shape)
 
 
