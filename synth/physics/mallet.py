@@ -343,7 +343,7 @@ def _check_velocity(velocity_m_s: float) -> float:
 # -- contact simulation ---------------------------------------------------------------------
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class ContactResult:
     """Outcome of one mallet strike on a modal bar.
 
@@ -875,7 +875,7 @@ def force_transform(result: ContactResult, frequency_hz: Any) -> np.ndarray:
     return values.reshape(f.shape)
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class ModeExcitation:
     """How strongly a strike excites each mode, for reports.
 
