@@ -1,0 +1,46 @@
+"""The generic sound engine: decaying modes, coupled pairs and gain curves to samples.
+
+The engine never learns what it is playing.  The voice plan (the layer above)
+turns a note and a strike into :class:`Voice` objects; this package renders
+them.  :mod:`synth.engine.voice` defines the types and the clock,
+:mod:`synth.engine.render` streams, guards and plans the gain,
+:mod:`synth.engine.kernels` holds the compiled loops and
+:mod:`synth.engine.score` reads event lists (our TOML format and standard MIDI
+files) into note events for the voice plan.
+"""
+
+from synth.engine.render import (
+    ANCHOR_EVERY,
+    DEFAULT_BLOCK_SIZE,
+    DEFAULT_SILENCE_DB,
+    GainPlan,
+    measure_peak,
+    plan_gain,
+    render,
+    render_blocks,
+    ring_out_sample,
+)
+from synth.engine.voice import (
+    CoupledPair,
+    ModeBank,
+    Voice,
+    constant_power_pan,
+    seconds_to_sample,
+)
+
+__all__ = [
+    "ANCHOR_EVERY",
+    "DEFAULT_BLOCK_SIZE",
+    "DEFAULT_SILENCE_DB",
+    "CoupledPair",
+    "GainPlan",
+    "ModeBank",
+    "Voice",
+    "constant_power_pan",
+    "measure_peak",
+    "plan_gain",
+    "render",
+    "render_blocks",
+    "ring_out_sample",
+    "seconds_to_sample",
+]

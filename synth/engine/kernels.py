@@ -1,0 +1,334 @@
+"""Compiled inner loops of the sound engine (every numba function of barwright).
+
+Each function here is private, takes float64 arrays and scalars, writes into
+arrays the caller allocated and keeps no state of its own.  The wrappers in
+:mod:`synth.engine.render` validate, allocate, split the work at sample-exact
+boundaries and call these.  Nothing here knows about voices, notes or bars.
+
+Two kernels do the work:
+
+``_bank_add``
+    A bank of exponentially decaying modes.  Mode k carries the complex state
+    ``y_k[m] = a_k exp(-(g_k m dt + E(m))) exp(i (2 pi f_k m dt + phi_k))`` where
+    ``m`` counts samples since the voice started and ``E(m)`` is the extra
+    decay (nepers) that a damping schedule has added so far.  Between anchors
+    the state advances by one complex multiplication per sample by the pole
+    ``z_k = exp((-g_k - e + i 2 pi f_k) dt)`` (a complex one-pole recursion);
+    its imaginary part is the output.  Every ``anchor_every`` samples of the
+    voice's own clock (and at every damping change) the state is recomputed
+    from the closed form above, so rounding never accumulates over more than
+    one anchor interval: a minute-long tail keeps its frequency and decay rate
+    to rounding level.  The loop over modes is innermost, with the state in
+    separate real and imaginary arrays, so the compiler vectorises it.
+
+``_pair_add``
+    Two complex modes coupled in rotating-wave form,
+    ``d/dt [a1, a2] = A(t) [a1, a2]``, ``A = [[s1, i mu], [i mu, s2]]``,
+    ``s_j = i om_j - g_j``.  Each sample step applies the exact matrix
+    exponential of the coefficients frozen over that step.  With
+    ``m = (s1 + s2)/2``, ``d = (s1 - s2)/2`` and ``B = A - m I`` one has
+    ``B^2 = q^2 I`` with ``q^2 = d^2 - mu^2``, hence (Cayley-Hamilton)
+
+        exp(A dt) = exp(m dt) [cosh(q dt) I + (sinh(q dt)/q) B]
+
+    where ``cosh(q dt)`` and ``sinh(q dt)/q`` are entire functions of
+    ``z = q^2 dt^2``, summed here as truncated power series (the caller picks
+    the number of terms so that the first omitted term is below 1e-18).  The
+    coefficients of each sample do not depend on the state, so they are
+    computed for a chunk of samples first (vectorised over samples) and then
+    applied in one short dependent loop.
+
+References
+----------
+.. [1] Moler, C. and Van Loan, C., "Nineteen dubious ways to compute the
+   exponential of a matrix, twenty-five years later", SIAM Review 45(1), 3-49,
+   2003, doi:10.1137/S00361445024180 (section 3: the 2x2 case and
+   Cayley-Hamilton methods).
+.. [2] Smith, J. O., "Introduction to Digital Filters with Audio
+   Applications", W3K Publishing, 2007, ISBN 978-0-9745607-1-7 (complex
+   one-pole resonators).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from numba import njit
+
+_TWO_PI = 2.0 * math.pi
+_PAIR_CHUNK = 256
+
+
+@njit(cache=True, fastmath=True)
+def _bank_add(out, o0, channel_gain, curve, use_curve, state, clock,
+              cycles_per_sample, decay_per_sample, amplitude, phase_rad,
+              m0, m1, anchor_every, seg_start, seg_end, seg_nepers, extra_per_sample):
+    """Add voice-clock samples ``m0 .. m1-1`` of a mode bank into ``out[o0:, :]``.
+
+    The state advances in groups of four samples that start at an anchor
+    point (a damping change or a multiple of ``anchor_every``).  A group cut by
+    the end of a call is computed in full, only its samples inside the call
+    are written, and the state stays at the group start, so the next call
+    recomputes the same group identically: the output does not depend on how
+    the caller splits the voice into calls.
+
+    Parameters
+    ----------
+    out : float64[:, :]
+        Output block, (samples, channels); added to.  Row ``o0`` is ``m0``.
+    o0 : int
+        Row of ``out`` that receives voice-clock sample ``m0``.
+    channel_gain : float64[:]
+        Gain per output channel.
+    curve : float64[:]
+        Per-sample gain for ``m0 .. m1-1`` (ignored unless ``use_curve``).
+    use_curve : bool
+        Whether to multiply by ``curve``.
+    state : float64[2, :]
+        Real and imaginary part of each mode at voice clock ``clock[0]``.
+    clock : int64[2]
+        ``clock[0]``: voice clock of ``state`` (a group start);
+        ``clock[1]``: voice clock of the last anchoring (-1 before the first).
+    cycles_per_sample, decay_per_sample, amplitude, phase_rad : float64[:]
+        Per mode: f/fs, g/fs (nepers per sample), initial amplitude, phase.
+    m0, m1 : int
+        Voice-clock range to add, inside the current damping segment.
+    anchor_every : int
+        Re-anchor whenever the voice clock is a multiple of this (a multiple of 4).
+    seg_start, seg_end : int
+        Voice clock at which the current damping segment begins and ends.
+    seg_nepers : float
+        Extra decay accumulated by the damping schedule up to ``seg_start``.
+    extra_per_sample : float
+        Extra decay rate of the current segment, nepers per sample.
+    """
+    n_modes = cycles_per_sample.shape[0]
+    n_ch = channel_gain.shape[0]
+    pole_re = np.empty(n_modes)
+    pole_im = np.empty(n_modes)
+    for k in range(n_modes):
+        r = math.exp(-(decay_per_sample[k] + extra_per_sample))
+        th = _TWO_PI * cycles_per_sample[k]
+        pole_re[k] = r * math.cos(th)
+        pole_im[k] = r * math.sin(th)
+    cur_re = state[0].copy()
+    cur_im = state[1].copy()
+    nxt_re = np.empty(n_modes)
+    nxt_im = np.empty(n_modes)
+    m_state = clock[0]
+    m_anchor = clock[1]
+    acc = np.zeros(4)
+    m = m0
+    while m < m1:
+        if (m == seg_start or m % anchor_every == 0) and m_anchor != m:
+            nep = seg_nepers + extra_per_sample * (m - seg_start)
+            for k in range(n_modes):
+                mag = amplitude[k] * math.exp(-decay_per_sample[k] * m - nep)
+                cyc = cycles_per_sample[k] * m
+                ph = _TWO_PI * (cyc - math.floor(cyc)) + phase_rad[k]
+                cur_re[k] = mag * math.cos(ph)
+                cur_im[k] = mag * math.sin(ph)
+            m_state = m
+            m_anchor = m
+        # run of groups from the state up to the next anchor point (one division per run)
+        next_anchor = min(seg_end, (m_state // anchor_every + 1) * anchor_every)
+        gs = m_state
+        while m < m1:
+            ge = min(gs + 4, next_anchor)
+            # The two loops below must stay identical but for where the state goes.
+            # (A shared helper or swapping the arrays costs a factor 2-3 in numba.)
+            if ge <= m1:   # complete group: advance the state in place
+                a0 = 0.0
+                a1 = 0.0
+                a2 = 0.0
+                a3 = 0.0
+                for k in range(n_modes):
+                    x = cur_re[k]
+                    y = cur_im[k]
+                    c = pole_re[k]
+                    s = pole_im[k]
+                    a0 += y
+                    x1 = x * c - y * s
+                    y1 = x * s + y * c
+                    a1 += y1
+                    x2 = x1 * c - y1 * s
+                    y2 = x1 * s + y1 * c
+                    a2 += y2
+                    x3 = x2 * c - y2 * s
+                    y3 = x2 * s + y2 * c
+                    a3 += y3
+                    cur_re[k] = x3 * c - y3 * s
+                    cur_im[k] = x3 * s + y3 * c
+            else:          # cut by the end of the call: keep the state at the group start
+                a0 = 0.0
+                a1 = 0.0
+                a2 = 0.0
+                a3 = 0.0
+                for k in range(n_modes):
+                    x = cur_re[k]
+                    y = cur_im[k]
+                    c = pole_re[k]
+                    s = pole_im[k]
+                    a0 += y
+                    x1 = x * c - y * s
+                    y1 = x * s + y * c
+                    a1 += y1
+                    x2 = x1 * c - y1 * s
+                    y2 = x1 * s + y1 * c
+                    a2 += y2
+                    x3 = x2 * c - y2 * s
+                    y3 = x2 * s + y2 * c
+                    a3 += y3
+                    nxt_re[k] = x3 * c - y3 * s
+                    nxt_im[k] = x3 * s + y3 * c
+            acc[0] = a0
+            acc[1] = a1
+            acc[2] = a2
+            acc[3] = a3
+            hi = min(ge, m1)
+            for mm in range(m, hi):
+                v = acc[mm - gs]
+                if use_curve:
+                    v *= curve[mm - m0]
+                row = o0 + mm - m0
+                for ch in range(n_ch):
+                    out[row, ch] += channel_gain[ch] * v
+            m = hi
+            if hi < ge:
+                break
+            gs += 4
+            m_state = gs
+            if ge == next_anchor:
+                break
+    state[0, :] = cur_re
+    state[1, :] = cur_im
+    clock[0] = m_state
+    clock[1] = m_anchor
+
+
+@njit(cache=True, fastmath=True)
+def _pair_add(out, o0, n, channel_gain, curve, use_curve, state,
+              omega_rad_s, decay_per_s, dt, mu_rad_s, weight_1, weight_2,
+              cosh_coef, sinh_coef):
+    """Advance a coupled pair ``n`` samples and add its output into ``out``.
+
+    The output of sample ``j`` is ``w1 Im(a1[j]) + w2[j] Im(a2[j])`` from the
+    state at that sample; then the state steps to ``j + 1`` with the exact
+    exponential of the system frozen at ``mu[j]``.
+
+    Parameters
+    ----------
+    out : float64[:, :]
+        Output block, (samples, channels); added to.
+    o0, n : int
+        First row of ``out`` and number of samples.
+    channel_gain : float64[:]
+        Gain per channel.
+    curve : float64[:]
+        Per-sample gain (ignored unless ``use_curve``).
+    use_curve : bool
+        Whether to multiply by ``curve``.
+    state : float64[4]
+        ``Re a1, Im a1, Re a2, Im a2``, updated in place.
+    omega_rad_s, decay_per_s : float64[2]
+        Angular frequency and amplitude decay rate (damping included) of each member.
+    dt : float
+        Sample period in s.
+    mu_rad_s : float64[:]
+        Coupling rate of each step, rad/s (length ``n``).
+    weight_1 : float
+        Output weight of member 1.
+    weight_2 : float64[:]
+        Output weight of member 2 per sample (length ``n``).
+    cosh_coef, sinh_coef : float64[:]
+        ``1/(2k)!`` and ``1/(2k+1)!`` for k = 0 .. K (series of cosh and sinh/q).
+    """
+    n_ch = channel_gain.shape[0]
+    n_terms = cosh_coef.shape[0]
+    # m = (s1 + s2)/2, d = (s1 - s2)/2 with s_j = -g_j + i om_j (Moler & Van Loan, sec. 3)
+    m_re = -0.5 * (decay_per_s[0] + decay_per_s[1])
+    m_im = 0.5 * (omega_rad_s[0] + omega_rad_s[1])
+    d_re = -0.5 * (decay_per_s[0] - decay_per_s[1])
+    d_im = 0.5 * (omega_rad_s[0] - omega_rad_s[1])
+    em_mag = math.exp(m_re * dt)
+    em_re = em_mag * math.cos(m_im * dt)
+    em_im = em_mag * math.sin(m_im * dt)
+    dt2 = dt * dt
+    d2_re = (d_re * d_re - d_im * d_im) * dt2
+    z_im = 2.0 * d_re * d_im * dt2           # Im z is the same for every step
+    ddt_re = d_re * dt
+    ddt_im = d_im * dt
+    cr = np.empty(_PAIR_CHUNK)
+    ci = np.empty(_PAIR_CHUNK)
+    sr = np.empty(_PAIR_CHUNK)
+    si = np.empty(_PAIR_CHUNK)
+    zr = np.empty(_PAIR_CHUNK)
+    p_re = np.empty(_PAIR_CHUNK)
+    p_im = np.empty(_PAIR_CHUNK)
+    q_re = np.empty(_PAIR_CHUNK)
+    q_im = np.empty(_PAIR_CHUNK)
+    r_re = np.empty(_PAIR_CHUNK)
+    r_im = np.empty(_PAIR_CHUNK)
+    a1r = state[0]
+    a1i = state[1]
+    a2r = state[2]
+    a2i = state[3]
+    for c0 in range(0, n, _PAIR_CHUNK):
+        nc = min(_PAIR_CHUNK, n - c0)
+        # Pass 1, vectorised over samples: z = (d^2 - mu^2) dt^2, then Horner sums.
+        for j in range(nc):
+            mu = mu_rad_s[c0 + j]
+            zr[j] = d2_re - mu * mu * dt2
+            cr[j] = cosh_coef[n_terms - 1]
+            ci[j] = 0.0
+            sr[j] = sinh_coef[n_terms - 1]
+            si[j] = 0.0
+        for t in range(n_terms - 2, -1, -1):
+            ck = cosh_coef[t]
+            sk = sinh_coef[t]
+            for j in range(nc):
+                x = cr[j] * zr[j] - ci[j] * z_im + ck
+                ci[j] = cr[j] * z_im + ci[j] * zr[j]
+                cr[j] = x
+                y = sr[j] * zr[j] - si[j] * z_im + sk
+                si[j] = sr[j] * z_im + si[j] * zr[j]
+                sr[j] = y
+        # exp(A dt) = em [C I + S dt B], B = [[d, i mu], [i mu, -d]]
+        for j in range(nc):
+            mu = mu_rad_s[c0 + j]
+            sd_re = sr[j] * ddt_re - si[j] * ddt_im      # S dt d
+            sd_im = sr[j] * ddt_im + si[j] * ddt_re
+            u_re = cr[j] + sd_re
+            u_im = ci[j] + sd_im
+            v_re = cr[j] - sd_re
+            v_im = ci[j] - sd_im
+            w_re = -si[j] * dt * mu                      # i S dt mu
+            w_im = sr[j] * dt * mu
+            p_re[j] = em_re * u_re - em_im * u_im
+            p_im[j] = em_re * u_im + em_im * u_re
+            q_re[j] = em_re * v_re - em_im * v_im
+            q_im[j] = em_re * v_im + em_im * v_re
+            r_re[j] = em_re * w_re - em_im * w_im
+            r_im[j] = em_re * w_im + em_im * w_re
+        # Pass 2: output then step, one short dependent chain per sample.
+        for j in range(nc):
+            jj = c0 + j
+            y = weight_1 * a1i + weight_2[jj] * a2i
+            if use_curve:
+                y *= curve[jj]
+            row = o0 + jj
+            for c in range(n_ch):
+                out[row, c] += channel_gain[c] * y
+            b1r = p_re[j] * a1r - p_im[j] * a1i + r_re[j] * a2r - r_im[j] * a2i
+            b1i = p_re[j] * a1i + p_im[j] * a1r + r_re[j] * a2i + r_im[j] * a2r
+            b2r = r_re[j] * a1r - r_im[j] * a1i + q_re[j] * a2r - q_im[j] * a2i
+            b2i = r_re[j] * a1i + r_im[j] * a1r + q_re[j] * a2i + q_im[j] * a2r
+            a1r = b1r
+            a1i = b1i
+            a2r = b2r
+            a2i = b2i
+    state[0] = a1r
+    state[1] = a1i
+    state[2] = a2r
+    state[3] = a2i
