@@ -1,0 +1,345 @@
+"""Event input: our TOML event list and standard MIDI files, as note events in seconds.
+
+The reader turns a file into a :class:`Score`: strikes (note name, velocity,
+mallet, strike position, release) and pedal changes, all timed in seconds.
+The voice plan turns a score into engine voices; the engine itself never sees
+notes.  Times become samples through
+:func:`synth.engine.voice.seconds_to_sample`, the single conversion, so every
+event lands on the same sample whoever converts it.
+
+Event list format (TOML)
+------------------------
+One optional ``[score]`` table and any number of ``[[strike]]`` and
+``[[pedal]]`` tables, in any order (events are sorted by time)::
+
+    # Opening of the shop demo: a rolled F major chord, then a melody.
+    [score]
+    tempo_bpm = 90          # optional; needed by events timed in beats
+    length_s = 12.0         # optional; render length (default: chosen by the renderer)
+
+    [[pedal]]
+    time_s = 0.0
+    value = 1.0             # 1 = dampers lifted (notes ring), 0 = dampers on the bars
+
+    [[strike]]
+    time_s = 0.00
+    note = "F3"
+    velocity = 0.8          # 0..1 (the voice plan maps it to a mallet speed)
+
+    [[strike]]
+    time_s = 0.03
+    note = "A3"
+    mallet_speed_m_s = 1.6  # or the speed of the mallet head itself, m/s
+    mallet = "medium"       # optional: a mallet preset of the instrument
+    position = 0.5          # optional: along the bar, 0..1 of its length (0.5 = centre)
+    across = 0.1            # optional: off the centreline, -0.5..0.5 of the width
+
+    [[strike]]
+    beat = 4                # with tempo_bpm: 4 beats = 2.667 s at 90 bpm
+    note = "C5"
+    velocity = 0.6
+    duration_beats = 1      # optional release: the note's own damping starts here
+                            # (duration_s in seconds; absent = no release of its own)
+
+    [[pedal]]
+    beat = 6
+    value = 0.5             # half pedal
+
+Keys of ``[[strike]]``: ``time_s`` or ``beat`` (exactly one, >= 0), ``note``
+(scientific pitch notation: ``A4``, ``F#5``, ``Bb3``), ``velocity`` (0..1) or
+``mallet_speed_m_s`` (> 0, exactly one), ``mallet``, ``position``, ``across``,
+``duration_s`` or ``duration_beats`` (> 0, at most one).  Keys of
+``[[pedal]]``: ``time_s`` or ``beat``, ``value`` (0..1).  Unknown keys are
+errors, and every error names the file, the key, the value and the rule.
+Before the first pedal change the pedal is in the renderer's default state.
+
+Standard MIDI files
+-------------------
+:func:`read_midi` reads type 0 and 1 files with mido.  Note-on with velocity
+> 0 starts a strike (``velocity = v/127``); the matching note-off (or note-on
+with velocity 0) on the same channel and key sets its release; a key struck
+again while still held is released at the new strike.  Controller 64 (the
+sustain pedal) on any channel becomes a pedal change ``value = v/127`` (127 =
+dampers lifted; values in between are kept for half-pedalling).  Tempo
+changes are honoured: tick times are converted through the tempo map
+exactly, in integer ticks and microseconds.  Other messages are ignored.
+
+References
+----------
+.. [1] MIDI Manufacturers Association, "Standard MIDI Files 1.0", 1996
+   (tempo meta-event, division in ticks per quarter note).
+.. [2] MIDI Manufacturers Association, "MIDI 1.0 Detailed Specification",
+   1996 (note on/off, velocity 0 as note-off, controller 64).
+"""
+
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass
+from pathlib import Path
+
+from synth.config import Section, load_toml
+from synth.errors import ConfigError
+from synth.pitch import midi_to_note, note_to_midi
+
+_STRIKE_KEYS = ("time_s", "beat", "note", "velocity", "mallet_speed_m_s", "mallet", "position",
+                "across", "duration_s", "duration_beats")
+_PEDAL_KEYS = ("time_s", "beat", "value")
+_SCORE_KEYS = ("tempo_bpm", "length_s")
+_TOP_KEYS = ("score", "strike", "pedal")
+_DEFAULT_TEMPO_US = 500_000  # 120 bpm, the default of a MIDI file without a tempo event
+
+
+@dataclass(frozen=True)
+class Strike:
+    """One note struck.
+
+    Attributes
+    ----------
+    time_s : float
+        When the mallet meets the bar, s from the start of the score.
+    note : str
+        Note name, sharp spelling (``"A#3"``).
+    velocity : float or None
+        Strength 0..1 (``None`` when ``mallet_speed_m_s`` is given).
+    mallet_speed_m_s : float or None
+        Speed of the mallet head at impact, m/s (``None`` when ``velocity`` is given).
+    mallet : str or None
+        Mallet preset name, or ``None`` for the renderer's default.
+    position : float or None
+        Strike point along the bar, 0..1 of its length; ``None``: default.
+    across : float or None
+        Strike point off the centreline, -0.5..0.5 of the width; ``None``: default.
+    release_s : float or None
+        When the note's own damping starts (key up, MIDI note-off), s; ``None``:
+        the note has no release of its own (it rings until pedal or the end).
+    """
+
+    time_s: float
+    note: str
+    velocity: float | None = None
+    mallet_speed_m_s: float | None = None
+    mallet: str | None = None
+    position: float | None = None
+    across: float | None = None
+    release_s: float | None = None
+
+
+@dataclass(frozen=True)
+class PedalChange:
+    """The damper pedal moves.
+
+    Attributes
+    ----------
+    time_s : float
+        When, s from the start of the score.
+    value : float
+        0 = dampers on the bars, 1 = fully lifted; in between, half-pedal.
+    """
+
+    time_s: float
+    value: float
+
+
+@dataclass(frozen=True)
+class Score:
+    """Note events of a passage, sorted by time.
+
+    Attributes
+    ----------
+    strikes : tuple of Strike
+        Sorted by ``time_s`` (ties keep file order).
+    pedal : tuple of PedalChange
+        Sorted by ``time_s``.
+    length_s : float or None
+        Render length asked for by the file, s (``None``: the renderer decides).
+    source : str
+        The file read.
+    """
+
+    strikes: tuple[Strike, ...]
+    pedal: tuple[PedalChange, ...] = ()
+    length_s: float | None = None
+    source: str = ""
+
+    @property
+    def last_event_s(self) -> float:
+        """Time of the last strike, release or pedal change, s (0 for an empty score)."""
+        times = [s.time_s for s in self.strikes]
+        times += [s.release_s for s in self.strikes if s.release_s is not None]
+        times += [p.time_s for p in self.pedal]
+        return max(times, default=0.0)
+
+
+# --------------------------------------------------------------------------- TOML
+def _time_of(sec: Section, seconds_per_beat: float | None) -> float:
+    has_t, has_b = "time_s" in sec, "beat" in sec
+    if has_t == has_b:
+        raise sec.error(None, "give exactly one of time_s (seconds) or beat")
+    if has_t:
+        return sec.number("time_s", ge=0.0, unit="s")
+    beat = sec.number("beat", ge=0.0)
+    if seconds_per_beat is None:
+        raise sec.error("beat", "needs tempo_bpm in the [score] table")
+    return beat * seconds_per_beat
+
+
+def _note_of(sec: Section) -> str:
+    name = sec.string("note")
+    try:
+        return midi_to_note(note_to_midi(name))
+    except ConfigError as exc:
+        raise sec.error("note", exc.detail) from None
+
+
+def _strike_of(sec: Section, seconds_per_beat: float | None) -> Strike:
+    sec.check_keys(_STRIKE_KEYS)
+    time_s = _time_of(sec, seconds_per_beat)
+    note = _note_of(sec)
+    if ("velocity" in sec) == ("mallet_speed_m_s" in sec):
+        raise sec.error(None, "give exactly one of velocity (0..1) or mallet_speed_m_s (m/s)")
+    velocity = sec.number("velocity", None, ge=0.0, le=1.0)
+    speed = sec.number("mallet_speed_m_s", None, gt=0.0, unit="m/s")
+    mallet = sec.string("mallet", None)
+    position = sec.number("position", None, ge=0.0, le=1.0)
+    across = sec.number("across", None, ge=-0.5, le=0.5)
+    if "duration_s" in sec and "duration_beats" in sec:
+        raise sec.error(None, "give at most one of duration_s or duration_beats")
+    release = None
+    if "duration_s" in sec:
+        release = time_s + sec.number("duration_s", gt=0.0, unit="s")
+    elif "duration_beats" in sec:
+        beats = sec.number("duration_beats", gt=0.0)
+        if seconds_per_beat is None:
+            raise sec.error("duration_beats", "needs tempo_bpm in the [score] table")
+        release = time_s + beats * seconds_per_beat
+    return Strike(time_s, note, velocity, speed, mallet, position, across, release)
+
+
+def _tables(top: Section, name: str) -> list[Section]:
+    value = top.data.get(name, [])
+    if not isinstance(value, list) or not all(isinstance(v, dict) for v in value):
+        raise top.error(name, f"must be an array of tables, written [[{name}]]")
+    return [Section(v, top.source, f"{name}[{i}]") for i, v in enumerate(value)]
+
+
+def parse_events(data: dict, source: str) -> Score:
+    """Validate an event list already parsed from TOML (see the module docstring).
+
+    Parameters
+    ----------
+    data : dict
+        The parsed TOML document.
+    source : str
+        File name for error messages.
+
+    Returns
+    -------
+    Score
+        The events, sorted by time.
+
+    Raises
+    ------
+    ConfigError
+        Naming the file, the key, the value and the rule.
+    """
+    top = Section(data, source)
+    top.check_keys(_TOP_KEYS)
+    head = top.section("score", None)
+    seconds_per_beat = None
+    length_s = None
+    if head is not None:
+        head.check_keys(_SCORE_KEYS)
+        tempo = head.number("tempo_bpm", None, gt=0.0, unit="bpm")
+        seconds_per_beat = None if tempo is None else 60.0 / tempo
+        length_s = head.number("length_s", None, gt=0.0, unit="s")
+    strikes = [_strike_of(sec, seconds_per_beat) for sec in _tables(top, "strike")]
+    pedal = []
+    for sec in _tables(top, "pedal"):
+        sec.check_keys(_PEDAL_KEYS)
+        pedal.append(PedalChange(_time_of(sec, seconds_per_beat),
+                                 sec.number("value", ge=0.0, le=1.0)))
+    strikes.sort(key=lambda s: s.time_s)
+    pedal.sort(key=lambda p: p.time_s)
+    return Score(tuple(strikes), tuple(pedal), length_s, source)
+
+
+def read_toml_events(path: str | os.PathLike[str]) -> Score:
+    """Read our TOML event list (format in the module docstring)."""
+    return parse_events(load_toml(path), str(path))
+
+
+# --------------------------------------------------------------------------- MIDI
+def read_midi(path: str | os.PathLike[str]) -> Score:
+    """Read a standard MIDI file into a :class:`Score` (rules in the module docstring).
+
+    Raises
+    ------
+    ConfigError
+        The file is missing or not a standard MIDI file.
+    """
+    import mido
+
+    p = Path(path)
+    source = str(p)
+    if not p.is_file():
+        raise ConfigError("file not found" if not p.exists() else "is a folder, expected a "
+                          "MIDI file", source=source)
+    try:
+        midi = mido.MidiFile(p)
+    except (OSError, EOFError, ValueError, KeyError, IndexError) as exc:
+        raise ConfigError(f"not a readable standard MIDI file ({exc})", source=source) from None
+    if midi.type == 2:
+        raise ConfigError("MIDI type 2 (independent sequences) is not supported; "
+                          "save as type 0 or 1", source=source)
+    tpq = midi.ticks_per_beat
+    if not isinstance(tpq, int) or tpq <= 0:
+        raise ConfigError(f"ticks per beat = {tpq!r}: must be a positive whole number "
+                          "(SMPTE time division is not supported)", source=source)
+
+    # Exact tick -> seconds through the tempo map: integer ticks times microseconds.
+    tick = 0
+    seg_tick, seg_us, tempo = 0, 0, _DEFAULT_TEMPO_US  # segment start tick, its time in us*tpq
+
+    def seconds(t: int) -> float:
+        return (seg_us + (t - seg_tick) * tempo) / (tpq * 1e6)
+
+    held: dict[tuple[int, int], list[int]] = {}   # (channel, key) -> indices into `notes`
+    notes: list[dict] = []
+    pedal: list[PedalChange] = []
+    for msg in mido.merge_tracks(midi.tracks):
+        tick += msg.time
+        if msg.type == "set_tempo":
+            seg_us += (tick - seg_tick) * tempo
+            seg_tick, tempo = tick, msg.tempo
+        elif msg.type == "note_on" and msg.velocity > 0:
+            key = (msg.channel, msg.note)
+            now = seconds(tick)
+            for i in held.pop(key, []):       # struck again while held: release it now
+                notes[i]["release_s"] = now
+            notes.append({"time_s": now, "note": midi_to_note(msg.note),
+                          "velocity": msg.velocity / 127.0, "release_s": None})
+            held[key] = [len(notes) - 1]
+        elif msg.type == "note_off" or (msg.type == "note_on" and msg.velocity == 0):
+            for i in held.pop((msg.channel, msg.note), []):
+                notes[i]["release_s"] = seconds(tick)
+        elif msg.type == "control_change" and msg.control == 64:
+            pedal.append(PedalChange(seconds(tick), msg.value / 127.0))
+    strikes = [Strike(n["time_s"], n["note"], velocity=n["velocity"], release_s=n["release_s"])
+               for n in notes]
+    strikes.sort(key=lambda s: s.time_s)
+    pedal.sort(key=lambda c: c.time_s)
+    return Score(tuple(strikes), tuple(pedal), None, source)
+
+
+def read_events(path: str | os.PathLike[str]) -> Score:
+    """Read an event file by its suffix: ``.toml`` (ours) or ``.mid``/``.midi``."""
+    suffix = Path(path).suffix.lower()
+    if suffix == ".toml":
+        return read_toml_events(path)
+    if suffix in (".mid", ".midi", ".smf"):
+        return read_midi(path)
+    raise ConfigError(
+        f"unknown event file type {suffix or '(none)'!r}: use a .toml event list or a "
+        ".mid standard MIDI file", source=str(path)
+    )
