@@ -387,3 +387,18 @@ def play(samples: np.ndarray, sample_rate: int, *, blocking: bool = True) -> Non
         sd.play(arr, samplerate=int(sample_rate), blocking=blocking)
     except Exception as exc:  # noqa: BLE001  (PortAudio reports errors of its own type)
         raise AudioError(f"playback failed: {exc}") from None
+
+
+def write_bytes(path: str | os.PathLike[str], data: bytes, *, force: bool = False) -> Path:
+    """Write a non-audio output (TOML, CSV, PNG, JSON) atomically, refusing to overwrite.
+
+    Same guarantees as :func:`write_wav`: the target appears whole or not at all,
+    and an existing file is kept unless ``force``.
+    """
+    target = Path(path)
+
+    def write(tmp: Path) -> None:
+        tmp.write_bytes(data)
+
+    suffix = target.suffix or ".out"
+    return _atomic_write(target, suffix, write, force=force)

@@ -12,6 +12,8 @@ from synth.cli.common import format_table, handle_errors, print_json
 from synth.errors import ConfigError
 from synth.physics.bar_fe import BarModes, solve_bar
 from synth.physics.instrument import BarFile, Instrument, load_design
+import numpy as np
+
 from synth.pitch import nearest_note
 
 FileArg = Annotated[Path, typer.Argument(help="A single-bar file or an instrument preset (TOML).",
@@ -19,19 +21,23 @@ FileArg = Annotated[Path, typer.Argument(help="A single-bar file or an instrumen
 
 
 def resolve_bar(design: Instrument | BarFile, note: str | None):
-    """Return (label, geometry, material, reference_hz) for a bar file or a preset note."""
+    """Return (label, geometry, material, reference_hz) for a bar file or a preset note.
+
+    The material is taken at the file's ``temperature_c`` (default 20 C).
+    """
     if isinstance(design, Instrument):
         if note is None:
             raise ConfigError(
                 "is an instrument preset: name the bar with --note (range "
                 f"{design.notes[0]}..{design.notes[-1]})", source=design.source)
         name = design.check_note(note)
-        return name, design.bar(name), design.material, design.reference_pitch_hz
+        return (name, design.bar(name), design.material.at_temperature(design.temperature_c),
+                design.reference_pitch_hz)
     if note is not None:
         raise ConfigError("is a single-bar file; --note applies to instrument presets only",
                           source=design.source, key="--note")
-    return design.note or design.name, design.geometry, design.material, (
-        design.reference_pitch_hz)
+    return (design.note or design.name, design.geometry,
+            design.material.at_temperature(design.temperature_c), design.reference_pitch_hz)
 
 
 def partial_rows(result: BarModes, reference_hz: float) -> list[dict]:
@@ -111,3 +117,264 @@ def partials_command(
     degree = result.modes[0].mesh.degree
     typer.echo(f"A4 = {ref:g} Hz; mesh {result.n_elements} elements of degree {degree}, last "
                f"refinement moved frequencies by {result.change * 100:.4f} %")
+
+
+# --------------------------------------------------------------------------------------
+# tune
+# --------------------------------------------------------------------------------------
+
+
+def _parse_ratios(text: str | None) -> tuple[float, ...] | None:
+    if text is None:
+        return None
+    try:
+        vals = tuple(float(v) for v in text.replace(":", ",").split(",") if v.strip())
+    except ValueError:
+        raise ConfigError(f"= {text!r}: write ratios as numbers, e.g. 1:4:10 or 1,3,6",
+                          source="--ratios") from None
+    if len(vals) < 1 or abs(vals[0] - 1) > 1e-12 or any(b <= a for a, b in zip(vals, vals[1:])):
+        raise ConfigError(f"= {text!r}: must start at 1 and increase, e.g. 1:4:10",
+                          source="--ratios")
+    if len(vals) > 5:
+        raise ConfigError(f"= {text!r}: at most 5 partials", source="--ratios")
+    return vals
+
+
+def _default_out(preset: Path, name: str) -> Path:
+    return Path("renders") / preset.stem / name
+
+
+@app.command("tune")
+@handle_errors
+def tune_command(
+    preset: Annotated[Path, typer.Argument(help="Instrument preset (TOML) with [blank] and "
+                                                "[undercut] tables.", show_default=False)],
+    out: Annotated[Path | None, typer.Option(
+        help="Write the tuned instrument (the preset with every solved bar in [bars]) here.")
+    ] = None,
+    note: Annotated[list[str] | None, typer.Option(
+        help="Tune only this note (repeat for several). Default: the whole range.")] = None,
+    ratios: Annotated[str | None, typer.Option(
+        help="Target ratios of vertical partials 1..n, e.g. 1:4:10, 1:3:6 or 1:4:10.08 "
+             "(default: the preset's target_ratios).")] = None,
+    shop_c: Annotated[float | None, typer.Option(
+        min=-30, max=60, help="Shop temperature while tuning, C: reports what each bar must "
+                              "read there to be in tune at the preset's temperature_c.")] = None,
+    force: Annotated[bool, typer.Option(help="Overwrite --out if it exists.")] = False,
+    json_out: Annotated[bool, typer.Option("--json", help="Print JSON on stdout.")] = False,
+) -> None:
+    """Solve every bar's length and undercut so partials 1-3 land on the target ratios.
+
+    Each bar is tuned by least squares (scipy, with bounds) on cents off target,
+    warm-started from its lower neighbour, then re-solved on a refined mesh; the
+    residuals shown are from that re-solve. Targets: +-1 cent for the fundamental,
+    +-3 cents above. A bar that cannot reach its targets is reported with the
+    constraint that binds.
+    """
+    import time
+
+    from synth import io
+    from synth.cli.common import Progress
+    from synth.physics.instrument import load_instrument
+    from synth.physics.tuning import temperature_shift_cents, tune_instrument, tuned_preset
+
+    inst = load_instrument(preset)
+    notes = [inst.check_note(n) for n in note] if note else list(inst.notes)
+    target = _parse_ratios(ratios)
+    if out is not None:
+        io.check_writable(out, force=force)
+    t0 = time.perf_counter()
+    with Progress(len(notes), "tuning") as step:
+        results = tune_instrument(inst, notes, ratios=target, progress=lambda n: step(1, n))
+    elapsed = time.perf_counter() - t0
+    shop = {}
+    if shop_c is not None:
+        mat = inst.material.at_temperature(inst.temperature_c)
+        for r in results:
+            shop[r.spec.note] = temperature_shift_cents(r.geometry, mat, inst.temperature_c,
+                                                        shop_c, len(r.spec.ratios))
+    if out is not None:
+        import tomli_w
+
+        header = (f"# {inst.name}: tuned by barwright from {preset.name}\n"
+                  f"# every [bars.*] table below is a solved bar; sizes in metres\n")
+        text = header + tomli_w.dumps(tuned_preset(inst, results))
+        io.write_bytes(out, text.encode("utf-8"), force=force)
+    records = []
+    for r in results:
+        g = r.geometry
+        records.append({
+            "note": r.spec.note, "target_hz": float(r.spec.fundamental_hz),
+            "length_m": g.length_m, "width_m": g.width_m, "thickness_m": g.thickness_m,
+            "undercut": g.undercut.to_table() if g.undercut else None,
+            "thinnest_m": r.thinnest_m, "residual_cents": [float(c) for c in r.residual_cents],
+            "reachable": r.reachable, "message": r.message, "solves": r.n_solves,
+            "seconds": r.seconds,
+            **({"shop_reading_cents": [float(c) for c in shop[r.spec.note]]}
+               if r.spec.note in shop else {}),
+        })
+    if json_out:
+        print_json({"bars": records, "seconds": elapsed, "out": str(out) if out else None})
+        return
+    n_p = max(len(r.spec.ratios) for r in results)
+    heads = ["note", "target Hz", "length mm", "depth mm", "span mm", "thinnest mm"]
+    heads += [f"p{i + 1} cents" for i in range(n_p)]
+    if shop:
+        heads.append(f"at {shop_c:g} C p1")
+    heads.append("status")
+    rows = []
+    for r, rec in zip(results, records, strict=True):
+        uc = r.geometry.undercut
+        depth = getattr(uc, "depth_m", None)
+        span = getattr(uc, "span_m", None)
+        row = [rec["note"], f"{rec['target_hz']:.2f}", f"{rec['length_m'] * 1e3:.1f}",
+               "-" if depth is None else f"{depth * 1e3:.2f}",
+               "-" if span is None else f"{span * 1e3:.1f}", f"{rec['thinnest_m'] * 1e3:.2f}"]
+        row += [f"{c + 0.0:+.2f}" for c in np.round(r.residual_cents, 2)] + [""] * (n_p - len(r.residual_cents))
+        if shop:
+            row.append(f"{shop[r.spec.note][0]:+.2f}")
+        row.append(r.message)
+        rows.append(row)
+    typer.echo(format_table(heads, rows, align="l" + "r" * (len(heads) - 2) + "l"))
+    import statistics
+
+    bad = sum(not r.reachable for r in results)
+    typer.echo(
+        f"{len(results)} bars in {elapsed:.2f} s (median {statistics.median(r.seconds for r in results) * 1e3:.0f} ms"
+        f" and {statistics.median(r.n_solves for r in results):.0f} solves per bar); "
+        f"{len(results) - bad} on target, {bad} not reachable; A4 = {inst.reference_pitch_hz:g} Hz "
+        f"at {inst.temperature_c:g} C")
+    if shop:
+        typer.echo(f"'at {shop_c:g} C': what partial 1 reads in the shop when the bar is in tune "
+                   f"at {inst.temperature_c:g} C.")
+    if out is not None:
+        typer.echo(f"wrote {out}")
+
+
+# --------------------------------------------------------------------------------------
+# grind
+# --------------------------------------------------------------------------------------
+
+
+@app.command("grind")
+@handle_errors
+def grind_command(
+    file: FileArg,
+    note: Annotated[str | None, typer.Option(help="Note of the bar in an instrument preset.")
+                    ] = None,
+    stations: Annotated[int, typer.Option(min=5, max=201, help="Band centres along the bar."
+                                          )] = 21,
+    band_mm: Annotated[float, typer.Option(min=1.0, max=100.0,
+                                           help="Width of the ground band, mm.")] = 10.0,
+    removal_mm: Annotated[float, typer.Option(min=0.001, max=2.0,
+                                              help="Depth of metal removed, mm.")] = 0.1,
+    partials: Annotated[int, typer.Option(min=1, max=5, help="Vertical partials to show.")] = 3,
+    torsion: Annotated[bool, typer.Option(help="Also show torsional mode 1.")] = False,
+    out: Annotated[Path | None, typer.Option(
+        help="PNG plot path (default renders/<file>/grind-<bar>.png).")] = None,
+    force: Annotated[bool, typer.Option(help="Overwrite the PNG if it exists.")] = False,
+    json_out: Annotated[bool, typer.Option("--json", help="Print JSON on stdout.")] = False,
+) -> None:
+    """Grind map: cents each partial moves per 0.1 mm removed in a band at each station.
+
+    Negative: that partial goes flat (metal removed where the bar bends most);
+    positive: it goes sharp (metal removed where it mainly moves, near the ends).
+    First-order Rayleigh-quotient sensitivities of the finite-element modes.
+    Wear eye, face and hearing protection at the grinder; keep aluminium dust apart
+    from steel grinding.
+    """
+    from synth import io
+    from synth.physics.tuning import grind_map
+    from synth.reports.plots import grind_map_png
+
+    design = load_design(file)
+    label, geometry, material, _ = resolve_bar(design, note)
+    png = out or _default_out(file, f"grind-{label.replace(' ', '_').replace('#', 's')}.png")
+    png.parent.mkdir(parents=True, exist_ok=True)
+    io.check_writable(png, force=force)
+    res = solve_bar(geometry, material, n_vertical=max(3, partials), n_lateral=0,
+                    n_torsional=1 if torsion else 0)
+    kinds = ("vertical", "torsional") if torsion else ("vertical",)
+    gm = grind_map(res, n_stations=stations, band_m=band_mm * 1e-3, removal_m=removal_mm * 1e-3,
+                   kinds=kinds, max_order=partials)
+    keep = [j for j, (k, o) in enumerate(gm.modes) if k == "vertical" or o == 1]
+    io.write_bytes(png, grind_map_png(gm, geometry, title=f"{label}: grind map",
+                                      cord_holes_m=res.vertical[0].nodes_m), force=force)
+    if json_out:
+        print_json({"bar": label, "band_m": gm.band_m, "removal_m": gm.removal_m,
+                    "modes": [{"kind": gm.modes[j][0], "order": gm.modes[j][1],
+                               "frequency_hz": gm.frequencies_hz[j]} for j in keep],
+                    "stations": [{"x_m": x, "thickness_m": t,
+                                  "cents": [gm.cents[i, j] for j in keep]}
+                                 for i, (x, t) in enumerate(zip(gm.x_m, gm.thickness_m))],
+                    "plot": str(png)})
+        return
+    heads = ["x mm", "thick mm"] + [f"{gm.modes[j][0][:4]} {gm.modes[j][1]} c" for j in keep]
+    rows = [[f"{x * 1e3:.1f}", f"{t * 1e3:.2f}", *[f"{gm.cents[i, j]:+.3f}" for j in keep]]
+            for i, (x, t) in enumerate(zip(gm.x_m, gm.thickness_m))]
+    typer.echo(f"{label}: cents per {removal_mm:g} mm removed over a {band_mm:g} mm band")
+    typer.echo(format_table(heads, rows))
+    typer.echo(f"plot: {png}")
+
+
+# --------------------------------------------------------------------------------------
+# cutlist
+# --------------------------------------------------------------------------------------
+
+
+@app.command("cutlist")
+@handle_errors
+def cutlist_command(
+    preset: Annotated[Path, typer.Argument(help="Tuned instrument preset (with [bars]).",
+                                           show_default=False)],
+    out: Annotated[Path | None, typer.Option(
+        help="Folder for cutlist.csv and profiles.png (default renders/<preset>/).")] = None,
+    force: Annotated[bool, typer.Option(help="Overwrite existing files.")] = False,
+    json_out: Annotated[bool, typer.Option("--json", help="Print JSON on stdout.")] = False,
+) -> None:
+    """The build sheet: length, undercut stations and cord holes for every bar.
+
+    Cord holes sit at the nodes of vertical mode 1 of the actual undercut bar.
+    Station thicknesses are every 10 % of the length from the left end.
+    """
+    from synth import io
+    from synth.cli.common import Progress
+    from synth.physics.instrument import load_instrument
+    from synth.reports.cutlist import SAFETY, cut_rows, cutlist_csv
+    from synth.reports.plots import profile_sheet_png
+
+    inst = load_instrument(preset)
+    folder = out or _default_out(preset, "")
+    folder.mkdir(parents=True, exist_ok=True)
+    csv_path, png_path = folder / "cutlist.csv", folder / "profiles.png"
+    for p in (csv_path, png_path):
+        io.check_writable(p, force=force)
+    missing = [n for n in inst.notes if n not in inst.bars]
+    if missing:
+        raise ConfigError(f"bars.{missing[0]}: {len(missing)} bar(s) have no geometry; run "
+                          "`barwright tune` with --out first", source=inst.source)
+    with Progress(len(inst.notes), "solving") as step:
+        rows = cut_rows(inst, progress=lambda n: step(1, n))
+    io.write_bytes(csv_path, cutlist_csv(rows).encode("utf-8"), force=force)
+    io.write_bytes(png_path, profile_sheet_png(
+        [(r.note, inst.bar(r.note), r.cord_holes_m) for r in rows],
+        title=f"{inst.name}: bar profiles (circles: cord holes)"), force=force)
+    if json_out:
+        print_json({"bars": [r.__dict__ for r in rows], "csv": str(csv_path),
+                    "png": str(png_path)})
+        return
+    heads = ["note", "length mm", "w x t mm", "thinnest", "t@20%", "t@30%", "t@40%", "t@50%",
+             "cord holes mm from each end", "cord %L", "mass g"]
+    table = []
+    for r in rows:
+        st = r.station_thickness_m
+        table.append([
+            r.note, f"{r.length_m * 1e3:.1f}",
+            f"{r.width_m * 1e3:.1f} x {r.thickness_m * 1e3:.2f}", f"{r.thinnest_m * 1e3:.2f}",
+            *[f"{st[i] * 1e3:.2f}" for i in (2, 3, 4, 5)],
+            f"{r.cord_holes_m[0] * 1e3:.1f} / {(r.length_m - r.cord_holes_m[-1]) * 1e3:.1f}",
+            f"{r.cord_fraction * 100:.2f}", f"{r.mass_kg * 1e3:.0f}",
+        ])
+    typer.echo(format_table(heads, table))
+    typer.echo(f"wrote {csv_path} and {png_path}")
+    typer.echo(SAFETY)

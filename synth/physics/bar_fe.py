@@ -185,15 +185,27 @@ class Mesh:
         return e * self.degree + np.arange(self.degree + 1)[None, :]
 
 
-def make_mesh(bar: BarGeometry, n_elements: int, degree: int = 3) -> Mesh:
+def segment_counts(bar: BarGeometry, n_elements: int) -> tuple[int, ...]:
+    """Elements per segment between kinks, in proportion to segment length (>= 1)."""
+    cuts = [0.0, *bar.breakpoints(), bar.length_m]
+    seg = np.diff(cuts)
+    return tuple(int(c) for c in np.maximum(1, np.round(n_elements * seg / bar.length_m)))
+
+
+def make_mesh(bar: BarGeometry, n_elements: int, degree: int = 5,
+              counts: tuple[int, ...] | None = None) -> Mesh:
     """Mesh the bar with about ``n_elements`` elements, nodes on every kink.
 
     Elements are shared among the segments between kinks in proportion to their
     length (at least one each), so a symmetric profile gets a symmetric mesh.
+    ``counts`` fixes the elements per segment instead, so that a mesh follows a
+    changing profile continuously (inside an optimiser).
     """
     cuts = [0.0, *bar.breakpoints(), bar.length_m]
-    seg = np.diff(cuts)
-    counts = np.maximum(1, np.round(n_elements * seg / bar.length_m).astype(int))
+    if counts is None:
+        counts = segment_counts(bar, n_elements)
+    elif len(counts) != len(cuts) - 1:
+        raise ModelError(f"{len(counts)} segment counts for {len(cuts) - 1} segments")
     edges = [0.0]
     for (a, b), c in zip(zip(cuts[:-1], cuts[1:], strict=True), counts, strict=True):
         edges.extend(np.linspace(a, b, c + 1)[1:])
@@ -337,11 +349,11 @@ class Mode:
         """
         return _evaluate(self.mesh, self.values, x, derivative)
 
-    def rotation_at(self, x) -> np.ndarray:
-        """Section rotation psi of a bending mode at x (rad per unit q)."""
+    def rotation_at(self, x, derivative: int = 0) -> np.ndarray:
+        """Section rotation psi of a bending mode at x (rad per unit q), or d psi/dx."""
         if self.rotation is None:
             raise ModelError(f"a {self.kind} mode has no section rotation")
-        return _evaluate(self.mesh, self.rotation, x, 0)
+        return _evaluate(self.mesh, self.rotation, x, derivative)
 
     def vertical_displacement_at(self, x, y_m: float = 0.0) -> np.ndarray:
         """Vertical motion at a point of the top face, per unit modal coordinate.
@@ -626,6 +638,20 @@ def _package(bar, material, mesh, res, sec, change) -> BarModes:
             modes.append(Mode(kind, j + 1, float(f), nodes[j], float(gm[j]), mesh, vals[j],
                               None if rots is None else rots[j], vec[:, j]))
     return BarModes(bar, material, tuple(modes), mesh.n_elements, change, mass)
+
+
+def vertical_frequencies(bar: BarGeometry, material: Material, n_modes: int, *,
+                         n_elements: int = 12, degree: int = 5,
+                         counts: tuple[int, ...] | None = None) -> np.ndarray:
+    """Frequencies (Hz) of the first ``n_modes`` vertical modes on a fixed mesh.
+
+    The fast path for optimisers: no refinement, no mode shapes.  Check the mesh
+    once with :func:`solve_bar` and verify the final design with it too.
+    """
+    mesh = make_mesh(bar, n_elements, degree, counts)
+    with one_blas_thread():
+        res, _ = _solve_once(bar, material, mesh, {"vertical": n_modes}, vectors=False)
+    return res["vertical"][0]
 
 
 def dense_reference_frequencies(bar: BarGeometry, material: Material, n_elements: int,

@@ -358,3 +358,116 @@ def parse_geometry(sec: Section, defaults: dict | None = None) -> BarGeometry:
         uc = defaults.get("undercut")
     bar = BarGeometry(length, width, thick, uc, min_t)
     return bar.validate(uc_sec)
+
+
+FAMILY_KEYS = ("family", "exponent", "ramp", "flat_fraction", "span_fraction",
+               "depth_fraction", "stations", "smoothness")
+
+
+@dataclass(frozen=True)
+class UndercutFamily:
+    """An undercut shape with free size parameters, for the tuner.
+
+    The tuner varies the bar length, the arch depth (as a fraction of the metal
+    available above the minimum thickness) and the arch span (as a fraction of
+    the length); the shape parameters here stay fixed.
+
+    Attributes
+    ----------
+    family : {"parabolic", "power", "flat", "free"}
+        ``free`` is a symmetric station profile whose thicknesses are all solved,
+        held smooth by a penalty on their second differences.
+    exponent : float
+        Arch exponent (2 for parabolic).
+    ramp : {"straight", "round"}
+        Ramps of the flat-bottomed arch.
+    flat_fraction : float
+        Flat length over span of the flat-bottomed arch.
+    span_fraction, depth_fraction : float
+        Starting (or, when fewer targets than unknowns, fixed) values.
+    stations : int
+        Stations over half the span of a free profile (centre included).
+    smoothness : float
+        Weight of the free profile's smoothness penalty (larger: smoother).
+    """
+
+    family: str = "power"
+    exponent: float = 4.0
+    ramp: str = "round"
+    flat_fraction: float = 0.3
+    span_fraction: float = 0.6
+    depth_fraction: float = 0.6
+    stations: int = 6
+    smoothness: float = 1.0
+
+    def build(self, length_m: float, depth_m: float, span_m: float) -> Undercut:
+        """The parametric undercut of this family at the given sizes."""
+        if self.family == "flat":
+            return FlatArchUndercut(depth_m, span_m, self.flat_fraction * span_m, self.ramp)
+        if self.family in ("parabolic", "power"):
+            return ArchUndercut(depth_m, span_m, 2.0 if self.family == "parabolic"
+                                else self.exponent)
+        raise ValueError(f"family {self.family!r} has no single depth/span form")
+
+    def to_table(self) -> dict:
+        """TOML table of the family."""
+        table: dict = {"family": self.family, "span_fraction": self.span_fraction,
+                       "depth_fraction": self.depth_fraction}
+        if self.family == "power":
+            table["exponent"] = self.exponent
+        if self.family == "flat":
+            table.update(flat_fraction=self.flat_fraction, ramp=self.ramp)
+        if self.family == "free":
+            table.update(stations=self.stations, smoothness=self.smoothness)
+        return table
+
+
+def parse_family(sec: Section) -> UndercutFamily:
+    """Read an instrument's ``[undercut]`` family table."""
+    sec.check_keys(FAMILY_KEYS)
+    family = sec.string("family", "power", choices=(*UNDERCUT_FAMILIES, "free"))
+    if family != "power" and "exponent" in sec:
+        raise sec.error("exponent", 'only with family = "power"')
+    return UndercutFamily(
+        family=family,
+        exponent=sec.number("exponent", 4.0, ge=1.0, le=12.0),
+        ramp=sec.string("ramp", "round", choices=("straight", "round")),
+        flat_fraction=sec.number("flat_fraction", 0.3, ge=0.0, lt=0.95),
+        span_fraction=sec.number("span_fraction", 0.6, gt=0.1, le=0.98),
+        depth_fraction=sec.number("depth_fraction", 0.6, gt=0.0, le=1.0),
+        stations=sec.integer("stations", 6, ge=3, le=24),
+        smoothness=sec.number("smoothness", 1.0, ge=0.0),
+    )
+
+
+@dataclass(frozen=True)
+class GroundUndercut(Undercut):
+    """An undercut with extra metal ground away in flat-bottomed bands.
+
+    Models what a tuner does at the grinder: ``grinds`` holds (centre_m,
+    width_m, depth_m) bands removed from the underside on top of ``base``.
+    """
+
+    base: Undercut | None
+    grinds: tuple[tuple[float, float, float], ...]
+
+    def thickness(self, x, blank_thickness_m, length_m):
+        x = np.asarray(x, dtype=float)
+        h = (np.full_like(x, blank_thickness_m) if self.base is None
+             else self.base.thickness(x, blank_thickness_m, length_m))
+        for c, w, d in self.grinds:
+            h = h - np.where(np.abs(x - c) < 0.5 * w, d, 0.0)
+        return h
+
+    def breakpoints(self, length_m):
+        pts = [] if self.base is None else list(self.base.breakpoints(length_m))
+        for c, w, _ in self.grinds:
+            pts += [c - 0.5 * w, c + 0.5 * w]
+        return pts
+
+    def describe(self):
+        base = "no undercut" if self.base is None else self.base.describe()
+        return f"{base}, {len(self.grinds)} ground band(s)"
+
+    def to_table(self):
+        raise ValueError("a ground profile is written as measured stations, not as a family")

@@ -30,8 +30,10 @@ An **instrument preset** describes a range of bars::
     min_thickness_m = 0.0025
 
     [undercut]                       # the family the tuner solves (see synth.physics.tuning)
-    family = "power"
-    exponent = 4.0
+    family = "power"                 # "parabolic", "power", "flat" or "free"
+    exponent = 4.0                   # power only
+    span_fraction = 0.6              # starting arch span / length
+    depth_fraction = 0.6             # starting depth / (thickness - min thickness)
 
     [bars.F3]                        # per-note geometry (written by `barwright tune`)
     length_m = 0.41
@@ -53,8 +55,9 @@ from synth.errors import ConfigError
 from synth.physics.geometry import (
     DEFAULT_MIN_THICKNESS_M,
     BarGeometry,
+    UndercutFamily,
+    parse_family,
     parse_geometry,
-    parse_undercut,
 )
 from synth.physics.materials import Material, load_material
 from synth.pitch import DEFAULT_REFERENCE_HZ, canonical_note, note_range, note_to_hz, note_to_midi
@@ -113,7 +116,7 @@ class Instrument:
     notes: tuple[str, ...]
     target_ratios: tuple[float, ...]
     blank: Blank | None
-    undercut_family: dict | None
+    undercut_family: UndercutFamily | None
     bars: dict[str, BarGeometry]
     sections: dict[str, Section] = field(default_factory=dict, compare=False)
     raw: dict = field(default_factory=dict, compare=False, repr=False)
@@ -261,20 +264,8 @@ def _instrument(sec: Section, data: dict) -> Instrument:
         if blank.min_thickness_m >= min(blank.thickness_m):
             raise bsec.error("min_thickness_m", "must be below the blank thickness")
 
-    family = None
     usec = sec.section("undercut", None)
-    if usec is not None:
-        family = dict(usec.data)
-        probe = dict(family)
-        # Check the family table with placeholder sizes: the tuner fills them in.
-        probe.setdefault("depth_m", 1.0)
-        probe.setdefault("span_m", 1.0)
-        if probe.get("family") == "flat":
-            probe.setdefault("flat_m", 0.5)
-        if "family" not in probe:
-            raise usec.error(None, "the tuner needs a parametric family (family = \"parabolic\", "
-                                   "\"power\" or \"flat\")")
-        parse_undercut(Section(probe, sec.source, "undercut"))
+    family = parse_family(usec) if usec is not None else None
 
     bars: dict[str, BarGeometry] = {}
     bsecs = sec.section("bars", None)

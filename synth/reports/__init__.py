@@ -1,0 +1,1 @@
+"""Reports: sustain across the range, chord decay, comparisons, build sheets, plots."""

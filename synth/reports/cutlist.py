@@ -1,0 +1,99 @@
+"""The build sheet: what to cut for every bar of a tuned instrument.
+
+Per bar: length, blank, arch, thinnest point, thickness at fixed stations (every
+10 % of the length, for checking with calipers), and the cord holes at the nodes
+of vertical mode 1 of the actual undercut bar (not the 22.4 % rule of a uniform
+bar).
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+from dataclasses import dataclass
+
+import numpy as np
+
+from synth.physics.bar_fe import solve_bar
+from synth.physics.instrument import Instrument
+
+STATION_FRACTIONS = tuple(i / 10 for i in range(11))
+
+SAFETY = (
+    "Workshop safety: eye, face and hearing protection; clamp the work; blades and wheels "
+    "rated for non-ferrous metal; keep aluminium dust apart from steel grinding (fire and "
+    "explosion risk); deburr edges and holes. Local codes and licensed practice take precedence."
+)
+
+
+@dataclass(frozen=True)
+class CutRow:
+    """One bar of the build sheet (SI units)."""
+
+    note: str
+    target_hz: float
+    length_m: float
+    width_m: float
+    thickness_m: float
+    undercut: str
+    thinnest_m: float
+    station_thickness_m: tuple[float, ...]
+    cord_holes_m: tuple[float, ...]
+    mass_kg: float
+    fundamental_hz: float
+    tube_length_m: float | None = None
+
+    @property
+    def cord_fraction(self) -> float:
+        """Left cord hole as a fraction of the length."""
+        return self.cord_holes_m[0] / self.length_m if self.cord_holes_m else float("nan")
+
+
+def cut_rows(instrument: Instrument, notes: list[str] | None = None, progress=None,
+             tube_lengths: dict[str, float] | None = None) -> list[CutRow]:
+    """Solve every bar of the preset and collect what the shop needs to cut it."""
+    rows = []
+    material = instrument.material.at_temperature(instrument.temperature_c)
+    for note in notes or instrument.notes:
+        geo = instrument.bar(note)
+        res = solve_bar(geo, material, n_vertical=3, n_lateral=0, n_torsional=0)
+        stations = geo.thickness_at(np.array(STATION_FRACTIONS) * geo.length_m)
+        rows.append(CutRow(
+            note=note,
+            target_hz=instrument.target_hz(note),
+            length_m=geo.length_m,
+            width_m=geo.width_m,
+            thickness_m=geo.thickness_m,
+            undercut=geo.undercut.describe() if geo.undercut else "none",
+            thinnest_m=geo.thinnest_m(),
+            station_thickness_m=tuple(float(v) for v in stations),
+            cord_holes_m=res.vertical[0].nodes_m,
+            mass_kg=res.mass_kg,
+            fundamental_hz=res.fundamental_hz,
+            tube_length_m=(tube_lengths or {}).get(note),
+        ))
+        if progress is not None:
+            progress(note)
+    return rows
+
+
+def cutlist_csv(rows: list[CutRow]) -> str:
+    """The build sheet as CSV text, lengths in millimetres."""
+    buf = io.StringIO()
+    w = csv.writer(buf, lineterminator="\n")
+    head = ["note", "target_hz", "length_mm", "width_mm", "thickness_mm", "undercut",
+            "thinnest_mm", "cord_hole_left_mm", "cord_hole_right_mm", "cord_fraction",
+            "mass_g", "tube_length_mm"]
+    head += [f"t_at_{int(round(f * 100))}pct_mm" for f in STATION_FRACTIONS]
+    w.writerow(head)
+    for r in rows:
+        holes = list(r.cord_holes_m) + [float("nan")] * 2
+        w.writerow([
+            r.note, f"{r.target_hz:.4f}", f"{r.length_m * 1e3:.2f}", f"{r.width_m * 1e3:.2f}",
+            f"{r.thickness_m * 1e3:.3f}", r.undercut, f"{r.thinnest_m * 1e3:.3f}",
+            f"{holes[0] * 1e3:.2f}", f"{holes[1] * 1e3:.2f}", f"{r.cord_fraction:.4f}",
+            f"{r.mass_kg * 1e3:.1f}",
+            "" if r.tube_length_m is None else f"{r.tube_length_m * 1e3:.2f}",
+            *[f"{t * 1e3:.3f}" for t in r.station_thickness_m],
+        ])
+    return buf.getvalue()

@@ -1,0 +1,97 @@
+"""PNG figures (matplotlib, Agg backend): grind maps and profile drawings.
+
+Functions return PNG bytes; the caller decides where they go.
+"""
+
+from __future__ import annotations
+
+import io as _bytes_io
+
+import numpy as np
+
+from synth.physics.geometry import BarGeometry
+from synth.physics.tuning import GrindMap
+
+
+def _pyplot():
+    import matplotlib
+
+    matplotlib.use("Agg", force=True)
+    import matplotlib.pyplot as plt
+
+    return plt
+
+
+def _png(fig) -> bytes:
+    buf = _bytes_io.BytesIO()
+    fig.savefig(buf, format="png", dpi=130, bbox_inches="tight")
+    _pyplot().close(fig)
+    return buf.getvalue()
+
+
+def draw_profile(ax, geometry: BarGeometry, *, cord_holes_m=(), label: str | None = None,
+                 scale_mm: bool = True) -> None:
+    """Side view of a bar: flat top, undercut below, cord holes marked."""
+    L = geometry.length_m
+    x = np.unique(np.concatenate([np.linspace(0, L, 600), geometry.breakpoints()]))
+    h = geometry.thickness_at(x)
+    k = 1e3 if scale_mm else 1.0
+    top = np.full_like(x, geometry.thickness_m)
+    ax.fill_between(x * k, (top - h) * k, top * k, color="0.72", lw=0)
+    ax.plot(x * k, (top - h) * k, color="0.2", lw=1.0)
+    ax.plot(x * k, top * k, color="0.2", lw=1.0)
+    ax.plot([0, 0], [0, geometry.thickness_m * k], color="0.2", lw=1.0)
+    ax.plot([L * k, L * k], [0, geometry.thickness_m * k], color="0.2", lw=1.0)
+    for xc in cord_holes_m:
+        ax.plot([xc * k], [0.5 * geometry.thickness_m * k], marker="o", ms=4, mfc="white",
+                mec="0.1")
+    ax.set_aspect("auto")
+    if label:
+        ax.set_title(label, fontsize=8, loc="left")
+
+
+def grind_map_png(gm: GrindMap, geometry: BarGeometry, *, title: str = "",
+                  cord_holes_m=()) -> bytes:
+    """Profile drawing above, one sensitivity curve per partial below."""
+    plt = _pyplot()
+    fig, (ax0, ax1) = plt.subplots(2, 1, figsize=(8, 6), sharex=True,
+                                   gridspec_kw={"height_ratios": [1, 2.2]})
+    draw_profile(ax0, geometry, cord_holes_m=cord_holes_m)
+    ax0.set_ylabel("thickness mm")
+    ax0.set_title(title or "grind map", fontsize=10)
+    for j, (kind, order) in enumerate(gm.modes):
+        ax1.plot(gm.x_m * 1e3, gm.cents[:, j], marker=".", lw=1.4,
+                 label=f"{kind} {order} ({gm.frequencies_hz[j]:.0f} Hz)")
+    ax1.axhline(0.0, color="0.5", lw=0.8)
+    ax1.set_xlabel("band centre, mm from left end")
+    ax1.set_ylabel(f"cents per {gm.removal_m * 1e3:.2g} mm removed")
+    ax1.set_title(f"band {gm.band_m * 1e3:.0f} mm wide; below zero: that partial goes flat",
+                  fontsize=8, loc="left")
+    ax1.legend(fontsize=8)
+    ax1.grid(alpha=0.3)
+    return _png(fig)
+
+
+def profile_sheet_png(bars: list[tuple[str, BarGeometry, tuple[float, ...]]], *,
+                      title: str = "", columns: int = 4) -> bytes:
+    """A sheet of bar side views (note, geometry, cord holes) drawn to one length scale."""
+    plt = _pyplot()
+    n = len(bars)
+    rows = max(1, int(np.ceil(n / columns)))
+    fig, axes = plt.subplots(rows, columns, figsize=(3.2 * columns, 0.9 * rows + 0.6),
+                             squeeze=False)
+    longest = max(g.length_m for _, g, _ in bars) * 1e3
+    thickest = max(g.thickness_m for _, g, _ in bars) * 1e3
+    for ax, (note, geo, holes) in zip(axes.ravel(), bars, strict=False):
+        draw_profile(ax, geo, cord_holes_m=holes,
+                     label=f"{note}  L {geo.length_m * 1e3:.1f} mm  min "
+                           f"{geo.thinnest_m() * 1e3:.2f} mm")
+        ax.set_xlim(-2, longest + 2)
+        ax.set_ylim(-1, thickest + 1)
+        ax.tick_params(labelsize=6)
+    for ax in axes.ravel()[n:]:
+        ax.axis("off")
+    if title:
+        fig.suptitle(title, fontsize=10)
+    fig.tight_layout()
+    return _png(fig)
