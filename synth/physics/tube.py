@@ -596,6 +596,17 @@ def tube_length(frequency_hz: float, template: TubeSpec, *, temperature_c: float
     ModelError
         When the end corrections alone exceed the quarter (half) wavelength, i.e.
         the tube would need a length <= 0.
+
+    Notes
+    -----
+    The bar-over-mouth term is uncalibrated until ``gap_calibration`` has been
+    fitted, so cut a first tube a little long and trim it to pitch with its bar in
+    place (common practice, no source).
+
+    .. note:: Cutting and deburring tubes: wear eye and hearing protection, clamp
+       the tube, use a blade rated for non-ferrous metal, deburr the cut edge, and
+       keep fine aluminium dust away from steel grinding sparks (it is combustible;
+       physics.md section 14).
     """
     f = _positive(frequency_hz, "frequency_hz", "Hz")
     c = speed_of_sound(temperature_c)
