@@ -5,3 +5,4 @@ The order here is the order of ``barwright --help``.
 
 from synth.cli import cmd_bar  # noqa: F401  partials, tune, cutlist
 from synth.cli import cmd_bench  # noqa: F401  bench
+from synth.cli import cmd_demo  # noqa: F401  demo

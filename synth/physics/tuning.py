@@ -571,14 +571,14 @@ def tuned_preset(instrument: Instrument, results: list[TuneResult]) -> dict:
     for r in results:
         entry = dict(bars.get(r.spec.note, {}))
         geo = r.geometry.to_table()
-        entry["length_m"] = round(geo["length_m"], 7)
+        entry["length_m"] = round(geo["length_m"], 9)
         # width and thickness follow the blank grading; write them so a reader of
         # the file sees the whole bar.
-        entry["width_m"] = round(geo["width_m"], 7)
-        entry["thickness_m"] = round(geo["thickness_m"], 7)
+        entry["width_m"] = round(geo["width_m"], 9)
+        entry["thickness_m"] = round(geo["thickness_m"], 9)
         if "undercut" in geo:
-            entry["undercut"] = {k: (round(v, 7) if isinstance(v, float) else
-                                     [round(x, 7) for x in v] if isinstance(v, list) else v)
+            entry["undercut"] = {k: (round(v, 9) if isinstance(v, float) else
+                                     [round(x, 9) for x in v] if isinstance(v, list) else v)
                                  for k, v in geo["undercut"].items()}
         bars[r.spec.note] = entry
     table["bars"] = {n: bars[n] for n in instrument.notes if n in bars}
