@@ -299,6 +299,21 @@ class EnginePair:
     weight_tube: float
     reference_distance_m: float
 
+    @property
+    def frequency_hz(self) -> tuple[float, float]:
+        """``(f1, f2) = om / (2 pi)``, Hz (the engine's pair takes frequencies)."""
+        return (self.omega_rad_s[0] / (2.0 * math.pi), self.omega_rad_s[1] / (2.0 * math.pi))
+
+    @property
+    def amplitude(self) -> tuple[float, float]:
+        """Initial magnitudes ``(|a1|, |a2|)``, sqrt(J)."""
+        return (abs(self.initial_amplitudes[0]), abs(self.initial_amplitudes[1]))
+
+    @property
+    def phase_rad(self) -> tuple[float, float]:
+        """Initial phases of ``a1, a2``, rad (0 after a strike: displacement starts at 0)."""
+        return (cmath.phase(self.initial_amplitudes[0]), cmath.phase(self.initial_amplitudes[1]))
+
 
 def pressure_weight(radiation_decay_per_s: float, *, reference_distance_m: float = 1.0,
                     impedance_rayl: float = _Z0_20C) -> float:

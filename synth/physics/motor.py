@@ -233,27 +233,37 @@ def opening_fraction(motor: MotorSpec, time_s, *, phase_offset_deg: float = 0.0)
     return 1.0 - motor.block_fraction * np.abs(np.cos(theta))
 
 
-def block_times(start_sample: int, n: int, sample_rate: float) -> np.ndarray:
-    """Return the times ``(start_sample + arange(n)) / sample_rate`` of a block, s."""
+def block_times(start_sample: int, n: int, sample_rate: float, *,
+                offset_samples: float = 0.0) -> np.ndarray:
+    """Return the times ``(start_sample + arange(n) + offset_samples) / sample_rate``, s.
+
+    ``offset_samples = 0.5`` gives the middle of each sample step.
+    """
     if not (isinstance(start_sample, (int, np.integer)) and start_sample >= 0):
         raise ConfigError(f"= {start_sample!r}: must be an integer >= 0", key="start_sample")
     if not (isinstance(n, (int, np.integer)) and n >= 0):
         raise ConfigError(f"= {n!r}: must be an integer >= 0", key="n")
     if not (sample_rate > 0 and math.isfinite(sample_rate)):
         raise ConfigError(f"= {sample_rate!r}: must be > 0 Hz", key="sample_rate")
-    return (np.arange(n, dtype=float) + float(start_sample)) / float(sample_rate)
+    return (np.arange(n, dtype=float) + (float(start_sample) + float(offset_samples))) \
+        / float(sample_rate)
 
 
 def opening_block(motor: MotorSpec, start_sample: int, n: int, sample_rate: float, *,
-                  phase_offset_deg: float = 0.0) -> np.ndarray:
+                  phase_offset_deg: float = 0.0, offset_samples: float = 0.0) -> np.ndarray:
     """Return the open fraction for samples ``start_sample .. start_sample + n - 1``.
+
+    Sample numbers count on the render's output clock (sample 0 = time 0, when
+    ``MotorSpec.start_time_s`` is counted from); ``offset_samples`` shifts the
+    evaluation times (0.5: mid-step).
 
     Returns
     -------
     ndarray
         float64, shape ``(n,)``, values in ``[1 - beta, 1]``.
     """
-    return opening_fraction(motor, block_times(start_sample, n, sample_rate),
+    return opening_fraction(motor, block_times(start_sample, n, sample_rate,
+                                               offset_samples=offset_samples),
                             phase_offset_deg=phase_offset_deg)
 
 
@@ -287,6 +297,9 @@ class DiscModulation:
         This bar's disc angle on the shaft, degrees.
     floor : float
         Lower bound of the modulation factor.
+    coupling_at_midstep : bool
+        Evaluate ``mu`` at the middle of each sample step (the engine applies it
+        over the step); opening, weight and decay are taken at the sample itself.
     """
 
     motor: MotorSpec
@@ -297,6 +310,7 @@ class DiscModulation:
     tube_radiation_decay_per_s: float = 0.0
     phase_offset_deg: float = 0.0
     floor: float = DEFAULT_FLOOR
+    coupling_at_midstep: bool = True
 
     def __post_init__(self) -> None:
         for name in ("sample_rate",):
@@ -321,8 +335,16 @@ class DiscModulation:
         return modulation_factor(self.opening(start_sample, n), self.floor)
 
     def coupling_rate(self, start_sample: int, n: int) -> np.ndarray:
-        """Coupling rate ``mu(t) = mu_open m(t)`` per sample, rad/s."""
-        return self.coupling_open_rad_s * self.factor(start_sample, n)
+        """Coupling rate ``mu = mu_open m`` per sample step, rad/s.
+
+        The engine applies the value of sample ``j`` over the step ``j -> j + 1``, so
+        it is evaluated at ``j + 1/2`` (the midpoint rule, second-order accurate)
+        unless ``coupling_at_midstep`` is False.
+        """
+        off = 0.5 if self.coupling_at_midstep else 0.0
+        o = opening_block(self.motor, start_sample, n, self.sample_rate,
+                          phase_offset_deg=self.phase_offset_deg, offset_samples=off)
+        return self.coupling_open_rad_s * modulation_factor(o, self.floor)
 
     def tube_weight(self, start_sample: int, n: int) -> np.ndarray:
         """Tube output weight ``w_open sqrt(m(t))`` per sample, Pa per sqrt(J)."""

@@ -122,7 +122,9 @@ def test_coupling_and_weight_follow_the_opening():
     o = opening_block(m, 0, 12000, FS)
     factor = np.maximum(o, 0.05)
     mu = coupling_stream(m, 5.0, FS, floor=0.05)(0, 12000)
-    assert mu == pytest.approx(5.0 * factor, rel=1e-15)
+    # mu is applied over each step j -> j + 1, so it is taken at j + 1/2
+    mid = np.maximum(opening_block(m, 0, 12000, FS, offset_samples=0.5), 0.05)
+    assert mu == pytest.approx(5.0 * mid, rel=1e-15)
     assert mu.min() == pytest.approx(5.0 * 0.05, rel=1e-12)    # the floor holds near flat
     w = tube_weight_stream(m, 3.0, FS, floor=0.05)(0, 12000)
     assert w == pytest.approx(3.0 * np.sqrt(factor), rel=1e-15)
@@ -146,13 +148,20 @@ def test_mean_factor_closed_form(beta, floor):
 
 
 def test_disc_modulation_from_a_pair():
-    """Open-mouth values come from the pair: mu, the tube's wall and radiation decays."""
+    """Open-mouth values come from the pair: mu, the tube's wall and radiation decays.
+
+    Also the engine form's frequencies, amplitudes and phases after a strike.
+    """
     p = CoupledPair.from_q(440.0, 3000.0, 445.0, 52.45, 4.0, tube_radiation_decay_per_s=17.0)
     d = disc_modulation(p, MotorSpec(0.0), FS)
     assert d.coupling_rate(0, 3) == pytest.approx([4.0] * 3, rel=1e-15)
     assert d.tube_wall_decay_per_s + d.tube_radiation_decay_per_s == pytest.approx(
         p.tube_decay_per_s, rel=1e-12)
     assert d.tube_weight_open == pytest.approx(p.engine_form().weight_tube, rel=1e-15)
+    e = p.engine_form(strike_energy_j=0.09)
+    assert e.frequency_hz == pytest.approx((440.0, 445.0), rel=1e-15)
+    assert e.amplitude == pytest.approx((0.3, 0.0), rel=1e-15)
+    assert e.phase_rad == (0.0, 0.0)
 
 
 def test_block_fraction_is_projected_disc_area():
