@@ -231,19 +231,21 @@ def write_wav(
         n_ch = first.shape[1]
         written = 0
         try:
-            with sf.SoundFile(tmp, mode="w", samplerate=int(sample_rate), channels=n_ch,
-                              subtype=subtype, format="WAV") as f:
-                block = first
-                while block is not None:
-                    _check_range(block, where, written)
-                    f.write(block)
-                    written += block.shape[0]
-                    nxt = next(iterator, None)
-                    block = None if nxt is None else _as_block(nxt, n_ch, where)
-        except (sf.LibsndfileError, RuntimeError) as exc:
+            f = sf.SoundFile(tmp, mode="w", samplerate=int(sample_rate), channels=n_ch,
+                             subtype=subtype, format="WAV")
+        except (sf.LibsndfileError, RuntimeError, OSError) as exc:
             raise AudioError(f"{where}: cannot write WAV ({exc})") from exc
-        except OSError as exc:
-            raise AudioError(f"{where}: cannot write ({exc.strerror or exc})") from exc
+        with f:
+            block = first
+            while block is not None:
+                _check_range(block, where, written)
+                try:
+                    f.write(block)
+                except (sf.LibsndfileError, RuntimeError, OSError) as exc:
+                    raise AudioError(f"{where}: cannot write WAV ({exc})") from exc
+                written += block.shape[0]
+                nxt = next(iterator, None)  # errors of the block source pass through as they are
+                block = None if nxt is None else _as_block(nxt, n_ch, where)
 
     return _atomic_write(target, ".wav", write, force=force)
 
