@@ -401,9 +401,11 @@ def _finish(x, fs, real, z, s, k, how, n_rows, method, max_growth_per_s, dynamic
         else:
             amp = abs(ck)
         cand.append(Pole.from_parameters(fk, dk, amp, float(np.angle(ck))))
-    top = max((p.amplitude for p in cand if p.decay_per_s >= -max_growth_per_s), default=0.0)
+    # Rounding leaves undamped poles a hair outside the unit circle.
+    growth = max_growth_per_s + 1e-9 * fs
+    top = max((p.amplitude for p in cand if p.decay_per_s >= -growth), default=0.0)
     for p in cand:
-        if p.decay_per_s < -max_growth_per_s:
+        if p.decay_per_s < -growth:
             rejected.append(p)
             reasons.append(f"growing ({p.decay_per_s:.4g} 1/s)")
         elif top > 0 and p.amplitude < top * 10 ** (-dynamic_range_db / 20):
@@ -478,7 +480,8 @@ def esprit(
         Least-squares or total-least-squares solution of the shift invariance.
     max_growth_per_s : float, default 0.0
         Poles growing faster than this (decay rate below its negative) are
-        rejected, 1/s.
+        rejected, 1/s; 1e-9 x the sample rate is added for rounding, so
+        undamped tones pass.
     dynamic_range_db : float, default 100.0
         Poles weaker than the strongest accepted pole by more than this are
         rejected, dB.
@@ -551,7 +554,8 @@ def matrix_pencil(
         Pencil parameter L; default ``N // 3`` ([2] finds ``N/3 <= L <= N/2``
         least sensitive to noise).
     max_growth_per_s : float, default 0.0
-        Poles growing faster than this are rejected, 1/s.
+        Poles growing faster than this are rejected, 1/s (plus 1e-9 x the
+        sample rate for rounding).
     dynamic_range_db : float, default 100.0
         Poles weaker than the strongest accepted one by more than this are
         rejected, dB.
