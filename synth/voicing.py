@@ -1,0 +1,511 @@
+"""The voice plan: from a preset note and a strike to the engine's generic voices.
+
+For each note the plan solves the bar (vertical bending modes 1-5 and torsional
+modes 1-2; lateral modes are not excited by a strike from above), budgets each
+mode's losses (:mod:`synth.physics.losses`), and, with tubes, couples vertical
+mode 1 to its tube (:mod:`synth.physics.coupling`), modulated by the motor's discs
+(:mod:`synth.physics.motor`).  For a strike it simulates the mallet's contact
+(:mod:`synth.physics.mallet`) on the bar's modes at the strike point and gives
+the engine, per mode:
+
+* frequency and decay rate ``pi f / Q`` from the loss budget;
+* amplitude ``sqrt(E_n) * w_n``: ``E_n = M_n w_n^2 A_n^2 / 2`` is the energy the
+  mallet left in the mode (free vibration ``A_n exp(-g t) sin(w t + phase)`` after
+  the contact, referred back to the strike instant: the sound of the 0.3-4 ms
+  contact itself is approximated by that continuation) and ``w_n`` the
+  power-equivalent free-field pressure per sqrt(J) at the listening distance,
+  ``sqrt(rho c g_rad / (pi r^2))`` with ``g_rad = w eta_rad / 2`` the mode's
+  radiation share of its decay.  So the output is in pascals at the listening
+  distance, averaged over directions;
+* the phase of that free vibration.
+
+The mallet's force spectrum is thus contained in ``E_n`` (a soft, long contact
+puts little energy into the upper partials), the strike point enters through
+the mode shape there (a strike at a node leaves that mode silent), and the
+radiation weight makes the bare bar's fundamental weak beside its upper
+partials, until the tube lifts it.
+
+Pedal and dampers: a pedal value ``p`` of 1 lifts the dampers (notes ring), 0
+lets them rest on the bars; a released note (key up, MIDI note-off, the end of
+``hold_s``) then decays with the extra rate ``(1 - p) ln(1000) / damper_t60_s``,
+so half-pedal damps partly.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from functools import lru_cache
+
+import numpy as np
+
+from synth.config import Section
+from synth.engine.score import Score, Strike
+from synth.engine.voice import CoupledPair, ModeBank, Voice, constant_power_pan, seconds_to_sample
+from synth.errors import ConfigError, ModelError
+from synth.physics.bar_fe import BarModes, solve_bar
+from synth.physics.coupling import BarMode, BarTubeCoupling, couple, pressure_weight
+from synth.physics.instrument import Instrument
+from synth.physics.losses import (
+    Calibration,
+    ModeLoss,
+    Supports,
+    loss_budget,
+    parse_calibration,
+    parse_supports,
+)
+from synth.physics.mallet import Mallet, load_mallet, simulate_contact
+from synth.physics.motor import DiscModulation, MotorSpec, disc_modulation
+from synth.physics.tube import (
+    TubeSpec,
+    air_density,
+    bar_area_over_mouth,
+    bar_cover_fraction,
+    speed_of_sound,
+    tube_length_for_bar,
+)
+
+LN_1000 = math.log(1000.0)
+
+
+# --------------------------------------------------------------------------------------
+# Preset sections
+# --------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class SoundSettings:
+    """How the instrument is played by default (``[sound]`` table)."""
+
+    mallet: str = "medium"
+    position: float = 0.45
+    across: float = 0.0
+    speed_min_m_s: float = 0.3
+    speed_max_m_s: float = 3.0
+    damper_t60_s: float = 0.25
+    pan_width: float = 0.8
+    listening_distance_m: float = 1.0
+
+    def speed_of(self, velocity: float) -> float:
+        """Mallet speed for a strength 0..1 (geometric between the two limits)."""
+        v = min(max(float(velocity), 0.0), 1.0)
+        return self.speed_min_m_s * (self.speed_max_m_s / self.speed_min_m_s) ** v
+
+
+def parse_sound(sec: Section | None) -> SoundSettings:
+    """Read a preset's ``[sound]`` table (every key optional)."""
+    if sec is None:
+        return SoundSettings()
+    sec.check_keys({"mallet", "position", "across", "speed_min_m_s", "speed_max_m_s",
+                    "damper_t60_s", "pan_width", "listening_distance_m"})
+    lo = sec.number("speed_min_m_s", 0.3, gt=0.0, le=20.0, unit="m/s")
+    hi = sec.number("speed_max_m_s", 3.0, gt=0.0, le=20.0, unit="m/s")
+    if hi < lo:
+        raise sec.error("speed_max_m_s", "must be >= speed_min_m_s")
+    return SoundSettings(
+        mallet=sec.string("mallet", "medium"),
+        position=sec.number("position", 0.45, ge=0.0, le=1.0),
+        across=sec.number("across", 0.0, ge=-0.5, le=0.5),
+        speed_min_m_s=lo, speed_max_m_s=hi,
+        damper_t60_s=sec.number("damper_t60_s", 0.25, gt=0.0, le=30.0, unit="s"),
+        pan_width=sec.number("pan_width", 0.8, ge=0.0, le=1.0),
+        listening_distance_m=sec.number("listening_distance_m", 1.0, gt=0.0, unit="m"),
+    )
+
+
+@dataclass(frozen=True)
+class TubeSettings:
+    """The resonators under the bars (``[tubes]`` table)."""
+
+    inner_radius_m: tuple[float, float]
+    gap_m: float
+    offset_cents: float = 0.0
+    flanged: bool = False
+    coupling_calibration: float = 1.0
+    gap_calibration: float = 1.0
+    enabled: bool = True
+
+    def radius_at(self, fraction: float) -> float:
+        """Inner radius at ``fraction`` of the range (geometric grading)."""
+        lo, hi = self.inner_radius_m
+        return lo * (hi / lo) ** fraction
+
+
+def parse_tubes(sec: Section | None) -> TubeSettings | None:
+    """Read a preset's ``[tubes]`` table (None without one)."""
+    if sec is None:
+        return None
+    sec.check_keys({"inner_radius_m", "gap_m", "offset_cents", "flanged",
+                    "coupling_calibration", "gap_calibration", "enabled"})
+    raw = sec.data.get("inner_radius_m")
+    if isinstance(raw, list):
+        radii = tuple(sec.numbers("inner_radius_m", gt=0.0, length=2, unit="m"))
+    else:
+        r = sec.number("inner_radius_m", gt=0.0, unit="m")
+        radii = (r, r)
+    return TubeSettings(
+        inner_radius_m=radii,
+        gap_m=sec.number("gap_m", gt=0.0, le=0.2, unit="m"),
+        offset_cents=sec.number("offset_cents", 0.0, ge=-600.0, le=600.0),
+        flanged=sec.boolean("flanged", False),
+        coupling_calibration=sec.number("coupling_calibration", 1.0, ge=0.0),
+        gap_calibration=sec.number("gap_calibration", 1.0, ge=0.0),
+        enabled=sec.boolean("enabled", True),
+    )
+
+
+def parse_motor(sec: Section | None) -> tuple[MotorSpec, float]:
+    """Read a preset's ``[motor]`` table: the shaft and the per-bar disc phase step."""
+    if sec is None:
+        return MotorSpec(), 0.0
+    sec.check_keys({"rate_rev_per_s", "block_fraction", "resting", "spin_up_s",
+                    "spin_up_law", "phase_step_deg"})
+    resting = sec.data.get("resting", "open")
+    if not isinstance(resting, str):
+        resting = sec.number("resting", ge=-360.0, le=360.0)
+    elif resting not in ("open", "closed"):
+        raise sec.error("resting", 'must be "open", "closed" or an angle in degrees')
+    try:
+        spec = MotorSpec(
+            rate_rev_per_s=sec.number("rate_rev_per_s", 0.0, ge=0.0, le=50.0, unit="rev/s"),
+            block_fraction=sec.number("block_fraction", 0.85, ge=0.0, lt=1.0),
+            resting=resting,
+            spin_up_s=sec.number("spin_up_s", 0.0, ge=0.0, unit="s"),
+            spin_up_law=sec.string("spin_up_law", "exponential",
+                                   choices=("exponential", "linear")),
+        )
+    except ConfigError as exc:
+        raise ConfigError(exc.detail, source=sec.source, key=exc.key) from None
+    return spec, sec.number("phase_step_deg", 0.0, ge=-360.0, le=360.0)
+
+
+# --------------------------------------------------------------------------------------
+# Per-note model
+# --------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class NoteModel:
+    """Everything fixed about one bar: its modes, their losses, its tube."""
+
+    note: str
+    modes: BarModes
+    budget: tuple[ModeLoss, ...]  # bare bar (no tube term)
+    tube: TubeSpec | None
+    coupling: BarTubeCoupling | None
+    pan: float
+
+    @property
+    def fundamental(self) -> ModeLoss:
+        """Budget of vertical mode 1."""
+        return self.budget[0]
+
+    def sounding(self) -> list[tuple[int, ModeLoss]]:
+        """(index into modes, budget) of the modes a strike from above excites."""
+        return [(i, b) for i, b in enumerate(self.budget) if b.kind != "lateral"]
+
+    def tube_loss_factor(self) -> float:
+        """Extra loss factor the tube gives vertical mode 1 (coupled, bar-like pole)."""
+        if self.coupling is None:
+            return 0.0
+        m = self.coupling.pair.modes()
+        return max(0.0, 1.0 / m.q[0] - self.fundamental.eta)
+
+
+@dataclass
+class Voicer:
+    """Builds engine voices for the notes of one instrument.
+
+    Parameters
+    ----------
+    instrument : Instrument
+    sample_rate : float
+    tubes : bool
+        Use the preset's ``[tubes]`` (False: bare bars).
+    motor_rate_rev_per_s : float, optional
+        Override the preset's motor rate (0 stops it).
+    channels : 1 or 2
+    calibration : Calibration, optional
+        Loss calibration (default: the preset's ``[damping]`` table).
+    """
+
+    instrument: Instrument
+    sample_rate: float = 48000.0
+    tubes: bool = True
+    motor_rate_rev_per_s: float | None = None
+    channels: int = 2
+    calibration: Calibration | None = None
+    _cache: dict = field(default_factory=dict, repr=False)
+
+    def __post_init__(self):
+        inst = self.instrument
+        self.sound = parse_sound(inst.section("sound"))
+        self.supports: Supports = parse_supports(inst.section("supports"))
+        if self.calibration is None:
+            self.calibration = parse_calibration(inst.section("damping"))
+        self.tube_settings = parse_tubes(inst.section("tubes"))
+        motor, self.phase_step_deg = parse_motor(inst.section("motor"))
+        if self.motor_rate_rev_per_s is not None:
+            from dataclasses import replace
+
+            motor = replace(motor, rate_rev_per_s=float(self.motor_rate_rev_per_s))
+        self.motor = motor
+        self.temperature_c = inst.temperature_c
+        self.material = inst.material.at_temperature(inst.temperature_c)
+        if self.channels not in (1, 2):
+            raise ConfigError(f"= {self.channels}: must be 1 or 2", source="--channels")
+
+    @property
+    def tubes_active(self) -> bool:
+        """Tubes are fitted and switched on."""
+        return bool(self.tubes and self.tube_settings is not None
+                    and self.tube_settings.enabled)
+
+    # -- per note ------------------------------------------------------------------
+    def model(self, note: str) -> NoteModel:
+        """The cached per-note model."""
+        note = self.instrument.check_note(note, option="note")
+        if note in self._cache:
+            return self._cache[note]
+        geo = self.instrument.bar(note)
+        modes = solve_bar(geo, self.material, n_vertical=5, n_lateral=0, n_torsional=2)
+        budget = tuple(loss_budget(modes, supports=self.supports, calibration=self.calibration,
+                                   temperature_c=self.temperature_c, note=note))
+        frac = self.instrument.note_fraction(note)
+        pan = (frac - 0.5) * 2.0 * self.sound.pan_width if self.channels == 2 else 0.0
+        tube, coupling = (None, None)
+        if self.tubes_active:
+            tube, coupling = self._couple(note, modes, budget[0], frac)
+        model = NoteModel(note, modes, budget, tube, coupling, pan)
+        self._cache[note] = model
+        return model
+
+    def tube_spec(self, note: str, modes: BarModes | None = None) -> TubeSpec | None:
+        """The note's tube as cut (length from [bars.NOTE.tube] or solved from the offset)."""
+        ts = self.tube_settings
+        if ts is None:
+            return None
+        note = self.instrument.check_note(note, option="note")
+        frac = self.instrument.note_fraction(note)
+        radius = ts.radius_at(frac)
+        geo = self.instrument.bar(note)
+        template = TubeSpec(radius, 1.0, gap_to_bar_m=ts.gap_m, flanged=ts.flanged,
+                            bar_cover_fraction=bar_cover_fraction(geo.width_m, radius),
+                            gap_calibration=ts.gap_calibration)
+        raw = self.instrument.raw.get("bars", {}).get(note, {}).get("tube", {})
+        if "length_m" in raw:
+            length = float(raw["length_m"])
+            if not length > 0:
+                raise ConfigError(f"= {length}: must be > 0 m", source=self.instrument.source,
+                                  key=f"bars.{note}.tube.length_m")
+        else:
+            if modes is None:
+                modes = solve_bar(geo, self.material, n_vertical=1, n_lateral=0, n_torsional=0)
+            length = tube_length_for_bar(modes.fundamental_hz, template,
+                                         offset_cents=ts.offset_cents,
+                                         temperature_c=self.temperature_c)
+        from dataclasses import replace
+
+        return replace(template, length_m=length)
+
+    def _couple(self, note: str, modes: BarModes, fund: ModeLoss, frac: float):
+        tube = self.tube_spec(note, modes)
+        geo = modes.geometry
+        m1 = modes.vertical[0]
+        a = tube.inner_radius_m
+        xs = np.linspace(0.5 * geo.length_m - a, 0.5 * geo.length_m + a, 41)
+        weights = np.sqrt(np.maximum(a**2 - (xs - 0.5 * geo.length_m) ** 2, 0.0))
+        mouth_shape = float(np.sum(m1.shape_at(xs) * weights) / np.sum(weights))
+        bar = BarMode(
+            frequency_hz=fund.frequency_hz, q=fund.q, modal_mass_kg=m1.modal_mass,
+            mouth_shape_value=mouth_shape,
+            area_over_mouth_m2=bar_area_over_mouth(geo.width_m, a),
+            radiation_loss_factor=min(fund.terms["radiation"], fund.eta),
+        )
+        coupling = couple(bar, tube, temperature_c=self.temperature_c,
+                          coupling_calibration=self.tube_settings.coupling_calibration)
+        return tube, coupling
+
+    def disc_phase_deg(self, note: str) -> float:
+        """This bar's disc angle on the shaft."""
+        from synth.pitch import note_to_midi
+
+        return self.phase_step_deg * (note_to_midi(note) - note_to_midi(self.instrument.notes[0]))
+
+    # -- strikes -------------------------------------------------------------------
+    def strike_voice(self, note: str, *, time_s: float = 0.0, velocity: float | None = None,
+                     speed_m_s: float | None = None, mallet: str | Mallet | None = None,
+                     position: float | None = None, across: float | None = None,
+                     release_s: float | None = None,
+                     pedal: tuple[tuple[float, float], ...] = ((0.0, 1.0),)) -> Voice:
+        """One struck note as an engine voice.
+
+        Parameters
+        ----------
+        note : str
+        time_s : float
+            Strike time, s from the start of the render.
+        velocity : float, optional
+            Strength 0..1 (mapped to a mallet speed by the [sound] table).
+        speed_m_s : float, optional
+            Mallet head speed at impact (instead of velocity; default 1 m/s).
+        mallet : name, Mallet, or None (the preset's default)
+        position : float, optional
+            Strike point along the bar, 0..1 of the length (default [sound].position).
+        across : float, optional
+            Off the centreline, -0.5..0.5 of the width (excites torsion).
+        release_s : float, optional
+            Key up: from here the dampers act as the pedal allows.
+        pedal : sequence of (time_s, value)
+            Pedal curve, piecewise constant; 1 = dampers lifted.
+        """
+        model = self.model(note)
+        s = self.sound
+        if speed_m_s is None:
+            speed_m_s = 1.0 if velocity is None else s.speed_of(velocity)
+        if not speed_m_s > 0:
+            raise ConfigError(f"= {speed_m_s}: mallet speed must be > 0 m/s", key="velocity")
+        pos = s.position if position is None else position
+        acr = s.across if across is None else across
+        if not 0.0 <= pos <= 1.0:
+            raise ConfigError(f"= {pos}: must be between 0 and 1 (fraction of the length)",
+                              key="position")
+        if not -0.5 <= acr <= 0.5:
+            raise ConfigError(f"= {acr}: must be between -0.5 and 0.5 (fraction of the width)",
+                              key="across")
+        head = _mallet(mallet if mallet is not None else s.mallet)
+        amps, phases = self._excite(model, head, float(speed_m_s), pos, acr)
+        return self._voice(model, amps, phases, time_s, release_s, pedal)
+
+    def _excite(self, model: NoteModel, head: Mallet, speed: float, pos: float, acr: float):
+        key = (model.note, head, round(speed, 6), round(pos, 6), round(acr, 6))
+        hit = self._cache.get(("contact", *key))
+        if hit is not None:
+            return hit
+        geo = model.modes.geometry
+        x = pos * geo.length_m
+        y = acr * geo.width_m
+        sound = model.sounding()
+        modes = [model.modes.modes[i] for i, _ in sound]
+        omega = np.array([m.angular_frequency for m in modes])
+        mass = np.array([m.modal_mass for m in modes])
+        phi = np.array([float(m.vertical_displacement_at(x, y)) for m in modes])
+        decay = np.array([b.decay_per_s for _, b in sound])
+        res = simulate_contact(head, speed, omega_rad_s=omega, modal_mass_kg=mass,
+                               shape_value=phi, decay_per_s=decay)
+        energy_root = np.abs(res.amplitude_m) * omega * np.sqrt(mass / 2.0)
+        out = (energy_root, np.asarray(res.phase_rad, dtype=float))
+        self._cache[("contact", *key)] = out
+        return out
+
+    def _voice(self, model: NoteModel, energy_root, phases, time_s, release_s, pedal) -> Voice:
+        fs = self.sample_rate
+        nyquist = 0.5 * fs
+        rz = air_density(self.temperature_c) * speed_of_sound(self.temperature_c)
+        r = self.sound.listening_distance_m
+        sound = model.sounding()
+        freq, decay, amp, ph = [], [], [], []
+        pairs = []
+        for j, (i, b) in enumerate(sound):
+            if b.frequency_hz >= 0.45 * fs or b.frequency_hz >= nyquist:
+                continue
+            if model.coupling is not None and b.kind == "vertical" and b.order == 1:
+                pairs.append(self._pair(model, energy_root[j], phases[j]))
+                continue
+            g_rad = 0.5 * (2 * math.pi * b.frequency_hz) * min(b.terms["radiation"], b.eta)
+            weight = pressure_weight(g_rad, reference_distance_m=r, impedance_rayl=rz)
+            freq.append(b.frequency_hz)
+            decay.append(b.decay_per_s)
+            amp.append(energy_root[j] * weight)
+            ph.append(phases[j])
+        start = seconds_to_sample(time_s, fs)
+        gains = constant_power_pan(model.pan) if self.channels == 2 else (1.0,)
+        return Voice(start, ModeBank(freq, decay, amp, ph), channel_gains=gains,
+                     damping=self._damping(start, release_s, pedal), pairs=tuple(pairs),
+                     label=model.note)
+
+    def _pair(self, model: NoteModel, energy_root: float, phase: float) -> CoupledPair:
+        pair = model.coupling.pair
+        form = pair.engine_form(strike_energy_j=1.0,
+                                reference_distance_m=self.sound.listening_distance_m)
+        coupling, weight2 = form.coupling_rate_rad_s, form.weight_tube
+        if self.motor.rate_rev_per_s > 0 or self.motor.resting != "open":
+            mod: DiscModulation = disc_modulation(
+                pair, self.motor, self.sample_rate,
+                phase_offset_deg=self.disc_phase_deg(model.note),
+                reference_distance_m=self.sound.listening_distance_m)
+            coupling, weight2 = mod.coupling_rate, mod.tube_weight
+        return CoupledPair(frequency_hz=form.frequency_hz, decay_per_s=form.decay_per_s,
+                           amplitude=(float(energy_root), 0.0), phase_rad=(float(phase), 0.0),
+                           coupling_rad_s=coupling, weight_1=form.weight_bar,
+                           weight_2=weight2, damped=(True, True))
+
+    def _damping(self, start: int, release_s, pedal) -> tuple[tuple[int, float], ...]:
+        if release_s is None:
+            return ()
+        rate = LN_1000 / self.sound.damper_t60_s
+        fs = self.sample_rate
+        rel = max(seconds_to_sample(release_s, fs), start)
+        curve = sorted(pedal)
+
+        def value_at(t):
+            v = 1.0
+            for tt, vv in curve:
+                if tt <= t:
+                    v = vv
+            return v
+
+        changes = [(rel, rate * (1.0 - value_at(release_s)))]
+        for tt, vv in curve:
+            s = seconds_to_sample(tt, fs)
+            if s > rel:
+                changes.append((s, rate * (1.0 - vv)))
+        merged: list[tuple[int, float]] = []
+        for s, e in changes:
+            if merged and merged[-1][0] == s:
+                merged[-1] = (s, e)
+            elif not merged or merged[-1][1] != e:
+                merged.append((s, e))
+        return tuple(merged)
+
+    # -- scores --------------------------------------------------------------------
+    def score_voices(self, score: Score, *, default_pedal: float = 1.0,
+                     progress=None) -> list[Voice]:
+        """Voices for every strike of a score (pedal changes applied)."""
+        pedal = ((0.0, default_pedal),) + tuple((p.time_s, p.value) for p in score.pedal)
+        voices = []
+        for k, st in enumerate(score.strikes):
+            voices.append(self._strike_of(st, pedal))
+            if progress is not None:
+                progress(k + 1, len(score.strikes))
+        return voices
+
+    def _strike_of(self, st: Strike, pedal) -> Voice:
+        return self.strike_voice(st.note, time_s=st.time_s, velocity=st.velocity,
+                                 speed_m_s=st.mallet_speed_m_s, mallet=st.mallet,
+                                 position=st.position, across=st.across,
+                                 release_s=st.release_s, pedal=pedal)
+
+
+@lru_cache(maxsize=64)
+def _mallet_by_name(name: str) -> Mallet:
+    return load_mallet(name)
+
+
+def _mallet(spec: str | Mallet) -> Mallet:
+    if isinstance(spec, Mallet):
+        return spec
+    return _mallet_by_name(spec)
+
+
+def ring_time_s(voices: list[Voice], sample_rate: float, *, floor_db: float = -60.0) -> float:
+    """A render length: the last voice start plus the slowest decay to ``floor_db``."""
+    if not voices:
+        raise ModelError("nothing to render: no strikes")
+    end = 0.0
+    factor = -floor_db / 20.0 * math.log(10.0)
+    for v in voices:
+        rates = list(v.modes.decay_per_s) + [min(p.decay_per_s) for p in v.pairs]
+        slow = max(min(rates), 1e-3) if rates else 1.0
+        end = max(end, v.start_sample / sample_rate + factor / slow)
+    return end
