@@ -509,3 +509,11 @@ def ring_time_s(voices: list[Voice], sample_rate: float, *, floor_db: float = -6
         slow = max(min(rates), 1e-3) if rates else 1.0
         end = max(end, v.start_sample / sample_rate + factor / slow)
     return end
+
+
+def tube_cut_lengths(instrument: Instrument) -> dict[str, float]:
+    """Tube cut length of every bar of a preset with ``[tubes]`` (empty without)."""
+    v = Voicer(instrument, channels=1)
+    if v.tube_settings is None:
+        return {}
+    return {n: v.tube_spec(n).length_m for n in instrument.notes if n in instrument.bars}

@@ -75,6 +75,9 @@ def partials_command(
         min=380.0, max=480.0,
         help="A4 for the nearest-note column (default: the file's reference_pitch_hz, "
              "else 440 Hz per ISO 16).")] = None,
+    losses: Annotated[bool, typer.Option(
+        help="Also show each mode's Q by loss term (alloy, thermoelastic, radiation, cords, "
+             "air, tube) and its T60.")] = True,
     json_out: Annotated[bool, typer.Option("--json", help="Print JSON on stdout.")] = False,
 ) -> None:
     """Compute a bar's partials: frequency, ratio, nearest note, cents and nodes.
@@ -90,6 +93,12 @@ def partials_command(
     result = solve_bar(geometry, material, n_vertical=vertical, n_lateral=lateral,
                        n_torsional=torsional)
     rows = partial_rows(result, ref)
+    if json_out and losses:
+        budget, _ = _budget(design, label, result)
+        by_mode = {(b.kind, b.order): b for b in budget}
+        for r in rows:
+            b = by_mode[(r["kind"], r["order"])]
+            r.update({"q": b.q, "t60_s": b.t60_s, "loss_factors": dict(b.terms)})
     if json_out:
         print_json({
             "bar": label,
@@ -117,6 +126,15 @@ def partials_command(
     degree = result.modes[0].mesh.degree
     typer.echo(f"A4 = {ref:g} Hz; mesh {result.n_elements} elements of degree {degree}, last "
                f"refinement moved frequencies by {result.change * 100:.4f} %")
+    if losses:
+        budget, note_txt = _budget(design, label, result)
+        typer.echo("")
+        typer.echo(format_table(
+            ["kind", "order", "Q", "T60 s", *[f"Q {t}" for t in TERMS_SHOWN]],
+            [(b.kind, b.order, f"{b.q:.0f}", f"{b.t60_s:.2f}",
+              *[_q_cell(b, t) for t in TERMS_SHOWN]) for b in budget],
+            title="losses by term (Q of each term alone; 1/Q adds over terms)"))
+        typer.echo(note_txt)
 
 
 # --------------------------------------------------------------------------------------
@@ -353,8 +371,10 @@ def cutlist_command(
     if missing:
         raise ConfigError(f"bars.{missing[0]}: {len(missing)} bar(s) have no geometry; run "
                           "`barwright tune` with --out first", source=inst.source)
+    from synth.voicing import tube_cut_lengths
+
     with Progress(len(inst.notes), "solving") as step:
-        rows = cut_rows(inst, progress=lambda n: step(1, n))
+        rows = cut_rows(inst, progress=lambda n: step(1, n), tube_lengths=tube_cut_lengths(inst))
     io.write_bytes(csv_path, cutlist_csv(rows).encode("utf-8"), force=force)
     io.write_bytes(png_path, profile_sheet_png(
         [(r.note, inst.bar(r.note), r.cord_holes_m) for r in rows],
@@ -364,7 +384,7 @@ def cutlist_command(
                     "png": str(png_path)})
         return
     heads = ["note", "length mm", "w x t mm", "thinnest", "t@20%", "t@30%", "t@40%", "t@50%",
-             "cord holes mm from each end", "cord %L", "mass g"]
+             "cord holes mm from each end", "cord %L", "mass g", "tube mm"]
     table = []
     for r in rows:
         st = r.station_thickness_m
@@ -374,7 +394,47 @@ def cutlist_command(
             *[f"{st[i] * 1e3:.2f}" for i in (2, 3, 4, 5)],
             f"{r.cord_holes_m[0] * 1e3:.1f} / {(r.length_m - r.cord_holes_m[-1]) * 1e3:.1f}",
             f"{r.cord_fraction * 100:.2f}", f"{r.mass_kg * 1e3:.0f}",
+            "-" if r.tube_length_m is None else f"{r.tube_length_m * 1e3:.1f}",
         ])
     typer.echo(format_table(heads, table))
     typer.echo(f"wrote {csv_path} and {png_path}")
+    if any(r.tube_length_m is not None for r in rows):
+        typer.echo(f"tube lengths: closed end to mouth rim, for the [tubes] offset at "
+                   f"{inst.temperature_c:g} C with the bar in place; cut long and trim to pitch.")
     typer.echo(SAFETY)
+
+
+TERMS_SHOWN = ("internal", "thermoelastic", "radiation", "cords", "air", "tube")
+
+
+def _q_cell(b, term: str) -> str:
+    q = b.q_of(term)
+    if q == float("inf"):
+        return "-"
+    return f"{q:.3g}" if q < 1e7 else ">1e7"
+
+
+def _budget(design, label: str, result: BarModes):
+    """Loss budget of a solved bar: the preset's supports, calibration and tube."""
+    from synth.physics.losses import loss_budget, parse_calibration, parse_supports
+
+    if isinstance(design, Instrument):
+        from synth.voicing import Voicer
+
+        v = Voicer(design, channels=1)
+        model = v.model(label)
+        extra = {}
+        if model.coupling is not None:
+            extra[("vertical", 1)] = model.tube_loss_factor()
+        budget = loss_budget(result, supports=v.supports, calibration=v.calibration,
+                             temperature_c=design.temperature_c, note=label, tube_eta=extra)
+        tube = (f"tube {model.tube.length_m * 1e3:.1f} mm long, radius "
+                f"{model.tube.inner_radius_m * 1e3:.1f} mm, tuned "
+                f"{model.coupling.tube_offset_cents:+.1f} cents from the bar"
+                if model.coupling is not None else "no tube")
+        return budget, f"cords at the mode-1 nodes; {tube}; air and bar at {design.temperature_c:g} C"
+    sections = getattr(design, "sections", {})
+    budget = loss_budget(result, supports=parse_supports(sections.get("supports")),
+                         calibration=parse_calibration(sections.get("damping")),
+                         temperature_c=design.temperature_c)
+    return budget, "cords at the mode-1 nodes; bare bar (no tube)"

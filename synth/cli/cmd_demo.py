@@ -90,7 +90,9 @@ def demo_command(
                + ", ".join(f"p{i + 1} {w:.3f}" for i, w in enumerate(worst)) + "\n")
 
     # 3. Build sheet
-    cut = cut_rows(inst)
+    from synth.voicing import tube_cut_lengths
+
+    cut = cut_rows(inst, tube_lengths=tube_cut_lengths(inst))
     csv_path, png_path = out / "cutlist.csv", out / "profiles.png"
     io.write_bytes(csv_path, cutlist_csv(cut).encode("utf-8"), force=True)
     io.write_bytes(png_path, profile_sheet_png([(r.note, inst.bar(r.note), r.cord_holes_m)
