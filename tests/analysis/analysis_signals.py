@@ -50,5 +50,5 @@ def cents(f: float, ref: float) -> float:
 
 
 def nearest(partials, freq_hz: float):
-    """The partial whose frequency is nearest ``freq_hz``."""
+    """Return the partial whose frequency is nearest ``freq_hz``."""
     return min(partials, key=lambda p: abs(p.frequency_hz - freq_hz))

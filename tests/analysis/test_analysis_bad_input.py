@@ -44,11 +44,13 @@ def _strike(gain=1.0, lead_s=0.05, dur=1.0, fs=FS):
     ids=["partials", "decay", "schroeder", "strike", "onsets"],
 )
 def test_silence_raises(call) -> None:
+    """Digital silence: every analysis refuses with the same one-line reason."""
     with pytest.raises(AudioError, match=re.escape("signal is silent (peak -inf dBFS)")):
         call(np.zeros(int(FS)))
 
 
 def test_silence_is_reported_by_the_check() -> None:
+    """check_signal reports silence as data rather than raising."""
     rep = check_signal(np.zeros(1000), FS)
     assert rep.silent and rep.peak_dbfs == -math.inf
     assert any("silent" in w for w in rep.warnings)
@@ -71,6 +73,7 @@ def test_clipped_then_scaled_is_warned() -> None:
 
 
 def test_clean_strike_has_no_clipping_warning() -> None:
+    """A clean strike below full scale raises no warning at all."""
     rep = check_signal(_strike(), FS)
     assert rep.clipped_runs == 0 and rep.warnings == ()
 
@@ -84,6 +87,7 @@ def test_no_strike_in_noise(rng) -> None:
 
 
 def test_too_short_raises() -> None:
+    """Too little signal after the attack for the analysis or its band-pass."""
     with pytest.raises(AudioError, match=re.escape("partial analysis needs at least 0.05 s")):
         find_partials(_strike(dur=0.04, lead_s=0.0), FS)
     with pytest.raises(AudioError, match="too short for a"):
@@ -91,6 +95,7 @@ def test_too_short_raises() -> None:
 
 
 def test_nan_and_shape_errors() -> None:
+    """NaN, channels-first arrays, a zero sample rate and empty input are refused."""
     x = _strike()
     x[100] = np.nan
     with pytest.raises(AudioError, match=re.escape("1 NaN or infinite samples")):
@@ -112,7 +117,7 @@ def test_dc_offset_is_warned_and_removed() -> None:
 
 
 def test_band_above_the_sample_rate() -> None:
-    """fmax above 0.45 x rate is clamped with a warning; a band wholly above it raises."""
+    """An fmax above 0.45 x rate is clamped with a warning; a band wholly above it raises."""
     x = _strike(fs=16000.0)
     res = find_partials(x, 16000.0, fmax_hz=15000.0)
     assert res.fmax_hz == pytest.approx(7200.0)

@@ -121,6 +121,7 @@ def test_level_matching_warns_on_length_and_peak() -> None:
 
 
 def test_short_file_cannot_be_measured() -> None:
+    """BS.1770-4 gates 0.4 s blocks: a shorter file has no loudness."""
     with pytest.raises(AudioError, match=re.escape("needs at least one 0.4 s block")):
         integrated_loudness(np.ones(1000) * 0.1, FS)
 

@@ -22,6 +22,7 @@ FS = 48000.0
 
 @pytest.fixture(scope="module")
 def three_partials() -> tuple[np.ndarray, tuple]:
+    """Return the 440/1760/4435 Hz strike at 40 dB SNR and its parameters."""
     # physics note section 11 test signal, amplitudes halved to keep the sum below
     # full scale; 0.1 s of noise before the strike, 3 s after, 40 dB SNR.
     rng = np.random.default_rng(11)
@@ -162,6 +163,7 @@ def test_stereo_uses_the_mean_and_says_so() -> None:
 
 
 def test_max_partials_keeps_the_strongest() -> None:
+    """With max_partials = 2 the weakest of three partials is left out."""
     x = damped_sum(FS, 1.0, [300.0, 900.0, 2000.0], [1.0, 1.0, 1.0], [0.4, 0.04, 0.2],
                    lead_s=0.05)
     res = find_partials(x, FS, max_partials=2)

@@ -28,6 +28,7 @@ PHASES = (0.3, -1.0, 2.0)
 
 @pytest.fixture(scope="module")
 def clean_50ms() -> np.ndarray:
+    """Return the noise-free 50 ms test signal of the physics note, section 11."""
     # physics note section 11: fs 48 kHz, 50 ms, f 440/1760/4435, tau 2/0.5/0.1, a 1/0.5/0.3
     return damped_sum(FS, 0.05, FREQS, TAUS, AMPS, PHASES)
 
@@ -151,6 +152,7 @@ def test_tls_solver_matches_ls(clean_50ms) -> None:
 
 
 def test_bad_arguments() -> None:
+    """Wrong shapes, orders and criteria are refused with a clear message."""
     with pytest.raises(AudioError, match=re.escape("subspace methods take one channel (N,)")):
         esprit(np.zeros((100, 2)), FS)
     with pytest.raises(AudioError, match="need at least 8"):
