@@ -19,7 +19,9 @@ Two kernels do the work:
     from the closed form above, so rounding never accumulates over more than
     one anchor interval: a minute-long tail keeps its frequency and decay rate
     to rounding level.  The loop over modes is innermost, with the state in
-    separate real and imaginary arrays, so the compiler vectorises it.
+    separate real and imaginary arrays, so the compiler vectorises it, and
+    each pass over the modes advances four samples (groups aligned on the
+    voice's clock), which halves the loads and stores per mode-sample.
 
 ``_pair_add``
     Two complex modes coupled in rotating-wave form,
@@ -33,7 +35,9 @@ Two kernels do the work:
 
     where ``cosh(q dt)`` and ``sinh(q dt)/q`` are entire functions of
     ``z = q^2 dt^2``, summed here as truncated power series (the caller picks
-    the number of terms so that the first omitted term is below 1e-18).  The
+    the number of terms so that the first omitted term is below 1e-18).
+    ``mu`` may change every step, and so may ``g2`` (then ``exp(m dt)`` is
+    summed as a Taylor series too, its argument being kept small).  The
     coefficients of each sample do not depend on the state, so they are
     computed for a chunk of samples first (vectorised over samples) and then
     applied in one short dependent loop.
@@ -209,13 +213,13 @@ def _bank_add(out, o0, channel_gain, curve, use_curve, state, clock,
 
 @njit(cache=True, fastmath=True)
 def _pair_add(out, o0, n, channel_gain, curve, use_curve, state,
-              omega_rad_s, decay_per_s, dt, mu_rad_s, weight_1, weight_2,
-              cosh_coef, sinh_coef):
+              omega_rad_s, decay_1, decay_2, vary_decay_2, dt, mu_rad_s, weight_1, weight_2,
+              cosh_coef, sinh_coef, exp_coef):
     """Advance a coupled pair ``n`` samples and add its output into ``out``.
 
     The output of sample ``j`` is ``w1 Im(a1[j]) + w2[j] Im(a2[j])`` from the
     state at that sample; then the state steps to ``j + 1`` with the exact
-    exponential of the system frozen at ``mu[j]``.
+    exponential of the system frozen at ``mu[j]`` (and ``g2[j]``).
 
     Parameters
     ----------
@@ -231,8 +235,15 @@ def _pair_add(out, o0, n, channel_gain, curve, use_curve, state,
         Whether to multiply by ``curve``.
     state : float64[4]
         ``Re a1, Im a1, Re a2, Im a2``, updated in place.
-    omega_rad_s, decay_per_s : float64[2]
-        Angular frequency and amplitude decay rate (damping included) of each member.
+    omega_rad_s : float64[2]
+        Angular frequency of each member, rad/s.
+    decay_1 : float
+        Amplitude decay rate of member 1 (damping included), 1/s.
+    decay_2 : float64[:]
+        Amplitude decay rate of member 2 per step (damping included), 1/s; only
+        ``decay_2[0]`` is read unless ``vary_decay_2``.
+    vary_decay_2 : bool
+        Whether ``decay_2`` changes from step to step.
     dt : float
         Sample period in s.
     mu_rad_s : float64[:]
@@ -243,74 +254,105 @@ def _pair_add(out, o0, n, channel_gain, curve, use_curve, state,
         Output weight of member 2 per sample (length ``n``).
     cosh_coef, sinh_coef : float64[:]
         ``1/(2k)!`` and ``1/(2k+1)!`` for k = 0 .. K (series of cosh and sinh/q).
+    exp_coef : float64[:]
+        ``1/k!`` for the Taylor series of ``exp(m dt)`` when ``vary_decay_2``
+        (the caller keeps ``|Re m dt|`` small enough for it to be exact).
     """
     n_ch = channel_gain.shape[0]
     n_terms = cosh_coef.shape[0]
+    n_exp = exp_coef.shape[0]
     # m = (s1 + s2)/2, d = (s1 - s2)/2 with s_j = -g_j + i om_j (Moler & Van Loan, sec. 3)
-    m_re = -0.5 * (decay_per_s[0] + decay_per_s[1])
     m_im = 0.5 * (omega_rad_s[0] + omega_rad_s[1])
-    d_re = -0.5 * (decay_per_s[0] - decay_per_s[1])
     d_im = 0.5 * (omega_rad_s[0] - omega_rad_s[1])
-    em_mag = math.exp(m_re * dt)
-    em_re = em_mag * math.cos(m_im * dt)
-    em_im = em_mag * math.sin(m_im * dt)
+    rot_re = math.cos(m_im * dt)
+    rot_im = math.sin(m_im * dt)
     dt2 = dt * dt
-    d2_re = (d_re * d_re - d_im * d_im) * dt2
-    z_im = 2.0 * d_re * d_im * dt2           # Im z is the same for every step
-    ddt_re = d_re * dt
     ddt_im = d_im * dt
+    em_re = np.empty(_PAIR_CHUNK)
+    em_im = np.empty(_PAIR_CHUNK)
+    ddt_re = np.empty(_PAIR_CHUNK)
+    zr = np.empty(_PAIR_CHUNK)
+    zi = np.empty(_PAIR_CHUNK)
     cr = np.empty(_PAIR_CHUNK)
     ci = np.empty(_PAIR_CHUNK)
     sr = np.empty(_PAIR_CHUNK)
     si = np.empty(_PAIR_CHUNK)
-    zr = np.empty(_PAIR_CHUNK)
     p_re = np.empty(_PAIR_CHUNK)
     p_im = np.empty(_PAIR_CHUNK)
     q_re = np.empty(_PAIR_CHUNK)
     q_im = np.empty(_PAIR_CHUNK)
     r_re = np.empty(_PAIR_CHUNK)
     r_im = np.empty(_PAIR_CHUNK)
+    if not vary_decay_2:  # constant coefficients but mu: fill once
+        d_re = -0.5 * (decay_1 - decay_2[0])
+        em_mag = math.exp(-0.5 * (decay_1 + decay_2[0]) * dt)
+        for j in range(_PAIR_CHUNK):
+            em_re[j] = em_mag * rot_re
+            em_im[j] = em_mag * rot_im
+            ddt_re[j] = d_re * dt
+            zi[j] = 2.0 * d_re * d_im * dt2
     a1r = state[0]
     a1i = state[1]
     a2r = state[2]
     a2i = state[3]
     for c0 in range(0, n, _PAIR_CHUNK):
         nc = min(_PAIR_CHUNK, n - c0)
-        # Pass 1, vectorised over samples: z = (d^2 - mu^2) dt^2, then Horner sums.
+        # Pass 1, vectorised over samples.
+        if vary_decay_2:
+            # exp(Re(m) dt) by its Taylor series, terms outer so that samples vectorise;
+            # em_im holds x = Re(m) dt until the rotation is applied.
+            for j in range(nc):
+                g2 = decay_2[c0 + j]
+                em_im[j] = -0.5 * (decay_1 + g2) * dt
+                em_re[j] = exp_coef[n_exp - 1]
+                d_re = -0.5 * (decay_1 - g2)
+                ddt_re[j] = d_re * dt
+                zi[j] = 2.0 * d_re * d_im * dt2
+            for t in range(n_exp - 2, -1, -1):
+                ct = exp_coef[t]
+                for j in range(nc):
+                    em_re[j] = em_re[j] * em_im[j] + ct
+            for j in range(nc):
+                e = em_re[j]
+                em_re[j] = e * rot_re
+                em_im[j] = e * rot_im
         for j in range(nc):
             mu = mu_rad_s[c0 + j]
-            zr[j] = d2_re - mu * mu * dt2
+            dr = ddt_re[j]
+            zr[j] = dr * dr - ddt_im * ddt_im - mu * mu * dt2   # z = (d^2 - mu^2) dt^2
             cr[j] = cosh_coef[n_terms - 1]
             ci[j] = 0.0
             sr[j] = sinh_coef[n_terms - 1]
             si[j] = 0.0
-        for t in range(n_terms - 2, -1, -1):
+        for t in range(n_terms - 2, -1, -1):   # Horner: cosh(q dt), sinh(q dt)/(q dt)
             ck = cosh_coef[t]
             sk = sinh_coef[t]
             for j in range(nc):
-                x = cr[j] * zr[j] - ci[j] * z_im + ck
-                ci[j] = cr[j] * z_im + ci[j] * zr[j]
+                x = cr[j] * zr[j] - ci[j] * zi[j] + ck
+                ci[j] = cr[j] * zi[j] + ci[j] * zr[j]
                 cr[j] = x
-                y = sr[j] * zr[j] - si[j] * z_im + sk
-                si[j] = sr[j] * z_im + si[j] * zr[j]
+                y = sr[j] * zr[j] - si[j] * zi[j] + sk
+                si[j] = sr[j] * zi[j] + si[j] * zr[j]
                 sr[j] = y
-        # exp(A dt) = em [C I + S dt B], B = [[d, i mu], [i mu, -d]]
+        # exp(A dt) = em [C I + S (B dt)], B = [[d, i mu], [i mu, -d]], S = sinh(q dt)/(q dt)
         for j in range(nc):
-            mu = mu_rad_s[c0 + j]
-            sd_re = sr[j] * ddt_re - si[j] * ddt_im      # S dt d
-            sd_im = sr[j] * ddt_im + si[j] * ddt_re
+            mdt = mu_rad_s[c0 + j] * dt
+            sd_re = sr[j] * ddt_re[j] - si[j] * ddt_im     # S d dt
+            sd_im = sr[j] * ddt_im + si[j] * ddt_re[j]
             u_re = cr[j] + sd_re
             u_im = ci[j] + sd_im
             v_re = cr[j] - sd_re
             v_im = ci[j] - sd_im
-            w_re = -si[j] * dt * mu                      # i S dt mu
-            w_im = sr[j] * dt * mu
-            p_re[j] = em_re * u_re - em_im * u_im
-            p_im[j] = em_re * u_im + em_im * u_re
-            q_re[j] = em_re * v_re - em_im * v_im
-            q_im[j] = em_re * v_im + em_im * v_re
-            r_re[j] = em_re * w_re - em_im * w_im
-            r_im[j] = em_re * w_im + em_im * w_re
+            w_re = -si[j] * mdt                            # i S mu dt
+            w_im = sr[j] * mdt
+            er = em_re[j]
+            ei = em_im[j]
+            p_re[j] = er * u_re - ei * u_im
+            p_im[j] = er * u_im + ei * u_re
+            q_re[j] = er * v_re - ei * v_im
+            q_im[j] = er * v_im + ei * v_re
+            r_re[j] = er * w_re - ei * w_im
+            r_im[j] = er * w_im + ei * w_re
         # Pass 2: output then step, one short dependent chain per sample.
         for j in range(nc):
             jj = c0 + j

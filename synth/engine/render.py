@@ -71,8 +71,8 @@ from synth.engine import kernels
 from synth.engine.voice import CoupledPair, Voice
 from synth.errors import ConfigError, ModelError
 
-DEFAULT_BLOCK_SIZE: Final[int] = 8192
-"""Samples per streamed block (171 ms at 48 kHz; 128 kB per block in stereo)."""
+DEFAULT_BLOCK_SIZE: Final[int] = 16384
+"""Samples per streamed block (341 ms at 48 kHz; 256 kB per block in stereo)."""
 
 ANCHOR_EVERY: Final[int] = 1024
 """Re-anchoring interval of the mode bank, samples of the voice's own clock."""
@@ -82,6 +82,9 @@ DEFAULT_SILENCE_DB: Final[float] = -140.0
 
 PAIR_MAX_COUPLING_PER_SAMPLE: Final[float] = 0.01
 """Largest allowed ``|mu| / sample_rate`` of a coupled pair (rad per sample)."""
+
+PAIR_MAX_DECAY_PER_SAMPLE: Final[float] = 0.005
+"""Largest allowed ``(g1 + g2) / (2 sample_rate)`` of a pair whose ``g2`` follows a curve."""
 
 _SERIES_TOL: Final[float] = 1e-18
 _RUNAWAY_MARGIN: Final[float] = 1.0 + 1e-9
@@ -143,6 +146,8 @@ class _PairState:
         self.omega = np.array([2 * math.pi * f for f in pair.frequency_hz])
         self.decay = np.array(pair.decay_per_s)
         self.damped = np.array(pair.damped, dtype=np.float64)
+        self.g1, self.g2 = (float(g) for g in pair.decay_per_s)
+        self.damped_1, self.damped_2 = (float(b) for b in pair.damped)
         nyq = sample_rate / 2
         if max(pair.frequency_hz) >= nyq:
             raise ModelError(
@@ -161,6 +166,19 @@ class _PairState:
             0.5 * abs(complex(-(g[0] - g[1]), self.omega[0] - self.omega[1]))
             for g in (self.rates(e) for e in extra_rates_per_s)
         )
+        self.vary_decay_2 = pair.decay_2_curve is not None
+        if self.vary_decay_2:
+            # g2 follows a curve, capped so that |Re m| dt <= PAIR_MAX_DECAY_PER_SAMPLE;
+            # then |Re d| dt <= that cap too.
+            d_max = math.hypot(0.5 * abs(self.omega[0] - self.omega[1]),
+                               PAIR_MAX_DECAY_PER_SAMPLE * sample_rate)
+            x = PAIR_MAX_DECAY_PER_SAMPLE
+            n_exp = 1
+            while x ** n_exp / math.factorial(n_exp) >= _SERIES_TOL:
+                n_exp += 1
+            self.exp_coef = np.array([1.0 / math.factorial(k) for k in range(n_exp)])
+        else:
+            self.exp_coef = np.ones(1)
         z_bound = (d_max * self.dt) ** 2 + PAIR_MAX_COUPLING_PER_SAMPLE ** 2
         self.cosh_coef, self.sinh_coef = _series_coefficients(z_bound, where)
 
@@ -271,19 +289,25 @@ def _curve_values(curve, first: int, n: int, what: str, where: str) -> tuple[np.
             f"{where}: {what} returned shape {values.shape} for {n} samples from sample "
             f"{first}; it must return n values"
         )
-    biggest = float(np.max(np.abs(values))) if n else 0.0
+    biggest = _max_abs(values)
     if not math.isfinite(biggest):  # NaN and Inf both surface in the maximum
         bad = first + int(np.flatnonzero(~np.isfinite(values))[0])
         raise ModelError(f"{where}: {what} is not finite at sample {bad}")
     return values, biggest
 
 
+def _max_abs(values: np.ndarray) -> float:
+    """Largest magnitude (NaN if any value is NaN), without a temporary array."""
+    if not values.size:
+        return 0.0
+    return max(float(values.max()), -float(values.min()))
+
+
 def _constant(cache: dict, value: float, n: int) -> np.ndarray:
-    """Return a read-only array of ``n`` copies of ``value`` (cached per pair and length)."""
+    """Return ``n`` copies of ``value`` from a per-pair cache (the kernels only read it)."""
     arr = cache.get(value)
     if arr is None or arr.size < n:
         arr = np.full(max(n, DEFAULT_BLOCK_SIZE), value)
-        arr.flags.writeable = False
         cache[value] = arr
     return arr[:n]
 
@@ -395,7 +419,7 @@ def _stream(prepared, n_samples, n_ch, block_size, gain, dtype, sample_rate, pro
         bound = 0.0
         for p in active:
             bound += _render_voice(p, buf, b0, b1, sample_rate)
-        peak = float(np.max(np.abs(buf))) if buf.size else 0.0
+        peak = _max_abs(buf)
         if not (peak <= bound * _RUNAWAY_MARGIN):
             names = ", ".join(p.where for p in active[:4]) + (" ..." if len(active) > 4 else "")
             raise ModelError(
@@ -457,14 +481,34 @@ def _render_voice(p: _Prepared, buf: np.ndarray, b0: int, b1: int, sample_rate: 
         else:
             w2 = _constant(ps.constants, pair.weight_2, n)
             w2_max = abs(pair.weight_2)
+        if ps.vary_decay_2:
+            g2_curve, _ = _curve_values(pair.decay_2_curve, lo, n, "decay curve", p.where)
+            if float(np.min(g2_curve)) < pair.decay_per_s[1]:
+                k = int(np.argmin(g2_curve))
+                raise ModelError(
+                    f"{p.where}: decay curve = {g2_curve[k]:g} /s at sample {lo + k} is below "
+                    f"the pair's decay_per_s[1] = {pair.decay_per_s[1]:g} /s, which must bound it"
+                )
         for m_a, m_b, i in seg.pieces(m_lo, m_hi):
             j0 = m_a - m_lo
             j1 = m_b - m_lo
-            decay = ps.rates(float(seg.extra_per_s[i]))
+            extra = float(seg.extra_per_s[i])
+            g1 = ps.g1 + ps.damped_1 * extra
+            g2 = ps.g2 + ps.damped_2 * extra
+            if ps.vary_decay_2:
+                decay_2 = g2_curve[j0:j1] + ps.damped_2 * extra
+                worst = 0.5 * (g1 + float(np.max(decay_2))) / sample_rate
+                if worst > PAIR_MAX_DECAY_PER_SAMPLE:
+                    raise ModelError(
+                        f"{p.where}: coupled pair decays too fast for the sample rate "
+                        f"((g1 + g2) / (2 fs) = {worst:.3g} > {PAIR_MAX_DECAY_PER_SAMPLE:g})"
+                    )
+            else:
+                decay_2 = _constant(ps.constants, g2, 1)
             kernels._pair_add(
                 buf, o0 + j0, m_b - m_a, p.gains, curve[j0:] if use_curve else curve, use_curve,
-                ps.state, ps.omega, decay, ps.dt, mu[j0:j1], pair.weight_1, w2[j0:j1],
-                ps.cosh_coef, ps.sinh_coef,
+                ps.state, ps.omega, g1, decay_2, ps.vary_decay_2, ps.dt, mu[j0:j1],
+                pair.weight_1, w2[j0:j1], ps.cosh_coef, ps.sinh_coef, ps.exp_coef,
             )
         energy = float(np.dot(ps.state, ps.state))
         if not (energy <= ps.norm0 ** 2 * _PAIR_ENERGY_MARGIN):
@@ -535,7 +579,7 @@ def measure_peak(
                                block_size=block_size, channels=channels,
                                silence_db=silence_db, progress=progress):
         if block.size:
-            peak = max(peak, float(np.max(np.abs(block))))
+            peak = max(peak, _max_abs(block))
     return peak
 
 

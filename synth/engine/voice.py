@@ -46,14 +46,16 @@ A :class:`CoupledPair` is two complex modes in rotating-wave form
 
 with ``a_j(0) = amplitude_j exp(i phase_rad_j)`` at the voice start and
 ``g_j = decay_per_s_j`` (plus the damping schedule's extra for the members
-flagged in ``damped``).  Its output is ``w1 Im(a1) + w2(t) Im(a2)``, so with
-``mu = 0`` each member is exactly a mode of the bank convention above.  With
+flagged in ``damped``); ``g2`` may also follow a curve (``decay_2_curve``).
+Its output is ``w1 Im(a1) + w2(t) Im(a2)``, so with ``mu = 0`` each member
+is exactly a mode of the bank convention above.  With
 this sign convention a member that starts silent grows as ``i mu a_other t``,
 a quarter period ahead of the member that drives it.  The eigenvalues are
 ``(s1 + s2)/2 +- sqrt(((s1 - s2)/2)^2 - mu^2)`` (physics.md, section 8).
 ``mu`` is in rad/s; a curve gives it per *step*, the value for sample ``n``
 being applied over the step from ``n`` to ``n + 1`` (evaluate a smooth
-coupling at ``n + 1/2`` for second-order accuracy).
+coupling at ``n + 1/2`` for second-order accuracy); the same holds for a
+``decay_2_curve``.
 
 References
 ----------
@@ -174,6 +176,14 @@ class CoupledPair:
         Output weight of member 2, a constant or a curve (default 1).
     damped : (bool, bool), optional
         Which members the voice's damping schedule acts on (default both).
+    decay_2_curve : curve, optional
+        Per-step amplitude decay rate of member 2, 1/s (for example a tube
+        whose mouth a spinning disc opens and closes); the value of sample
+        ``n`` applies over the step ``n -> n + 1``.  ``decay_per_s[1]`` must then
+        be a lower bound of it (it decides when the voice has died away); a
+        value below it, or one with ``(g1 + g2) / (2 sample_rate) > 0.005``
+        (240 /s at 48 kHz),
+        raises ModelError at render time.
     """
 
     frequency_hz: tuple[float, float]
@@ -184,8 +194,11 @@ class CoupledPair:
     weight_1: float = 1.0
     weight_2: CurveOrConstant = 1.0
     damped: tuple[bool, bool] = (True, True)
+    decay_2_curve: Curve | None = None
 
     def __post_init__(self) -> None:
+        if self.decay_2_curve is not None and not callable(self.decay_2_curve):
+            raise ModelError("coupled pair: decay_2_curve must be a callable (first_sample, n)")
         for name in ("frequency_hz", "decay_per_s", "amplitude", "phase_rad"):
             vals = getattr(self, name)
             try:

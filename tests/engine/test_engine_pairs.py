@@ -15,6 +15,7 @@ from engine_fits import prony_one_mode
 from scipy.integrate import solve_ivp
 
 from synth.engine import CoupledPair, ModeBank, Voice, render
+from synth.errors import ModelError
 from synth.pitch import cents
 
 FS = 48000.0
@@ -93,11 +94,13 @@ def test_zero_coupling_is_two_plain_modes():
     assert np.all(quiet == 0.0)
 
 
-def test_time_varying_coupling_matches_ode_solver():
-    """A coupling curve mu(t) evaluated at step midpoints: second-order exact steps.
+@pytest.mark.parametrize("vary_decay", [False, True])
+def test_time_varying_coupling_matches_ode_solver(vary_decay):
+    """Coupling mu(t) (and tube decay g2(t)) per step at its midpoint: exact frozen steps.
 
     Reference: scipy's DOP853 on the same ODE at rtol 1e-12.  The frozen-step
-    error is O(dt^2 mu'' ...): with a 6 Hz modulation it is far below 1e-8.
+    (exponential midpoint) error is O(dt^2) times the curves' second
+    derivatives: with a 6 Hz modulation it is far below the 1e-8 allowed.
     """
     f, g = (440.0, 443.0), (0.46, 26.35)
     mu0, depth, f_mod = 8.0, 0.6, 6.0
@@ -105,17 +108,22 @@ def test_time_varying_coupling_matches_ode_solver():
     def mu_of_t(t):
         return mu0 * (1 + depth * np.sin(2 * np.pi * f_mod * t))
 
-    def curve(first, n):
-        return mu_of_t((np.arange(first, first + n) + 0.5) / FS)
+    def g2_of_t(t):
+        return g[1] + (10.0 * (1 + np.cos(2 * np.pi * f_mod * t)) if vary_decay else 0.0 * t)
 
-    kw = dict(frequency_hz=f, decay_per_s=g, amplitude=(1.0, 0.0), coupling_rad_s=curve)
+    def at_midsteps(fn):
+        return lambda first, n: fn((np.arange(first, first + n) + 0.5) / FS)
+
+    kw = dict(frequency_hz=f, decay_per_s=g, amplitude=(1.0, 0.0),
+              coupling_rad_s=at_midsteps(mu_of_t),
+              decay_2_curve=at_midsteps(g2_of_t) if vary_decay else None)
     n = int(0.25 * FS)
     y1, y2 = pair_outputs(kw, n, block_size=1000)
     s1 = 2j * np.pi * f[0] - g[0]
-    s2 = 2j * np.pi * f[1] - g[1]
 
     def rhs(t, a):
         m = mu_of_t(t)
+        s2 = 2j * np.pi * f[1] - g2_of_t(t)
         return [s1 * a[0] + 1j * m * a[1], 1j * m * a[0] + s2 * a[1]]
 
     t_eval = np.array([0.05, 0.1, 0.2, (n - 1) / FS])
@@ -125,6 +133,14 @@ def test_time_varying_coupling_matches_ode_solver():
         m = int(round(t * FS))
         assert abs(y1[m] - a[0].imag) <= 1e-8
         assert abs(y2[m] - a[1].imag) <= 1e-8
+
+
+def test_decay_curve_below_its_bound_is_refused():
+    """decay_per_s[1] must bound the decay curve from below (it decides the drop)."""
+    pair = CoupledPair((440.0, 441.0), (0.5, 20.0), (1.0, 0.0), coupling_rad_s=5.0,
+                       decay_2_curve=lambda first, n: np.full(n, 10.0))
+    with pytest.raises(ModelError, match=r"decay curve = 10 /s at sample 0 is below"):
+        render([Voice(0, ModeBank.empty(), pairs=(pair,))], 100, sample_rate=FS)
 
 
 @pytest.mark.parametrize("offset_cents, t60_s", [(0.0, 4.71), (50.0, 12.52)])

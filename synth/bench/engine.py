@@ -1,0 +1,202 @@
+"""Speed of the sound engine (``barwright bench --only engine``).
+
+Every figure is a median over repeats on one core (the kernels are single
+threaded; BLAS is held to one thread).  The reference is measured in the same
+run: numpy evaluating the same modes, ``a exp(-g t) sin(2 pi f t + phi)`` in
+float64, block by block.
+
+Figures
+-------
+engine.mode_samples_per_s
+    Plain mode banks streamed through :func:`render_blocks`: a passage of 16
+    voices x 32 modes, mono, all overheads included.
+engine.kernel_mode_samples_per_s
+    The bank kernel alone, one call, 64 modes.
+engine.numpy_mode_samples_per_s, engine.numpy_ratio
+    The numpy reference and the streamed engine's speed over it.
+engine.gain_curve_mode_samples_per_s
+    The same passage with a per-sample gain curve on every voice.
+engine.pair_steps_per_s
+    One coupled pair with a per-sample coupling curve, streamed.
+engine.pair_decay_curve_steps_per_s
+    The same with the second member's decay rate following a curve too.
+engine.pair_kernel_steps_per_s
+    The pair kernel alone (per-sample coupling).
+engine.pair_note_vs_bank_ratio
+    A 24-mode note with a coupled pair (coupling and weight curves) and a gain
+    curve, over the same note's bare bank (time ratio).
+engine.pair_decay_note_vs_bank_ratio
+    The same with the pair's second decay rate following a curve as well.
+engine.warm_start_render_s
+    A new Python process that imports the engine (kernels from numba's cache)
+    and renders a 5 s, 24-mode note at 48 kHz: wall time.
+"""
+
+from __future__ import annotations
+
+import math
+import subprocess
+import sys
+import time
+
+import numpy as np
+from threadpoolctl import threadpool_limits
+
+from synth.bench import median_time
+from synth.engine import CoupledPair, ModeBank, Voice, kernels, render_blocks
+from synth.engine.render import _series_coefficients
+
+FS = 48000.0
+
+
+def _passage(rng: np.random.Generator, n_voices: int, n_modes: int, n_samples: int,
+             curve=None) -> list[Voice]:
+    spacing = max(1, n_samples // (4 * n_voices))
+    voices = []
+    for i in range(n_voices):
+        f = rng.uniform(150.0, 12000.0, n_modes)
+        voices.append(Voice(i * spacing, ModeBank(f, rng.uniform(0.2, 3.0, n_modes),
+                                                  rng.uniform(0.01, 0.05, n_modes),
+                                                  rng.uniform(-3, 3, n_modes)),
+                            gain_curve=curve))
+    return voices
+
+
+def _drain(voices, n_samples) -> None:
+    for _ in render_blocks(voices, n_samples, sample_rate=FS, silence_db=-1000.0):
+        pass
+
+
+def _numpy_voice_blocks(voices, n_samples, block=8192) -> None:
+    out = np.zeros(block)
+    for b0 in range(0, n_samples, block):
+        n = min(block, n_samples - b0)
+        out[:n] = 0.0
+        for v in voices:
+            lo = max(b0, v.start_sample)
+            if lo >= b0 + n:
+                continue
+            t = (np.arange(lo, b0 + n) - v.start_sample) / FS
+            m = v.modes
+            y = (m.amplitude[:, None] * np.exp(-np.outer(m.decay_per_s, t))
+                 * np.sin(2 * np.pi * np.outer(m.frequency_hz, t) + m.phase_rad[:, None]))
+            out[lo - b0:n] += y.sum(axis=0)
+
+
+def _table_curve(values: np.ndarray):
+    def curve(first, n):
+        return values[first:first + n]
+    return curve
+
+
+def _warm_start_s() -> float:
+    code = (
+        "import numpy as np\n"
+        "from synth.engine import ModeBank, Voice, render_blocks\n"
+        "rng = np.random.default_rng(1)\n"
+        "v = Voice(0, ModeBank(rng.uniform(150, 9000, 24), rng.uniform(0.5, 3, 24),"
+        " rng.uniform(0.01, 0.05, 24)))\n"
+        "for _ in render_blocks([v], 5 * 48000, sample_rate=48000): pass\n"
+    )
+    subprocess.run([sys.executable, "-c", code], check=True)  # fill the cache if empty
+    t0 = time.perf_counter()
+    subprocess.run([sys.executable, "-c", code], check=True)
+    return time.perf_counter() - t0
+
+
+def run(quick: bool = False) -> dict[str, float]:
+    """Run the engine suite; return figures keyed by dotted name."""
+    repeats = 3 if quick else 7
+    seconds = 1.0 if quick else 4.0
+    n = int(seconds * FS)
+    rng = np.random.default_rng(20261202)
+    figures: dict[str, float] = {}
+    with threadpool_limits(limits=1):
+        # plain banks, streamed
+        n_voices, n_modes = 16, 32
+        voices = _passage(rng, n_voices, n_modes, n)
+        _drain(voices, 1024)  # compile or load from the cache
+        active = sum(n - v.start_sample for v in voices) * n_modes
+        t = median_time(lambda: _drain(voices, n), repeats)
+        figures["engine.mode_samples_per_s"] = active / t
+
+        # numpy reference on the same voices over a shorter stretch
+        n_np = int(0.25 * FS) if quick else int(1.0 * FS)
+        active_np = sum(max(0, n_np - v.start_sample) for v in voices) * n_modes
+        t_np = median_time(lambda: _numpy_voice_blocks(voices, n_np), max(3, repeats // 2))
+        figures["engine.numpy_mode_samples_per_s"] = active_np / t_np
+        figures["engine.numpy_ratio"] = figures["engine.mode_samples_per_s"] / (active_np / t_np)
+
+        # bank kernel alone
+        k = 64
+        f = rng.uniform(150.0, 12000.0, k) / FS
+        g = rng.uniform(0.2, 3.0, k) / FS
+        a = rng.uniform(0.01, 0.05, k)
+        ph = np.zeros(k)
+        out = np.zeros((n, 1))
+        state = np.zeros((2, k))
+        clock = np.array([0, -1], dtype=np.int64)
+        gains = np.ones(1)
+        empty = np.ones(0)
+
+        def bank_kernel():
+            clock[:] = (0, -1)
+            kernels._bank_add(out, 0, gains, empty, False, state, clock, f, g, a, ph,
+                              0, n, 1024, 0, 2 ** 40, 0.0, 0.0)
+
+        figures["engine.kernel_mode_samples_per_s"] = k * n / median_time(bank_kernel, repeats)
+
+        # gain curves
+        curve = _table_curve(0.5 + 0.4 * np.cos(2 * np.pi * 3.0 * np.arange(n + 1) / FS))
+        voices_c = _passage(np.random.default_rng(20261202), n_voices, n_modes, n, curve)
+        _drain(voices_c, 1024)
+        t = median_time(lambda: _drain(voices_c, n), repeats)
+        figures["engine.gain_curve_mode_samples_per_s"] = active / t
+
+        # coupled pair with per-sample coupling
+        steps = np.arange(n + 1)
+        mu = _table_curve(5.0 * (1.0 + 0.5 * np.sin(2 * np.pi * 6.0 * (steps + 0.5) / FS)))
+        g2 = _table_curve(26.0 + 8.0 * np.sin(2 * np.pi * 6.0 * (steps + 0.5) / FS))
+        w2 = _table_curve(2.0 + np.cos(2 * np.pi * 6.0 * steps / FS))
+        pair = CoupledPair((440.0, 441.5), (0.46, 18.0), (1.0, 0.0), coupling_rad_s=mu)
+        pair_v = [Voice(0, ModeBank.empty(), pairs=(pair,))]
+        _drain(pair_v, 1024)
+        figures["engine.pair_steps_per_s"] = n / median_time(lambda: _drain(pair_v, n), repeats)
+        pair_g = CoupledPair((440.0, 441.5), (0.46, 18.0), (1.0, 0.0), coupling_rad_s=mu,
+                             decay_2_curve=g2)
+        pair_gv = [Voice(0, ModeBank.empty(), pairs=(pair_g,))]
+        _drain(pair_gv, 1024)
+        figures["engine.pair_decay_curve_steps_per_s"] = n / median_time(
+            lambda: _drain(pair_gv, n), repeats)
+
+        # pair kernel alone
+        om = np.array([2 * math.pi * 440.0, 2 * math.pi * 441.5])
+        mu_arr = mu(0, n)
+        w_arr = np.ones(n)
+        d = 0.5 * abs(complex(17.54, om[0] - om[1])) / FS
+        cosh_c, sinh_c = _series_coefficients(d * d + 1e-4, "bench")
+        pstate = np.zeros(4)
+
+        def pair_kernel():
+            pstate[:] = (1.0, 0.0, 0.0, 0.0)
+            kernels._pair_add(out, 0, n, gains, empty, False, pstate, om, 0.46,
+                              np.array([18.0]), False, 1.0 / FS, mu_arr, 1.0, w_arr,
+                              cosh_c, sinh_c, np.ones(1))
+
+        figures["engine.pair_kernel_steps_per_s"] = n / median_time(pair_kernel, repeats)
+
+        # one note: coupled pair + curves vs the bare bank
+        note_bank = ModeBank(440.0 * np.array([1, 4, 10] + list(range(11, 32))),
+                             rng.uniform(0.3, 3.0, 24), rng.uniform(0.01, 0.05, 24))
+        bare = [Voice(0, note_bank)]
+        t_bare = median_time(lambda: _drain(bare, n), repeats)
+        for name, extra in (("pair_note_vs_bank_ratio", {}),
+                            ("pair_decay_note_vs_bank_ratio", {"decay_2_curve": g2})):
+            full_pair = CoupledPair((440.0, 441.5), (0.46, 18.0), (1.0, 0.0),
+                                    coupling_rad_s=mu, weight_2=w2, **extra)
+            full = [Voice(0, note_bank, gain_curve=curve, pairs=(full_pair,))]
+            _drain(full, 1024)
+            t_full = median_time(lambda full=full: _drain(full, n), repeats)
+            figures[f"engine.{name}"] = t_full / t_bare
+    figures["engine.warm_start_render_s"] = _warm_start_s()
+    return figures
