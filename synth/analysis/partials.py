@@ -47,6 +47,7 @@ References
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from dataclasses import dataclass
 
@@ -73,6 +74,10 @@ from synth.analysis.subspace import (
 from synth.errors import AudioError, ConfigError
 
 METHODS = ("esprit", "matrix_pencil")
+
+AUDIBLE_LIMIT_HZ = 20000.0
+"""Default top of the search band, Hz: the usual upper edge of the audio band
+[common practice, no source]."""
 
 BAND_SNR_MIN = 2.0
 """A pole must start at least this many times (6 dB) above the band's noise
@@ -231,7 +236,7 @@ def find_partials(
     *,
     max_partials: int = 12,
     fmin_hz: float = 20.0,
-    fmax_hz: float = 20000.0,
+    fmax_hz: float | None = None,
     min_snr_db: float = 15.0,
     dynamic_range_db: float = 80.0,
     method: str = "esprit",
@@ -252,9 +257,12 @@ def find_partials(
     max_partials : int, default 12
         Keep at most this many, the strongest (by level above the noise floor in
         the long spectrum).
-    fmin_hz, fmax_hz : float, default 20.0 and 20000.0
-        Band searched, Hz; ``fmax_hz`` is clamped to 0.45 x sample rate with a
-        warning.
+    fmin_hz : float, default 20.0
+        Lowest frequency searched, Hz.
+    fmax_hz : float, optional
+        Highest frequency searched, Hz.  Default: 20 kHz or 0.45 x sample rate,
+        whichever is lower.  A value above 0.45 x sample rate is clamped to it
+        with a warning.
     min_snr_db : float, default 15.0
         A spectral peak must stand this far above the noise floor (per bin) of
         the long spectrum, dB.  Noise alone peaks about 11 dB above its mean in
@@ -305,6 +313,8 @@ def find_partials(
     prep = prepare(signal, sample_rate, fmin_hz=fmin_hz, fmax_hz=fmax_hz, min_duration_s=0.05,
                    what="partial analysis")
     fs = prep.sample_rate
+    if fmax_hz is None and prep.fmax_hz > AUDIBLE_LIMIT_HZ:
+        prep = dataclasses.replace(prep, fmax_hz=AUDIBLE_LIMIT_HZ)
     x = prep.samples
     warnings = list(prep.warnings)
     strike = strike_in(x, fs)
