@@ -541,14 +541,14 @@ class SchroederDecay:
 
     times_s: np.ndarray = field(compare=False, repr=False)
     edc_db: np.ndarray = field(compare=False, repr=False)
-    edt: DecayRange = None  # type: ignore[assignment]
-    t20: DecayRange = None  # type: ignore[assignment]
-    t30: DecayRange = None  # type: ignore[assignment]
-    noise_floor_db: float = -math.inf
-    truncation_s: float = math.nan
-    noise: str = "compensate"
-    frequency_hz: float = math.nan
-    warnings: tuple[str, ...] = ()
+    edt: DecayRange
+    t20: DecayRange
+    t30: DecayRange
+    noise_floor_db: float
+    truncation_s: float
+    noise: str
+    frequency_hz: float
+    warnings: tuple[str, ...]
 
 
 NOISE_MODES: Final[tuple[str, ...]] = ("compensate", "truncate", "subtract", "none")

@@ -160,9 +160,9 @@ class SubspaceFit:
         Accepted poles, sorted by frequency.  Amplitudes and phases refer to the
         first sample of the window.
     rejected : tuple of Pole
-        Poles found but rejected (growing, negligible amplitude, or for real
-        input the negative-frequency twin's partner that has no twin, 0 Hz or
-        Nyquist), with the reason in ``rejected_reasons``.
+        Poles found but rejected (growing, negligible amplitude, or, for real
+        input, real poles at 0 Hz or Nyquist), with the reason in
+        ``rejected_reasons``.
     rejected_reasons : tuple of str
         One reason per rejected pole.
     order : int
@@ -189,11 +189,11 @@ class SubspaceFit:
     order: int
     order_method: str
     singular_values: np.ndarray = field(compare=False, repr=False)
-    n_samples: int = 0
-    n_rows: int = 0
-    residual_rms: float = 0.0
-    method: str = ""
-    warnings: tuple[str, ...] = ()
+    n_samples: int
+    n_rows: int
+    residual_rms: float
+    method: str
+    warnings: tuple[str, ...]
 
 
 def hankel(x: np.ndarray, n_rows: int) -> np.ndarray:
