@@ -46,11 +46,11 @@ References
 ----------
 .. [1] Moler, C. and Van Loan, C., "Nineteen dubious ways to compute the
    exponential of a matrix, twenty-five years later", SIAM Review 45(1), 3-49,
-   2003, doi:10.1137/S00361445024180 (section 3: the 2x2 case and
-   Cayley-Hamilton methods).
+   2003, doi:10.1137/S00361445024180 (DOI from memory; section 3: the 2x2
+   case and Cayley-Hamilton methods).
 .. [2] Smith, J. O., "Introduction to Digital Filters with Audio
    Applications", W3K Publishing, 2007, ISBN 978-0-9745607-1-7 (complex
-   one-pole resonators).
+   one-pole resonators; ISBN from memory).
 """
 
 from __future__ import annotations

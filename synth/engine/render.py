@@ -28,8 +28,9 @@ Every block is checked before it is handed out: a NaN, an infinity or a sample
 larger than the mathematical bound of the voices sounding in it (sum of their
 amplitudes times their largest gains in the block; decays are never negative,
 so no correct render exceeds it) means the simulation ran away.  The block is
-then muted (never yielded) and :class:`~synth.errors.ModelError` is raised
-with the first voice found at fault.
+then muted (never yielded) and :class:`~synth.errors.ModelError` is raised,
+naming the voices sounding in it (a pair whose state energy grows, which the
+exact steps cannot do, is named on its own).
 
 Gain and peak
 -------------
@@ -52,10 +53,10 @@ References
 ----------
 .. [1] Smith, J. O., "Introduction to Digital Filters with Audio
    Applications", W3K Publishing, 2007, ISBN 978-0-9745607-1-7 (complex
-   one-pole resonators).
+   one-pole resonators; ISBN from memory).
 .. [2] Moler, C. and Van Loan, C., "Nineteen dubious ways to compute the
    exponential of a matrix, twenty-five years later", SIAM Review 45(1), 3-49,
-   2003, doi:10.1137/S00361445024180.
+   2003, doi:10.1137/S00361445024180 (DOI from memory).
 """
 
 from __future__ import annotations
@@ -541,10 +542,11 @@ def render(
     samples : ndarray, shape (n_samples, channels)
         The summed output, in ``dtype``.
     """
+    voices = list(voices)
     blocks = render_blocks(voices, n_samples, sample_rate=sample_rate, block_size=block_size,
                            channels=channels, gain=gain, dtype=dtype, silence_db=silence_db,
                            progress=progress)
-    n_ch = _channels_of(list(voices), channels)
+    n_ch = _channels_of(voices, channels)
     out = np.empty((int(n_samples), n_ch), dtype=dtype)
     row = 0
     for block in blocks:

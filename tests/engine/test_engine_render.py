@@ -34,11 +34,16 @@ def _mu_curve(first, n):
 
 
 def mixed_voices(rng):
-    """Return a bank with damping and a gain curve, a panned pair with curves, a plain bank."""
+    """Return a bank with damping and a gain curve, a panned pair with curves, a plain bank.
+
+    The pair has every curve (coupling, tube weight, tube decay) and is damped
+    on its first member only.
+    """
     bank = ModeBank(rng.uniform(100, 9000, 12), rng.uniform(0.5, 30, 12),
                     rng.uniform(-0.3, 0.3, 12), rng.uniform(-3, 3, 12))
     pair = CoupledPair((440.0, 442.0), (0.5, 26.0), (0.4, 0.0), coupling_rad_s=_mu_curve,
-                       weight_2=lambda first, n: np.full(n, 2.0), damped=(True, False))
+                       weight_2=lambda first, n: np.full(n, 2.0), damped=(True, False),
+                       decay_2_curve=lambda first, n: 26.0 + _gain_curve(first, n))
     return [
         Voice(17, bank, channel_gains=constant_power_pan(-0.4), damping=[(3001, 20.0)],
               gain_curve=_gain_curve, label="A"),
