@@ -74,7 +74,7 @@ PLAY_INSTALL_HINT: Final[str] = (
 )
 
 
-# --------------------------------------------------------------------------- helpers
+# --------------------------------------------------------------------------- checks
 def check_writable(path: str | os.PathLike[str], *, force: bool = False) -> Path:
     """Raise unless ``path`` may be written (new file, or ``force``); return it as a Path.
 

@@ -141,7 +141,7 @@ def _bank_add(out, o0, channel_gain, curve, use_curve, state, clock,
         while m < m1:
             ge = min(gs + 4, next_anchor)
             # The two loops below must stay identical but for where the state goes.
-            # (A shared helper or swapping the arrays costs a factor 2-3 in numba.)
+            # (A shared inner function or swapping the arrays costs a factor 2-3 in numba.)
             if ge <= m1:   # complete group: advance the state in place
                 a0 = 0.0
                 a1 = 0.0

@@ -60,7 +60,8 @@ coupling at ``n + 1/2`` for second-order accuracy); the same holds for a
 References
 ----------
 .. [1] Fletcher, N. H. and Rossing, T. D., "The Physics of Musical
-   Instruments", 2nd ed., Springer, 1998, ISBN 978-0-387-98374-5 (ch. 2,
+   Instruments", 2nd ed., Springer, 1998, ISBN 978-0-387-98374-5 (ISBN from
+   memory; ch. 2,
    damped and coupled oscillators).
 """
 
