@@ -61,8 +61,7 @@ References
 ----------
 .. [1] Fletcher, N. H. and Rossing, T. D., "The Physics of Musical
    Instruments", 2nd ed., Springer, 1998, ISBN 978-0-387-98374-5 (ISBN from
-   memory; ch. 2,
-   damped and coupled oscillators).
+   memory; ch. 2, damped and coupled oscillators).
 """
 
 from __future__ import annotations
