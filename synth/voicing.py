@@ -55,7 +55,7 @@ from synth.physics.losses import (
     parse_supports,
 )
 from synth.physics.mallet import Mallet, load_mallet, simulate_contact
-from synth.physics.motor import DiscModulation, MotorSpec, disc_modulation
+from synth.physics.motor import DiscModulation, MotorSpec, disc_modulation, steady_bar_decay_per_s
 from synth.physics.tube import (
     TubeSpec,
     air_density,
@@ -337,7 +337,8 @@ class Voicer:
                      speed_m_s: float | None = None, mallet: str | Mallet | None = None,
                      position: float | None = None, across: float | None = None,
                      release_s: float | None = None,
-                     pedal: tuple[tuple[float, float], ...] = ((0.0, 1.0),)) -> Voice:
+                     pedal: tuple[tuple[float, float], ...] = ((0.0, 1.0),),
+                     mono: bool = False) -> Voice:
         """One struck note as an engine voice.
 
         Parameters
@@ -358,6 +359,8 @@ class Voicer:
             Key up: from here the dampers act as the pedal allows.
         pedal : sequence of (time_s, value)
             Pedal curve, piecewise constant; 1 = dampers lifted.
+        mono : bool
+            One channel whatever the voicer's channels (for analysis).
         """
         model = self.model(note)
         s = self.sound
@@ -375,7 +378,7 @@ class Voicer:
                               key="across")
         head = _mallet(mallet if mallet is not None else s.mallet)
         amps, phases = self._excite(model, head, float(speed_m_s), pos, acr)
-        return self._voice(model, amps, phases, time_s, release_s, pedal)
+        return self._voice(model, amps, phases, time_s, release_s, pedal, mono)
 
     def _excite(self, model: NoteModel, head: Mallet, speed: float, pos: float, acr: float):
         key = (model.note, head, round(speed, 6), round(pos, 6), round(acr, 6))
@@ -398,7 +401,8 @@ class Voicer:
         self._cache[("contact", *key)] = out
         return out
 
-    def _voice(self, model: NoteModel, energy_root, phases, time_s, release_s, pedal) -> Voice:
+    def _voice(self, model: NoteModel, energy_root, phases, time_s, release_s, pedal,
+               mono: bool = False) -> Voice:
         fs = self.sample_rate
         nyquist = 0.5 * fs
         rz = air_density(self.temperature_c) * speed_of_sound(self.temperature_c)
@@ -419,7 +423,7 @@ class Voicer:
             amp.append(energy_root[j] * weight)
             ph.append(phases[j])
         start = seconds_to_sample(time_s, fs)
-        gains = constant_power_pan(model.pan) if self.channels == 2 else (1.0,)
+        gains = constant_power_pan(model.pan) if self.channels == 2 and not mono else (1.0,)
         return Voice(start, ModeBank(freq, decay, amp, ph), channel_gains=gains,
                      damping=self._damping(start, release_s, pedal), pairs=tuple(pairs),
                      label=model.note)
@@ -429,16 +433,45 @@ class Voicer:
         form = pair.engine_form(strike_energy_j=1.0,
                                 reference_distance_m=self.sound.listening_distance_m)
         coupling, weight2 = form.coupling_rate_rad_s, form.weight_tube
-        if self.motor.rate_rev_per_s > 0 or self.motor.resting != "open":
-            mod: DiscModulation = disc_modulation(
-                pair, self.motor, self.sample_rate,
-                phase_offset_deg=self.disc_phase_deg(model.note),
-                reference_distance_m=self.sound.listening_distance_m)
-            coupling, weight2 = mod.coupling_rate, mod.tube_weight
-        return CoupledPair(frequency_hz=form.frequency_hz, decay_per_s=form.decay_per_s,
+        decays, decay_curve = form.decay_per_s, None
+        mod = self.modulation(model)
+        if mod is not None:
+            coupling, weight2, decay_curve = mod.coupling_rate, mod.tube_weight, mod.tube_decay
+            # the engine needs a lower bound of the tube's decay curve
+            decays = (decays[0], mod.tube_wall_decay_per_s
+                      + mod.tube_radiation_decay_per_s * mod.floor)
+        return CoupledPair(frequency_hz=form.frequency_hz, decay_per_s=decays,
                            amplitude=(float(energy_root), 0.0), phase_rad=(float(phase), 0.0),
                            coupling_rad_s=coupling, weight_1=form.weight_bar,
-                           weight_2=weight2, damped=(True, True))
+                           weight_2=weight2, damped=(True, True), decay_2_curve=decay_curve)
+
+    def modulation(self, model: NoteModel) -> DiscModulation | None:
+        """The discs' per-sample streams for a note's tube (None: mouth always open)."""
+        if model.coupling is None:
+            return None
+        if self.motor.rate_rev_per_s <= 0 and self.motor.resting == "open":
+            return None
+        return disc_modulation(model.coupling.pair, self.motor, self.sample_rate,
+                               phase_offset_deg=self.disc_phase_deg(model.note),
+                               reference_distance_m=self.sound.listening_distance_m)
+
+    def fundamental(self, note: str) -> tuple[float, float, float]:
+        """(frequency Hz, Q, T60 s) of the sounding fundamental.
+
+        Bare bar: the budget.  With a tube: the coupled bar-like pole; with the
+        motor running, its exact decay over a steady modulation period
+        (:func:`synth.physics.motor.steady_bar_decay_per_s`).
+        """
+        model = self.model(note)
+        if model.coupling is None:
+            f = model.fundamental
+            return f.frequency_hz, f.q, f.t60_s
+        modes = model.coupling.pair.modes()
+        freq, decay = modes.frequency_hz[0], modes.decay_per_s[0]
+        mod = self.modulation(model)
+        if mod is not None:
+            decay = steady_bar_decay_per_s(model.coupling.pair, mod)
+        return freq, math.pi * freq / decay, LN_1000 / decay
 
     def _damping(self, start: int, release_s, pedal) -> tuple[tuple[int, float], ...]:
         if release_s is None:

@@ -17,8 +17,8 @@ find_partials
     Frequencies, decay rates, Q, T60, amplitudes and phases of a strike.
 esprit, matrix_pencil
     Subspace estimates of damped sinusoids in one window.
-fit_decay, fit_envelope_decay
-    Log-envelope decay fit of one partial.
+fit_decay, fit_envelope_decay, band_envelope
+    Log-envelope decay fit of one partial; a cheap heterodyne envelope.
 schroeder_decay
     Schroeder backward integration with EDT, T20, T30.
 detect_onsets, find_strike
@@ -34,6 +34,7 @@ from synth.analysis.decay import (
     DecayFit,
     DecayRange,
     SchroederDecay,
+    band_envelope,
     fit_decay,
     fit_envelope_decay,
     schroeder_decay,
@@ -64,6 +65,7 @@ __all__ = [
     "Strike",
     "SubspaceFit",
     "TruePeak",
+    "band_envelope",
     "check_signal",
     "detect_onsets",
     "esprit",

@@ -1,0 +1,137 @@
+"""Report commands: ``sustain`` (and the chord decay check of ``chord``)."""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Annotated
+
+import typer
+
+from synth.cli import app
+from synth.cli.common import Progress, format_table, handle_errors, print_json
+
+
+@app.command("sustain")
+@handle_errors
+def sustain_command(
+    preset: Annotated[Path, typer.Argument(help="Instrument preset with solved [bars].",
+                                           show_default=False)],
+    target_t60: Annotated[float | None, typer.Option(
+        min=0.01, help="One T60 target for every note, s (default: the median of the range, "
+                       "which keeps chords fading evenly).")] = None,
+    target_curve: Annotated[str | None, typer.Option(
+        help='T60 targets through given notes, e.g. "F3:40,C5:20,F6:8" (log-interpolated).')
+    ] = None,
+    tolerance: Annotated[float, typer.Option(
+        min=0.1, max=500.0, help="Flag notes whose T60 misses the target by more than this "
+                                 "many percent.")] = 15.0,
+    at_time: Annotated[float, typer.Option(
+        min=0.0, max=60.0, help="Time after the strike at which to state the level "
+                                "difference, s.")] = 2.0,
+    min_gain: Annotated[float, typer.Option(
+        help="Keep the tube's gain above this (dB over the bare bar) when suggesting a "
+             "tube offset.")] = 3.0,
+    no_tubes: Annotated[bool, typer.Option("--no-tubes", help="Bare bars.")] = False,
+    motor_rate: Annotated[float | None, typer.Option(
+        min=0.0, max=50.0, help="Motor rate in rev/s, overriding the preset (0 stops it).")
+    ] = None,
+    note: Annotated[list[str] | None, typer.Option(help="Only these notes (repeatable).")
+                    ] = None,
+    out: Annotated[Path | None, typer.Option(
+        help="Folder for sustain.csv and sustain.png (default renders/<preset>/).")] = None,
+    force: Annotated[bool, typer.Option(help="Overwrite existing files.")] = False,
+    json_out: Annotated[bool, typer.Option("--json", help="Print JSON on stdout.")] = False,
+) -> None:
+    """Sustain across the range: T60 per note and partial, mismatch against the target.
+
+    Q and T60 come from the loss budget (tube and discs included); the
+    fundamental's T60 is also measured on a rendered strike. Flagged notes get a
+    tube offset that would bring them inside the target.
+    """
+    from synth import io
+    from synth.errors import ConfigError
+    from synth.physics.instrument import load_instrument
+    from synth.reports.sustain import (
+        parse_target_curve,
+        sustain_csv,
+        sustain_png,
+        sustain_report,
+    )
+    from synth.voicing import Voicer
+
+    if target_t60 is not None and target_curve is not None:
+        raise ConfigError("give --target-t60 or --target-curve, not both", source="--target-curve")
+    inst = load_instrument(preset)
+    notes = [inst.check_note(n) for n in note] if note else list(inst.notes)
+    folder = out or Path("renders") / preset.stem
+    folder.mkdir(parents=True, exist_ok=True)
+    csv_path, png_path = folder / "sustain.csv", folder / "sustain.png"
+    for p in (csv_path, png_path):
+        io.check_writable(p, force=force)
+    v = Voicer(inst, sample_rate=48000.0, tubes=not no_tubes, motor_rate_rev_per_s=motor_rate,
+               channels=1)
+    curve = parse_target_curve(target_curve, notes) if target_curve else None
+    with Progress(len(notes), "sustain") as step:
+        rep = sustain_report(v, notes, target_t60_s=target_t60, target_curve=curve,
+                             tolerance_percent=tolerance, at_time_s=at_time,
+                             min_gain_db=min_gain, progress=lambda n: step(1, n))
+    io.write_bytes(csv_path, sustain_csv(rep).encode("utf-8"), force=force)
+    io.write_bytes(png_path, sustain_png(rep, f"{inst.name}: sustain of the fundamental"),
+                   force=force)
+    if json_out:
+        print_json({
+            "target": rep.target_label, "tolerance_percent": rep.tolerance_percent,
+            "tubes": rep.tubes, "motor_rate_rev_per_s": rep.motor_rate_rev_per_s,
+            "csv": str(csv_path), "png": str(png_path),
+            "notes": [{"note": r.note, "frequency_hz": r.frequency_hz, "cents": r.cents,
+                       "q": list(r.q), "t60_s": r.t60_s[0], "t60_partials_s": list(r.t60_s),
+                       "t60_rendered_s": r.t60_rendered_s, "target_t60_s": r.target_t60_s,
+                       "mismatch_percent": r.mismatch_percent,
+                       "level_difference_db": r.level_difference_db, "flagged": r.flagged,
+                       "suggestion": r.suggestion,
+                       "suggested_offset_cents": r.suggested_offset_cents,
+                       "warnings": list(r.warnings)} for r in rep.rows]})
+        return
+    rows = [[r.note, f"{r.frequency_hz:.2f}", f"{r.cents + 0.0:+.2f}",
+             *[f"{t:.2f}" for t in r.t60_s], f"{r.t60_rendered_s:.2f}",
+             f"{r.mismatch_percent:+.0f}", f"{r.level_difference_db:+.1f}",
+             "OUT" if r.flagged else "", r.suggestion] for r in rep.rows]
+    typer.echo(format_table(
+        ["note", "f1 Hz", "cents", "T60 p1 s", "T60 p2 s", "T60 p3 s", "p1 rendered",
+         "mismatch %", f"dB at {at_time:g} s", "flag", "suggestion"],
+        rows, align="lrrrrrrrrll"))
+    n_out = sum(r.flagged for r in rep.rows)
+    typer.echo(f"target: {rep.target_label}; {n_out} of {len(rep.rows)} notes outside "
+               f"+-{tolerance:g} %; tubes {'on' if rep.tubes else 'off'}, motor "
+               f"{rep.motor_rate_rev_per_s:g} rev/s")
+    typer.echo(f"wrote {csv_path} and {png_path}")
+
+
+def chord_decay_report(preset: Path, voicer, items, velocity, mallet, roll_ms, duration, out,
+                       *, force: bool, json_out: bool) -> None:
+    """Print the even-decay check of a chord and write its PNG (called by ``chord``)."""
+    from synth import io
+    from synth.reports.chord import chord_decay, chord_decay_png
+
+    strengths = [(n, velocity if v is None else v) for n, v in items]
+    res = chord_decay(voicer, strengths, mallet=mallet, roll_ms=roll_ms, seconds=duration)
+    base = out.with_suffix("") if out is not None else (
+        Path("renders") / preset.stem / ("chord-" + "-".join(n.replace("#", "s")
+                                                              for n, _ in items)))
+    png = base.parent / f"{base.name}-decay.png"
+    io.write_bytes(png, chord_decay_png(res, f"{voicer.instrument.name}: "
+                                         + " ".join(n for n, _ in items)), force=force)
+    if json_out:
+        print_json({"spread_db_per_s": res.spread_db_per_s, "times_s": list(res.times_s),
+                    "png": str(png),
+                    "notes": [{"note": n.note, "frequency_hz": n.frequency_hz,
+                               "decay_db_per_s": n.decay_db_per_s, "t60_s": n.t60_s,
+                               "balance_db": list(n.balance_db), "warnings": list(n.warnings)}
+                              for n in res.notes]})
+        return
+    typer.echo(format_table(
+        ["note", "f1 Hz", "decay dB/s", "T60 s", *[f"at {t:g} s dB" for t in res.times_s]],
+        [[n.note, f"{n.frequency_hz:.2f}", f"{n.decay_db_per_s:.2f}", f"{n.t60_s:.2f}",
+          *["-" if b != b else f"{b:+.1f}" for b in n.balance_db]] for n in res.notes],
+        title="decay of each note in its own band (balance: level re the loudest note)"))
+    typer.echo(f"spread of decay rates: {res.spread_db_per_s:.2f} dB/s; plot: {png}")
