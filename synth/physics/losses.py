@@ -138,10 +138,48 @@ def parse_calibration(sec: Section | None) -> Calibration:
     Keys: ``factors = {internal = 1.0, thermoelastic = 1.0, radiation = 1.0, cords = 1.0,
     air = 1.0, tube = 1.0}`` (any subset) and ``[[damping.override]]`` tables with
     ``note`` (or "*"), ``kind``, ``order`` and ``q``.
+
+    ``calibration_file`` (a preset's ``[damping]`` only) names a calibration file,
+    relative to the preset, whose own ``[damping]`` table is merged in: a factor or
+    an override the preset gives explicitly wins over the file's.
     """
     if sec is None:
         return Calibration()
     sec.check_keys({"factors", "override", "calibration_file"})
+    own = _parse_damping(sec)
+    name = sec.string("calibration_file", None)
+    if name is None:
+        return own
+    base = _calibration_file(sec, name)
+    return Calibration({**base.factors, **own.factors}, {**base.overrides, **own.overrides},
+                       f"{sec.source} (with {base.source})")
+
+
+def _calibration_file(sec: Section, name: str) -> Calibration:
+    """Read the ``[damping]`` table of a calibration file named by a preset."""
+    from pathlib import Path
+
+    from synth.config import load_toml
+
+    path = Path(name)
+    if not path.is_absolute():
+        path = Path(sec.source).parent / path
+    try:
+        data = load_toml(path)
+    except ConfigError as exc:
+        raise sec.error("calibration_file", f"cannot be used: {exc} (the path is relative "
+                        "to the preset)") from None
+    top = Section(data, str(path))
+    top.check_keys({"damping"})
+    table = top.section("damping", None)
+    if table is None:
+        raise ConfigError("has no [damping] table; a calibration file holds [damping] with "
+                          "factors and [[damping.override]] tables", source=str(path))
+    table.check_keys({"factors", "override"})
+    return _parse_damping(table)
+
+
+def _parse_damping(sec: Section) -> Calibration:
     factors = {}
     fsec = sec.section("factors", None)
     if fsec is not None:
