@@ -31,7 +31,6 @@ from __future__ import annotations
 from dataclasses import dataclass, replace
 
 import numpy as np
-from scipy.interpolate import PchipInterpolator
 
 from synth.config import Section
 from synth.errors import ConfigError
@@ -78,6 +77,8 @@ class StationUndercut(Undercut):
         out = np.full_like(x, blank_thickness_m)
         inside = (x >= xs[0]) & (x <= xs[-1])
         if self.smooth and len(xs) >= 3:
+            from scipy.interpolate import PchipInterpolator  # only smooth tables need it
+
             out[inside] = PchipInterpolator(xs, hs)(x[inside])
         else:
             out[inside] = np.interp(x[inside], xs, hs)

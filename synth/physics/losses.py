@@ -296,16 +296,6 @@ def _quadrature(length: float, n: int) -> tuple[np.ndarray, np.ndarray]:
     return x, wt
 
 
-def _sphere(n_theta: int = 32, n_phi: int = 64):
-    ct, wt = np.polynomial.legendre.leggauss(n_theta)
-    phi = np.linspace(0.0, 2 * math.pi, n_phi, endpoint=False)
-    ct, ph = np.meshgrid(ct, phi, indexing="ij")
-    st = np.sqrt(1.0 - ct**2)
-    n = np.stack([st * np.cos(ph), st * np.sin(ph), ct], axis=-1).reshape(-1, 3)
-    w = (wt[:, None] * np.full(n_phi, 2 * math.pi / n_phi)[None, :]).ravel()
-    return n, w
-
-
 def radiation_eta(mode: Mode, geometry, material, temperature_c: float = 20.0,
                   n_points: int = 240) -> float:
     """Sound radiated by the bare bar, as a loss factor (compact-slice dipole line model)."""
@@ -316,23 +306,29 @@ def radiation_eta(mode: Mode, geometry, material, temperature_c: float = 20.0,
     xq, wq = _quadrature(geometry.length_m, n_points)
     h = geometry.thickness_at(xq)
     b = geometry.width_m
-    dirs, dw = _sphere()
-    phase_x = np.exp(1j * k * np.outer(dirs[:, 0], xq))  # (n_dir, n_x)
-    if mode.kind == "vertical":
-        strength = (b * h + math.pi * b**2 / 4.0) * om * mode.shape_at(xq)
-        amp = (phase_x @ (wq * strength)) * dirs[:, 2]
-    elif mode.kind == "lateral":
-        strength = (b * h + math.pi * h**2 / 4.0) * om * mode.shape_at(xq)
-        amp = (phase_x @ (wq * strength)) * dirs[:, 1]
+    # Directions: u = cosine of the angle to the bar's axis, phi = azimuth about it.
+    # The line's far field depends on u only; the dipole factor n_z (or n_y) squared
+    # integrates over phi to pi (1 - u^2), so bending needs a 1-D integral over u.
+    u, wu = np.polynomial.legendre.leggauss(64)
+    phase_x = np.exp(1j * k * np.outer(u, xq))  # (n_u, n_x)
+    if mode.kind in ("vertical", "lateral"):
+        cross = b**2 if mode.kind == "vertical" else h**2
+        strength = (b * h + math.pi * cross / 4.0) * om * mode.shape_at(xq)
+        line = phase_x @ (wq * strength)
+        directional = np.sum(wu * np.abs(line) ** 2 * math.pi * (1.0 - u**2))
     else:
         half = 0.5 * b
         strength = (half * h + math.pi * half**2 / 4.0) * om * mode.shape_at(xq) * (b / 4.0)
         line = phase_x @ (wq * strength)
-        across = np.exp(1j * k * dirs[:, 1] * b / 4.0) - np.exp(-1j * k * dirs[:, 1] * b / 4.0)
-        amp = line * across * dirs[:, 2]
+        phi = np.linspace(0.0, 2 * math.pi, 48, endpoint=False)
+        sin_t = np.sqrt(1.0 - u**2)[:, None]
+        ny = sin_t * np.sin(phi)[None, :]
+        nz = sin_t * np.cos(phi)[None, :]
+        across = 4.0 * np.sin(k * ny * b / 4.0) ** 2  # |e^{ix} - e^{-ix}|^2
+        per_u = np.mean(across * nz**2, axis=1) * 2 * math.pi
+        directional = np.sum(wu * np.abs(line) ** 2 * per_u)
     # far field p r = rho0 c k^2 (dipole volume x velocity) cos / (4 pi); power = int |p r|^2 /(2 rho0 c)
-    pr = rho0 * c0 * k**2 * amp / (4.0 * math.pi)
-    power = float(np.sum(dw * np.abs(pr) ** 2) / (2.0 * rho0 * c0))
+    power = float((rho0 * c0 * k**2 / (4.0 * math.pi)) ** 2 * directional / (2.0 * rho0 * c0))
     energy = 0.5 * mode.modal_mass * om**2  # unit modal amplitude
     compact = power / (om * energy)
     # ceiling: both faces radiating with unit efficiency, P = rho0 c S <v^2>
