@@ -26,9 +26,11 @@ radiation weight makes the bare bar's fundamental weak beside its upper
 partials, until the tube lifts it.
 
 Pedal and dampers: a pedal value ``p`` of 1 lifts the dampers (notes ring), 0
-lets them rest on the bars; a released note (key up, MIDI note-off, the end of
-``hold_s``) then decays with the extra rate ``(1 - p) ln(1000) / damper_t60_s``,
-so half-pedal damps partly.
+lets them rest on the bars; a released note (MIDI note-off, the end of an event's
+``duration``, the end of ``--hold``) then decays with the extra rate
+``(1 - p) ln(1000) / damper_t60_s``, so half-pedal damps partly.  In a score, a
+strike without a release of its own is released at once (a bar has no key to
+hold): it rings while the dampers are lifted and stops when they come down.
 """
 
 from __future__ import annotations
@@ -514,10 +516,13 @@ class Voicer:
         return voices
 
     def _strike_of(self, st: Strike, pedal) -> Voice:
+        # A bar has no key to hold: a strike without a release of its own is free at
+        # once, so it rings while the dampers are lifted and stops when they come down.
+        release = st.release_s if st.release_s is not None else st.time_s
         return self.strike_voice(st.note, time_s=st.time_s, velocity=st.velocity,
                                  speed_m_s=st.mallet_speed_m_s, mallet=st.mallet,
                                  position=st.position, across=st.across,
-                                 release_s=st.release_s, pedal=pedal)
+                                 release_s=release, pedal=pedal)
 
 
 @lru_cache(maxsize=64)
@@ -529,19 +534,6 @@ def _mallet(spec: str | Mallet) -> Mallet:
     if isinstance(spec, Mallet):
         return spec
     return _mallet_by_name(spec)
-
-
-def ring_time_s(voices: list[Voice], sample_rate: float, *, floor_db: float = -60.0) -> float:
-    """A render length: the last voice start plus the slowest decay to ``floor_db``."""
-    if not voices:
-        raise ModelError("nothing to render: no strikes")
-    end = 0.0
-    factor = -floor_db / 20.0 * math.log(10.0)
-    for v in voices:
-        rates = list(v.modes.decay_per_s) + [min(p.decay_per_s) for p in v.pairs]
-        slow = max(min(rates), 1e-3) if rates else 1.0
-        end = max(end, v.start_sample / sample_rate + factor / slow)
-    return end
 
 
 def tube_cut_lengths(instrument: Instrument) -> dict[str, float]:

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 import re
 from pathlib import Path
 from typing import Annotated
@@ -265,8 +266,8 @@ def render_command(
     """Render a passage from an event file (TOML events or MIDI) to WAV."""
     from dataclasses import replace
 
+    from synth.engine.render import ring_out_sample
     from synth.engine.score import read_events
-    from synth.voicing import ring_time_s
 
     v = _voicer(preset, sample_rate=sample_rate, channels=channels, no_tubes=no_tubes,
                 motor_rate=motor_rate)
@@ -287,7 +288,11 @@ def render_command(
     elif tail is not None:
         seconds = score.last_event_s + tail
     else:
-        seconds = min(ring_time_s(voices, sample_rate), score.last_event_s + 30.0)
+        if not voices:
+            raise ConfigError("has no strikes to render", source=str(events))
+        ring = ring_out_sample(voices, sample_rate=sample_rate, level_db=-60.0)
+        ring_s = math.inf if ring is None else ring / sample_rate
+        seconds = min(ring_s, score.last_event_s + 30.0)
     _finish(preset, events.stem, out, voices, seconds, voicer=v, sample_rate=sample_rate,
             channels=channels, fmt=fmt, gain_db=gain_db, force=force, play=play,
             json_out=json_out,

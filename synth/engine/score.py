@@ -39,7 +39,8 @@ One optional ``[score]`` table and any number of ``[[strike]]`` and
     note = "C5"
     velocity = 0.6
     duration_beats = 1      # optional release: the note's own damping starts here
-                            # (duration_s in seconds; absent = no release of its own)
+                            # (duration_s in seconds; absent = released at once, so
+                            # the note rings while the dampers are lifted)
 
     [[pedal]]
     beat = 6
