@@ -101,5 +101,67 @@ def demo_command(
     typer.echo("3. build sheet")
     typer.echo(f"   {csv_path}   (lengths, stations, cord holes)")
     typer.echo(f"   {png_path}   (profile drawings)")
-    typer.echo(f"   {SAFETY}")
+    typer.echo(f"   {SAFETY}\n")
+
+    # 4. Sound: strikes, a chord, a passage
+    from synth.engine.score import read_events
+    from synth.output import render_to_wav
+    from synth.voicing import Voicer
+
+    typer.echo("4. sound (peak-normalised to -1 dBFS; start playback quietly)")
+    fs = 48000
+    stereo = Voicer(inst, sample_rate=float(fs), channels=2)
+    spinning = Voicer(inst, sample_rate=float(fs), channels=2, motor_rate_rev_per_s=3.0)
+    bare = Voicer(inst, sample_rate=float(fs), channels=2, tubes=False)
+    renders = [
+        ("strike-A4.wav", [stereo.strike_voice("A4", velocity=0.6)], 5.0, "A4, tubes on"),
+        ("strike-A4-bare.wav", [bare.strike_voice("A4", velocity=0.6)], 5.0,
+         "A4 without its tube"),
+        ("strike-F3-motor.wav", [spinning.strike_voice("F3", velocity=0.6)], 8.0,
+         "F3 with the motor at 3 rev/s (6 pulses/s)"),
+        ("strike-C5-hard.wav", [stereo.strike_voice("C5", velocity=0.7, mallet="hard")], 4.0,
+         "C5 with a hard mallet"),
+        ("chord-F3-A4-C5-E6.wav", [stereo.strike_voice(n, time_s=0.02 * k, velocity=0.6)
+                                   for k, n in enumerate(("F3", "A4", "C5", "E6"))], 6.0,
+         "F major-seventh spread, rolled 60 ms"),
+    ]
+    score = read_events(presets_dir() / "events" / "harbour-waltz.toml")
+    passage = stereo.score_voices(score)
+    renders.append(("harbour-waltz.wav", passage, score.last_event_s + 1.0,
+                    "a short passage (presets/events/harbour-waltz.toml)"))
+    with Progress(len(renders), "rendering") as step:
+        for name, voices, seconds, what in renders:
+            rep = render_to_wav(out / name, voices, int(seconds * fs), sample_rate=fs,
+                                channels=2, force=True,
+                                settings={"command": "demo", "what": what,
+                                          "preset": str(path)})
+            typer.echo(f"   {rep.path}   ({what}; {rep.seconds:.1f} s, gain "
+                       f"{rep.plan.gain_db:+.1f} dB)")
+            step(1, name)
+    typer.echo("")
+
+    # 5. Reports: sustain across the range, even chord decay
+    from synth.reports.chord import chord_decay, chord_decay_png
+    from synth.reports.sustain import sustain_csv, sustain_png, sustain_report
+
+    mono = Voicer(inst, sample_rate=float(fs), channels=1)
+    with Progress(len(inst.notes), "sustain") as step:
+        sus = sustain_report(mono, progress=lambda n: step(1, n))
+    io.write_bytes(out / "sustain.csv", sustain_csv(sus).encode("utf-8"), force=True)
+    io.write_bytes(out / "sustain.png", sustain_png(sus, f"{inst.name}: sustain"), force=True)
+    worst = max(abs(r.render_agreement_percent) for r in sus.rows)
+    flagged = [r.note for r in sus.rows if r.flagged]
+    typer.echo("5. reports")
+    typer.echo(f"   sustain: target {sus.target_label}; {len(flagged)} of {len(sus.rows)} notes "
+               f"outside +-{sus.tolerance_percent:g} % (fundamental T60 "
+               f"{sus.rows[0].t60_s[0]:.1f} s at {sus.rows[0].note} to "
+               f"{sus.rows[-1].t60_s[0]:.1f} s at {sus.rows[-1].note}); rendered T60 within "
+               f"{worst:.2f} % of the budget")
+    typer.echo(f"   {out / 'sustain.csv'}   {out / 'sustain.png'}")
+    cd = chord_decay(stereo, [(n, 0.6) for n in ("F3", "A4", "C5", "E6")], seconds=6.0)
+    io.write_bytes(out / "chord-decay.png", chord_decay_png(cd, "F3 A4 C5 E6"), force=True)
+    typer.echo(f"   chord F3 A4 C5 E6: decay " + ", ".join(
+        f"{n.note} {n.decay_db_per_s:.1f}" for n in cd.notes) + f" dB/s (spread "
+        f"{cd.spread_db_per_s:.1f} dB/s)")
+    typer.echo(f"   {out / 'chord-decay.png'}")
     info(f"demo done: files in {out}")
