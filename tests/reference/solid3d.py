@@ -317,6 +317,12 @@ class Mode:
     node_positions_m : tuple of float
         Vertical modes only: x of the zero crossings of u_z along the top centre line
         (y = b/2, z = h0), m, increasing. Empty for other kinds.
+    centreline_x_m, centreline_uz : tuple of float
+        Vertical modes only: u_z sampled at the mesh nodes of the top centre line, scaled
+        so that (1/L) integral u_z^2 dx = 1 and u_z(0) > 0 (the normalisation of
+        physics.md section 1, where |phi_n(0)| = 2 for a uniform bar). Consecutive
+        triples (0-1-2, 2-3-4, ...) are the three nodes of one element edge; use
+        :meth:`shape_at` for values in between. Empty for other kinds.
     """
 
     index: int
@@ -326,6 +332,33 @@ class Mode:
     mirror_symmetry: float
     shares: dict = field(compare=False, hash=False)
     node_positions_m: tuple[float, ...] = ()
+    centreline_x_m: tuple[float, ...] = field(default=(), repr=False)
+    centreline_uz: tuple[float, ...] = field(default=(), repr=False)
+
+    def shape_at(self, x_m: float | np.ndarray) -> np.ndarray:
+        """Normalised u_z on the top centre line at ``x_m`` (m, in [0, L]).
+
+        Interpolates with the element's own quadratic along the line, so the value is
+        the finite-element field itself.
+        """
+        if not self.centreline_x_m:
+            raise LookupError(f"{self.kind} mode {self.order}: no centre-line shape kept")
+        xs = np.asarray(self.centreline_x_m)
+        vs = np.asarray(self.centreline_uz)
+        x = np.atleast_1d(np.asarray(x_m, dtype=float))
+        if np.any(x < xs[0] - 1e-12) or np.any(x > xs[-1] + 1e-12):
+            raise ValueError(f"x_m must lie in [{xs[0]}, {xs[-1]}]")
+        ends = xs[0::2]
+        k = 2 * np.clip(np.searchsorted(ends, x, side="right") - 1, 0, len(ends) - 2)
+        x0, x1, x2 = xs[k], xs[k + 1], xs[k + 2]
+        v0, v1, v2 = vs[k], vs[k + 1], vs[k + 2]
+        # Lagrange quadratic through the three nodes of the edge
+        out = (
+            v0 * (x - x1) * (x - x2) / ((x0 - x1) * (x0 - x2))
+            + v1 * (x - x0) * (x - x2) / ((x1 - x0) * (x1 - x2))
+            + v2 * (x - x0) * (x - x1) / ((x2 - x0) * (x2 - x1))
+        )
+        return out if np.ndim(x_m) else out[0]
 
 
 @dataclass(frozen=True)
@@ -727,6 +760,18 @@ class _Analyser:
                 shares[k] = 0.0
         return symmetry, shares
 
+    def centreline(self, uz: np.ndarray) -> tuple[tuple[float, ...], tuple[float, ...]]:
+        """u_z on the top centre line, scaled to (1/L) integral u_z^2 dx = 1, u_z(0) > 0.
+
+        The integral is Simpson's rule on each element edge (its three nodes).
+        """
+        x = self.xyz[0, self.line]
+        v = uz[self.line]
+        h = x[2::2] - x[:-2:2]
+        integral = float(np.sum(h / 6.0 * (v[:-2:2] ** 2 + 4.0 * v[1::2] ** 2 + v[2::2] ** 2)))
+        scale = math.sqrt((x[-1] - x[0]) / integral) * (1.0 if v[0] >= 0 else -1.0)
+        return tuple(float(a) for a in x), tuple(float(a) for a in scale * v)
+
     def zero_crossings(self, uz: np.ndarray) -> tuple[float, ...]:
         """Zero crossings of the quadratic FE interpolant of u_z along the top centre line."""
         x = self.xyz[0, self.line]
@@ -818,7 +863,6 @@ def _lowest_modes(K, M, n_rigid: int, n_elastic: int, om_scale: float):
     return lam[n_rigid:], vec[:, n_rigid:], ratio
 
 
-@functools.lru_cache(maxsize=64)
 def solve_bar(
     geometry: BarGeometry,
     material: Material = ALUMINIUM_6061,
@@ -828,8 +872,8 @@ def solve_bar(
 ) -> BarModes:
     """Lowest elastic modes of a free-free bar by 3-D finite elements.
 
-    Results are cached on the (hashable) arguments for the life of the process, so tests
-    that share a bar share a solve.
+    Results are cached on the (hashable, value-compared) arguments for the life of the
+    process, however they are passed, so tests that share a bar share a solve.
 
     Parameters
     ----------
@@ -860,6 +904,17 @@ def solve_bar(
     """
     if n_modes < 1:
         raise ValueError(f"n_modes = {n_modes}: must be >= 1")
+    return _solve_bar_cached(geometry, material, mesh, int(n_modes), bool(use_symmetry))
+
+
+@functools.lru_cache(maxsize=64)
+def _solve_bar_cached(
+    geometry: BarGeometry,
+    material: Material,
+    mesh: MeshSize,
+    n_modes: int,
+    use_symmetry: bool,
+) -> BarModes:
     t0 = time.perf_counter()
     om_scale = _eb_first_omega(geometry, material)
     mesh2, ref = _build_mesh(geometry, mesh, half=use_symmetry)
@@ -901,7 +956,10 @@ def solve_bar(
         symmetry, shares = analyser.measures(u, known_symmetry)
         kind = _classify(symmetry, shares)
         counts[kind] += 1
-        nodes = analyser.zero_crossings(u[2]) if kind == "vertical" else ()
+        nodes, line_x, line_uz = (), (), ()
+        if kind == "vertical":
+            nodes = analyser.zero_crossings(u[2])
+            line_x, line_uz = analyser.centreline(u[2])
         modes.append(
             Mode(
                 index=index,
@@ -911,6 +969,8 @@ def solve_bar(
                 mirror_symmetry=symmetry,
                 shares=shares,
                 node_positions_m=nodes,
+                centreline_x_m=line_x,
+                centreline_uz=line_uz,
             )
         )
     return BarModes(
@@ -925,7 +985,6 @@ def solve_bar(
     )
 
 
-@functools.lru_cache(maxsize=32)
 def convergence(
     geometry: BarGeometry,
     material: Material = ALUMINIUM_6061,
@@ -935,7 +994,19 @@ def convergence(
 ) -> Convergence:
     """Solve on two meshes and report the change; the fine solve is the reference.
 
-    Both solves come from the :func:`solve_bar` cache when already done.
+    Parameters
+    ----------
+    geometry, material, n_modes
+        As for :func:`solve_bar`.
+    coarse, fine : MeshSize
+        The two meshes; defaults :data:`COARSE_MESH` and :data:`FINE_MESH`.
+
+    Returns
+    -------
+    Convergence
+        Both solves; ``relative_change(kind, order)`` gives the change per mode. Both
+        come from the :func:`solve_bar` cache when already done, and
+        ``solve_bar(geometry)`` returns the same object as ``convergence(geometry).fine``.
     """
     return Convergence(
         coarse=solve_bar(geometry, material, coarse, n_modes),

@@ -182,6 +182,29 @@ def test_slender_bar_node_positions():
         np.testing.assert_allclose(nodes, full, atol=2e-3)
 
 
+def test_slender_bar_mode_shapes():
+    """Normalised vertical mode shapes of the slender bar on its top centre line.
+
+    Source: free-free Euler-Bernoulli mode shapes phi_n = cosh bx + cos bx - s_n (sinh bx
+    + sin bx), scaled to (1/L) integral phi_n^2 dx = 1 (Blevins 1979; physics.md section
+    1 [C]): |phi_n(0)| = 2; at 0.1 L 1.074329, 0.454859, -0.103929; at 0.224158 L 0,
+    -1.001489, -1.320642; at 0.5 L -1.215644, 0, +1.422381.
+    Tolerance 0.02 (1% of the end value 2): shear and rotary inertia change the shape by
+    the same order as they lower the frequency (d_n up to 0.83% here).
+    """
+    modes = convergence(SLENDER, coarse=SLENDER_COARSE, fine=SLENDER_FINE).fine
+    length = SLENDER.length_m
+    at = np.array([0.0, 0.1, 0.224158, 0.5]) * length
+    expected = {
+        1: (2.0, 1.074329, 0.0, -1.215644),
+        2: (2.0, 0.454859, -1.001489, 0.0),
+        3: (2.0, -0.103929, -1.320642, 1.422381),
+    }
+    for order, values in expected.items():
+        shape = modes.mode("vertical", order).shape_at(at)
+        np.testing.assert_allclose(shape, values, atol=0.02)
+
+
 # --- the design notes' example bar, 0.3 x 0.05 x 0.02 m ----------------------------------
 
 
