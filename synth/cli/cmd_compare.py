@@ -1,0 +1,281 @@
+"""The ``compare`` command: two designs, one passage, level-matched; blind trials and scoring."""
+
+from __future__ import annotations
+
+import math
+import secrets
+from pathlib import Path
+from typing import Annotated
+
+import typer
+
+from synth.cli import app
+from synth.cli.cmd_sound import (
+    ForceOpt,
+    FormatOpt,
+    JsonOpt,
+    MalletOpt,
+    MotorOpt,
+    RateOpt,
+    TubesOpt,
+    parse_chord,
+)
+from synth.cli.common import Progress, format_table, handle_errors, info, print_json, warn
+from synth.errors import ConfigError
+
+MAX_TRIALS = 200
+"""Most blind trials one run writes."""
+
+REMINDER = ("Fix the number of trials before listening and score every one of them: stopping "
+            "on a lucky run, or adding trials after a poor one, makes the p-value meaningless.")
+
+
+def _voicer(preset: Path, *, sample_rate: int, no_tubes: bool, motor_rate: float | None):
+    from synth.io import SAMPLE_RATES_HZ
+    from synth.physics.instrument import load_instrument
+    from synth.voicing import Voicer
+
+    if sample_rate not in SAMPLE_RATES_HZ:
+        raise ConfigError(f"= {sample_rate}: must be one of "
+                          + ", ".join(str(r) for r in SAMPLE_RATES_HZ), source="--sample-rate")
+    inst = load_instrument(preset)
+    return Voicer(inst, sample_rate=float(sample_rate), tubes=not no_tubes,
+                  motor_rate_rev_per_s=motor_rate, channels=2)
+
+
+def _cell(x: float, fmt: str) -> str:
+    return "-" if x is None or not math.isfinite(x) else format(x, fmt)
+
+
+def _score(key_path: Path, answers: str, json_out: bool) -> None:
+    from synth.reports.compare import parse_answers, read_key, score_answers
+
+    key = read_key(key_path)
+    result = score_answers(key.x, parse_answers(answers))
+    if json_out:
+        print_json({"key": str(key_path), "trials": result.trials, "correct": result.correct,
+                    "p_value_one_sided": result.p_value,
+                    "test": "exact one-sided binomial against guessing (1/2 per trial)",
+                    "per_trial": [{"trial": k, "x": x, "answer": a, "right": r}
+                                  for k, (x, a, r) in enumerate(
+                                      zip(result.key, result.answers, result.right,
+                                          strict=True), start=1)],
+                    "reminder": REMINDER})
+        return
+    rows = [[k, x, a, "yes" if r else "no"]
+            for k, (x, a, r) in enumerate(zip(result.key, result.answers, result.right,
+                                              strict=True), start=1)]
+    typer.echo(format_table(["trial", "X was", "answer", "right"], rows, align="rlll",
+                            title=f"ABX trials of {key_path}"))
+    typer.echo("")
+    typer.echo(f"{result.correct} of {result.trials} correct "
+               f"({100.0 * result.correct / result.trials:.0f}%); one-sided binomial "
+               f"p = {result.p_value:.5f} against guessing (1/2 per trial)")
+    if result.p_value <= 0.05:
+        typer.echo("that many right is unlikely by guessing alone (p <= 0.05): the listener "
+                   "told the designs apart")
+    else:
+        typer.echo("consistent with guessing (p > 0.05): no difference shown, which does not "
+                   "prove there is none")
+    typer.echo(REMINDER)
+
+
+@app.command("compare")
+@handle_errors
+def compare_command(
+    design_a: Annotated[Path | None, typer.Argument(
+        help="Design A: an instrument preset (TOML) with solved [bars]; the reference.",
+        show_default=False)] = None,
+    design_b: Annotated[Path | None, typer.Argument(
+        help="Design B: the option to compare; it is levelled to A's loudness.",
+        show_default=False)] = None,
+    notes: Annotated[str | None, typer.Option(
+        help='Play these notes one after the other, e.g. "F3 A4 C5" (a strength per note as '
+             '"A4:0.8"; default: a short phrase across the range, then a chord).')] = None,
+    events: Annotated[Path | None, typer.Option(
+        help="Play an event file instead (TOML event list or .mid), as `barwright render` "
+             "reads it.")] = None,
+    tail: Annotated[float, typer.Option(
+        help="Seconds of ringing after the last note (event files with their own length_s "
+             "keep it).")] = 3.0,
+    gap: Annotated[float, typer.Option(
+        help="Seconds of silence between the parts of AB.wav and of each trial.")] = 0.5,
+    out: Annotated[Path | None, typer.Option(
+        help="Folder for the files (default renders/compare-<A>-vs-<B>/).")] = None,
+    blind: Annotated[int | None, typer.Option(
+        help="Also write this many ABX trials (A, gap, B, gap, X) in random order and their "
+             "answer key, key.toml. Fix the number before listening.", show_default=False)
+    ] = None,
+    seed: Annotated[int | None, typer.Option(
+        help="Seed of the trial order (default: a fresh random one, kept in the key).",
+        show_default=False)] = None,
+    mallet: MalletOpt = None,
+    no_tubes: TubesOpt = False,
+    motor_rate: MotorOpt = None,
+    sample_rate: RateOpt = 48000,
+    fmt: FormatOpt = "pcm24",
+    force: ForceOpt = False,
+    json_out: JsonOpt = False,
+    score: Annotated[Path | None, typer.Option(
+        help="Score a listener: the key.toml of a blind run (with --answers).",
+        show_default=False)] = None,
+    answers: Annotated[str | None, typer.Option(
+        help='The listener\'s answers with --score, one A or B per trial in order, e.g. '
+             '"A,B,B,A".', show_default=False)] = None,
+) -> None:
+    """Hear two designs side by side: the same passage, level-matched, and blind ABX trials.
+
+    Writes A.wav, B.wav and AB.wav (A, gap, B, gap, A, gap, B) at equal BS.1770-4
+    loudness, both under -1 dBTP, and prints the differences per note and over
+    time. With --score KEY --answers "..." it scores a listener instead.
+    """
+    if score is not None or answers is not None:
+        if score is None or answers is None:
+            raise ConfigError("scoring needs both --score KEY and --answers \"A,B,...\"",
+                              source="--score" if score is None else "--answers")
+        if design_a is not None or design_b is not None:
+            raise ConfigError("--score takes no design presets; give only --score KEY "
+                              "--answers \"...\"", source="--score")
+        _score(score, answers, json_out)
+        return
+    if design_a is None or design_b is None:
+        raise ConfigError("give two design presets, A and B (or --score KEY --answers "
+                          "\"...\" to score a blind test)", source="compare")
+    if notes is not None and events is not None:
+        raise ConfigError("give --notes or --events, not both", source="--events")
+    if blind is not None and not 1 <= blind <= MAX_TRIALS:
+        raise ConfigError(f"= {blind}: give between 1 and {MAX_TRIALS} trials (16 or more "
+                          "for a useful test)", source="--blind")
+    if seed is not None and seed < 0:
+        raise ConfigError(f"= {seed}: the seed must be >= 0", source="--seed")
+    if seed is not None and blind is None:
+        warn("--seed has no effect without --blind")
+
+    from synth import io
+    from synth.output import HEARING_CAUTION
+    from synth.reports import compare as cmp
+
+    if fmt not in io.SAMPLE_FORMATS:
+        raise ConfigError(f"= {fmt!r}: must be one of " + ", ".join(io.SAMPLE_FORMATS),
+                          source="--format")
+    same = design_a.resolve() == design_b.resolve()
+    va = _voicer(design_a, sample_rate=sample_rate, no_tubes=no_tubes, motor_rate=motor_rate)
+    vb = va if same else _voicer(design_b, sample_rate=sample_rate, no_tubes=no_tubes,
+                                 motor_rate=motor_rate)
+    if same:
+        warn(f"A and B are the same file ({design_a}): the two renders are identical, so any "
+             "difference heard is imagined and a blind test can only score by chance")
+    if events is not None:
+        from synth.engine.score import read_events
+
+        passage = cmp.events_passage(read_events(events), tail_s=tail)
+    elif notes is not None:
+        passage = cmp.sequence_passage(parse_chord(notes), tail_s=tail)
+    else:
+        passage = cmp.default_passage(va.instrument.notes, vb.instrument.notes, tail_s=tail)
+    gap_samples = cmp.gap_samples(gap, sample_rate)  # checks the range before any work
+
+    directory = out or Path("renders") / f"compare-{design_a.stem}-vs-{design_b.stem}"
+    if directory.exists() and not directory.is_dir():
+        raise ConfigError("exists and is not a folder", source=str(directory))
+    directory.mkdir(parents=True, exist_ok=True)
+    planned = cmp.planned_files(directory, blind)
+    for p in planned:
+        io.check_writable(p, force=force)
+    stale = sorted(p.name for p in directory.glob("trial-*.wav") if p not in set(planned))
+    if stale:
+        warn(f"{directory} also holds {len(stale)} trial file(s) of an earlier run "
+             f"({stale[0]}...); they are not part of this key")
+
+    with Progress(5, "comparing") as step:
+        last = [0]
+
+        def progress(done, total):
+            step(done - last[0])
+            last[0] = done
+
+        comp = cmp.compare_designs(va, vb, passage, mallet=mallet, progress=progress)
+
+    names = (va.instrument.name, vb.instrument.name)
+    files = (str(design_a), str(design_b))
+    settings = {"command": "compare", "design_a": files[0], "design_b": files[1],
+                "name_a": names[0], "name_b": names[1], "tubes": va.tubes_active,
+                "motor_rate_rev_per_s": va.motor.rate_rev_per_s, "mallet": mallet,
+                "sample_rate_hz": sample_rate, "channels": 2,
+                "events": None if events is None else str(events), "notes": notes}
+    written = cmp.write_listening_files(comp, directory, gap_s=gap, sample_format=fmt,
+                                        force=force, settings=settings)
+    record = cmp.comparison_record(comp, names=names, files=files)
+    png = io.write_bytes(directory / "differences.png", cmp.comparison_png(comp, names=names),
+                         force=force)
+    report = io.write_bytes(directory / "differences.json",
+                            cmp.record_json(record).encode("utf-8"), force=force)
+    trials, key_path = [], None
+    if blind is not None:
+        seed_used = seed if seed is not None else secrets.randbelow(2**31)
+        trials, key_path = cmp.write_blind_trials(comp, directory, blind, seed=seed_used,
+                                                  gap_s=gap, designs=files,
+                                                  sample_format=fmt, force=force,
+                                                  settings=settings)
+    if json_out:
+        print_json({**record, "out_dir": str(directory),
+                    "files": [str(p) for p in written] + [str(png), str(report)],
+                    "gap_s": gap_samples / sample_rate,
+                    "blind": None if blind is None else {
+                        "trials": blind, "files": [str(p) for p in trials],
+                        "key": str(key_path)}})
+    else:
+        _print_report(comp, names, files)
+        typer.echo("")
+        typer.echo(f"wrote {directory}/: A.wav, B.wav, AB.wav (A, gap, B, gap, A, gap, B; "
+                   f"gap {gap_samples / sample_rate:g} s), a .json sidecar beside each, "
+                   f"{png.name}, {report.name}")
+        if blind is not None:
+            typer.echo(f"blind: {blind} trials {trials[0].name}..{trials[-1].name} (A, gap, B, "
+                       f"gap, X) and their answer key {key_path.name}")
+    if blind is not None:
+        info(f"Give the listener only the trial files; keep {key_path} out of sight. Score "
+             f"with: barwright compare --score {key_path} --answers \"A,B,...\"")
+    for w in comp.warnings:
+        warn(w)
+    info(HEARING_CAUTION)
+
+
+def _print_report(comp, names, files) -> None:
+    lv = comp.levels
+    typer.echo(f"A: {files[0]} ({names[0]})")
+    typer.echo(f"B: {files[1]} ({names[1]})")
+    typer.echo(f"passage: {comp.passage.label}")
+    typer.echo(f"render length {comp.length_s:.2f} s per design at {comp.sample_rate} Hz, "
+               "stereo, onsets aligned (integrated loudness of ringing notes depends on the "
+               "length)")
+    typer.echo("")
+    rows = [
+        ["before matching (one gain on both)", _cell(lv.loudness_before_lufs[0], ".2f"),
+         _cell(lv.loudness_before_lufs[1], ".2f"), _cell(lv.loudness_difference_before_lu, "+.2f"),
+         _cell(lv.true_peak_before_dbtp[0], ".2f"), _cell(lv.true_peak_before_dbtp[1], ".2f")],
+        ["as written (B matched to A)", _cell(lv.loudness_after_lufs[0], ".2f"),
+         _cell(lv.loudness_after_lufs[1], ".2f"), _cell(lv.loudness_difference_after_lu, "+.2f"),
+         _cell(lv.true_peak_after_dbtp[0], ".2f"), _cell(lv.true_peak_after_dbtp[1], ".2f")],
+    ]
+    typer.echo(format_table(["level", "A LUFS", "B LUFS", "B-A LU", "A dBTP", "B dBTP"], rows,
+                            title="loudness (ITU-R BS.1770-4) and true peak"))
+    typer.echo(f"gain given to B: {lv.gain_b_db:+.2f} dB; the louder true peak sits at "
+               f"{lv.ceiling_dbtp:+.1f} dBTP")
+    typer.echo("")
+    rows = [[d.note, _cell(d.fundamental_hz[0], ".2f"), _cell(d.fundamental_hz[1], ".2f"),
+             _cell(d.fundamental_cents, "+.2f"), _cell(d.partial_cents[0], "+.2f"),
+             _cell(d.partial_cents[1], "+.2f"), _cell(d.t60_s[0], ".2f"),
+             _cell(d.t60_s[1], ".2f"), _cell(d.t60_ratio, ".2f")] for d in comp.notes]
+    tubed = any(c for d in comp.notes for c in d.coupled)
+    typer.echo(format_table(
+        ["note", "f1 A Hz", "f1 B Hz", "f1 B-A c", "p2 B-A c", "p3 B-A c", "T60 A s", "T60 B s",
+         "T60 B/A"], rows,
+        title="per note (from the models; f1 and its T60 are the bar-tube pair's bar-like mode)"
+        if tubed else "per note (from the models; bare bars)"))
+    typer.echo("")
+    rows = [[f"{w.window_s[0]:g}-{w.window_s[1]:g}"] + [_cell(x, "+.1f") for x in w.difference_db]
+            for w in comp.balance]
+    typer.echo(format_table(["window s"] + [lab for lab, _, _, _ in comp.bands], rows,
+                            title="spectral balance after matching: octave-band level B - A, dB "
+                                  "(windows from the start of the render)"))
