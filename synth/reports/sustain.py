@@ -232,6 +232,11 @@ def sustain_png(report: SustainReport, title: str) -> bytes:
     ax.plot(x[bad], t60[bad], ls="none", marker="o", ms=8, mfc="none", mec="k",
             label="outside the target")
     ax.set_yscale("log")
+    from matplotlib.ticker import FormatStrFormatter
+
+    ax.yaxis.set_major_formatter(FormatStrFormatter("%g"))
+    ax.yaxis.set_minor_formatter(FormatStrFormatter("%g"))
+    ax.tick_params(axis="y", which="minor", labelsize=7)
     ax.set_xticks(x)
     ax.set_xticklabels([r.note for r in rows], rotation=90, fontsize=7)
     ax.set_ylabel("T60 s")
