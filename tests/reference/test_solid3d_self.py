@@ -90,7 +90,7 @@ def test_assembly_matches_scikit_fem_weak_forms():
     mesh2, _ = solid3d._build_mesh(ARCH, MeshSize(nx=3, ny=2, nz=1))
     K, M, _, xyz = solid3d._assemble(mesh2, ALUMINIUM_6061)
 
-    basis = Basis(mesh2, ElementVector(ElementHex2()))
+    basis = Basis(mesh2, ElementVector(ElementHex2()), intorder=solid3d._INTORDER)
     lam, mu = lame_parameters(E_PA, NU)
     K_ref = asm(linear_elasticity(lam, mu), basis)
 
