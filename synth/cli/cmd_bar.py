@@ -175,9 +175,15 @@ def tune_command(
     ratios: Annotated[str | None, typer.Option(
         help="Target ratios of vertical partials 1..n, e.g. 1:4:10, 1:3:6 or 1:4:10.08 "
              "(default: the preset's target_ratios).")] = None,
+    family: Annotated[str | None, typer.Option(
+        help="Undercut family to solve, overriding the preset's [undercut]: parabolic, power, "
+             "flat or free.")] = None,
+    venue_c: Annotated[float | None, typer.Option(
+        min=-30, max=60, help="Temperature where the instrument must be in tune, C "
+                              "(default: the preset's temperature_c).")] = None,
     shop_c: Annotated[float | None, typer.Option(
         min=-30, max=60, help="Shop temperature while tuning, C: reports what each bar must "
-                              "read there to be in tune at the preset's temperature_c.")] = None,
+                              "read there to be in tune at the venue temperature.")] = None,
     force: Annotated[bool, typer.Option(help="Overwrite --out if it exists.")] = False,
     json_out: Annotated[bool, typer.Option("--json", help="Print JSON on stdout.")] = False,
 ) -> None:
@@ -197,6 +203,7 @@ def tune_command(
     from synth.physics.tuning import temperature_shift_cents, tune_instrument, tuned_preset
 
     inst = load_instrument(preset)
+    inst = _override(inst, family, venue_c)
     notes = [inst.check_note(n) for n in note] if note else list(inst.notes)
     target = _parse_ratios(ratios)
     if out is not None:
@@ -206,8 +213,11 @@ def tune_command(
         results = tune_instrument(inst, notes, ratios=target, progress=lambda n: step(1, n))
     elapsed = time.perf_counter() - t0
     shop = {}
+    mat = inst.material.at_temperature(inst.temperature_c)
+    drift = {r.spec.note: float(temperature_shift_cents(r.geometry, mat, inst.temperature_c,
+                                                        inst.temperature_c + 1.0, 1)[0])
+             for r in results}
     if shop_c is not None:
-        mat = inst.material.at_temperature(inst.temperature_c)
         for r in results:
             shop[r.spec.note] = temperature_shift_cents(r.geometry, mat, inst.temperature_c,
                                                         shop_c, len(r.spec.ratios))
@@ -227,7 +237,7 @@ def tune_command(
             "undercut": g.undercut.to_table() if g.undercut else None,
             "thinnest_m": r.thinnest_m, "residual_cents": [float(c) for c in r.residual_cents],
             "reachable": r.reachable, "message": r.message, "solves": r.n_solves,
-            "seconds": r.seconds,
+            "seconds": r.seconds, "drift_cents_per_k": drift[r.spec.note],
             **({"shop_reading_cents": [float(c) for c in shop[r.spec.note]]}
                if r.spec.note in shop else {}),
         })
@@ -237,6 +247,7 @@ def tune_command(
     n_p = max(len(r.spec.ratios) for r in results)
     heads = ["note", "target Hz", "length mm", "depth mm", "span mm", "thinnest mm"]
     heads += [f"p{i + 1} cents" for i in range(n_p)]
+    heads.append("c/K")
     if shop:
         heads.append(f"at {shop_c:g} C p1")
     heads.append("status")
@@ -249,6 +260,7 @@ def tune_command(
                "-" if depth is None else f"{depth * 1e3:.2f}",
                "-" if span is None else f"{span * 1e3:.1f}", f"{rec['thinnest_m'] * 1e3:.2f}"]
         row += [f"{c + 0.0:+.2f}" for c in np.round(r.residual_cents, 2)] + [""] * (n_p - len(r.residual_cents))
+        row.append(f"{drift[r.spec.note]:+.3f}")
         if shop:
             row.append(f"{shop[r.spec.note][0]:+.2f}")
         row.append(r.message)
@@ -438,3 +450,24 @@ def _budget(design, label: str, result: BarModes):
                          calibration=parse_calibration(sections.get("damping")),
                          temperature_c=design.temperature_c)
     return budget, "cords at the mode-1 nodes; bare bar (no tube)"
+
+
+def _override(inst, family: str | None, venue_c: float | None):
+    """The preset with a command-line family or venue temperature (raw table too)."""
+    from dataclasses import replace
+
+    from synth.physics.geometry import UNDERCUT_FAMILIES, UndercutFamily
+
+    raw = dict(inst.raw)
+    if family is not None:
+        allowed = (*UNDERCUT_FAMILIES, "free")
+        if family not in allowed:
+            raise ConfigError(f"= {family!r}: must be one of " + ", ".join(allowed),
+                              source="--family")
+        fam = replace(inst.undercut_family or UndercutFamily(), family=family)
+        raw["undercut"] = fam.to_table()
+        inst = replace(inst, undercut_family=fam)
+    if venue_c is not None:
+        raw["temperature_c"] = venue_c
+        inst = replace(inst, temperature_c=venue_c)
+    return replace(inst, raw=raw)

@@ -199,7 +199,8 @@ class _Param:
             return "length at its search bound"
         if i == 1:
             return ("depth at its limit: the arch reaches the minimum thickness "
-                    f"{self.spec.min_thickness_m * 1e3:.2f} mm" if upper else "depth at zero")
+                    f"{self.spec.min_thickness_m * 1e3:.2f} mm" if upper else
+                    "depth at zero: even the plain bar's ratios lie above these targets")
         return ("span at its limit: the arch runs almost end to end" if upper
                 else "span at its lower limit (20 % of the length)")
 
@@ -329,8 +330,12 @@ def tune_bar(spec: TuneSpec, start: tuple[float, ...] | None = None, *,
     freqs = np.array([m.frequency_hz for m in check.vertical[:n_t]])
     res = cents(freqs, targets)
     reachable = bool(np.all(np.abs(res) <= spec.tolerances_cents))
-    binding = tuple(par.describe_bound(i, bool(a > 0))
-                    for i, a in enumerate(active) if a != 0)
+    # a constraint binds when the solution sits on it, or within 3 % of the range
+    # of it (the reflective search stops just short of a bound it keeps pressing)
+    near = 0.03 * (hi - lo)
+    side = np.where(x - lo <= near, -1, np.where(hi - x <= near, 1, 0))
+    side = np.where(active != 0, active, side)
+    binding = tuple(par.describe_bound(i, bool(a > 0)) for i, a in enumerate(side) if a != 0)
     if reachable:
         msg = "on target"
     elif binding:

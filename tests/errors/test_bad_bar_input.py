@@ -123,3 +123,16 @@ length_m = 0.45
     assert_one_line_error(run("partials", preset), "--note")
     ok = run("partials", preset, "--note", "F3")
     assert ok.exit_code == 0, ok.output
+
+
+def test_tune_reports_unreachable_targets_without_failing() -> None:
+    from synth.config import presets_dir
+
+    demo = presets_dir() / "instruments" / "tarrow-37.toml"
+    r = run("tune", demo, "--note", "A4", "--ratios", "1:2:3", "--family", "parabolic")
+    assert r.exit_code == 0, r.output
+    assert "not reachable" in r.stdout and "depth at zero" in r.stdout
+    bad = run("tune", demo, "--ratios", "2:4:10")
+    assert_one_line_error(bad, "--ratios", "must start at 1")
+    bad = run("tune", demo, "--family", "spline")
+    assert_one_line_error(bad, "--family")
