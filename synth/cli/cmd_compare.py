@@ -11,10 +11,7 @@ import typer
 
 from synth.cli import app
 from synth.cli.cmd_sound import (
-    ForceOpt,
     FormatOpt,
-    JsonOpt,
-    MalletOpt,
     MotorOpt,
     RateOpt,
     TubesOpt,
@@ -25,6 +22,13 @@ from synth.errors import ConfigError
 
 MAX_TRIALS = 200
 """Most blind trials one run writes."""
+
+MalletOpt = Annotated[str | None, typer.Option(
+    help="Mallet preset (presets/mallets) for every strike that names none; default: each "
+         "design's own.")]
+ForceOpt = Annotated[bool, typer.Option(
+    help="Overwrite the files of an earlier comparison in the same folder.")]
+JsonOpt = Annotated[bool, typer.Option("--json", help="Print the report (or the score) as JSON.")]
 
 REMINDER = ("Fix the number of trials before listening and score every one of them: stopping "
             "on a lucky run, or adding trials after a poor one, makes the p-value meaningless.")
@@ -84,7 +88,7 @@ def _score(key_path: Path, answers: str, json_out: bool) -> None:
 @handle_errors
 def compare_command(
     design_a: Annotated[Path | None, typer.Argument(
-        help="Design A: an instrument preset (TOML) with solved [bars]; the reference.",
+        help="Design A: an instrument preset (TOML) with solved bars; the reference.",
         show_default=False)] = None,
     design_b: Annotated[Path | None, typer.Argument(
         help="Design B: the option to compare; it is levelled to A's loudness.",
