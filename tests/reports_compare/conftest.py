@@ -13,9 +13,9 @@ import pytest
 from compare_helpers import DESIGN_A, DESIGN_B, GAP_S, TRIALS, Written, run
 
 
-@pytest.fixture(scope="session")
+@pytest.fixture(scope="module")
 def written(tmp_path_factory) -> Written:
-    """Run the comparison once for the session and load its key."""
+    """Run the comparison once per test module and load its key."""
     folder = tmp_path_factory.mktemp("compare") / "out"
     r = run("compare", DESIGN_A, DESIGN_B, "--notes", "A4 C5", "--tail", "1.0",
             "--gap", GAP_S, "--blind", TRIALS, "--seed", 11, "--out", folder)

@@ -30,12 +30,6 @@ def test_note_outside_the_range(tmp_path) -> None:
     assert_one_line_error(r, "C2", "range")
 
 
-def test_existing_outputs_need_force(written) -> None:
-    """Running again into the fixture's folder without --force refuses before rendering."""
-    r = run("compare", DESIGN_A, DESIGN_B, "--notes", "A4 C5", "--out", written.folder)
-    assert_one_line_error(r, "already exists")
-
-
 def test_same_file_twice_is_allowed_but_warned(tmp_path) -> None:
     """A against itself: it runs, warns once, and both files hold the same samples."""
     out = tmp_path / "same"

@@ -11,7 +11,16 @@ import json
 import numpy as np
 import pyloudnorm
 import pytest
-from compare_helpers import GAP_S, RATE, TRIALS, read
+from compare_helpers import (
+    DESIGN_A,
+    DESIGN_B,
+    GAP_S,
+    RATE,
+    TRIALS,
+    assert_one_line_error,
+    read,
+    run,
+)
 
 from synth.analysis import true_peak
 
@@ -91,7 +100,7 @@ def test_trials_hold_the_keyed_design(written) -> None:
         assert not np.array_equal(tail, b if x == "A" else a)
 
 
-def test_same_seed_same_trials(written, tmp_path) -> None:
+def test_same_seed_same_trials(written) -> None:
     """The key follows the seed: the library draws the same X sequence again."""
     from synth.reports.compare import abx_key
 
@@ -112,3 +121,9 @@ def test_sidecars_and_trial_sidecars_keep_the_secret(written) -> None:
         records.append({k: v for k, v in rec.items() if k not in ("file", "trial")})
     # Apart from their number, all trial sidecars are the same whatever X is.
     assert all(r == records[0] for r in records)
+
+
+def test_existing_outputs_need_force(written) -> None:
+    """Running again into the fixture's folder without --force refuses before rendering."""
+    r = run("compare", DESIGN_A, DESIGN_B, "--notes", "A4 C5", "--out", written.folder)
+    assert_one_line_error(r, "already exists")
