@@ -45,8 +45,8 @@ References
 .. [1] ITU-R BS.1770-4 (10/2015), "Algorithms to measure audio programme
    loudness and true-peak audio level" (Annex 1 loudness, Annex 2 true peak).
 .. [2] Clark, D., "High-resolution subjective testing using a double-blind
-   comparator", J. Audio Eng. Soc. 30(5), 330-338, 1982 (ABX; issue number
-   from memory).
+   comparator", J. Audio Eng. Soc. 30(5), 330-338, 1982 (ABX; title and issue
+   number from memory).
 .. [3] IEC 61260-1:2014, "Electroacoustics - Octave-band and fractional-
    octave-band filters - Part 1: Specifications" (base-ten octave ratio
    G = 10^(3/10), mid-band frequencies 1000 G^k Hz, band edges at G^(+-1/2)
