@@ -1,0 +1,1020 @@
+"""Measure a struck bar from a recording, and fit a preset's loss model to it.
+
+Command
+-------
+``barwright measure RECORDING [--note N] [--reference-hz F] [--max-partials K]
+[--channel C] [--json]``
+
+Reads a recording of one struck bar (WAV, FLAC, AIFF, ... anything libsndfile
+reads; several channels are averaged, with a warning, unless ``--channel``
+picks one) and lists its partials
+(:func:`synth.analysis.find_partials`): frequency, the nearest equal-tempered
+note and the cents off it, Q, T60 and the level at the strike (dB re full
+scale).  With ``--note`` the partial nearest the note (within 100 cents) is
+taken as the fundamental, and each partial also gets its ratio to that
+fundamental and its interval above the named note in cents (``cents_from_note``:
+2400 is two octaves, 3996 the ratio 10.08).  ``--reference-hz`` is A4 (default:
+440 Hz, ISO 16; with ``--calibrate`` the preset's ``reference_pitch_hz``).
+``--json`` prints ``{"partials": [{"frequency_hz", "q", "t60_s", "level_db",
+"note", "cents", "ratio", "cents_from_note", ...}], "warnings": [...]}``.
+
+Everything that makes a number doubtful is printed as a warning line on stderr
+(and listed under ``warnings`` in JSON): clipping in the attack, several
+channels, a low level, a second strike, split (beating) partials, decays taken
+from the subspace estimate, a named note with no partial near it (wrong note,
+or the file's sample rate is wrong).  Input that cannot give a meaningful
+number stops with one line on stderr and exit code 2: a missing or unreadable
+file, silence, no strike (steady sound or noise), no partial above the noise,
+clipping that reaches past the attack into the decay being fitted, channels
+that cancel in their mean (more than 20 dB below the channels: pick one with
+``--channel``), a named note above what the sample rate carries (0.45 x rate).
+
+Calibration
+-----------
+``barwright measure RECORDING --calibrate PRESET --note N --out FILE [--force]
+[--terms internal,cords,radiation] [--tolerance 0.03] [--no-tubes]``
+
+The measured partials are matched to the preset model's modes of note N
+(vertical bending 1-3 and torsional 1; each to the measured partial nearest in
+frequency within ``--tolerance``, 3 % by default).  Each mode's loss is the sum
+of the budget's terms (:mod:`synth.physics.losses`),
+
+    1/Q_i = sum_t c_t eta_it,
+
+linear in the calibration factors ``c_t``.  The factors of the fitted terms
+(default internal, cords and radiation, plus tube when the preset has tubes and
+``--no-tubes`` is not given: then the measured Q of vertical mode 1 is the Q of
+the coupled bar-like pole, and ``eta_tube`` is the extra loss the tube gives
+it) are solved by non-negative least squares on relative errors (Lawson &
+Hanson), rows ``eta_it / y_i`` and right-hand side ``1 - sum_held c_t eta_it /
+y_i`` with ``y_i = 1/Q_measured``; the other terms (thermoelastic and air) keep
+the preset's factors (1 unless set).  A term is *not identifiable* when a 1 %
+error in every measured Q could move its factor by more than 10 % (standard
+error of the least-squares estimate, ``sqrt(diag((A^T A)^-1))``), or when the
+fit drives it to zero; it is then held at the preset's factor, and a warning
+says so.  The tube's share depends weakly on the bar's own loss (the added
+damping is a Lorentzian in the detuning, physics.md section 8), so its column is
+re-evaluated at the fitted bar loss until the factors settle.  If no factor is
+identifiable, or a mode still misses its measured Q by more than 5 % after the
+fit, the file gets per-mode Q overrides for that note instead (for vertical
+mode 1 under a tube: the bare-bar Q that makes the coupled pole match).
+
+The command prints, per matched mode, the measured Q, the model's Q before and
+after and their errors in percent, then the factors, and writes the file
+atomically (:func:`synth.io.write_bytes`); an existing file is kept unless
+``--force``.  Record with the motor stopped: the fit assumes open tube mouths.
+
+Calibration file
+----------------
+A TOML file with a header comment (what was measured, from which recording,
+when, the before/after table) and one ``[damping]`` table::
+
+    [damping.factors]
+    internal = 1.6
+    thermoelastic = 1.0
+    radiation = 1.3
+    cords = 0.7
+    air = 1.0
+    tube = 1.0
+
+    [[damping.override]]      # only when a mode needed one
+    note = "A4"
+    kind = "vertical"         # vertical, lateral or torsional
+    order = 2
+    q = 5210.0
+
+Each factor scales its loss term for every bar of the preset; an override sets
+one mode's Q outright (``note = "*"`` for every note).  A preset uses the file
+through ``calibration_file`` in its own ``[damping]`` table, a path relative to
+the preset; anything the preset's ``[damping]`` sets itself wins over the file::
+
+    [damping]
+    calibration_file = "tarrow-37-calibration.toml"
+
+.. note:: ``factors.tube`` is applied by the loss budget (``barwright partials``
+   shows it); the voice plan that renders strikes takes the tube's effect from
+   the coupled bar-tube pair, so for renders the command also prints the
+   ``[tubes] coupling_calibration`` that gives the same coupled Q.
+
+References
+----------
+.. [1] Lawson, C. L. and Hanson, R. J., Solving Least Squares Problems,
+   Prentice-Hall, 1974, ISBN 0-13-822585-0, chapter 23 (non-negative least
+   squares; the algorithm of scipy.optimize.nnls).
+.. [2] Q = pi f tau and T60 = tau ln 1000 for an amplitude ``exp(-t/tau)``
+   (physics.md section 6).
+.. [3] ISO 16:1975, Acoustics -- Standard tuning frequency (A4 = 440 Hz).
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import hashlib
+import math
+from dataclasses import dataclass, replace
+from pathlib import Path
+
+import numpy as np
+
+from synth.analysis import find_partials, find_strike
+from synth.analysis.checks import CLIP_LEVEL, CLIP_MIN_RUN
+from synth.errors import AudioError, ConfigError, ModelError
+from synth.physics.instrument import Instrument
+from synth.physics.losses import TERMS, Calibration
+from synth.pitch import DEFAULT_REFERENCE_HZ, cents, nearest_note, note_to_hz
+
+MATCH_TOLERANCE = 0.03
+"""Largest relative frequency difference between a model mode and the measured
+partial matched to it (3 %: well above the model's tuning error of a few cents,
+well below the spacing of bending and torsional modes) [common practice, no
+source]."""
+
+FUNDAMENTAL_WINDOW_CENTS = 100.0
+"""A partial within this many cents of the named note is taken as its
+fundamental (a bar more than a semitone off is not that note)."""
+
+SENSITIVITY_LIMIT = 10.0
+"""A factor is identifiable when a 1 % error in every measured Q moves it by at
+most this many percent (standard error of the least-squares estimate)."""
+
+RESIDUAL_LIMIT = 0.05
+"""A mode whose fitted Q still misses the measured Q by more than this fraction
+gets a per-mode override."""
+
+DEFAULT_FIT_TERMS = ("internal", "cords", "radiation")
+"""Terms fitted by default (``tube`` is added when the preset's tubes are on)."""
+
+CALIBRATED_MODES = (("vertical", 1), ("vertical", 2), ("vertical", 3), ("torsional", 1))
+"""Modes matched against the recording: bending 1-3 and torsion 1."""
+
+CANCEL_DB = 20.0
+"""The mean of several channels counts as cancelled when it lies this far below the
+channels' power: the partials left in it are mostly noise [common practice, no
+source]."""
+
+SILENT_FACTOR = 1e-6
+"""A fitted factor below this counts as driven to zero by the fit."""
+
+
+# --------------------------------------------------------------------------------------
+# Measuring
+# --------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class MeasuredPartial:
+    """One partial of a recording.
+
+    Attributes
+    ----------
+    frequency_hz : float
+        Hz.
+    q : float
+        ``pi f tau``; ``inf`` when no decay was measurable.
+    t60_s : float
+        ``tau ln 1000``, s.
+    decay_per_s : float
+        ``1/tau``, 1/s.
+    level_db : float
+        Amplitude at the strike onset, dB re full scale.
+    note : str
+        Nearest equal-tempered note at the reference pitch.
+    cents : float
+        Offset from that note, cents (positive: sharp).
+    ratio : float or None
+        Frequency over the fundamental's (with a named note whose fundamental
+        was found).
+    cents_from_note : float or None
+        Interval above the named note, cents.
+    snr_db : float
+        Band signal-to-noise ratio at the start of the analysis, dB.
+    decay_method : str
+        ``"envelope"`` or ``"subspace"`` (see :class:`synth.analysis.Partial`).
+    beating : bool
+        The partial beats against a neighbour or is one of a split pair.
+    """
+
+    frequency_hz: float
+    q: float
+    t60_s: float
+    decay_per_s: float
+    level_db: float
+    note: str
+    cents: float
+    ratio: float | None
+    cents_from_note: float | None
+    snr_db: float
+    decay_method: str
+    beating: bool
+
+    def to_dict(self) -> dict:
+        """Plain values for JSON."""
+        return dict(self.__dict__)
+
+
+@dataclass(frozen=True)
+class Measurement:
+    """The partials of one recorded strike.
+
+    Attributes
+    ----------
+    recording : str
+        File name (or a label for an array).
+    sample_rate_hz : float
+    n_channels : int
+        Channels in the file.
+    channel : int or None
+        The channel analysed (None: the mean of all).
+    duration_s : float
+    onset_s : float
+        Strike onset, s from the start of the file.
+    band_hz : tuple of float
+        Band searched, Hz.
+    reference_hz : float
+        A4 used for note names, Hz.
+    note : str or None
+        The named note.
+    note_hz : float or None
+        Its equal-tempered frequency, Hz.
+    fundamental_hz : float or None
+        The measured partial taken as the note's fundamental, Hz.
+    partials : tuple of MeasuredPartial
+        Sorted by frequency.
+    warnings : tuple of str
+        Everything that makes a number doubtful.
+    """
+
+    recording: str
+    sample_rate_hz: float
+    n_channels: int
+    channel: int | None
+    duration_s: float
+    onset_s: float
+    band_hz: tuple[float, float]
+    reference_hz: float
+    note: str | None
+    note_hz: float | None
+    fundamental_hz: float | None
+    partials: tuple[MeasuredPartial, ...]
+    warnings: tuple[str, ...]
+
+    def to_dict(self) -> dict:
+        """Plain values for JSON (partials as a list of records)."""
+        return {
+            "recording": self.recording,
+            "sample_rate_hz": self.sample_rate_hz,
+            "channels": self.n_channels,
+            "channel": self.channel,
+            "duration_s": self.duration_s,
+            "onset_s": self.onset_s,
+            "band_hz": list(self.band_hz),
+            "reference_pitch_hz": self.reference_hz,
+            "note": self.note,
+            "note_hz": self.note_hz,
+            "fundamental_hz": self.fundamental_hz,
+            "partials": [p.to_dict() for p in self.partials],
+            "warnings": list(self.warnings),
+        }
+
+
+def _clipped_after(x: np.ndarray, start: int) -> tuple[int, int]:
+    """Clipped samples (runs of CLIP_MIN_RUN at full scale) from ``start`` on; first index."""
+    x2 = x.reshape(x.shape[0], -1)[start:]
+    total, first = 0, -1
+    for c in range(x2.shape[1]):
+        col = x2[:, c]
+        for mask in (col >= CLIP_LEVEL, col <= -CLIP_LEVEL):
+            if not mask.any():
+                continue
+            padded = np.concatenate(([False], mask, [False]))
+            edges = np.flatnonzero(np.diff(padded.astype(np.int8)))
+            lo, hi = edges[0::2], edges[1::2]
+            long = (hi - lo) >= CLIP_MIN_RUN
+            if long.any():
+                total += int(np.sum((hi - lo)[long]))
+                f = int(lo[long][0])
+                first = f if first < 0 else min(first, f)
+    return total, (start + first if first >= 0 else -1)
+
+
+def measure_signal(signal, sample_rate: float, *, recording: str = "signal",
+                   note: str | None = None, reference_hz: float = DEFAULT_REFERENCE_HZ,
+                   max_partials: int = 12, channel: int | None = None) -> Measurement:
+    """Measure the partials of one strike held in an array.
+
+    Parameters
+    ----------
+    signal : array_like, shape (n_samples,) or (n_samples, n_channels)
+        Samples, full scale 1.0; channels are averaged (with a warning).
+    sample_rate : float
+        Hz.
+    recording : str
+        Name used in messages.
+    note : str, optional
+        The note the bar is meant to be (scientific pitch notation).
+    reference_hz : float
+        A4, Hz.
+    max_partials : int
+        Keep at most this many partials, the strongest.
+    channel : int, optional
+        Analyse this channel alone (1 = the first); default: the mean of all.
+
+    Returns
+    -------
+    Measurement
+
+    Raises
+    ------
+    AudioError
+        Unusable input: silence, no strike, no partials, clipping past the
+        attack, channels that cancel in their mean, a named note above what the
+        sample rate carries, and whatever :func:`synth.analysis.find_partials`
+        refuses.
+    ConfigError
+        A bad note name or parameter.
+    """
+    note_hz = None
+    if note is not None:
+        note_hz = note_to_hz(note, reference_hz)
+    fs = float(sample_rate)
+    x = np.asarray(signal, dtype=float)
+    n_ch = 1 if x.ndim == 1 else x.shape[1]
+    if channel is not None:
+        if not 1 <= channel <= n_ch:
+            raise ConfigError(f"= {channel}: {recording} has {n_ch} channel(s); give 1.."
+                              f"{n_ch}", source="--channel")
+        signal = x if x.ndim == 1 else x[:, channel - 1]
+    elif n_ch > 1:
+        p_mix = float(np.mean(x.mean(axis=1) ** 2))
+        p_ch = float(np.mean(x * x))
+        if p_ch > 0 and p_mix < p_ch * 10 ** (-CANCEL_DB / 10):
+            raise AudioError(
+                f"{recording}: the mean of its {n_ch} channels lies "
+                f"{10 * math.log10(max(p_mix, 1e-300) / p_ch):.0f} dB below the channels "
+                "(opposite polarity or spaced microphones cancelling), so its partials would "
+                "be noise; analyse one channel (--channel 1)")
+    try:
+        strike = find_strike(signal, fs)
+        if note_hz is not None and note_hz >= 0.45 * fs:
+            raise AudioError(
+                f"{note} ({note_hz:.1f} Hz) lies above what a sample rate of {fs:g} Hz "
+                f"carries ({0.45 * fs:g} Hz); record at >= {note_hz / 0.45 * 10:.0f} Hz to "
+                "reach its partials")
+        if not strike.found:
+            raise AudioError(
+                "no strike found (steady sound, noise, or a strike lost in noise): measure "
+                "needs one strike with its decay; trim the lead-in or record closer")
+        res = find_partials(signal, fs, max_partials=max_partials)
+    except AudioError as exc:
+        raise AudioError(f"{recording}: {exc}") from None
+    n_clip, first = _clipped_after(np.asarray(signal, dtype=float),
+                                   int(round(res.analysis_start_s * fs)))
+    if n_clip:
+        raise AudioError(
+            f"{recording}: clipped after the attack ({n_clip} samples at full scale from "
+            f"{first / fs:.3f} s, inside the decay analysed from {res.analysis_start_s:.3f} "
+            "s): levels and Q would be wrong; record again with less gain")
+    if not res.partials:
+        why = "; ".join(w for w in res.warnings if w.startswith("no partials")) or \
+            "no partial stands above the noise"
+        raise AudioError(f"{recording}: {why}")
+    warnings = list(res.warnings)
+    if fs < 44100:
+        warnings.append(f"sample rate {fs:g} Hz: partials above {0.45 * fs:g} Hz are not "
+                        "analysed (upper bar partials reach 10 times the fundamental and more); "
+                        "record at 44.1 kHz or more")
+    fundamental = None
+    if note_hz is not None:
+        off = [(abs(float(cents(p.frequency_hz, note_hz))), p) for p in res.partials]
+        best = min(off, key=lambda t: t[0])
+        if best[0] <= FUNDAMENTAL_WINDOW_CENTS:
+            fundamental = best[1].frequency_hz
+        else:
+            warnings.append(
+                f"no partial within {FUNDAMENTAL_WINDOW_CENTS:.0f} cents of {note} "
+                f"({note_hz:.2f} Hz; nearest {best[1].frequency_hz:.2f} Hz, "
+                f"{float(cents(best[1].frequency_hz, note_hz)):+.0f} cents): ratios are not "
+                "given; check the note, the reference pitch and the file's sample rate")
+    partials = []
+    for p in res.partials:
+        name, off = nearest_note(p.frequency_hz, reference_hz)
+        partials.append(MeasuredPartial(
+            frequency_hz=p.frequency_hz, q=p.q, t60_s=p.t60_s, decay_per_s=p.decay_per_s,
+            level_db=p.level_db, note=name, cents=off,
+            ratio=p.frequency_hz / fundamental if fundamental else None,
+            cents_from_note=float(cents(p.frequency_hz, note_hz)) if note_hz else None,
+            snr_db=p.snr_db, decay_method=p.decay_method, beating=p.beating))
+    return Measurement(
+        recording=recording, sample_rate_hz=fs, n_channels=n_ch, channel=channel,
+        duration_s=x.shape[0] / fs,
+        onset_s=res.onset_s, band_hz=(res.fmin_hz, res.fmax_hz), reference_hz=reference_hz,
+        note=note, note_hz=note_hz, fundamental_hz=fundamental, partials=tuple(partials),
+        warnings=tuple(warnings))
+
+
+def measure_file(path, **kwargs) -> Measurement:
+    """Read a recording (:func:`synth.io.read_audio`) and measure it (:func:`measure_signal`)."""
+    from synth.io import read_audio
+
+    samples, rate = read_audio(path)
+    if samples.shape[1] == 1:
+        samples = samples[:, 0]
+    return measure_signal(samples, rate, recording=str(path), **kwargs)
+
+
+# --------------------------------------------------------------------------------------
+# Calibrating
+# --------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class ModeFit:
+    """One model mode matched to a measured partial.
+
+    Attributes
+    ----------
+    kind, order : str, int
+        The mode.
+    model_hz, measured_hz : float
+        Frequencies, Hz (model: the coupled pole for vertical 1 under a tube).
+    offset_cents : float
+        Measured above model, cents.
+    measured_q, q_before, q_after : float
+        Measured Q and the model's Q before and after the calibration.
+    eta : dict of str to float
+        Uncalibrated loss factor of each term at the fitted state (``tube``: the
+        tube's extra loss on the coupled pole).
+    override_q : float or None
+        The override written for this mode, if any (the bare-bar Q for
+        vertical 1 under a tube).
+    beating : bool
+        The measured partial beats (its Q is less certain).
+    """
+
+    kind: str
+    order: int
+    model_hz: float
+    measured_hz: float
+    offset_cents: float
+    measured_q: float
+    q_before: float
+    q_after: float
+    eta: dict
+    override_q: float | None
+    beating: bool
+
+    @property
+    def label(self) -> str:
+        """``vertical 2``."""
+        return f"{self.kind} {self.order}"
+
+    @property
+    def error_before(self) -> float:
+        """Model Q before over measured Q, minus 1."""
+        return self.q_before / self.measured_q - 1.0
+
+    @property
+    def error_after(self) -> float:
+        """Model Q after over measured Q, minus 1."""
+        return self.q_after / self.measured_q - 1.0
+
+    def to_dict(self) -> dict:
+        """Plain values for JSON."""
+        return {"kind": self.kind, "order": self.order, "model_hz": self.model_hz,
+                "measured_hz": self.measured_hz, "offset_cents": self.offset_cents,
+                "measured_q": self.measured_q, "q_before": self.q_before,
+                "q_after": self.q_after, "error_before_percent": 100 * self.error_before,
+                "error_after_percent": 100 * self.error_after, "loss_factors": dict(self.eta),
+                "override_q": self.override_q, "beating": self.beating}
+
+
+@dataclass(frozen=True)
+class CalibrationFit:
+    """Calibration factors (and overrides) fitted to one recorded note.
+
+    Attributes
+    ----------
+    note : str
+    preset : str
+    recording : str
+    measured_at : str
+        UTC time of the fit, ISO 8601.
+    recording_sha256 : str
+        First 16 hex digits of the recording's SHA-256 ("" for arrays).
+    tubes : bool
+        The model had its tube (vertical 1 measured as the coupled pole).
+    fitted_terms : tuple of str
+        Terms whose factors were fitted.
+    held_terms : tuple of str
+        Terms asked for but not identifiable, held at the preset's factors.
+    factors : dict of str to float
+        Every term's factor as the file holds it.
+    overrides : dict
+        ``(note, kind, order) -> Q`` written to the file.
+    modes : tuple of ModeFit
+    unmatched : tuple of str
+        Model modes with no measured partial, and why.
+    sensitivity : dict of str to float
+        Percent change of each fitted factor per 1 % error in every measured Q.
+    condition_number : float
+        Of the fitted columns, each scaled to unit length (1 is ideal).
+    fallback : bool
+        No factor was identifiable: overrides only.
+    coupling_calibration : float or None
+        ``[tubes] coupling_calibration`` that makes renders give the fitted
+        coupled Q of vertical 1 (when the tube factor was fitted).
+    warnings : tuple of str
+    """
+
+    note: str
+    preset: str
+    recording: str
+    measured_at: str
+    recording_sha256: str
+    tubes: bool
+    fitted_terms: tuple[str, ...]
+    held_terms: tuple[str, ...]
+    factors: dict
+    overrides: dict
+    modes: tuple[ModeFit, ...]
+    unmatched: tuple[str, ...]
+    sensitivity: dict
+    condition_number: float
+    fallback: bool
+    coupling_calibration: float | None
+    warnings: tuple[str, ...]
+
+    def calibration(self) -> Calibration:
+        """Return the file's content as a :class:`~synth.physics.losses.Calibration`."""
+        return Calibration(dict(self.factors), dict(self.overrides), self.recording)
+
+    def to_dict(self) -> dict:
+        """Plain values for JSON."""
+        return {
+            "note": self.note, "preset": self.preset, "recording": self.recording,
+            "recording_sha256": self.recording_sha256, "measured_at": self.measured_at,
+            "tubes": self.tubes, "fitted_terms": list(self.fitted_terms),
+            "held_terms": list(self.held_terms), "factors": dict(self.factors),
+            "overrides": [{"note": n, "kind": k, "order": o, "q": q}
+                          for (n, k, o), q in self.overrides.items()],
+            "modes": [m.to_dict() for m in self.modes], "unmatched": list(self.unmatched),
+            "sensitivity_percent_per_percent": dict(self.sensitivity),
+            "condition_number": self.condition_number, "fallback": self.fallback,
+            "coupling_calibration": self.coupling_calibration,
+            "warnings": list(self.warnings),
+        }
+
+    def to_toml(self) -> str:
+        """Return the calibration file: header comment and a ``[damping]`` table."""
+        import tomllib
+
+        import tomli_w
+
+        modes = ", ".join(m.label for m in self.modes)
+        lines = [
+            "# barwright calibration file, written by `barwright measure --calibrate`.",
+            f"# Measured: {self.note} ({modes}) in {self.recording}"
+            + (f" (sha256 {self.recording_sha256}...)" if self.recording_sha256 else ""),
+            f"# Fitted {self.measured_at} against {self.preset}, tube "
+            + ("on (vertical 1 measured as the coupled pole)" if self.tubes else "off"),
+            "# Fitted terms: " + (", ".join(self.fitted_terms) or "none (Q overrides only)")
+            + "; the other factors are the preset's.",
+            "#",
+            "# mode          model Hz  measured Hz  measured Q  Q before  Q after  "
+            "error before  error after",
+        ]
+        for m in self.modes:
+            lines.append(
+                f"# {m.label:<12} {m.model_hz:9.2f}  {m.measured_hz:11.2f}  "
+                f"{m.measured_q:10.0f}  {m.q_before:8.0f}  {m.q_after:7.0f}  "
+                f"{100 * m.error_before:+11.1f}%  {100 * m.error_after:+10.1f}%")
+        for u in self.unmatched:
+            lines.append(f"# not matched: {u}")
+        lines += [
+            "#",
+            "# Use it from a preset's [damping] table: calibration_file = \"<this file, "
+            "relative to the preset>\";",
+            "# factors or overrides the preset sets itself win over this file.",
+            "",
+        ]
+        table = {"damping": self.calibration().to_table()}
+        body = tomli_w.dumps(table)
+        text = "\n".join(lines) + body
+        tomllib.loads(text)  # the file must read back
+        return text
+
+
+def _coupled_eta(pair, bar_eta: float, radiation_eta: float) -> float:
+    """1/Q of the bar-like coupled pole when the bare bar has loss factor ``bar_eta``."""
+    f = pair.bar_frequency_hz
+    g = math.pi * f * bar_eta
+    p = replace(pair, bar_decay_per_s=g,
+                bar_radiation_decay_per_s=min(math.pi * f * radiation_eta, g))
+    return 1.0 / p.modes().q[0]
+
+
+def _bare_eta_for(pair, target_eta: float, tube_factor: float, radiation_share: float):
+    """Bare-bar loss factor whose budget-style coupled loss equals ``target_eta``.
+
+    Budget-style: ``eta + tube_factor (eta_coupled(eta) - eta)``.  None when the
+    tube alone already loses more.
+    """
+    from scipy.optimize import brentq
+
+    def h(e):
+        return e + tube_factor * (_coupled_eta(pair, e, radiation_share * e) - e) - target_eta
+
+    lo, hi = 1e-12, target_eta
+    if h(lo) > 0 or h(hi) < 0:
+        return None
+    return brentq(h, lo, hi, xtol=1e-15, rtol=1e-12)
+
+
+def _sig6(value: float) -> float:
+    """Round to 6 significant digits (what the file holds and the check uses)."""
+    return float(f"{float(value):.6g}")
+
+
+def _explicit_factors(instrument: Instrument) -> set[str]:
+    sec = instrument.section("damping")
+    if sec is None:
+        return set()
+    f = sec.data.get("factors", {})
+    return set(f) if isinstance(f, dict) else set()
+
+
+def _sha256_16(path: str) -> str:
+    p = Path(path)
+    if not p.is_file():
+        return ""
+    h = hashlib.sha256()
+    with p.open("rb") as fh:
+        for block in iter(lambda: fh.read(1 << 20), b""):
+            h.update(block)
+    return h.hexdigest()[:16]
+
+
+def _match(measurement: Measurement, model_modes, tolerance: float, warnings: list[str]):
+    """Pair model modes with measured partials: nearest first, each partial once."""
+    unmatched: list[str] = []
+    usable = []
+    for i, (kind, order, f) in enumerate(model_modes):
+        clash = [(k2, o2) for j, (k2, o2, f2) in enumerate(model_modes)
+                 if j != i and abs(f2 / f - 1.0) <= tolerance]
+        if clash:
+            k2, o2 = clash[0]
+            unmatched.append(f"{kind} {order} at {f:.1f} Hz: the model puts {k2} {o2} within "
+                             f"{100 * tolerance:g} % of it, so the match would be ambiguous")
+            continue
+        usable.append((kind, order, f))
+    pairs = []
+    for kind, order, f in usable:
+        for p in measurement.partials:
+            d = abs(p.frequency_hz / f - 1.0)
+            if d <= tolerance:
+                pairs.append((d, (kind, order), p))
+    pairs.sort(key=lambda t: t[0])
+    taken_modes, taken_partials, out = set(), set(), {}
+    for _, key, p in pairs:
+        if key in taken_modes or id(p) in taken_partials:
+            continue
+        taken_modes.add(key)
+        taken_partials.add(id(p))
+        out[key] = p
+    top = measurement.band_hz[1]
+    for kind, order, f in usable:
+        if (kind, order) in out:
+            continue
+        if f > top:
+            why = (f"above the band this recording carries ({top:g} Hz at "
+                   f"{measurement.sample_rate_hz:g} Hz)")
+        else:
+            why = (f"no measured partial within {100 * tolerance:g} %"
+                   + (" (a strike on the centreline leaves torsion silent)"
+                      if kind == "torsional" else
+                      " (a strike at one of its nodes leaves it silent)"))
+        unmatched.append(f"{kind} {order} at {f:.1f} Hz: {why}")
+    for key, p in list(out.items()):
+        if not (math.isfinite(p.q) and p.q > 0):
+            warnings.append(f"{key[0]} {key[1]}: the partial at {p.frequency_hz:.2f} Hz shows "
+                            "no measurable decay; left out of the fit")
+            unmatched.append(f"{key[0]} {key[1]} at {p.frequency_hz:.1f} Hz: no measurable decay")
+            del out[key]
+        elif p.beating:
+            warnings.append(f"{key[0]} {key[1]}: the partial at {p.frequency_hz:.2f} Hz beats "
+                            "against a neighbour, so its Q is less certain")
+    return out, unmatched
+
+
+def _sensitivity(A: np.ndarray, factors: np.ndarray) -> np.ndarray | None:
+    """Percent change of each factor per 1 % error in every Q (None if singular)."""
+    if A.shape[0] < A.shape[1]:
+        return None
+    ata = A.T @ A
+    if np.linalg.cond(ata) > 1e14:
+        return None
+    cov = np.linalg.inv(ata)
+    return np.sqrt(np.maximum(np.diag(cov), 0.0)) / np.maximum(factors, 1e-300)
+
+
+def calibrate(measurement: Measurement, instrument: Instrument, note: str, *,
+              terms: tuple[str, ...] | None = None, tubes: bool = True,
+              tolerance: float = MATCH_TOLERANCE, residual_limit: float = RESIDUAL_LIMIT,
+              sensitivity_limit: float = SENSITIVITY_LIMIT) -> CalibrationFit:
+    """Fit a preset's loss factors to one measured note.
+
+    Parameters
+    ----------
+    measurement : Measurement
+        The recording's partials (:func:`measure_file`).
+    instrument : Instrument
+        The preset (its bars solved).
+    note : str
+        The note that was recorded.
+    terms : tuple of str, optional
+        Terms to fit (default internal, cords, radiation, plus tube when the
+        preset's tubes are on).
+    tubes : bool
+        The recording was made with the bar over its tube (False: bar alone).
+    tolerance : float
+        Largest relative frequency difference for a match (0 < tolerance < 0.2).
+    residual_limit : float
+        A mode still missing its measured Q by more than this fraction after the
+        fit gets an override.
+    sensitivity_limit : float
+        Largest percent change of a factor per 1 % Q error for it to count as
+        identifiable.
+
+    Returns
+    -------
+    CalibrationFit
+
+    Raises
+    ------
+    ConfigError
+        A bad note, term or tolerance.
+    AudioError
+        No model mode matches a measured partial (wrong note, or the file's
+        sample rate is wrong).
+    """
+    from synth.voicing import Voicer
+
+    if not 0.0 < tolerance < 0.2:
+        raise ConfigError(f"= {tolerance!r}: must be between 0 and 0.2 (a fraction)",
+                          source="--tolerance")
+    note = instrument.check_note(note)
+    warnings: list[str] = []
+
+    def voicer(cal):
+        return Voicer(instrument, tubes=tubes, channels=1, calibration=cal,
+                      motor_rate_rev_per_s=0.0)
+
+    raw = voicer(Calibration()).model(note)
+    coupled = raw.coupling is not None
+    as_preset = voicer(None)
+    preset_cal = as_preset.calibration
+    preset_rate = parse_motor_rate(instrument)
+    if preset_rate > 0:
+        warnings.append(f"the preset's motor runs at {preset_rate:g} rev/s: the fit assumes a "
+                        "recording with the motor stopped and the tube mouths open")
+    if terms is None:
+        terms = DEFAULT_FIT_TERMS + (("tube",) if coupled else ())
+    terms = tuple(dict.fromkeys(terms))
+    for t in terms:
+        if t not in TERMS:
+            raise ConfigError(f"= {t!r}: unknown loss term; terms are " + ", ".join(TERMS),
+                              source="--terms")
+    if "tube" in terms and not coupled:
+        raise ConfigError("= 'tube': this model has no tube ("
+                          + ("--no-tubes given" if not tubes else "the preset has no [tubes]")
+                          + "); leave tube out", source="--terms")
+    if not terms:
+        raise ConfigError("= '': name at least one term to fit", source="--terms")
+
+    before = as_preset.model(note)
+    budget_raw = {(b.kind, b.order): b for b in raw.budget}
+    pair = raw.coupling.pair if coupled else None
+
+    def model_freq(model, key):
+        if key == ("vertical", 1) and model.coupling is not None:
+            return model.coupling.pair.modes().frequency_hz[0]
+        return budget_raw[key].frequency_hz
+
+    def budget_q(model, cal, key):
+        """Model Q as the loss budget gives it (tube term scaled by its factor)."""
+        b = {(m.kind, m.order): m for m in model.budget}[key]
+        eta = b.eta
+        if key == ("vertical", 1) and model.coupling is not None:
+            eta += cal.factor("tube") * model.tube_loss_factor()
+        return 1.0 / eta
+
+    model_modes = [(k, o, model_freq(raw, (k, o))) for k, o in CALIBRATED_MODES
+                   if (k, o) in budget_raw]
+    matched, unmatched = _match(measurement, model_modes, tolerance, warnings)
+    if not matched:
+        raise AudioError(
+            f"{measurement.recording}: no measured partial lies within {100 * tolerance:g} % "
+            f"of the model's modes of {note} ("
+            + ", ".join(f"{k} {o} {f:.1f} Hz" for k, o, f in model_modes)
+            + "): wrong note or preset, or the file's sample rate is wrong")
+    keys = [k for k in CALIBRATED_MODES if k in matched]
+    y = np.array([1.0 / matched[k].q for k in keys])
+
+    explicit = _explicit_factors(instrument)
+    for t in terms:
+        if t in explicit:
+            warnings.append(f"the preset's [damping] sets factors.{t} itself; it wins over a "
+                            "calibration file, so remove it there to use the fitted value")
+    for k in keys:
+        if preset_cal.override(note, *k) is not None:
+            warnings.append(f"the preset overrides the Q of {note} {k[0]} {k[1]}; the override "
+                            "wins over the fitted factors for that mode")
+
+    base = {t: preset_cal.factor(t) for t in TERMS}
+
+    def eta_rows(bar_factors: dict) -> list[dict]:
+        """Uncalibrated term values per matched mode (tube column at the given bar state)."""
+        rows = []
+        for k in keys:
+            e = {t: v for t, v in budget_raw[k].terms.items() if t != "tube"}
+            e["tube"] = 0.0
+            if k == ("vertical", 1) and coupled:
+                bar = sum(bar_factors[t] * e[t] for t in TERMS if t != "tube")
+                rad = min(bar_factors["radiation"] * e["radiation"], bar)
+                e["tube"] = _coupled_eta(pair, bar, rad) - bar
+            rows.append(e)
+        return rows
+
+    state = dict(base)
+    fit_terms = list(terms)
+    held: list[str] = []
+    sens_out: dict[str, float] = {}
+    cond = math.nan
+    notes: list[str] = []
+    for _ in range(8):  # the tube column depends on the fitted bar loss
+        notes = []
+        fit_terms, held, sens_out, cond, solved = _solve(eta_rows(state), y, list(terms), base,
+                                                         sensitivity_limit, notes)
+        new_state = {**base, **solved}
+        change = max(abs(new_state[t] - state[t]) / max(state[t], 1e-12) for t in TERMS)
+        state = new_state
+        if change < 1e-10:
+            break
+    warnings.extend(notes)
+    fallback = not fit_terms
+    rows = eta_rows(state)
+
+    file_factors = {t: _sig6(state[t]) for t in TERMS}
+    loaded = Calibration({**file_factors, **{t: base[t] for t in explicit if t in base}},
+                         dict(preset_cal.overrides))
+    predicted = {k: 1.0 / sum(loaded.factor(t) * rows[i][t] for t in TERMS)
+                 for i, k in enumerate(keys)}
+    overrides: dict[tuple[str, str, int], float] = {}
+    for i, k in enumerate(keys):
+        q_meas = matched[k].q
+        miss = predicted[k] / q_meas - 1.0
+        if not fallback and abs(miss) <= residual_limit:
+            continue
+        if not fallback:
+            warnings.append(f"{k[0]} {k[1]}: the fitted factors give Q {predicted[k]:.0f} "
+                            f"against {q_meas:.0f} measured ({100 * miss:+.1f} %); a Q override "
+                            f"for {note} is written")
+        if k == ("vertical", 1) and coupled:
+            bar_rows = rows[i]
+            bar = sum(loaded.factor(t) * bar_rows[t] for t in TERMS if t != "tube")
+            share = loaded.factor("radiation") * bar_rows["radiation"] / bar if bar > 0 else 0.0
+            e = _bare_eta_for(pair, 1.0 / q_meas, loaded.factor("tube"), min(share, 1.0))
+            if e is None:
+                warnings.append(f"vertical 1: the tube alone loses more than the measured Q "
+                                f"{q_meas:.0f} allows; no override possible (check the tube "
+                                "and its tuning, or measure without it and use --no-tubes)")
+                continue
+            overrides[(note, k[0], k[1])] = _sig6(1.0 / e)
+        else:
+            overrides[(note, k[0], k[1])] = _sig6(q_meas)
+    if fallback:
+        warnings.append("no loss factor is identifiable from the matched modes ("
+                        + ", ".join(f"{k[0]} {k[1]}" for k in keys)
+                        + f"); wrote per-mode Q overrides for {note} instead")
+
+    # The model after: the file as a preset would load it (preset entries win).
+    after_cal = Calibration({**file_factors, **{t: base[t] for t in explicit}},
+                            {**overrides, **preset_cal.overrides})
+    after = voicer(after_cal).model(note)
+    fits = []
+    for i, k in enumerate(keys):
+        p = matched[k]
+        fits.append(ModeFit(
+            kind=k[0], order=k[1], model_hz=model_freq(raw, k), measured_hz=p.frequency_hz,
+            offset_cents=float(cents(p.frequency_hz, model_freq(raw, k))),
+            measured_q=p.q, q_before=budget_q(before, preset_cal, k),
+            q_after=budget_q(after, after_cal, k), eta=dict(rows[i]),
+            override_q=overrides.get((note, k[0], k[1])), beating=p.beating))
+
+    hint = None
+    if "tube" in fit_terms and abs(state["tube"] - 1.0) > 1e-3 and ("vertical", 1) in keys:
+        hint = _coupling_hint(after, after_cal, warnings)
+    return CalibrationFit(
+        note=note, preset=instrument.source, recording=measurement.recording,
+        measured_at=_dt.datetime.now(_dt.UTC).isoformat(timespec="seconds"),
+        recording_sha256=_sha256_16(measurement.recording), tubes=coupled,
+        fitted_terms=tuple(fit_terms), held_terms=tuple(held), factors=file_factors,
+        overrides=overrides, modes=tuple(fits), unmatched=tuple(unmatched),
+        sensitivity=sens_out, condition_number=cond, fallback=fallback,
+        coupling_calibration=hint, warnings=tuple(warnings))
+
+
+def parse_motor_rate(instrument: Instrument) -> float:
+    """Return the preset's motor rate in rev/s (0 without a [motor] table)."""
+    from synth.voicing import parse_motor
+
+    return parse_motor(instrument.section("motor"))[0].rate_rev_per_s
+
+
+def _solve(rows, y, terms, base, sensitivity_limit, warnings):
+    """NNLS on relative errors, dropping terms that are not identifiable.
+
+    Returns (fitted terms, held terms, sensitivity %/%, condition number, factors).
+    """
+    from scipy.optimize import nnls
+
+    active = list(terms)
+    held: list[str] = []
+    for t in list(active):
+        share = max(r[t] / yi for r, yi in zip(rows, y, strict=True))
+        if share < 1e-3:
+            active.remove(t)
+            held.append(t)
+            warnings.append(f"{t}: no matched mode depends on it (at most {100 * share:.2g} % "
+                            f"of any matched mode's loss); kept at {base[t]:g}")
+    while active:
+        A = np.array([[r[t] / yi for t in active] for r, yi in zip(rows, y, strict=True)])
+        fixed = np.array([sum(base[t] * r[t] for t in r if t not in active)
+                          for r in rows])
+        b = 1.0 - fixed / y
+        start = np.array([base[t] for t in active])
+        sens = _sensitivity(A, start)
+        if sens is None or np.max(sens) > sensitivity_limit:
+            if sens is None:
+                share = A.max(axis=0)
+                worst = int(np.argmin(share))
+                why = (f"the {len(rows)} matched mode(s) cannot separate "
+                       f"{len(active)} terms")
+            else:
+                worst = int(np.argmax(sens))
+                why = (f"a 1 % error in each measured Q would move its factor by "
+                       f"{sens[worst]:.0f} %")
+            t = active.pop(worst)
+            held.append(t)
+            warnings.append(f"{t} is not identifiable from these modes ({why}; the fit is "
+                            f"ill-conditioned for it); kept at {base[t]:g}, so the other "
+                            "factors absorb any error in it: fit it from another note or a "
+                            "recording without the tube")
+            continue
+        x, _ = nnls(A, b)
+        zero = [i for i, v in enumerate(x) if v < SILENT_FACTOR]
+        if zero:
+            t = active.pop(zero[0])
+            held.append(t)
+            warnings.append(f"{t}: the fit drives its factor to 0 (the other terms already "
+                            f"explain the measured loss); not identifiable, kept at {base[t]:g}")
+            continue
+        sens = _sensitivity(A, x)
+        if sens is not None and np.max(sens) > sensitivity_limit:
+            worst = int(np.argmax(sens))
+            t = active.pop(worst)
+            held.append(t)
+            warnings.append(f"{t} is not identifiable from these modes (fitted {x[worst]:.3g}; "
+                            f"a 1 % error in each measured Q would move it by "
+                            f"{sens[worst]:.0f} %); kept at {base[t]:g}")
+            continue
+        An = A / np.linalg.norm(A, axis=0)
+        cond = float(np.linalg.cond(An))
+        return (active, held, {t: float(s) for t, s in zip(active, sens, strict=True)}, cond,
+                {t: float(v) for t, v in zip(active, x, strict=True)})
+    return [], held, {}, math.nan, {}
+
+
+def _coupling_hint(after, after_cal: Calibration, warnings: list[str]) -> float | None:
+    """``[tubes] coupling_calibration`` giving the fitted coupled Q of vertical 1 in renders."""
+    from synth.physics.coupling import calibrate_coupling
+
+    b = after.fundamental
+    target_eta = b.eta + after_cal.factor("tube") * after.tube_loss_factor()
+    f = after.coupling.pair.bar_frequency_hz
+    t60 = math.log(1000.0) / (math.pi * f * target_eta)
+    try:
+        c = calibrate_coupling(after.coupling.bar, after.tube, bar_t60_with_tube_s=t60,
+                               temperature_c=after.coupling.temperature_c)
+    except ModelError as exc:
+        warnings.append(f"no [tubes] coupling_calibration reproduces the fitted tube factor in "
+                        f"renders ({exc})")
+        return None
+    return float(c)  # absolute: calibrate_coupling starts from an uncalibrated coupling
+
+
+def write_calibration(path, fit: CalibrationFit, *, force: bool = False) -> Path:
+    """Write the calibration file atomically; refuse to overwrite without ``force``."""
+    from synth.io import write_bytes
+
+    return write_bytes(path, fit.to_toml().encode("utf-8"), force=force)
