@@ -1,0 +1,192 @@
+"""``measure``: partials of a recorded strike, and loss calibration of a preset from it.
+
+The command, its checks and the calibration file format are described in
+:mod:`synth.reports.measure`.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+from pathlib import Path
+from typing import Annotated
+
+import typer
+
+from synth.cli import app
+from synth.cli.common import format_table, handle_errors, print_json, warn
+from synth.errors import ConfigError
+
+
+def _num(value, fmt: str) -> str:
+    if value is None:
+        return "-"
+    if isinstance(value, float) and not math.isfinite(value):
+        return "inf"
+    return format(value, fmt)
+
+
+def _partials_table(m) -> str:
+    named = m.note is not None
+    headers = ["freq Hz", "note", "cents"]
+    if named:
+        headers += ["ratio", f"cents re {m.note}"]
+    headers += ["Q", "T60 s", "level dB", "decay from"]
+    rows = []
+    for p in m.partials:
+        row = [f"{p.frequency_hz:.2f}", p.note, f"{p.cents:+.1f}"]
+        if named:
+            row += [_num(p.ratio, ".4f"), _num(p.cents_from_note, "+.1f")]
+        row += [_num(p.q, ".0f"), _num(p.t60_s, ".2f"), f"{p.level_db:.1f}",
+                p.decay_method + (", beats" if p.beating else "")]
+        rows.append(row)
+    align = "rlr" + ("rr" if named else "") + "rrrl"
+    return format_table(headers, rows, align=align)
+
+
+def _fit_tables(fit) -> str:
+    rows = [(m.label, f"{m.model_hz:.2f}", f"{m.measured_hz:.2f}", f"{m.offset_cents:+.1f}",
+             f"{m.measured_q:.0f}", f"{m.q_before:.0f}", f"{m.q_after:.0f}",
+             f"{100 * m.error_before:+.1f}", f"{100 * m.error_after:+.1f}",
+             _num(m.override_q, ".0f"))
+            for m in fit.modes]
+    out = [format_table(
+        ["mode", "model Hz", "measured Hz", "cents", "measured Q", "Q before", "Q after",
+         "error before %", "error after %", "override Q"], rows, align="lrrrrrrrrr",
+        title=f"loss calibration of {fit.note} (tube "
+              + ("on: vertical 1 is the coupled bar-like pole)" if fit.tubes else "off)"))]
+    frows = []
+    for t, c in fit.factors.items():
+        if t in fit.fitted_terms:
+            how = "fitted"
+            sens = f"{fit.sensitivity.get(t, math.nan):.1f}"
+        elif t in fit.held_terms:
+            how, sens = "not identifiable: preset's value", "-"
+        else:
+            how, sens = "held: preset's value", "-"
+        if t == "tube" and not fit.tubes:
+            how = "no tube in this fit"
+        frows.append((t, f"{c:.4f}", how, sens))
+    out.append("")
+    out.append(format_table(["term", "factor", "", "% per 1 % Q error"], frows,
+                            align="lrlr", title="calibration factors"))
+    if math.isfinite(fit.condition_number):
+        out.append(f"condition number of the fit (columns scaled to unit length): "
+                   f"{fit.condition_number:.1f}")
+    for u in fit.unmatched:
+        out.append(f"not matched: {u}")
+    return "\n".join(out)
+
+
+@app.command("measure")
+@handle_errors
+def measure_command(
+    recording: Annotated[Path, typer.Argument(
+        help="Recording of one struck bar (WAV, FLAC, AIFF...); several channels are "
+             "averaged.", show_default=False)],
+    note: Annotated[str | None, typer.Option(
+        help="The note the bar is meant to be (e.g. A4): adds each partial's ratio to the "
+             "fundamental and its interval above the note in cents.")] = None,
+    reference_hz: Annotated[float | None, typer.Option(
+        min=380.0, max=480.0, help="A4 for note names (default 440 Hz per ISO 16; with "
+                                   "--calibrate the preset's reference_pitch_hz).")] = None,
+    max_partials: Annotated[int, typer.Option(
+        min=1, max=64, help="Report at most this many partials, the strongest.")] = 12,
+    channel: Annotated[int | None, typer.Option(
+        min=1, help="Analyse this channel only (1 = first); default: the mean of all.")
+    ] = None,
+    calibrate: Annotated[Path | None, typer.Option(
+        "--calibrate", help="Instrument preset whose loss factors to fit to this recording "
+                            "of --note; writes the calibration file --out.",
+        show_default=False)] = None,
+    out: Annotated[Path | None, typer.Option(
+        help="Calibration file to write (TOML), with --calibrate.")] = None,
+    force: Annotated[bool, typer.Option(help="Overwrite --out if it exists.")] = False,
+    terms: Annotated[str | None, typer.Option(
+        help="Loss terms to fit, comma-separated, from internal, thermoelastic, radiation, "
+             "cords, air, tube (default: internal,cords,radiation, plus tube when the "
+             "preset has tubes).")] = None,
+    tolerance: Annotated[float, typer.Option(
+        min=0.001, max=0.19, help="Largest relative frequency difference between a model "
+                                  "mode and the measured partial matched to it.")] = 0.03,
+    no_tubes: Annotated[bool, typer.Option(
+        "--no-tubes", help="The recording was made with the bar alone (no tube under it).")
+    ] = False,
+    json_out: Annotated[bool, typer.Option("--json", help="Print JSON on stdout.")] = False,
+) -> None:
+    """Measure a recorded strike: partials with note, cents, Q, T60 and level.
+
+    With --calibrate PRESET --note N --out FILE it also fits the preset's loss
+    factors so that the model's Q of vertical modes 1-3 and torsional mode 1
+    match the recording, prints the model's error before and after, and writes
+    the factors to a calibration file that the preset can name in its
+    [damping] table (calibration_file = "...").
+    """
+    from synth.io import check_writable
+    from synth.reports.measure import calibrate as fit_calibration
+    from synth.reports.measure import measure_file, write_calibration
+
+    instrument = None
+    if calibrate is not None:
+        if note is None or out is None:
+            raise ConfigError("needs --note (the note recorded) and --out (the calibration "
+                              "file to write)", source="--calibrate")
+        check_writable(out, force=force)
+        from synth.physics.instrument import load_instrument
+
+        instrument = load_instrument(calibrate)
+        note = instrument.check_note(note)
+    elif out is not None:
+        raise ConfigError("is only used with --calibrate PRESET", source="--out")
+    elif terms is not None or no_tubes:
+        raise ConfigError("is only used with --calibrate PRESET",
+                          source="--terms" if terms is not None else "--no-tubes")
+    ref = reference_hz or (instrument.reference_pitch_hz if instrument else 440.0)
+    measurement = measure_file(recording, note=note, reference_hz=ref,
+                               max_partials=max_partials, channel=channel)
+    for w in measurement.warnings:
+        warn(w)
+    fit = None
+    if instrument is not None:
+        wanted = None
+        if terms is not None:
+            wanted = tuple(t.strip() for t in terms.split(",") if t.strip())
+        fit = fit_calibration(measurement, instrument, note, terms=wanted, tubes=not no_tubes,
+                              tolerance=tolerance)
+        for w in fit.warnings:
+            warn(w)
+        path = write_calibration(out, fit, force=force)
+        rel = os.path.relpath(path, Path(calibrate).parent)
+    if json_out:
+        doc = measurement.to_dict()
+        if fit is not None:
+            doc["calibration"] = {**fit.to_dict(), "file": str(path),
+                                  "calibration_file": rel}
+        print_json(doc)
+        return
+    ch = ("mono" if measurement.n_channels == 1 else
+          f"channel {measurement.channel} of {measurement.n_channels}" if measurement.channel
+          else f"{measurement.n_channels} channels (mean)")
+    typer.echo(f"{measurement.recording}: {measurement.sample_rate_hz:g} Hz, {ch}, "
+               f"{measurement.duration_s:.2f} s; strike at {measurement.onset_s:.3f} s; "
+               f"A4 = {ref:g} Hz")
+    typer.echo(_partials_table(measurement))
+    if note is not None:
+        if measurement.fundamental_hz is not None:
+            from synth.pitch import cents
+
+            off = float(cents(measurement.fundamental_hz, measurement.note_hz))
+            typer.echo(f"fundamental {measurement.fundamental_hz:.2f} Hz: {off:+.1f} cents "
+                       f"from {note} ({measurement.note_hz:.2f} Hz)")
+    typer.echo("Q = pi f tau, T60 = tau ln 1000 (tau: amplitude time constant); level: "
+               "amplitude at the strike, dB re full scale")
+    if fit is None:
+        return
+    typer.echo("")
+    typer.echo(_fit_tables(fit))
+    if fit.coupling_calibration is not None:
+        typer.echo(f"renders take the tube's effect from the coupled bar-tube pair, not from "
+                   f"factors.tube: [tubes] coupling_calibration = "
+                   f"{fit.coupling_calibration:.4f} gives them the fitted Q of vertical 1")
+    typer.echo(f"wrote {path}; use it from the preset's [damping] table: "
+               f'calibration_file = "{rel}"')
