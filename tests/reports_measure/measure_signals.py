@@ -51,6 +51,17 @@ def render_strike(note: str, *, calibration: dict | None = None, tubes: bool = T
     return x
 
 
+def fundamental_hz(note: str) -> float:
+    """Return the model's sounding fundamental: the bar-like pole of the coupled pair."""
+    model = Voicer(demo(), sample_rate=FS, tubes=True, channels=1).model(note)
+    return model.coupling.pair.modes().frequency_hz[0]
+
+
+def cents_between(f_hz: float, ref_hz: float) -> float:
+    """Return ``1200 log2(f / ref)``."""
+    return 1200.0 * math.log2(f_hz / ref_hz)
+
+
 def damped_sines(freqs_hz, taus_s, amps, *, seconds: float = 2.0, lead_in_s: float = 0.05,
                  rate: int = FS) -> np.ndarray:
     """Build a sum of ``a exp(-t/tau) sin(2 pi f t)`` after a silent lead-in."""
