@@ -1,4 +1,4 @@
-"""Signals and helpers for the measure tests.
+"""Signals and shared checks for the measure tests.
 
 Renders of the demo preset are made here, in the tests, with the voice plan
 (:class:`synth.voicing.Voicer`) and the engine (:func:`synth.engine.render.render`),
