@@ -83,7 +83,7 @@ def _fit_tables(fit) -> str:
 def measure_command(
     recording: Annotated[Path, typer.Argument(
         help="Recording of one struck bar (WAV, FLAC, AIFF...); several channels are "
-             "averaged.", show_default=False)],
+             "averaged unless --channel picks one.", show_default=False)],
     note: Annotated[str | None, typer.Option(
         help="The note the bar is meant to be (e.g. A4): adds each partial's ratio to the "
              "fundamental and its interval above the note in cents.")] = None,
@@ -119,8 +119,8 @@ def measure_command(
     With --calibrate PRESET --note N --out FILE it also fits the preset's loss
     factors so that the model's Q of vertical modes 1-3 and torsional mode 1
     match the recording, prints the model's error before and after, and writes
-    the factors to a calibration file that the preset can name in its
-    [damping] table (calibration_file = "...").
+    the factors to a calibration file that the preset names in its damping
+    table (calibration_file = "..."). Record with the motor stopped.
     """
     from synth.io import check_writable
     from synth.reports.measure import calibrate as fit_calibration
