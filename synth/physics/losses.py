@@ -243,19 +243,31 @@ class ModeLoss:
 
 
 def _bending_strain(mode: Mode, xq: np.ndarray, geometry, material):
-    """Bending and total strain energy densities of a bending mode at points xq."""
-    E, G = material.youngs_modulus_pa, material.shear_modulus_pa
+    """Bending and total strain energy densities of a bending mode at points xq.
+
+    Vertical modes carry the stretch u of the blank's mid-plane: the strain at
+    height z is ``u' - (z - h0/2) psi'``; relative to the section's centroid its
+    uniform part ``u' - e psi'`` stretches and ``E I_c psi'^2`` bends.  Only the
+    bending part drives heat across the thickness.
+    """
     from synth.physics.bar_fe import cowper_shear_coefficient
 
+    E, G = material.youngs_modulus_pa, material.shear_modulus_pa
     k = cowper_shear_coefficient(material.poisson_ratio)
     h = geometry.thickness_at(xq)
     b = geometry.width_m
-    inertia = b * h**3 / 12.0 if mode.kind == "vertical" else h * b**3 / 12.0
     dpsi = mode.rotation_at(xq, 1)
     gam = mode.shape_at(xq, 1) - mode.rotation_at(xq)
+    if mode.kind == "vertical":
+        inertia = b * h**3 / 12.0
+        ecc = 0.5 * (geometry.thickness_m - h)
+        stretch = E * b * h * (mode.axial_at(xq, 1) - ecc * dpsi) ** 2
+    else:
+        inertia = h * b**3 / 12.0
+        stretch = 0.0
     bend = E * inertia * dpsi**2
     shear = k * G * b * h * gam**2
-    return bend, bend + shear, h
+    return bend, bend + shear + stretch, h
 
 
 def thermoelastic_eta(mode: Mode, geometry, material, temperature_c: float = 20.0,

@@ -21,10 +21,13 @@ automatically refined mesh and those residuals are the ones reported.
 Grind map
 ---------
 First-order (Rayleigh quotient) perturbation of each mode's eigenvalue:
-``d(om^2) = v^T (dK - om^2 dM) v / (v^T M v)``.  For a rectangular section cut
-from below, EI and rho I grow as h^3 and kGA, rho A as h, so per unit length
+``d(om^2) = v^T (dK - om^2 dM) v / (v^T M v)``.  Metal ground from the underside
+changes the section's area, first moment and second moment about the blank's
+mid-plane by ``dA = b dh``, ``dS = b (h0 - 2h)/2 dh``, ``dI_r = b (h0/2 - h)^2 dh``,
+so per unit length (the bar model's fields w, psi and stretch u)
 
-    d(om^2)/dh = [3 EI psi'^2 + kGA (w' - psi)^2 - om^2 (rho A w^2 + 3 rho I psi^2)] / (h M_n)
+    d(om^2)/dh = [E (dA u'^2 - 2 dS u' psi' + dI_r psi'^2) + k G b (w' - psi)^2
+                  - om^2 rho (dA (u^2 + w^2) - 2 dS u psi + dI_r psi^2)] / M_n
 
 (torsion: ``[G dJ/dh theta'^2 - om^2 rho dI_p/dh theta^2] / M_n``).  The change of
 a partial for metal removed over a band is the integral of this density times
@@ -400,18 +403,22 @@ def sensitivity_density(mode: Mode, geometry: BarGeometry, material: Material, x
         dw = mode.shape_at(x, 1)
         psi = mode.rotation_at(x)
         dpsi = mode.rotation_at(x, 1)
-        area = b * h
         gam = dw - psi
+        d_kga = k * G * b  # d(kGA)/dh
         if mode.kind == "vertical":
-            inertia = b * h**3 / 12.0
-            d_ei, d_ri = 3.0 * E * inertia / h, 3.0 * rho * inertia / h
-        else:
-            inertia = h * b**3 / 12.0
-            d_ei, d_ri = E * inertia / h, rho * inertia / h
-        d_kga = k * G * area / h
-        d_ra = rho * area / h
-        dlam = (d_ei * dpsi**2 + d_kga * gam**2 - lam * (d_ra * w**2 + d_ri * psi**2)) / (
-            mode.modal_mass)
+            # Metal taken from the underside at z = h0 - h, the reference line at h0/2:
+            # dA/dh = b, dS/dh = b (h0 - 2h)/2, dI_r/dh = b (h0/2 - h)^2.
+            h0 = geometry.thickness_m
+            u = mode.axial_at(x)
+            du = mode.axial_at(x, 1)
+            d_a, d_s, d_i = b, 0.5 * b * (h0 - 2.0 * h), b * (0.5 * h0 - h) ** 2
+            strain = E * (d_a * du**2 - 2.0 * d_s * du * dpsi + d_i * dpsi**2)
+            inertia = rho * (d_a * (u**2 + w**2) - 2.0 * d_s * u * psi + d_i * psi**2)
+        else:  # lateral: I = h b^3/12 grows as h
+            i_lat = h * b**3 / 12.0
+            strain = E * i_lat / h * dpsi**2
+            inertia = rho * (b * w**2 + i_lat / h * psi**2)
+        dlam = (strain + d_kga * gam**2 - lam * inertia) / mode.modal_mass
     return CENTS_PER_LN * dlam / (2.0 * lam)
 
 

@@ -53,3 +53,57 @@ def timoshenko_free_free(h_of_x, length, width, E, nu, rho, f_max, *, breakpoint
         if d0 * d1 < 0:
             roots.append(brentq(end_det, f0, f1, xtol=1e-10, rtol=1e-13))
     return np.array(roots)
+
+
+def coupled_free_free(h_of_x, length, width, blank, E, nu, rho, f_max, *, breakpoints=(),
+                      n_scan=400, rtol=1e-11):
+    """Bending frequencies of a free-free bar whose undercut lowers the centroid.
+
+    Reference line at the blank's mid-plane (z_r = blank/2), section from
+    blank - h to blank: A = b h, S = A e with e = (blank - h)/2, I_r = I_c + A e^2.
+    Generalised forces N = EA u' - ES psi', M = -ES u' + EI_r psi', V = kGA (w' - psi);
+    equations N' = -om^2 (rho A u - rho S psi), M' = -V - om^2 (rho I_r psi - rho S u),
+    V' = -om^2 rho A w; free ends N = M = V = 0 (3 x 3 end determinant).  Roots of
+    longitudinal modes come out too; the caller keeps the bending ones.
+    """
+    G = E / (2 * (1 + nu))
+    k = 10 * (1 + nu) / (12 + 11 * nu)
+    edges = [0.0, *sorted(breakpoints), length]
+
+    def sections(x):
+        h = h_of_x(x)
+        A = width * h
+        e = 0.5 * (blank - h)
+        Ic = width * h**3 / 12
+        return A, A * e, Ic + A * e * e
+
+    def rhs(x, y, om2):
+        A, S, Ir = sections(x)
+        w, psi, u, N, M, V = y
+        det = A * Ir - S * S
+        du = (Ir * N + S * M) / (E * det)
+        dpsi = (S * N + A * M) / (E * det)
+        return [psi + V / (k * G * A), dpsi, du,
+                -om2 * rho * (A * u - S * psi),
+                -V - om2 * rho * (Ir * psi - S * u),
+                -om2 * rho * A * w]
+
+    def end_det(f):
+        om2 = (2 * np.pi * f) ** 2
+        cols = []
+        for y0 in np.eye(6)[:3]:
+            y = y0.copy()
+            for a, b in zip(edges[:-1], edges[1:], strict=True):
+                sol = solve_ivp(rhs, (a, b), y, args=(om2,), method="DOP853", rtol=rtol,
+                                atol=1e-14)
+                y = sol.y[:, -1]
+            cols.append(y[3:])
+        return float(np.linalg.det(np.array(cols)))
+
+    grid = np.linspace(f_max / n_scan, f_max, n_scan)
+    vals = [end_det(f) for f in grid]
+    roots = []
+    for (f0, d0), (f1, d1) in zip(zip(grid[:-1], vals[:-1]), zip(grid[1:], vals[1:]), strict=True):
+        if d0 * d1 < 0:
+            roots.append(brentq(end_det, f0, f1, xtol=1e-10, rtol=1e-13))
+    return np.array(roots)

@@ -38,9 +38,12 @@ def test_matched_files_differ_by_at_most_0_2_lu(written) -> None:
     a, b = written.wav("A.wav"), written.wav("B.wav")
     la, lb = meter.integrated_loudness(a), meter.integrated_loudness(b)
     assert abs(la - lb) <= 0.2, (la, lb)
-    # Not trivially equal: the designs differ, and B needed a gain to match.
+    # Not trivially equal: the designs differ, and B's gain undoes the loudness
+    # difference measured before matching (BS.1770-4 loudness scales 1:1 with gain).
     report = json.loads((written.folder / "differences.json").read_text())
-    assert abs(report["loudness"]["gain_b_db"]) > 0.01
+    loud = report["loudness"]
+    assert loud["difference_before_lu"] != 0.0
+    assert loud["gain_b_db"] == pytest.approx(-loud["difference_before_lu"], abs=1e-3)
     assert not np.array_equal(a, b)
 
 
