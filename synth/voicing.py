@@ -311,11 +311,6 @@ class Voicer:
         return replace(template, length_m=length)
 
     def _couple(self, note: str, modes: BarModes, fund: ModeLoss, frac: float):
-        """Couple vertical mode 1 to its tube.
-
-        A calibration factor on the ``tube`` loss term scales the coupling rate by
-        its square root: the damping the tube adds grows as the rate squared.
-        """
         tube = self.tube_spec(note, modes)
         geo = modes.geometry
         m1 = modes.vertical[0]
@@ -330,8 +325,7 @@ class Voicer:
             radiation_loss_factor=min(fund.terms["radiation"], fund.eta),
         )
         coupling = couple(bar, tube, temperature_c=self.temperature_c,
-                          coupling_calibration=self.tube_settings.coupling_calibration
-                          * math.sqrt(self.calibration.factor("tube")))
+                          coupling_calibration=self.tube_settings.coupling_calibration)
         return tube, coupling
 
     def disc_phase_deg(self, note: str) -> float:
