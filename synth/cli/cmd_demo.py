@@ -163,5 +163,31 @@ def demo_command(
     typer.echo(f"   chord F3 A4 C5 E6: decay " + ", ".join(
         f"{n.note} {n.decay_db_per_s:.1f}" for n in cd.notes) + f" dB/s (spread "
         f"{cd.spread_db_per_s:.1f} dB/s)")
-    typer.echo(f"   {out / 'chord-decay.png'}")
+    typer.echo(f"   {out / 'chord-decay.png'}\n")
+
+    # 6. For the client: the same passage in another alloy, loudness-matched, blind trials
+    from synth.cli.cmd_compare import compare_command
+
+    option = presets_dir() / "instruments" / "tarrow-37-7075.toml"
+    typer.echo("6. for the client: 6061-T6 (A) against 7075-T6 (B), loudness-matched")
+    compare_command(design_a=path, design_b=option, out=out / "compare", blind=8, seed=37,
+                    force=True)
+    typer.echo("")
+
+    # 7. Back from the shop: measure a prototype bar and pull the loss model onto it
+    from synth.cli.cmd_measure import measure_command
+    from synth.engine.render import render
+    from synth.physics.losses import Calibration
+
+    typer.echo("7. a prototype A4 bar, struck over its tube and recorded (here simulated with "
+               "losses the model does not know: alloy x1.5, cords x0.8, radiation x1.2)")
+    proto = Voicer(inst, sample_rate=float(fs), channels=1,
+                   calibration=Calibration({"internal": 1.5, "cords": 0.8, "radiation": 1.2}))
+    take = render([proto.strike_voice("A4", time_s=0.2, velocity=0.7, position=0.3,
+                                      across=0.3)], int(6.0 * fs), sample_rate=fs)[:, 0]
+    take = 0.5 * take / np.max(np.abs(take))
+    take += 10 ** (-85 / 20) * np.random.default_rng(37).standard_normal(take.size)
+    recording = io.write_wav(out / "prototype-A4.wav", take, sample_rate=fs, force=True)
+    measure_command(recording=recording, note="A4", calibrate=path,
+                    out=out / "calibration-A4.toml", force=True)
     info(f"demo done: files in {out}")
