@@ -433,6 +433,15 @@ def _torsion_matrices(mesh: Mesh, sec: _Sections):
     return K, M
 
 
+def field_matrices(kind: str, mesh: Mesh, sec: _Sections) -> tuple[np.ndarray, np.ndarray]:
+    """Assembled stiffness and mass of one field: vertical, lateral or torsional."""
+    if kind == "torsional":
+        return _torsion_matrices(mesh, sec)
+    if kind == "lateral":
+        return _bending_matrices(mesh, sec, "EI_l", "rhoI_l")
+    return _vertical_matrices(mesh, sec)
+
+
 # --------------------------------------------------------------------------------------
 # Results
 # --------------------------------------------------------------------------------------
@@ -660,12 +669,7 @@ def _solve_once(bar: BarGeometry, mat: Material, mesh: Mesh, counts: dict[str, i
         n = counts.get(kind, 0)
         if n <= 0:
             continue
-        if kind == "torsional":
-            K, M = _torsion_matrices(mesh, sec)
-        elif kind == "lateral":
-            K, M = _bending_matrices(mesh, sec, "EI_l", "rhoI_l")
-        else:
-            K, M = _vertical_matrices(mesh, sec)
+        K, M = field_matrices(kind, mesh, sec)
         if kind == "vertical":
             lam, vec, rigid = _bending_only(K, M, mesh.n_nodes, n)
         else:
@@ -845,12 +849,7 @@ def dense_reference_frequencies(bar: BarGeometry, material: Material, n_elements
     out = {}
     with one_blas_thread():
         for kind in KINDS:
-            if kind == "torsional":
-                K, M = _torsion_matrices(mesh, sec)
-            elif kind == "lateral":
-                K, M = _bending_matrices(mesh, sec, "EI_l", "rhoI_l")
-            else:
-                K, M = _vertical_matrices(mesh, sec)
+            K, M = field_matrices(kind, mesh, sec)
             lam = scipy.linalg.eigh(K, M)[0]  # every pair, shapes included
             out[kind] = np.sqrt(np.abs(lam[_RIGID[kind]:])) / (2 * np.pi)
     return out
