@@ -18,6 +18,7 @@ app = typer.Typer(
     no_args_is_help=True,
     add_completion=False,
     pretty_exceptions_enable=False,
+    rich_markup_mode=None,  # help texts name TOML tables like [sound]: print them as written
     context_settings={"help_option_names": ["-h", "--help"]},
 )
 
