@@ -44,7 +44,7 @@ import numpy as np
 from synth.config import Section
 from synth.engine.score import Score, Strike
 from synth.engine.voice import CoupledPair, ModeBank, Voice, constant_power_pan, seconds_to_sample
-from synth.errors import ConfigError, ModelError
+from synth.errors import ConfigError
 from synth.physics.bar_fe import BarModes, solve_bar
 from synth.physics.coupling import BarMode, BarTubeCoupling, couple, pressure_weight
 from synth.physics.instrument import Instrument

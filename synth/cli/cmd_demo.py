@@ -160,7 +160,7 @@ def demo_command(
     typer.echo(f"   {out / 'sustain.csv'}   {out / 'sustain.png'}")
     cd = chord_decay(stereo, [(n, 0.6) for n in ("F3", "A4", "C5", "E6")], seconds=6.0)
     io.write_bytes(out / "chord-decay.png", chord_decay_png(cd, "F3 A4 C5 E6"), force=True)
-    typer.echo(f"   chord F3 A4 C5 E6: decay " + ", ".join(
+    typer.echo("   chord F3 A4 C5 E6: decay " + ", ".join(
         f"{n.note} {n.decay_db_per_s:.1f}" for n in cd.notes) + f" dB/s (spread "
         f"{cd.spread_db_per_s:.1f} dB/s)")
     typer.echo(f"   {out / 'chord-decay.png'}\n")
