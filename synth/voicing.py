@@ -47,7 +47,7 @@ from synth.engine.voice import CoupledPair, ModeBank, Voice, constant_power_pan,
 from synth.errors import ConfigError
 from synth.physics.bar_fe import BarModes, solve_bar
 from synth.physics.coupling import BarMode, BarTubeCoupling, couple, pressure_weight
-from synth.physics.instrument import Instrument
+from synth.physics.instrument import BarFile, Instrument
 from synth.physics.losses import (
     Calibration,
     ModeLoss,
@@ -542,3 +542,32 @@ def tube_cut_lengths(instrument: Instrument) -> dict[str, float]:
     if v.tube_settings is None:
         return {}
     return {n: v.tube_spec(n).length_m for n in instrument.notes if n in instrument.bars}
+
+
+def design_budget(design: Instrument | BarFile, label: str,
+                  result: BarModes) -> tuple[list[ModeLoss], str]:
+    """Loss budget of a solved bar with its design's supports, calibration and tube.
+
+    For an instrument preset the tube's extra loss on vertical mode 1 is included
+    (the coupled bar-like pole); a single-bar file is a bare bar.  Returns the
+    budget and one line saying what it assumed.
+    """
+    if isinstance(design, Instrument):
+        v = Voicer(design, channels=1)
+        model = v.model(label)
+        extra = {}
+        if model.coupling is not None:
+            extra[("vertical", 1)] = model.tube_loss_factor()
+        budget = loss_budget(result, supports=v.supports, calibration=v.calibration,
+                             temperature_c=design.temperature_c, note=label, tube_eta=extra)
+        tube = (f"tube {model.tube.length_m * 1e3:.1f} mm long, radius "
+                f"{model.tube.inner_radius_m * 1e3:.1f} mm, tuned "
+                f"{model.coupling.tube_offset_cents:+.1f} cents from the bar"
+                if model.coupling is not None else "no tube")
+        return budget, (f"cords at the mode-1 nodes; {tube}; air and bar at "
+                        f"{design.temperature_c:g} C")
+    sections = design.sections
+    budget = loss_budget(result, supports=parse_supports(sections.get("supports")),
+                         calibration=parse_calibration(sections.get("damping")),
+                         temperature_c=design.temperature_c)
+    return budget, "cords at the mode-1 nodes; bare bar (no tube)"

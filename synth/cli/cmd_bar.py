@@ -12,6 +12,7 @@ from synth.cli.common import format_table, handle_errors, print_json
 from synth.errors import ConfigError
 from synth.physics.bar_fe import BarModes, solve_bar
 from synth.physics.instrument import BarFile, Instrument, load_design
+from synth.voicing import design_budget
 import numpy as np
 
 from synth.pitch import nearest_note
@@ -94,7 +95,7 @@ def partials_command(
                        n_torsional=torsional)
     rows = partial_rows(result, ref)
     if json_out and losses:
-        budget, _ = _budget(design, label, result)
+        budget, _ = design_budget(design, label, result)
         by_mode = {(b.kind, b.order): b for b in budget}
         for r in rows:
             b = by_mode[(r["kind"], r["order"])]
@@ -127,7 +128,7 @@ def partials_command(
     typer.echo(f"A4 = {ref:g} Hz; mesh {result.n_elements} elements of degree {degree}, last "
                f"refinement moved frequencies by {result.change * 100:.4f} %")
     if losses:
-        budget, note_txt = _budget(design, label, result)
+        budget, note_txt = design_budget(design, label, result)
         typer.echo("")
         typer.echo(format_table(
             ["kind", "order", "Q", "T60 s", *[f"Q {t}" for t in TERMS_SHOWN]],
@@ -424,32 +425,6 @@ def _q_cell(b, term: str) -> str:
     if q == float("inf"):
         return "-"
     return f"{q:.3g}" if q < 1e7 else ">1e7"
-
-
-def _budget(design, label: str, result: BarModes):
-    """Loss budget of a solved bar: the preset's supports, calibration and tube."""
-    from synth.physics.losses import loss_budget, parse_calibration, parse_supports
-
-    if isinstance(design, Instrument):
-        from synth.voicing import Voicer
-
-        v = Voicer(design, channels=1)
-        model = v.model(label)
-        extra = {}
-        if model.coupling is not None:
-            extra[("vertical", 1)] = model.tube_loss_factor()
-        budget = loss_budget(result, supports=v.supports, calibration=v.calibration,
-                             temperature_c=design.temperature_c, note=label, tube_eta=extra)
-        tube = (f"tube {model.tube.length_m * 1e3:.1f} mm long, radius "
-                f"{model.tube.inner_radius_m * 1e3:.1f} mm, tuned "
-                f"{model.coupling.tube_offset_cents:+.1f} cents from the bar"
-                if model.coupling is not None else "no tube")
-        return budget, f"cords at the mode-1 nodes; {tube}; air and bar at {design.temperature_c:g} C"
-    sections = getattr(design, "sections", {})
-    budget = loss_budget(result, supports=parse_supports(sections.get("supports")),
-                         calibration=parse_calibration(sections.get("damping")),
-                         temperature_c=design.temperature_c)
-    return budget, "cords at the mode-1 nodes; bare bar (no tube)"
 
 
 def _override(inst, family: str | None, venue_c: float | None):

@@ -46,7 +46,6 @@ read by the modules that use them; this module keeps them as validated
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -306,15 +305,3 @@ def _instrument(sec: Section, data: dict) -> Instrument:
         sections=_extra_sections(sec),
         raw=data,
     )
-
-
-def cents_per_kelvin_estimate(material: Material) -> float:
-    """First-order bar drift with temperature in cents per kelvin.
-
-    ``d ln f / dT = (1/2) d ln E / dT + alpha / 2`` for a bar whose every length
-    expands by alpha (f grows as h / L**2 and as sqrt(E / rho), rho falling by
-    3 alpha).  Exact drift comes from re-solving the bar at both temperatures.
-    """
-    dlnf = 0.5 * material.modulus_temperature_coefficient_per_k + 0.5 * (
-        material.thermal_expansion_per_k)
-    return 1200.0 / math.log(2.0) * dlnf

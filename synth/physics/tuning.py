@@ -510,10 +510,6 @@ def temperature_shift_cents(geometry: BarGeometry, material: Material, from_c: f
     return cents(f2, f1)
 
 
-def replace_spec(spec: TuneSpec, **changes) -> TuneSpec:
-    """A copy of a spec with some fields changed."""
-    return replace(spec, **changes)
-
 
 # --------------------------------------------------------------------------------------
 # A whole range

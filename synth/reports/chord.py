@@ -94,9 +94,9 @@ def chord_decay(voicer: Voicer, items: list[tuple[str, float]], *, mallet=None,
 
 def chord_decay_png(result: ChordDecay, title: str) -> bytes:
     """Level of each note over time in its own band."""
-    from synth.reports.plots import _png, _pyplot
+    from synth.reports.plots import figure_png, pyplot
 
-    plt = _pyplot()
+    plt = pyplot()
     fig, ax = plt.subplots(figsize=(8, 4.2))
     for n in result.notes:
         ax.plot(n.times_s, n.level_db, lw=1.3,
@@ -110,4 +110,4 @@ def chord_decay_png(result: ChordDecay, title: str) -> bytes:
     ax.legend(fontsize=8)
     lo = min(float(np.min(n.level_db[np.isfinite(n.level_db)])) for n in result.notes)
     ax.set_ylim(max(lo, -100), 3)
-    return _png(fig)
+    return figure_png(fig)

@@ -1116,9 +1116,9 @@ def score_answers(key: Sequence[str], answers: Sequence[str]) -> BlindScore:
 # --------------------------------------------------------------------------- figure
 def comparison_png(comp: Comparison, *, names: tuple[str, str]) -> bytes:
     """Octave-band balance B - A per window (left) and fundamental T60 per note (right)."""
-    from synth.reports.plots import _png, _pyplot
+    from synth.reports.plots import figure_png, pyplot
 
-    plt = _pyplot()
+    plt = pyplot()
     fig, (ax0, ax1) = plt.subplots(1, 2, figsize=(11, 4.2))
     centres = [fm for _, fm, _, _ in comp.bands]
     for w in comp.balance:
@@ -1147,4 +1147,4 @@ def comparison_png(comp: Comparison, *, names: tuple[str, str]) -> bytes:
                  f"{lv.loudness_difference_before_lu:+.2f} LU before matching, gain "
                  f"{lv.gain_b_db:+.2f} dB", fontsize=9)
     fig.tight_layout()
-    return _png(fig)
+    return figure_png(fig)

@@ -13,7 +13,8 @@ from synth.physics.geometry import BarGeometry
 from synth.physics.tuning import GrindMap
 
 
-def _pyplot():
+def pyplot():
+    """matplotlib.pyplot on the Agg backend (no screen needed)."""
     import matplotlib
 
     matplotlib.use("Agg", force=True)
@@ -22,10 +23,11 @@ def _pyplot():
     return plt
 
 
-def _png(fig) -> bytes:
+def figure_png(fig) -> bytes:
+    """The figure as PNG bytes; the figure is closed."""
     buf = _bytes_io.BytesIO()
     fig.savefig(buf, format="png", dpi=130, bbox_inches="tight")
-    _pyplot().close(fig)
+    pyplot().close(fig)
     return buf.getvalue()
 
 
@@ -53,7 +55,7 @@ def draw_profile(ax, geometry: BarGeometry, *, cord_holes_m=(), label: str | Non
 def grind_map_png(gm: GrindMap, geometry: BarGeometry, *, title: str = "",
                   cord_holes_m=()) -> bytes:
     """Profile drawing above, one sensitivity curve per partial below."""
-    plt = _pyplot()
+    plt = pyplot()
     fig, (ax0, ax1) = plt.subplots(2, 1, figsize=(8, 6), sharex=True,
                                    gridspec_kw={"height_ratios": [1, 2.2]})
     draw_profile(ax0, geometry, cord_holes_m=cord_holes_m)
@@ -69,13 +71,13 @@ def grind_map_png(gm: GrindMap, geometry: BarGeometry, *, title: str = "",
                   fontsize=8, loc="left")
     ax1.legend(fontsize=8)
     ax1.grid(alpha=0.3)
-    return _png(fig)
+    return figure_png(fig)
 
 
 def profile_sheet_png(bars: list[tuple[str, BarGeometry, tuple[float, ...]]], *,
                       title: str = "", columns: int = 4) -> bytes:
     """A sheet of bar side views (note, geometry, cord holes) drawn to one length scale."""
-    plt = _pyplot()
+    plt = pyplot()
     n = len(bars)
     rows = max(1, int(np.ceil(n / columns)))
     fig, axes = plt.subplots(rows, columns, figsize=(3.2 * columns, 0.9 * rows + 0.6),
@@ -94,4 +96,4 @@ def profile_sheet_png(bars: list[tuple[str, BarGeometry, tuple[float, ...]]], *,
     if title:
         fig.suptitle(title, fontsize=10)
     fig.tight_layout()
-    return _png(fig)
+    return figure_png(fig)

@@ -213,9 +213,9 @@ def sustain_csv(report: SustainReport) -> str:
 
 def sustain_png(report: SustainReport, title: str) -> bytes:
     """T60 per note against the target band, flagged notes marked."""
-    from synth.reports.plots import _png, _pyplot
+    from synth.reports.plots import figure_png, pyplot
 
-    plt = _pyplot()
+    plt = pyplot()
     rows = report.rows
     x = np.arange(len(rows))
     fig, ax = plt.subplots(figsize=(10, 4.2))
@@ -243,4 +243,4 @@ def sustain_png(report: SustainReport, title: str) -> bytes:
     ax.set_title(title, fontsize=10)
     ax.grid(alpha=0.3, which="both")
     ax.legend(fontsize=8)
-    return _png(fig)
+    return figure_png(fig)
