@@ -24,14 +24,16 @@ def test_eigenvalue_error_rate(degree: int) -> None:
     bar = BarGeometry(0.3, 0.05, 0.02)
     exact = solve_bar(bar, AL, n_elements=64, degree=6, n_lateral=0, n_torsional=0)
     f_ex = exact.vertical[2].frequency_hz
-    ns = np.array([4, 8, 16])
+    ns = np.array([8, 16, 32])
     err = []
     for n in ns:
         r = solve_bar(bar, AL, n_elements=int(n), degree=degree, n_lateral=0, n_torsional=0)
         err.append(abs(r.vertical[2].frequency_hz / f_ex - 1))
     rate = -np.polyfit(np.log(ns), np.log(err), 1)[0]
     # frequency error = half the eigenvalue error: same rate 2p; allow +-0.7 for
-    # the pre-asymptotic coarse mesh.
+    # the pre-asymptotic coarse mesh.  Mass lumped at the Gauss-Lobatto nodes keeps
+    # the rate (Fried & Malkus 1975) but enters the asymptotic range later than the
+    # consistent mass, hence meshes of 8-32 elements.
     assert rate == pytest.approx(2 * degree, abs=0.7), (rate, err)
 
 
