@@ -12,8 +12,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from synth.physics.bar_fe import solve_bar
-from synth.physics.geometry import ArchUndercut, BarGeometry
+from synth.physics.bar_fe import PHASE_PER_ELEMENT, solve_bar, start_mesh
+from synth.physics.geometry import ArchUndercut, BarGeometry, StationUndercut
 from synth.physics.materials import Material
 
 AL = Material("al6061-check", 68.9e9, 2700.0, 0.33, 23.6e-6, 167.0, 896.0, -4e-4, 5e-5)
@@ -44,3 +44,35 @@ def test_automatic_refinement_meets_its_tolerance() -> None:
     assert auto.change < 1e-4
     for a, f in zip(auto.modes, fine.modes, strict=True):
         assert a.frequency_hz == pytest.approx(f.frequency_hz, rel=1e-4)
+
+
+def test_refinement_past_the_degree_step_meets_a_tight_tolerance() -> None:
+    """Below what the degree 5 -> 6 step can show, the mesh itself is refined."""
+    bar = BarGeometry(0.35, 0.055, 0.013, ArchUndercut(0.008, 0.22, 3.0))
+    first = start_mesh(bar)
+    tight = solve_bar(bar, AL, tolerance=1e-8, n_lateral=0, n_torsional=0)
+    fine = solve_bar(bar, AL, n_elements=96, degree=6, n_lateral=0, n_torsional=0)
+    assert tight.change < 1e-8
+    assert tight.n_elements > first.n_elements
+    for a, f in zip(tight.modes, fine.modes, strict=True):
+        assert a.frequency_hz == pytest.approx(f.frequency_hz, rel=1e-8)
+
+
+def test_start_mesh_follows_the_bending_wavelength() -> None:
+    """Thin sections carry shorter bending waves (k**4 = rho A omega**2 / EI, so
+    k ~ h**-1/2 for a rectangle): a caliper table's thin middle gets more elements per
+    metre than its thick ends, and no element holds more than its share of wave."""
+    bar = BarGeometry(0.32, 0.055, 0.012, StationUndercut(
+        (0.060, 0.100, 0.160, 0.220, 0.260), (0.012, 0.0082, 0.0050, 0.0082, 0.012)))
+    mesh = start_mesh(bar, n_modes=5, degree=6)
+    edges = mesh.edges_m
+    length = np.diff(edges)
+    mid = 0.5 * (edges[:-1] + edges[1:])
+    thin = length[np.abs(mid - 0.16) < 0.06]
+    thick = length[(mid < 0.06) | (mid > 0.26)]
+    assert thin.max() < thick.min()
+    beta = 11 * np.pi / 2 / bar.length_m  # free-free mode 5 (Blevins)
+    for a, b in zip(edges[:-1], edges[1:], strict=True):
+        x = np.linspace(a, b, 201)
+        phase = np.trapezoid(beta * np.sqrt(bar.thickness_m / bar.thickness_at(x)), x)
+        assert phase <= PHASE_PER_ELEMENT * 5 * (1 + 1e-6)
