@@ -458,7 +458,7 @@ def _vertical_system(mesh: Mesh, sec: _Sections):
                          (1, 1, _integrate(f["EI_r"], "DD", "full", jac, p) + k_ps),
                          (2, 2, _integrate(f["EA"], "DD", "full", jac, p)),
                          (2, 1, k_up), (1, 2, np.swapaxes(k_up, 1, 2))], 3)
-    # rho S couples psi and u at each node (the kinetic term -2 rho S u' psi').
+    # rho S couples psi and u at each node (the velocity term -2 rho S u_t psi_t).
     nodal = _lumped(mesh, sec, ["rhoA", "rhoI_r", "rhoA"], (1, 2, "rhoS"))
     nodal[:, 1, 2] *= -1.0
     nodal[:, 2, 1] *= -1.0
@@ -751,8 +751,9 @@ def _find_zeros(mesh: Mesh, shapes: np.ndarray, length: float) -> list[tuple[flo
         powers = np.arange(p + 1)
         for _ in range(5):
             xp = x[:, None] ** powers[None, :]
-            step = np.einsum("ij,ij->i", c, xp) / np.einsum("ij,ij->i", dc, xp[:, :-1])
-            x = np.clip(x - step, lo, hi)
+            with np.errstate(divide="ignore", invalid="ignore"):
+                step = np.einsum("ij,ij->i", c, xp) / np.einsum("ij,ij->i", dc, xp[:, :-1])
+            x = np.clip(x - np.where(np.isfinite(step), step, 0.0), lo, hi)
         z = edges[e_idx] + (x + 1.0) * half[e_idx]
         for k, zz in zip(k_idx, z, strict=True):
             found[k].append(zz)
