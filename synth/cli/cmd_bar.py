@@ -125,8 +125,10 @@ def partials_command(
         ["kind", "order", "freq Hz", "ratio", "note", "cents", "nodes mm from left end"],
         table, align="lrrrlrl"))
     degree = result.modes[0].mesh.degree
+    change = result.change * 100
+    moved = "by less than 0.0001 %" if change < 1e-4 else f"by {change:.4f} %"
     typer.echo(f"A4 = {ref:g} Hz; mesh {result.n_elements} elements of degree {degree}, last "
-               f"refinement moved frequencies by {result.change * 100:.4f} %")
+               f"refinement moved frequencies {moved}")
     if losses:
         budget, note_txt = design_budget(design, label, result)
         typer.echo("")
