@@ -32,12 +32,13 @@ shorter waves).  The first solve uses degree ``p - 1`` on that mesh, the second
 degree ``p``; if some requested frequency changed by ``tolerance`` (default
 1e-4, 0.01 %) or more, the mesh is refined by 1.5 until it settles.
 
-The two lowest eigenvalues of each bending field and the lowest of torsion are
-rigid-body motions and are skipped.
+The lowest eigenvalues of each field are rigid-body motions and are skipped:
+three in the vertical field (heave, pitch and sliding along the bar), two in the
+lateral (sway, yaw) and one in torsion (roll).
 
 Mode shapes are scaled so that, for bending, ``integral(rho A w**2 dx)`` equals
-the bar's mass (a uniform bar then has ``|w| = 2`` at its ends, the normalisation
-of Blevins' tables) and, for torsion, ``integral(rho I_p theta**2 dx)`` equals the
+the bar's mass (the integral taken by the same nodal quadrature as the mass; a
+uniform bar then has ``|w| = 2`` at its ends, the normalisation of Blevins' tables) and, for torsion, ``integral(rho I_p theta**2 dx)`` equals the
 bar's polar mass moment.  ``Mode.modal_mass`` is the full generalised mass
 ``v^T M v`` of that scaled vector (rotary inertia included), so a point force F
 at x drives the modal coordinate q as ``q'' + ... = shape(x) F / modal_mass``.
