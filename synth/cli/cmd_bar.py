@@ -5,6 +5,7 @@ from __future__ import annotations
 from pathlib import Path
 from typing import Annotated
 
+import numpy as np
 import typer
 
 from synth.cli import app
@@ -12,10 +13,8 @@ from synth.cli.common import format_table, handle_errors, print_json
 from synth.errors import ConfigError
 from synth.physics.bar_fe import BarModes, solve_bar
 from synth.physics.instrument import BarFile, Instrument, load_design
-from synth.voicing import design_budget
-import numpy as np
-
 from synth.pitch import nearest_note
+from synth.voicing import design_budget
 
 FileArg = Annotated[Path, typer.Argument(help="A single-bar file or an instrument preset (TOML).",
                                          show_default=False)]
@@ -79,20 +78,39 @@ def partials_command(
     losses: Annotated[bool, typer.Option(
         help="Also show each mode's Q by loss term (alloy, thermoelastic, radiation, cords, "
              "air, tube) and its T60.")] = True,
+    plot: Annotated[bool, typer.Option(
+        help="Also draw the mode shapes with their nodes to a PNG (default "
+             "renders/<file>/partials-<bar>.png).")] = False,
+    out: Annotated[Path | None, typer.Option(
+        help="PNG path for the mode-shape plot (implies --plot).")] = None,
+    force: Annotated[bool, typer.Option(help="Overwrite the PNG if it exists.")] = False,
     json_out: Annotated[bool, typer.Option("--json", help="Print JSON on stdout.")] = False,
 ) -> None:
     """Compute a bar's partials: frequency, ratio, nearest note, cents and nodes.
 
     The bar is solved by 1-D finite elements (Timoshenko bending in both planes,
-    St Venant torsion) on a mesh refined until every listed frequency settles to
-    0.01 %. Nodes are measured from the bar's left end; the two nodes of vertical
-    mode 1 are where the cord holes go.
+    the vertical one coupled to stretching where the undercut moves the section's
+    centre; torsion with the section's warping), refined until the vertical
+    partials settle to 0.01 %. Nodes are measured from the bar's left end; the two
+    nodes of vertical mode 1 are where the cord holes go.
     """
+    from synth import io
+
     design = load_design(file)
     label, geometry, material, ref = resolve_bar(design, note)
     ref = reference_hz or ref
+    png = None
+    if plot or out is not None:
+        png = out or _default_out(file, f"partials-{_file_label(label)}.png")
+        png.parent.mkdir(parents=True, exist_ok=True)
+        io.check_writable(png, force=force)
     result = solve_bar(geometry, material, n_vertical=vertical, n_lateral=lateral,
                        n_torsional=torsional)
+    if png is not None:
+        from synth.reports.plots import mode_shapes_png
+
+        io.write_bytes(png, mode_shapes_png(result, title=f"{label}: mode shapes",
+                                            reference_hz=ref), force=force)
     rows = partial_rows(result, ref)
     if json_out and losses:
         budget, _ = design_budget(design, label, result)
@@ -109,6 +127,7 @@ def partials_command(
             "mesh_elements": result.n_elements,
             "mesh_change": result.change,
             "partials": rows,
+            **({"plot": str(png)} if png is not None else {}),
         })
         return
     uc = geometry.undercut.describe() if geometry.undercut else "no undercut"
@@ -138,6 +157,8 @@ def partials_command(
               *[_q_cell(b, t) for t in TERMS_SHOWN]) for b in budget],
             title="losses by term (Q of each term alone; 1/Q adds over terms)"))
         typer.echo(note_txt)
+    if png is not None:
+        typer.echo(f"plot: {png}")
 
 
 # --------------------------------------------------------------------------------------
@@ -163,6 +184,11 @@ def _parse_ratios(text: str | None) -> tuple[float, ...] | None:
 
 def _default_out(preset: Path, name: str) -> Path:
     return Path("renders") / preset.stem / name
+
+
+def _file_label(label: str) -> str:
+    """A bar's label as part of a file name (F#4 -> Fs4, spaces to underscores)."""
+    return label.replace(" ", "_").replace("#", "s")
 
 
 @app.command("tune")
@@ -322,7 +348,7 @@ def grind_command(
 
     design = load_design(file)
     label, geometry, material, _ = resolve_bar(design, note)
-    png = out or _default_out(file, f"grind-{label.replace(' ', '_').replace('#', 's')}.png")
+    png = out or _default_out(file, f"grind-{_file_label(label)}.png")
     png.parent.mkdir(parents=True, exist_ok=True)
     io.check_writable(png, force=force)
     res = solve_bar(geometry, material, n_vertical=max(3, partials), n_lateral=0,

@@ -1,4 +1,4 @@
-"""PNG figures (matplotlib, Agg backend): grind maps and profile drawings.
+"""PNG figures (matplotlib, Agg backend): grind maps, profile drawings, mode shapes.
 
 Functions return PNG bytes; the caller decides where they go.
 """
@@ -9,8 +9,10 @@ import io as _bytes_io
 
 import numpy as np
 
+from synth.physics.bar_fe import BarModes
 from synth.physics.geometry import BarGeometry
 from synth.physics.tuning import GrindMap
+from synth.pitch import nearest_note
 
 
 def pyplot():
@@ -96,4 +98,57 @@ def profile_sheet_png(bars: list[tuple[str, BarGeometry, tuple[float, ...]]], *,
     if title:
         fig.suptitle(title, fontsize=10)
     fig.tight_layout()
+    return figure_png(fig)
+
+
+def mode_shapes_png(result: BarModes, *, title: str = "", reference_hz: float = 440.0) -> bytes:
+    """Side view of the bar above its mode shapes, nodes marked, to one length scale.
+
+    Vertical bending modes are drawn as the deflection of the top face, each scaled
+    to a peak of 1 and stacked with the lowest at the top; torsional and lateral
+    modes (twist, sideways deflection) follow in a second panel when they were
+    computed.  Dots mark the nodes, where a mallet leaves that partial out and where
+    a support leaves it ringing; the open circles on the bar are mode 1's nodes, the
+    cord holes.
+    """
+    plt = pyplot()
+    geometry = result.geometry
+    others = [m for m in result.modes if m.kind != "vertical"]
+    heights = [1.0, 0.45 * max(1, len(result.vertical))]
+    if others:
+        heights.append(0.45 * len(others))
+    fig, axes = plt.subplots(len(heights), 1, figsize=(8, 1.2 + 1.3 * sum(heights)),
+                             sharex=True, gridspec_kw={"height_ratios": heights})
+    holes = result.vertical[0].nodes_m if result.vertical else ()
+    draw_profile(axes[0], geometry, cord_holes_m=holes)
+    axes[0].set_ylabel("thickness mm")
+    axes[0].set_title(title or "mode shapes", fontsize=10)
+    x = np.unique(np.concatenate([np.linspace(0.0, geometry.length_m, 400),
+                                  geometry.breakpoints()]))
+    f1 = result.fundamental_hz if result.vertical else None
+    for ax, modes in zip(axes[1:], [result.vertical, others], strict=False):
+        for row, mode in enumerate(modes):
+            shape = np.asarray(mode.shape_at(x), dtype=float)
+            shape = shape / max(float(np.max(np.abs(shape))), 1e-300)
+            base = -2.4 * row
+            ax.axhline(base, color="0.85", lw=0.7)
+            ax.plot(x * 1e3, base + shape, lw=1.3,
+                    color="0.15" if mode.kind == "vertical" else "0.45",
+                    ls="-" if mode.kind != "lateral" else "--")
+            nodes = np.asarray(mode.nodes_m)
+            ax.plot(nodes * 1e3, np.full(len(nodes), base), ls="none", marker="o", ms=3.5,
+                    color="0.1")
+            name, cents = nearest_note(mode.frequency_hz, reference_hz)
+            cents = round(cents) + 0.0  # no "-0"
+            ratio = f", x{mode.frequency_hz / f1:.3f}" if f1 else ""
+            ax.text(1.005, base, f"{mode.kind} {mode.order}\n{mode.frequency_hz:.1f} Hz{ratio}\n"
+                    f"{name} {cents:+.0f} c", transform=ax.get_yaxis_transform(),
+                    fontsize=7, va="center")
+        ax.set_yticks([])
+        ax.set_ylim(-2.4 * (len(modes) - 1) - 1.3, 1.3)
+    axes[1].set_title("vertical bending: deflection of the top face", fontsize=8, loc="left")
+    if others:
+        axes[2].set_title("torsion (twist, solid) and lateral bending (sideways, dashed)",
+                          fontsize=8, loc="left")
+    axes[-1].set_xlabel("mm from left end")
     return figure_png(fig)
