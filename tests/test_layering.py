@@ -1,6 +1,6 @@
 """The package layers import only downward (design outline, DEVELOPERS.md).
 
-bottom (errors, constants, pitch, config) <- physics; engine (generic, beside physics)
+bottom (errors, constants, pitch, config, numerics) <- physics; engine (generic, beside physics)
 <- voicing (physics onto engine voices); io <- output (engine + io); analysis (arrays
 only) <- reports <- cli.  The engine must never import physics, so it
 cannot learn about bars; physics must never import audio or the engine.
@@ -21,6 +21,7 @@ FORBIDDEN = {
     "constants": {"physics", "engine", "voicing", "io", "analysis", "reports", "cli", "bench"},
     "pitch": {"physics", "engine", "voicing", "io", "analysis", "reports", "cli", "bench"},
     "config": {"physics", "engine", "voicing", "io", "analysis", "reports", "cli", "bench"},
+    "numerics": {"physics", "engine", "voicing", "io", "analysis", "reports", "cli", "bench"},
     "physics": {"engine", "voicing", "io", "analysis", "reports", "cli", "bench"},
     "engine": {"physics", "voicing", "io", "output", "analysis", "reports", "cli", "bench",
                "instrument"},

@@ -87,10 +87,10 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 from scipy.linalg import solve_continuous_lyapunov
-from scipy.optimize import brentq, minimize_scalar
 
 from synth.constants import AIR_DENSITY_20C_KG_M3, CENTS_PER_NEPER, LN_1000
 from synth.errors import ConfigError, ModelError
+from synth.numerics import bracketed_root
 from synth.physics.tube import (
     TubeMode,
     TubeSpec,
@@ -513,6 +513,8 @@ class CoupledPair:
         lo = grid[max(i - 1, 0)]
         hi = grid[min(i + 1, grid.size - 1)]
         if hi > lo:
+            from scipy.optimize import minimize_scalar  # only here: a slow import
+
             res = minimize_scalar(
                 lambda t: -float(self.radiated_power([t], strike_energy_j=strike_energy_j)[0]),
                 bounds=(lo, hi), method="bounded", options={"xatol": 1e-9 * max(hi, 1e-3)})
@@ -712,7 +714,7 @@ def coupling_rate_from_t60(*, bar_frequency_hz: float, bar_t60_bare_s: float,
         hi *= 2.0
         if hi > 1e9:
             raise ModelError("coupling_rate_from_t60: no coupling rate fits these decays")
-    return brentq(excess, 0.0, hi, xtol=1e-12, rtol=1e-12)
+    return bracketed_root(excess, 0.0, hi, xtol=1e-12, rtol=1e-12)
 
 
 def calibrate_coupling(bar: BarMode, tube: TubeSpec, *, bar_t60_with_tube_s: float,
@@ -922,14 +924,15 @@ def suggest_tube_offset(bar: BarMode, template: TubeSpec, *, target_t60_s: float
     if t60(cmax) < target:
         raise ModelError(f"target_t60_s = {target:g}: needs the tube more than "
                          f"{cmax:g} cents above the bar; raise max_offset_cents or widen the gap")
-    c = 0.0 if target == t0 else brentq(lambda x: t60(x) - target, 0.0, cmax, xtol=1e-6)
+    c = 0.0 if target == t0 else bracketed_root(lambda x: t60(x) - target, 0.0, cmax,
+                                                xtol=1e-6)
     g = gain(c)
     if g < floor:
         g0 = gain(0.0)
         if g0 < floor:
             raise ModelError(f"min_gain_db = {floor:g}: even tuned exactly this tube gives only "
                              f"{g0:.3g} dB ({gain_measure}); lower the floor or narrow the gap")
-        cf = brentq(lambda x: gain(x) - floor, 0.0, c, xtol=1e-6)
+        cf = bracketed_root(lambda x: gain(x) - floor, 0.0, c, xtol=1e-6)
         raise ModelError(f"target_t60_s = {target:g}: needs +{c:.1f} cents where the "
                          f"{gain_measure} gain is {g:.3g} dB < {floor:g} dB; the floor allows "
                          f"at most +{cf:.1f} cents (T60 {t60(cf):.4g} s)")

@@ -42,11 +42,10 @@ from pathlib import Path
 from typing import Any, Final
 
 import numpy as np
-from scipy.optimize import brentq
-from scipy.special import beta as beta_function
 
 from synth.config import Section, load_toml, presets_dir
 from synth.errors import ConfigError, ModelError
+from synth.numerics import beta_function, bracketed_root
 
 __all__ = [
     "ContactResult",
@@ -714,7 +713,7 @@ def simulate_contact(
             h = (
                 dt
                 if d_new == 0.0
-                else brentq(
+                else bracketed_root(
                     compression_after, 0.0, dt, xtol=1e-14 * dt, rtol=4 * np.finfo(float).eps
                 )
             )

@@ -79,7 +79,6 @@ import warnings
 from dataclasses import dataclass, replace
 
 import numpy as np
-from scipy.optimize import brentq
 
 from synth.constants import (
     CENTS_PER_NEPER,
@@ -99,6 +98,7 @@ from synth.constants import (
     ZERO_CELSIUS_K,
 )
 from synth.errors import ConfigError, ModelError
+from synth.numerics import bracketed_root
 
 KA_CORRECTION_LIMIT = 0.5
 """Largest ka for which the (ka)^2 end-correction fit is used without a warning [3]."""
@@ -412,7 +412,7 @@ def resonance_frequency(spec: TubeSpec, *, temperature_c: float = 20.0, mode: in
             raise ModelError(
                 f"tube a = {spec.inner_radius_m:g} m, L = {spec.length_m:g} m: the (ka)^2 "
                 "end correction is outside its range at this pitch; switch ka_correction off")
-        f = brentq(residual, f0, hi, xtol=1e-12, rtol=1e-14)
+        f = bracketed_root(residual, f0, hi, xtol=1e-12, rtol=1e-14)
     free_end_correction(spec.inner_radius_m, flanged=spec.flanged,
                         wavenumber_per_m=2.0 * math.pi * f / c)   # warn once if ka too large
     return f
