@@ -84,7 +84,7 @@ def check_writable(path: str | os.PathLike[str], *, force: bool = False) -> Path
     if p.is_dir():
         raise AudioError(f"{p}: is a folder; give a file name")
     if p.exists() and not force:
-        raise AudioError(f"{p}: already exists; pass force to overwrite it")
+        raise AudioError(f"{p}: already exists; use --force to overwrite it")
     if not p.parent.is_dir():
         raise AudioError(f"{p}: folder {p.parent} does not exist")
     return p
@@ -115,10 +115,10 @@ def _move_without_overwrite(tmp: Path, target: Path) -> None:
     try:
         os.link(tmp, target)
     except FileExistsError:
-        raise AudioError(f"{target}: already exists; pass force to overwrite it") from None
+        raise AudioError(f"{target}: already exists; use --force to overwrite it") from None
     except OSError:  # file system without hard links: check, then rename
         if target.exists():
-            raise AudioError(f"{target}: already exists; pass force to overwrite it") from None
+            raise AudioError(f"{target}: already exists; use --force to overwrite it") from None
         os.replace(tmp, target)
         return
     tmp.unlink()

@@ -87,7 +87,7 @@ def test_existing_file_is_kept_without_force(tmp_path):
     target = tmp_path / "take.wav"
     write_wav(target, tone(peak=0.5))
     first = target.read_bytes()
-    with pytest.raises(AudioError, match="already exists; pass force"):
+    with pytest.raises(AudioError, match="already exists; use --force"):
         write_wav(target, tone(peak=0.25))
     assert target.read_bytes() == first
     write_wav(target, tone(peak=0.25), force=True)
