@@ -91,8 +91,9 @@ def partials_command(
     The bar is solved by 1-D finite elements (Timoshenko bending in both planes,
     the vertical one coupled to stretching where the undercut moves the section's
     centre; torsion with the section's warping), refined until the vertical
-    partials settle to 0.01 %. Nodes are measured from the bar's left end; the two
-    nodes of vertical mode 1 are where the cord holes go.
+    partials settle to 0.01 %; the lateral and torsional modes, smoother, are solved
+    on that mesh. Nodes are measured from the bar's left end; the two nodes of
+    vertical mode 1 are where the cord holes go.
     """
     from synth import io
 
@@ -147,7 +148,7 @@ def partials_command(
     change = result.change * 100
     moved = "by less than 0.0001 %" if change < 1e-4 else f"by {change:.4f} %"
     typer.echo(f"A4 = {ref:g} Hz; mesh {result.n_elements} elements of degree {degree}, last "
-               f"refinement moved frequencies {moved}")
+               f"refinement moved the vertical partials {moved}")
     if losses:
         budget, note_txt = design_budget(design, label, result)
         typer.echo("")
