@@ -210,6 +210,21 @@ class Section:
         return Section(value, self.source, self.key(name))
 
 
+def checked_number(value: Any, key: str, rule: str, ok) -> float:
+    """``float(value)`` if it is finite and ``ok(value)``; else ConfigError naming ``key``.
+
+    For arguments given in code rather than read from a file (dataclass fields of
+    the physics models); ``rule`` says what is allowed, e.g. ``"> 0 m"``.
+    """
+    try:
+        v = float(value)
+    except (TypeError, ValueError):
+        raise ConfigError(f"= {value!r}: must be a number {rule}", key=key) from None
+    if not (math.isfinite(v) and ok(v)):
+        raise ConfigError(f"= {value!r}: must be {rule}", key=key)
+    return v
+
+
 def _check_number(sec: Section, name: str, value: Any, *, gt=None, ge=None, lt=None, le=None,
                   unit: str = "", index: int | None = None) -> float:
     where = f"{name}[{index}]" if index is not None else name

@@ -9,7 +9,7 @@ import numpy as np
 import typer
 
 from synth.cli import app
-from synth.cli.common import format_table, handle_errors, print_json
+from synth.cli.common import default_output, file_label, format_table, handle_errors, print_json
 from synth.errors import ConfigError
 from synth.physics.bar_fe import BarModes, solve_bar
 from synth.physics.instrument import BarFile, Instrument, load_design
@@ -102,7 +102,7 @@ def partials_command(
     ref = reference_hz or ref
     png = None
     if plot or out is not None:
-        png = out or _default_out(file, f"partials-{_file_label(label)}.png")
+        png = out or default_output(file, f"partials-{file_label(label)}.png")
         png.parent.mkdir(parents=True, exist_ok=True)
         io.check_writable(png, force=force)
     result = solve_bar(geometry, material, n_vertical=vertical, n_lateral=lateral,
@@ -183,13 +183,6 @@ def _parse_ratios(text: str | None) -> tuple[float, ...] | None:
     return vals
 
 
-def _default_out(preset: Path, name: str) -> Path:
-    return Path("renders") / preset.stem / name
-
-
-def _file_label(label: str) -> str:
-    """A bar's label as part of a file name (F#4 -> Fs4, spaces to underscores)."""
-    return label.replace(" ", "_").replace("#", "s")
 
 
 @app.command("tune")
@@ -349,7 +342,7 @@ def grind_command(
 
     design = load_design(file)
     label, geometry, material, _ = resolve_bar(design, note)
-    png = out or _default_out(file, f"grind-{_file_label(label)}.png")
+    png = out or default_output(file, f"grind-{file_label(label)}.png")
     png.parent.mkdir(parents=True, exist_ok=True)
     io.check_writable(png, force=force)
     res = solve_bar(geometry, material, n_vertical=max(3, partials), n_lateral=0,
@@ -404,7 +397,7 @@ def cutlist_command(
     from synth.reports.plots import profile_sheet_png
 
     inst = load_instrument(preset)
-    folder = out or _default_out(preset, "")
+    folder = out or default_output(preset, "")
     folder.mkdir(parents=True, exist_ok=True)
     csv_path, png_path = folder / "cutlist.csv", folder / "profiles.png"
     for p in (csv_path, png_path):

@@ -8,7 +8,14 @@ from typing import Annotated
 import typer
 
 from synth.cli import app
-from synth.cli.common import Progress, format_table, handle_errors, print_json
+from synth.cli.common import (
+    Progress,
+    default_output,
+    file_label,
+    format_table,
+    handle_errors,
+    print_json,
+)
 
 
 @app.command("sustain")
@@ -116,8 +123,7 @@ def chord_decay_report(preset: Path, voicer, items, velocity, mallet, roll_ms, d
     strengths = [(n, velocity if v is None else v) for n, v in items]
     res = chord_decay(voicer, strengths, mallet=mallet, roll_ms=roll_ms, seconds=duration)
     base = out.with_suffix("") if out is not None else (
-        Path("renders") / preset.stem / ("chord-" + "-".join(n.replace("#", "s")
-                                                              for n, _ in items)))
+        default_output(preset, "chord-" + "-".join(file_label(n) for n, _ in items)))
     png = base.parent / f"{base.name}-decay.png"
     io.write_bytes(png, chord_decay_png(res, f"{voicer.instrument.name}: "
                                          + " ".join(n for n, _ in items)), force=force)

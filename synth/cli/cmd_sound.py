@@ -10,7 +10,15 @@ from typing import Annotated
 import typer
 
 from synth.cli import app
-from synth.cli.common import Progress, handle_errors, info, print_json, warn
+from synth.cli.common import (
+    Progress,
+    default_output,
+    file_label,
+    handle_errors,
+    info,
+    print_json,
+    warn,
+)
 from synth.errors import ConfigError
 
 PresetArg = Annotated[Path, typer.Argument(help="Instrument preset (TOML) with solved [bars].",
@@ -61,7 +69,7 @@ def _finish(preset: Path, name: str, out: Path | None, voices, seconds: float, *
     if fmt not in io.SAMPLE_FORMATS:
         raise ConfigError(f"= {fmt!r}: must be one of " + ", ".join(io.SAMPLE_FORMATS),
                           source="--format")
-    path = out or Path("renders") / preset.stem / f"{name}.wav"
+    path = out or default_output(preset, f"{name}.wav")
     if out is None:
         path.parent.mkdir(parents=True, exist_ok=True)
     n = int(round(seconds * sample_rate))
@@ -152,16 +160,12 @@ def strike_command(
     voice = v.strike_voice(name, velocity=velocity, speed_m_s=speed, mallet=mallet,
                            position=position, across=across, release_s=hold,
                            pedal=((0.0, pedal),))
-    _finish(preset, f"strike-{_safe(name)}", out, [voice], duration, voicer=v,
+    _finish(preset, f"strike-{file_label(name)}", out, [voice], duration, voicer=v,
             sample_rate=sample_rate, channels=channels, fmt=fmt, gain_db=gain_db, force=force,
             play=play, json_out=json_out,
             settings={"command": "strike", "note": name, "mallet": mallet or v.sound.mallet,
                       "velocity": velocity, "speed_m_s": speed, "position": position,
                       "across": across, "pedal": pedal, "hold_s": hold})
-
-
-def _safe(name: str) -> str:
-    return name.replace("#", "s")
 
 
 _CHORD_ITEM = re.compile(r"^([A-Ga-g][#b]?-?\d+)(?::([0-9.]+))?$")
@@ -224,7 +228,7 @@ def chord_command(
         name, vel = items[i]
         voices.append(v.strike_voice(name, time_s=rank * step,
                                      velocity=velocity if vel is None else vel, mallet=mallet))
-    label = "-".join(_safe(n) for n, _ in items)
+    label = "-".join(file_label(n) for n, _ in items)
     _finish(preset, f"chord-{label}", out, voices, duration, voicer=v, sample_rate=sample_rate,
             channels=channels, fmt=fmt, gain_db=gain_db, force=force, play=play,
             json_out=json_out and not check_decay,

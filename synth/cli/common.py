@@ -10,6 +10,7 @@ import json
 import math
 import sys
 from collections.abc import Callable, Iterable, Sequence
+from pathlib import Path
 from typing import Any
 
 import typer
@@ -50,6 +51,16 @@ def warn(message: str) -> None:
 def info(message: str) -> None:
     """Print a progress or status line on stderr (stdout stays for results)."""
     typer.echo(message, err=True)
+
+
+def default_output(file: Path, name: str) -> Path:
+    """Where an output goes unless the user names it: renders/<file stem>/<name>."""
+    return Path("renders") / file.stem / name
+
+
+def file_label(label: str) -> str:
+    """A bar or note label as part of a file name (F#4 -> Fs4, spaces to underscores)."""
+    return label.replace(" ", "_").replace("#", "s")
 
 
 def print_json(obj: Any) -> None:

@@ -38,8 +38,9 @@ lateral (sway, yaw) and one in torsion (roll).
 
 Mode shapes are scaled so that, for bending, ``integral(rho A w**2 dx)`` equals
 the bar's mass (the integral taken by the same nodal quadrature as the mass; a
-uniform bar then has ``|w| = 2`` at its ends, the normalisation of Blevins' tables) and, for torsion, ``integral(rho I_p theta**2 dx)`` equals the
-bar's polar mass moment.  ``Mode.modal_mass`` is the full generalised mass
+uniform bar then has ``|w| = 2`` at its ends, the normalisation of Blevins'
+tables) and, for torsion, ``integral(rho I_p theta**2 dx)`` equals the bar's
+polar mass moment.  ``Mode.modal_mass`` is the full generalised mass
 ``v^T M v`` of that scaled vector (rotary inertia included), so a point force F
 at x drives the modal coordinate q as ``q'' + ... = shape(x) F / modal_mass``.
 

@@ -88,6 +88,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 from scipy.linalg import solve_continuous_lyapunov
 
+from synth.config import checked_number
 from synth.constants import AIR_DENSITY_20C_KG_M3, CENTS_PER_NEPER, LN_1000
 from synth.errors import ConfigError, ModelError
 from synth.numerics import bracketed_root
@@ -104,16 +105,6 @@ from synth.physics.tube import (
 
 _Z0_20C = AIR_DENSITY_20C_KG_M3 * speed_of_sound(20.0)
 """Characteristic impedance of air at 20 C, rho c in Pa s/m (about 413.3)."""
-
-
-def _finite(value, key: str, rule: str, ok) -> float:
-    try:
-        v = float(value)
-    except (TypeError, ValueError):
-        raise ConfigError(f"= {value!r}: must be a number {rule}", key=key) from None
-    if not (math.isfinite(v) and ok(v)):
-        raise ConfigError(f"= {value!r}: must be {rule}", key=key)
-    return v
 
 
 # ------------------------------------------------------------------- the bar
@@ -155,15 +146,16 @@ class BarMode:
     radiation_loss_factor: float = 0.0
 
     def __post_init__(self) -> None:
-        _finite(self.frequency_hz, "bar.frequency_hz", "> 0 Hz", lambda v: v > 0)
-        _finite(self.q, "bar.q", "> 0", lambda v: v > 0)
-        _finite(self.modal_mass_kg, "bar.modal_mass_kg", "> 0 kg", lambda v: v > 0)
-        _finite(self.mouth_shape_value, "bar.mouth_shape_value", "finite and non-zero",
-                lambda v: v != 0)
-        _finite(self.area_over_mouth_m2, "bar.area_over_mouth_m2", "> 0 m^2", lambda v: v > 0)
-        _finite(self.radiation_loss_factor, "bar.radiation_loss_factor",
-                f"in [0, 1/q = {1.0 / self.q:g}]",
-                lambda v: 0.0 <= v <= 1.0 / self.q * (1.0 + 1e-12))
+        checked_number(self.frequency_hz, "bar.frequency_hz", "> 0 Hz", lambda v: v > 0)
+        checked_number(self.q, "bar.q", "> 0", lambda v: v > 0)
+        checked_number(self.modal_mass_kg, "bar.modal_mass_kg", "> 0 kg", lambda v: v > 0)
+        checked_number(self.mouth_shape_value, "bar.mouth_shape_value", "finite and non-zero",
+                       lambda v: v != 0)
+        checked_number(self.area_over_mouth_m2, "bar.area_over_mouth_m2", "> 0 m^2",
+                       lambda v: v > 0)
+        checked_number(self.radiation_loss_factor, "bar.radiation_loss_factor",
+                       f"in [0, 1/q = {1.0 / self.q:g}]",
+                       lambda v: 0.0 <= v <= 1.0 / self.q * (1.0 + 1e-12))
 
     @property
     def omega_rad_s(self) -> float:
@@ -328,8 +320,8 @@ def pressure_weight(radiation_decay_per_s: float, *, reference_distance_m: float
     float
         Weight in Pa / sqrt(J).
     """
-    g = _finite(radiation_decay_per_s, "radiation_decay_per_s", ">= 0 1/s", lambda v: v >= 0)
-    r = _finite(reference_distance_m, "reference_distance_m", "> 0 m", lambda v: v > 0)
+    g = checked_number(radiation_decay_per_s, "radiation_decay_per_s", ">= 0 1/s", lambda v: v >= 0)
+    r = checked_number(reference_distance_m, "reference_distance_m", "> 0 m", lambda v: v > 0)
     return math.sqrt(impedance_rayl * g / math.pi) / r
 
 
@@ -361,25 +353,25 @@ class CoupledPair:
     impedance_rayl: float = _Z0_20C
 
     def __post_init__(self) -> None:
-        _finite(self.bar_frequency_hz, "bar_frequency_hz", "> 0 Hz", lambda v: v > 0)
-        _finite(self.tube_frequency_hz, "tube_frequency_hz", "> 0 Hz", lambda v: v > 0)
-        _finite(self.bar_decay_per_s, "bar_decay_per_s", ">= 0 1/s", lambda v: v >= 0)
-        _finite(self.tube_decay_per_s, "tube_decay_per_s", ">= 0 1/s", lambda v: v >= 0)
-        _finite(self.coupling_rate_rad_s, "coupling_rate_rad_s", ">= 0 rad/s",
-                lambda v: v >= 0)
-        _finite(self.bar_radiation_decay_per_s, "bar_radiation_decay_per_s",
-                f"in [0, bar decay {self.bar_decay_per_s:g}] 1/s",
-                lambda v: 0 <= v <= self.bar_decay_per_s * (1 + 1e-12))
-        _finite(self.tube_radiation_decay_per_s, "tube_radiation_decay_per_s",
-                f"in [0, tube decay {self.tube_decay_per_s:g}] 1/s",
-                lambda v: 0 <= v <= self.tube_decay_per_s * (1 + 1e-12))
+        checked_number(self.bar_frequency_hz, "bar_frequency_hz", "> 0 Hz", lambda v: v > 0)
+        checked_number(self.tube_frequency_hz, "tube_frequency_hz", "> 0 Hz", lambda v: v > 0)
+        checked_number(self.bar_decay_per_s, "bar_decay_per_s", ">= 0 1/s", lambda v: v >= 0)
+        checked_number(self.tube_decay_per_s, "tube_decay_per_s", ">= 0 1/s", lambda v: v >= 0)
+        checked_number(self.coupling_rate_rad_s, "coupling_rate_rad_s", ">= 0 rad/s",
+                       lambda v: v >= 0)
+        checked_number(self.bar_radiation_decay_per_s, "bar_radiation_decay_per_s",
+                       f"in [0, bar decay {self.bar_decay_per_s:g}] 1/s",
+                       lambda v: 0 <= v <= self.bar_decay_per_s * (1 + 1e-12))
+        checked_number(self.tube_radiation_decay_per_s, "tube_radiation_decay_per_s",
+                       f"in [0, tube decay {self.tube_decay_per_s:g}] 1/s",
+                       lambda v: 0 <= v <= self.tube_decay_per_s * (1 + 1e-12))
 
     @classmethod
     def from_q(cls, bar_frequency_hz: float, bar_q: float, tube_frequency_hz: float,
                tube_q: float, coupling_rate_rad_s: float, **kwargs) -> CoupledPair:
         """Build a pair from frequencies and quality factors (``g = om / (2 Q)``)."""
-        bq = _finite(bar_q, "bar_q", "> 0", lambda v: v > 0)
-        tq = _finite(tube_q, "tube_q", "> 0", lambda v: v > 0)
+        bq = checked_number(bar_q, "bar_q", "> 0", lambda v: v > 0)
+        tq = checked_number(tube_q, "tube_q", "> 0", lambda v: v > 0)
         return cls(bar_frequency_hz, math.pi * bar_frequency_hz / bq, tube_frequency_hz,
                    math.pi * tube_frequency_hz / tq, coupling_rate_rad_s, **kwargs)
 
@@ -553,7 +545,7 @@ class CoupledPair:
         reference_distance_m : float
             Distance for the pressure weights, m.
         """
-        e0 = _finite(strike_energy_j, "strike_energy_j", ">= 0 J", lambda v: v >= 0)
+        e0 = checked_number(strike_energy_j, "strike_energy_j", ">= 0 J", lambda v: v >= 0)
         kw = {"reference_distance_m": reference_distance_m, "impedance_rayl": self.impedance_rayl}
         return EnginePair(
             s1=self.s1, s2=self.s2,
@@ -575,7 +567,7 @@ def bar_energy_from_impulse(impulse_n_s: float, shape_value_at_strike: float,
     (2 M)`` (modal superposition, physics.md section 10: mode n excited in
     proportion to ``phi_n(x_s) / M_n``).
     """
-    m = _finite(modal_mass_kg, "modal_mass_kg", "> 0 kg", lambda v: v > 0)
+    m = checked_number(modal_mass_kg, "modal_mass_kg", "> 0 kg", lambda v: v > 0)
     return (float(impulse_n_s) * float(shape_value_at_strike)) ** 2 / (2.0 * m)
 
 
@@ -589,7 +581,7 @@ def coupling_coefficient(bar: BarMode, tube: TubeSpec, mode: TubeMode, *,
     See the module docstring for the derivation; ``mode`` is the tube's first mode
     from :func:`synth.physics.tube.tube_mode` for the same spec and temperature.
     """
-    cal = _finite(calibration, "coupling_calibration", ">= 0", lambda v: v >= 0)
+    cal = checked_number(calibration, "coupling_calibration", ">= 0", lambda v: v >= 0)
     if tube.gap_to_bar_m is None:
         raise ModelError("tube.gap_to_bar_m is not set: the bar must sit over the mouth "
                          "to couple to the tube")
@@ -693,9 +685,9 @@ def coupling_rate_from_t60(*, bar_frequency_hz: float, bar_t60_bare_s: float,
         If the T60 with tube is not shorter than without, or shorter than any
         coupling can make it (the pair's mean decay rate).
     """
-    g1 = LN_1000 / _finite(bar_t60_bare_s, "bar_t60_bare_s", "> 0 s", lambda v: v > 0)
-    g_target = LN_1000 / _finite(bar_t60_with_tube_s, "bar_t60_with_tube_s", "> 0 s",
-                                 lambda v: v > 0)
+    g1 = LN_1000 / checked_number(bar_t60_bare_s, "bar_t60_bare_s", "> 0 s", lambda v: v > 0)
+    g_target = LN_1000 / checked_number(bar_t60_with_tube_s, "bar_t60_with_tube_s", "> 0 s",
+                                        lambda v: v > 0)
     pair = CoupledPair.from_q(bar_frequency_hz, math.pi * bar_frequency_hz / g1,
                               tube_frequency_hz, tube_q, 0.0)
     if not g_target > g1:
@@ -898,9 +890,9 @@ def suggest_tube_offset(bar: BarMode, template: TubeSpec, *, target_t60_s: float
     """
     if gain_measure not in ("peak", "energy"):
         raise ConfigError(f"= {gain_measure!r}: must be 'peak' or 'energy'", key="gain_measure")
-    target = _finite(target_t60_s, "target_t60_s", "> 0 s", lambda v: v > 0)
-    floor = _finite(min_gain_db, "min_gain_db", "finite dB", lambda v: True)
-    cmax = _finite(max_offset_cents, "max_offset_cents", "> 0 cents", lambda v: v > 0)
+    target = checked_number(target_t60_s, "target_t60_s", "> 0 s", lambda v: v > 0)
+    floor = checked_number(min_gain_db, "min_gain_db", "finite dB", lambda v: True)
+    cmax = checked_number(max_offset_cents, "max_offset_cents", "> 0 cents", lambda v: v > 0)
     kw = {"temperature_c": temperature_c, "coupling_calibration": coupling_calibration,
           "ka_correction": ka_correction}
 

@@ -80,6 +80,7 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
+from synth.config import checked_number
 from synth.constants import (
     CENTS_PER_NEPER,
     END_CORRECTION_FLANGED,
@@ -190,13 +191,7 @@ def bar_cover_fraction(bar_width_m: float, inner_radius_m: float) -> float:
 
 
 def _positive(value: float, key: str, unit: str) -> float:
-    try:
-        v = float(value)
-    except (TypeError, ValueError):
-        raise ConfigError(f"= {value!r}: must be a number > 0 {unit}", key=key) from None
-    if not (v > 0 and math.isfinite(v)):
-        raise ConfigError(f"= {value!r}: must be > 0 {unit}", key=key)
-    return v
+    return checked_number(value, key, f"> 0 {unit}", lambda v: v > 0)
 
 
 @dataclass(frozen=True)
