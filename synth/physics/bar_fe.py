@@ -885,10 +885,10 @@ def solve_bar(
             mesh = make_mesh(bar, n_elements, degree)
             sec = _sections(bar, material, mesh)
             return finish(_solve_once(mesh, sec, lead), mesh, sec, float("nan"))
-        first = start_mesh(bar, max(counts.values()), degree)
-        limit = max_elements or max(512, 8 * first.n_elements)
+        start = _start_counts(bar, max(counts.values()), degree)
+        limit = max_elements or max(512, 8 * sum(start))
         prev = None
-        for mesh in _refinements(bar, first, limit):
+        for mesh in _refinements(bar, start, degree, limit):
             sec = _sections(bar, material, mesh)
             # The first solve only sets the baseline: frequencies without vectors.
             res = _solve_once(mesh, sec, lead, vectors=prev is not None)
@@ -913,6 +913,11 @@ def start_mesh(bar: BarGeometry, n_modes: int = 5, degree: int = 6) -> Mesh:
     to hold :data:`PHASE_PER_ELEMENT` times the first solve's degree radians of
     wave per element, at least one.
     """
+    return make_mesh(bar, 0, degree, _start_counts(bar, n_modes, degree))
+
+
+def _start_counts(bar: BarGeometry, n_modes: int, degree: int) -> tuple[int, ...]:
+    """Elements per segment between kinks of :func:`start_mesh`."""
     cuts = [0.0, *bar.breakpoints(), bar.length_m]
     beta = (2 * max(n_modes, 1) + 1) * math.pi / (2.0 * bar.length_m)
     t = np.linspace(0.0, 1.0, 33)
@@ -921,30 +926,23 @@ def start_mesh(bar: BarGeometry, n_modes: int = 5, degree: int = 6) -> Mesh:
     k = beta * np.sqrt(bar.thickness_m / bar.thickness_at(x))
     phase = np.trapezoid(k, x, axis=1)
     budget = PHASE_PER_ELEMENT * max(degree - 1, 1)
-    counts = tuple(int(c) for c in np.maximum(1, np.ceil(phase / budget - 1e-9)))
-    return make_mesh(bar, 0, degree, counts)
+    return tuple(int(c) for c in np.maximum(1, np.ceil(phase / budget - 1e-9)))
 
 
-def _refinements(bar: BarGeometry, first: Mesh, limit: int):
-    """The discretisations tried in turn: the start mesh one degree lower, the start
-    mesh, then meshes refined by :data:`REFINE_FACTOR` up to ``limit`` elements."""
-    if first.degree > 1:
-        yield Mesh(first.edges_m, first.degree - 1)
+def _refinements(bar: BarGeometry, counts: tuple[int, ...], degree: int, limit: int):
+    """The discretisations tried in turn: the start mesh (``counts`` elements per
+    segment) one degree lower, the start mesh, then meshes refined by
+    :data:`REFINE_FACTOR` up to ``limit`` elements."""
+    first = make_mesh(bar, 0, degree, counts)
+    if degree > 1:
+        yield Mesh(first.edges_m, degree - 1)
     yield first
-    counts = np.asarray(_segment_elements(bar, first))
+    grown = np.asarray(counts)
     while True:
-        counts = np.ceil(REFINE_FACTOR * counts).astype(int)
-        if counts.sum() > limit:
+        grown = np.ceil(REFINE_FACTOR * grown).astype(int)
+        if grown.sum() > limit:
             return
-        yield make_mesh(bar, 0, first.degree, tuple(int(c) for c in counts))
-
-
-def _segment_elements(bar: BarGeometry, mesh: Mesh) -> tuple[int, ...]:
-    """Elements per segment between kinks of a mesh made by :func:`make_mesh`."""
-    cuts = np.asarray([0.0, *bar.breakpoints(), bar.length_m])
-    tol = 1e-9 * bar.length_m
-    pos = np.searchsorted(mesh.edges_m, cuts - tol)
-    return tuple(int(c) for c in np.diff(pos))
+        yield make_mesh(bar, 0, degree, tuple(int(c) for c in grown))
 
 
 def _package(bar, material, mesh, res, sec, change) -> BarModes:
