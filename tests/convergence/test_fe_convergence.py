@@ -96,7 +96,8 @@ def test_scaled_standard_problem_equals_the_general_dense_one() -> None:
 
     def rounding(kind: str, f: float) -> float:
         # symmetric eigensolvers are backward stable: |d lambda| <~ n eps lambda_max,
-        # so |df / f| <~ n eps (f_max / f)**2 / 2 (Golub & Van Loan, section 8.1)
+        # so |df / f| <~ n eps (f_max / f)**2 / 2 (Golub & Van Loan, Matrix Computations,
+        # symmetric eigenproblem chapter; section from memory)
         return len(dense[kind]) * np.finfo(float).eps * (dense[kind][-1] / f) ** 2 / 2
 
     for kind in ("lateral", "torsional"):

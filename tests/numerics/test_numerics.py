@@ -17,7 +17,8 @@ from synth.errors import ModelError
 from synth.numerics import EPS, beta_function, bracketed_root
 
 CASES = [
-    ("cubic", lambda x: x**3 - 2.0 * x - 5.0, 2.0, 3.0),  # Wallis' cubic, root 2.0945514815...
+    # roots quoted from memory; the assertion is against scipy
+    ("cubic", lambda x: x**3 - 2.0 * x - 5.0, 2.0, 3.0),  # Wallis' cubic, 2.0945514815...
     ("cos", lambda x: math.cos(x) - x, 0.0, 1.0),  # Dottie number 0.7390851332...
     ("flat", lambda x: (x - 1.0) ** 5 + 1e-3 * (x - 1.0), 0.0, 3.0),
     ("steep", lambda x: math.expm1(30.0 * (x - 0.3)), -1.0, 1.0),
@@ -60,7 +61,8 @@ def test_beta_function_matches_scipy(a: float, b: float) -> None:
 
 
 def test_beta_function_closed_forms() -> None:
-    # B(1/2, 1/2) = pi; B(a, 1) = 1/a (Abramowitz & Stegun 6.2.1-6.2.2)
+    # B(1/2, 1/2) = pi and B(a, 1) = 1/a, from B = Gamma(a) Gamma(b) / Gamma(a + b) with
+    # Gamma(1/2) = sqrt(pi) (Abramowitz & Stegun, ch. 6; equation numbers from memory)
     assert beta_function(0.5, 0.5) == pytest.approx(math.pi, rel=1e-14)
     for a in np.linspace(0.1, 5.0, 7):
         assert beta_function(float(a), 1.0) == pytest.approx(1.0 / a, rel=1e-14)
