@@ -15,10 +15,8 @@ from typing import Any
 
 import typer
 
+from synth.cli.usage import EXIT_BAD_INPUT, EXIT_INTERRUPTED, EXIT_MISSED
 from synth.errors import SynthError
-
-EXIT_BAD_INPUT = 2
-"""Exit code for input the user can fix (the usage-error code of click/typer)."""
 
 
 def fail(message: str) -> typer.Exit:
@@ -38,9 +36,19 @@ def handle_errors(func: Callable) -> Callable:
             raise fail(str(exc)) from None
         except KeyboardInterrupt:
             typer.echo("barwright: interrupted", err=True)
-            raise typer.Exit(code=130) from None
+            raise typer.Exit(code=EXIT_INTERRUPTED) from None
 
     return wrapper
+
+
+def missed(message: str) -> typer.Exit:
+    """Say on stderr that a job ran but missed what was asked; return the Exit (code 3).
+
+    Print this before anything else the command prints, so it is the first line a
+    user (or a script reading stderr) sees.
+    """
+    typer.echo(f"barwright: {message}", err=True)
+    return typer.Exit(code=EXIT_MISSED)
 
 
 def warn(message: str) -> None:
@@ -132,6 +140,7 @@ class Progress:
         self.enabled = sys.stderr.isatty()
 
     def __enter__(self):
+        self.advance(0)  # draw the empty bar at once: the first step may take long
         return self.advance
 
     def advance(self, n: int = 1, note: str = "") -> None:
