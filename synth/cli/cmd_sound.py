@@ -225,9 +225,10 @@ def chord_command(
     json_out: JsonOpt = False,
 ) -> None:
     """Render a chord (struck together or rolled) to WAV."""
+    chord = parse_chord(notes)  # before any file is read: a typo costs nothing
     v = _voicer(preset, sample_rate=sample_rate, channels=channels, no_tubes=no_tubes,
                 motor_rate=motor_rate)
-    items = [(v.instrument.check_note(n, option="NOTES"), vel) for n, vel in parse_chord(notes)]
+    items = [(v.instrument.check_note(n, option="NOTES"), vel) for n, vel in chord]
     order = sorted(range(len(items)), key=lambda i: v.instrument.note_fraction(items[i][0]))
     step = roll_ms / 1000.0 / max(len(items) - 1, 1) if roll_ms > 0 else 0.0
     voices = []
