@@ -139,7 +139,7 @@ def check_target_curve(text: str) -> None:
         except ConfigError:
             colon = ""
         if not colon:
-            raise ConfigError(f"= {text!r}: {item!r} is not NOTE:T60_SECONDS, e.g. {example}",
+            raise ConfigError(f"= {text!r}: {item!r} must be NOTE:T60_SECONDS, e.g. {example}",
                               source="--target-curve") from None
         parse_field(t60, option="--target-curve", value=text, lo=0.01, hi=MAX_T60_S,
                     unit=" s", example=example)

@@ -100,7 +100,7 @@ def _param_name(param) -> str:
 
 
 def _raw_value(param, argv: Sequence[str]) -> str | None:
-    """The text the user gave for an option (its last occurrence), as typed."""
+    """Return the text the user gave for an option (its last occurrence), as typed."""
     if getattr(param, "param_type_name", "") != "option":
         return None
     found = None
@@ -113,11 +113,12 @@ def _raw_value(param, argv: Sequence[str]) -> str | None:
                 found = a[len(o) + 1:]
     if found is None:
         return None
-    return found if found and found.strip() == found else repr(found)
+    plain = found and found.isprintable() and found.strip() == found
+    return found if plain else repr(found)
 
 
-def _number_kind(param) -> str | None:
-    """``"number"``, ``"whole number"`` or None for a non-numeric option."""
+def number_kind(param) -> str | None:
+    """Return ``"number"``, ``"whole number"`` or None for a non-numeric option."""
     desc = getattr(param, "type_descriptor", None)  # typer's own parameter types
     ann = getattr(desc, "annotation", None)
     if ann is not None:
@@ -136,7 +137,8 @@ def _number_kind(param) -> str | None:
     return None
 
 
-def _bounds(param) -> tuple[float | None, float | None]:
+def option_bounds(param) -> tuple[float | None, float | None]:
+    """Return the (min, max) an option declares; None where it declares none."""
     lo, hi = getattr(param, "min", None), getattr(param, "max", None)
     if lo is None and hi is None:
         ptype = getattr(param, "type", None)
@@ -146,10 +148,10 @@ def _bounds(param) -> tuple[float | None, float | None]:
 
 def _number_rule(param) -> str | None:
     """``must be a number from 0 to 600 seconds`` for a numeric option, else None."""
-    kind = _number_kind(param)
+    kind = number_kind(param)
     if kind is None:
         return None
-    lo, hi = _bounds(param)
+    lo, hi = option_bounds(param)
     unit = getattr(param, "metavar", None)
     unit = f" {unit}" if unit and unit.lower() not in ("float", "int", "integer") else ""
     if lo is not None and hi is not None:
