@@ -215,8 +215,9 @@ def tune_command(
         min=-30, max=60, metavar="C", help="Temperature where the instrument must be in tune, C "
                               "(default: the preset's temperature_c).")] = None,
     shop_c: Annotated[float | None, typer.Option(
-        min=-30, max=60, metavar="C", help="Shop temperature while tuning, C: reports what each bar must "
-                              "read there to be in tune at the venue temperature.")] = None,
+        min=-30, max=60, metavar="C",
+        help="Shop temperature while tuning, C: reports what each bar must "
+             "read there to be in tune at the venue temperature.")] = None,
     force: Annotated[bool, typer.Option(help="Overwrite --out if it exists.")] = False,
     keep_best: Annotated[bool, typer.Option(
         "--keep-best", help="When a bar misses its targets, still write --out with the best "

@@ -100,18 +100,22 @@ def compare_command(
         help="Play an event file instead (TOML event list or .mid), as `barwright render` "
              "reads it.")] = None,
     tail: Annotated[float, typer.Option(
-        min=0.0, max=120.0, metavar="seconds", help="Seconds of ringing after the last note (event files with their own length_s "
+        min=0.0, max=120.0, metavar="seconds",
+        help="Seconds of ringing after the last note (event files with their own length_s "
              "keep it).")] = 3.0,
     gap: Annotated[float, typer.Option(
-        min=0.05, max=10.0, metavar="seconds", help="Seconds of silence between the parts of AB.wav and of each trial.")] = 0.5,
+        min=0.05, max=10.0, metavar="seconds",
+        help="Seconds of silence between the parts of AB.wav and of each trial.")] = 0.5,
     out: Annotated[Path | None, typer.Option(
         help="Folder for the files (default renders/compare-<A>-vs-<B>/).")] = None,
     blind: Annotated[int | None, typer.Option(
-        min=1, max=MAX_TRIALS, help="Also write this many ABX trials (A, gap, B, gap, X) in random order and their "
+        min=1, max=MAX_TRIALS,
+        help="Also write this many ABX trials (A, gap, B, gap, X) in random order and their "
              "answer key, key.toml. Fix the number before listening.", show_default=False)
     ] = None,
     seed: Annotated[int | None, typer.Option(
-        min=0, max=2**32 - 1, help="Seed of the trial order (default: a fresh random one, kept in the key).",
+        min=0, max=2**32 - 1,
+        help="Seed of the trial order (default: a fresh random one, kept in the key).",
         show_default=False)] = None,
     mallet: MalletOpt = None,
     no_tubes: TubesOpt = False,

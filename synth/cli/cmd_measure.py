@@ -88,8 +88,9 @@ def measure_command(
         help="The note the bar is meant to be (e.g. A4): adds each partial's ratio to the "
              "fundamental and its interval above the note in cents.")] = None,
     reference_hz: Annotated[float | None, typer.Option(
-        min=380.0, max=480.0, metavar="Hz", help="A4 for note names (default 440 Hz per ISO 16; with "
-                                   "--calibrate the preset's reference_pitch_hz).")] = None,
+        min=380.0, max=480.0, metavar="Hz",
+        help="A4 for note names (default 440 Hz per ISO 16; with "
+             "--calibrate the preset's reference_pitch_hz).")] = None,
     max_partials: Annotated[int, typer.Option(
         min=1, max=64, help="Report at most this many partials, the strongest.")] = 12,
     channel: Annotated[int | None, typer.Option(

@@ -28,23 +28,28 @@ def sustain_command(
     preset: Annotated[Path, typer.Argument(help="Instrument preset with solved [bars].",
                                            show_default=False)],
     target_t60: Annotated[float | None, typer.Option(
-        min=0.01, max=MAX_T60_S, metavar="seconds", help="One T60 target for every note, s (default: the median of the range, "
-                       "which keeps chords fading evenly).")] = None,
+        min=0.01, max=MAX_T60_S, metavar="seconds",
+        help="One T60 target for every note, s (default: the median of the range, "
+             "which keeps chords fading evenly).")] = None,
     target_curve: Annotated[str | None, typer.Option(
         help='T60 targets through given notes, e.g. "F3:40,C5:20,F6:8" (log-interpolated).')
     ] = None,
     tolerance: Annotated[float, typer.Option(
-        min=0.1, max=500.0, metavar="percent", help="Flag notes whose T60 misses the target by more than this "
-                                 "many percent.")] = 15.0,
+        min=0.1, max=500.0, metavar="percent",
+        help="Flag notes whose T60 misses the target by more than this "
+             "many percent.")] = 15.0,
     at_time: Annotated[float, typer.Option(
-        min=0.0, max=60.0, metavar="seconds", help="Time after the strike at which to state the level "
-                                "difference, s.")] = 2.0,
+        min=0.0, max=60.0, metavar="seconds",
+        help="Time after the strike at which to state the level "
+             "difference, s.")] = 2.0,
     min_gain: Annotated[float, typer.Option(
-        min=0.0, max=30.0, metavar="dB", help="Keep the tube's gain above this (dB over the bare bar) when suggesting a "
+        min=0.0, max=30.0, metavar="dB",
+        help="Keep the tube's gain above this (dB over the bare bar) when suggesting a "
              "tube offset.")] = 3.0,
     no_tubes: Annotated[bool, typer.Option("--no-tubes", help="Bare bars.")] = False,
     motor_rate: Annotated[float | None, typer.Option(
-        min=0.0, max=50.0, metavar="rev/s", help="Motor rate in rev/s, overriding the preset (0 stops it).")
+        min=0.0, max=50.0, metavar="rev/s",
+        help="Motor rate in rev/s, overriding the preset (0 stops it).")
     ] = None,
     note: Annotated[list[str] | None, typer.Option(help="Only these notes (repeatable).")
                     ] = None,

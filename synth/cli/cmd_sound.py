@@ -42,8 +42,9 @@ MalletOpt = Annotated[str | None, typer.Option(
     help="Mallet preset from presets/mallets (default: the preset's [sound] mallet).")]
 TubesOpt = Annotated[bool, typer.Option("--no-tubes", help="Leave the tubes out (bare bars).")]
 MotorOpt = Annotated[float | None, typer.Option(
-    min=0.0, max=50.0, metavar="rev/s", help="Motor rate in rev/s, overriding the preset (0 stops it). The "
-                            "tube mouths pulse at twice this rate.")]
+    min=0.0, max=50.0, metavar="rev/s",
+    help="Motor rate in rev/s, overriding the preset (0 stops it). The "
+         "tube mouths pulse at twice this rate.")]
 PlayOpt = Annotated[bool, typer.Option(help="Play the WAV after writing it (needs the play "
                                             "extra and an output device).")]
 JsonOpt = Annotated[bool, typer.Option("--json", help="Print the render's report as JSON.")]
@@ -67,8 +68,11 @@ def _finish(preset: Path, name: str, out: Path | None, voices, seconds: float, *
             voicer, sample_rate: int, channels: int, fmt: str, gain_db: float | None,
             force: bool, play: bool, json_out: bool, settings: dict,
             report: bool = True) -> dict:
-    """Render, write the WAV and its sidecar, and print the report (``report=False``: only
-    return it, for a command that prints one JSON document of its own)."""
+    """Render, write the WAV and its sidecar, and print the report.
+
+    Returns the report as a dict; ``report=False`` prints nothing, for a command that
+    prints one JSON document of its own.
+    """
     from synth import io
     from synth.output import HEARING_CAUTION, render_to_wav
 
@@ -132,7 +136,8 @@ def strike_command(
         min=0.0, max=1.0, help="Strength 0..1, mapped to a mallet speed by the preset's "
                                "[sound] table (default: a 1 m/s strike).")] = None,
     speed: Annotated[float | None, typer.Option(
-        min=0.01, max=20.0, metavar="m/s", help="Mallet head speed at impact, m/s (instead of --velocity).")
+        min=0.01, max=20.0, metavar="m/s",
+        help="Mallet head speed at impact, m/s (instead of --velocity).")
     ] = None,
     position: Annotated[float | None, typer.Option(
         min=0.0, max=1.0, help="Strike point along the bar, 0..1 of its length (0.5 = centre, "
@@ -146,8 +151,9 @@ def strike_command(
         min=0.0, max=1.0, help="Damper pedal: 1 = dampers lifted (the note rings), 0 = "
                                "dampers on the bar, in between = half pedal.")] = 1.0,
     hold: Annotated[float | None, typer.Option(
-        min=0.0, max=600.0, metavar="seconds", help="Key released after this many seconds; the dampers then act as "
-                      "--pedal allows (default: held for the whole render).")] = None,
+        min=0.0, max=600.0, metavar="seconds",
+        help="Key released after this many seconds; the dampers then act as "
+             "--pedal allows (default: held for the whole render).")] = None,
     no_tubes: TubesOpt = False,
     motor_rate: MotorOpt = None,
     out: OutOpt = None,
@@ -180,7 +186,7 @@ _CHORD_NOTE = re.compile(r"^[A-Ga-g][#b]?-?\d+$")
 
 
 def parse_chord(text: str) -> list[tuple[str, float | None]]:
-    """Notes of a chord, each optionally with a strength 0..1: ``"F3 A4:0.8 C5"``."""
+    """Parse the notes of a chord, each optionally with a strength 0..1: ``"F3 A4:0.8 C5"``."""
     items = text.replace(",", " ").split()
     if not items:
         raise ConfigError("= '': give at least one note, e.g. \"F3 A4 C5\"", source="NOTES")
@@ -206,8 +212,9 @@ def chord_command(
     velocity: Annotated[float, typer.Option(min=0.0, max=1.0,
                                             help="Strength of notes given without one.")] = 0.6,
     roll_ms: Annotated[float, typer.Option(
-        min=0.0, max=2000.0, metavar="ms", help="Spread the notes from the lowest up over this many ms "
-                                  "(0 = struck together).")] = 0.0,
+        min=0.0, max=2000.0, metavar="ms",
+        help="Spread the notes from the lowest up over this many ms "
+             "(0 = struck together).")] = 0.0,
     duration: Annotated[float, typer.Option(min=0.05, max=600.0, metavar="seconds",
                                             help="Length of the WAV, seconds.")] = 6.0,
     check_decay: Annotated[bool, typer.Option(
@@ -263,8 +270,9 @@ def render_command(
         min=0.0, max=1.0, help="Pedal before the file's first pedal event: 1 = dampers "
                                "lifted, 0 = dampers on.")] = 0.0,
     tail: Annotated[float | None, typer.Option(
-        min=0.0, max=600.0, metavar="seconds", help="Seconds after the last event (default: until the "
-                                 "slowest note has fallen 60 dB, at most 30 s).")] = None,
+        min=0.0, max=600.0, metavar="seconds",
+        help="Seconds after the last event (default: until the "
+             "slowest note has fallen 60 dB, at most 30 s).")] = None,
     no_tubes: TubesOpt = False,
     motor_rate: MotorOpt = None,
     out: OutOpt = None,

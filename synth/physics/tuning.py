@@ -571,7 +571,7 @@ def tune_instrument(instrument: Instrument, notes: list[str] | None = None, *,
 
 
 def worst_miss(results: list[TuneResult]) -> tuple[str, int, float] | None:
-    """The largest miss beyond tolerance over tuned bars.
+    """Find the largest miss beyond tolerance over tuned bars.
 
     Returns
     -------
