@@ -166,6 +166,7 @@ def compare_command(
     if fmt not in io.SAMPLE_FORMATS:
         raise ConfigError(f"= {fmt!r}: must be one of " + ", ".join(io.SAMPLE_FORMATS),
                           source="--format")
+    sequence = parse_chord(notes, "--notes") if notes is not None else None  # before reading files
     same = design_a.resolve() == design_b.resolve()
     va = _voicer(design_a, sample_rate=sample_rate, no_tubes=no_tubes, motor_rate=motor_rate)
     vb = va if same else _voicer(design_b, sample_rate=sample_rate, no_tubes=no_tubes,
@@ -178,7 +179,7 @@ def compare_command(
 
         passage = cmp.events_passage(read_events(events), tail_s=tail)
     elif notes is not None:
-        passage = cmp.sequence_passage(parse_chord(notes), tail_s=tail)
+        passage = cmp.sequence_passage(sequence, tail_s=tail)
     else:
         passage = cmp.default_passage(va.instrument.notes, vb.instrument.notes, tail_s=tail)
     gap_samples = cmp.gap_samples(gap, sample_rate)  # checks the range before any work

@@ -185,18 +185,18 @@ def strike_command(
 _CHORD_NOTE = re.compile(r"^[A-Ga-g][#b]?-?\d+$")
 
 
-def parse_chord(text: str) -> list[tuple[str, float | None]]:
+def parse_chord(text: str, option: str = "NOTES") -> list[tuple[str, float | None]]:
     """Parse the notes of a chord, each optionally with a strength 0..1: ``"F3 A4:0.8 C5"``."""
     items = text.replace(",", " ").split()
     if not items:
-        raise ConfigError("= '': give at least one note, e.g. \"F3 A4 C5\"", source="NOTES")
+        raise ConfigError("= '': give at least one note, e.g. \"F3 A4 C5\"", source=option)
     out = []
     for it in items:
         name, colon, strength = it.partition(":")
         if not _CHORD_NOTE.match(name):
             raise ConfigError(f"= {it!r}: write a note with an optional strength, e.g. A4 or "
-                              "A4:0.8", source="NOTES")
-        vel = (parse_field(strength, option="NOTES", value=it, lo=0.0, hi=1.0,
+                              "A4:0.8", source=option)
+        vel = (parse_field(strength, option=option, value=it, lo=0.0, hi=1.0,
                            example="A4:0.8") if colon else None)
         out.append((name, vel))
     return out
