@@ -9,7 +9,15 @@ import numpy as np
 import typer
 
 from synth.cli import app
-from synth.cli.common import default_output, file_label, format_table, handle_errors, print_json
+from synth.cli.common import (
+    EXIT_MISSED,
+    default_output,
+    file_label,
+    format_table,
+    handle_errors,
+    missed,
+    print_json,
+)
 from synth.errors import ConfigError
 from synth.physics.bar_fe import BarModes, solve_bar
 from synth.physics.instrument import BarFile, Instrument, load_design
@@ -72,7 +80,7 @@ def partials_command(
                                          help="Lateral (sideways) bending modes.")] = 2,
     torsional: Annotated[int, typer.Option(min=0, max=6, help="Torsional modes.")] = 2,
     reference_hz: Annotated[float | None, typer.Option(
-        min=380.0, max=480.0,
+        min=380.0, max=480.0, metavar="Hz",
         help="A4 for the nearest-note column (default: the file's reference_pitch_hz, "
              "else 440 Hz per ISO 16).")] = None,
     losses: Annotated[bool, typer.Option(
@@ -167,22 +175,24 @@ def partials_command(
 # --------------------------------------------------------------------------------------
 
 
+MAX_RATIO = 50.0
+"""Highest target ratio --ratios takes (partial 5 of a plain bar sits near 33)."""
+
+
 def _parse_ratios(text: str | None) -> tuple[float, ...] | None:
     if text is None:
         return None
-    try:
-        vals = tuple(float(v) for v in text.replace(":", ",").split(",") if v.strip())
-    except ValueError:
-        raise ConfigError(f"= {text!r}: write ratios as numbers, e.g. 1:4:10 or 1,3,6",
-                          source="--ratios") from None
-    if len(vals) < 1 or abs(vals[0] - 1) > 1e-12 or any(b <= a for a, b in zip(vals, vals[1:])):
+    from synth.cli.common import parse_field
+
+    fields = text.replace(",", ":").split(":")
+    vals = tuple(parse_field(f, option="--ratios", value=text, lo=1.0, hi=MAX_RATIO,
+                             example="1:4:10") for f in fields)
+    if abs(vals[0] - 1) > 1e-12 or any(b <= a for a, b in zip(vals, vals[1:])):
         raise ConfigError(f"= {text!r}: must start at 1 and increase, e.g. 1:4:10",
                           source="--ratios")
     if len(vals) > 5:
         raise ConfigError(f"= {text!r}: at most 5 partials", source="--ratios")
     return vals
-
-
 
 
 @app.command("tune")
@@ -202,12 +212,16 @@ def tune_command(
         help="Undercut family to solve, overriding the preset's [undercut]: parabolic, power, "
              "flat or free.")] = None,
     venue_c: Annotated[float | None, typer.Option(
-        min=-30, max=60, help="Temperature where the instrument must be in tune, C "
+        min=-30, max=60, metavar="C", help="Temperature where the instrument must be in tune, C "
                               "(default: the preset's temperature_c).")] = None,
     shop_c: Annotated[float | None, typer.Option(
-        min=-30, max=60, help="Shop temperature while tuning, C: reports what each bar must "
-                              "read there to be in tune at the venue temperature.")] = None,
+        min=-30, max=60, metavar="C",
+        help="Shop temperature while tuning, C: reports what each bar must "
+             "read there to be in tune at the venue temperature.")] = None,
     force: Annotated[bool, typer.Option(help="Overwrite --out if it exists.")] = False,
+    keep_best: Annotated[bool, typer.Option(
+        "--keep-best", help="When a bar misses its targets, still write --out with the best "
+                            "design found (the exit code is 3 either way).")] = False,
     json_out: Annotated[bool, typer.Option("--json", help="Print JSON on stdout.")] = False,
 ) -> None:
     """Solve every bar's length and undercut so partials 1-3 land on the target ratios.
@@ -216,7 +230,8 @@ def tune_command(
     warm-started from its lower neighbour, then re-solved on a refined mesh; the
     residuals shown are from that re-solve. Targets: +-1 cent for the fundamental,
     +-3 cents above. A bar that cannot reach its targets is reported with the
-    constraint that binds.
+    constraint that binds; the command then says so first and exits with code 3,
+    and writes --out only with --keep-best.
     """
     import time
 
@@ -225,10 +240,10 @@ def tune_command(
     from synth.physics.instrument import load_instrument
     from synth.physics.tuning import temperature_shift_cents, tune_instrument, tuned_preset
 
+    target = _parse_ratios(ratios)
     inst = load_instrument(preset)
     inst = _override(inst, family, venue_c)
     notes = [inst.check_note(n) for n in note] if note else list(inst.notes)
-    target = _parse_ratios(ratios)
     if out is not None:
         io.check_writable(out, force=force)
     t0 = time.perf_counter()
@@ -244,7 +259,17 @@ def tune_command(
         for r in results:
             shop[r.spec.note] = temperature_shift_cents(r.geometry, mat, inst.temperature_c,
                                                         shop_c, len(r.spec.ratios))
-    if out is not None:
+    from synth.physics.tuning import worst_miss
+
+    worst = worst_miss(results)
+    n_missed = sum(not r.reachable for r in results)
+    write = out is not None and (worst is None or keep_best)
+    if worst is not None:
+        what = ("" if out is None else f"; wrote {out} anyway (--keep-best)" if write
+                else "; nothing written (use --keep-best to write the best found)")
+        missed(f"{n_missed} of {len(results)} bars missed their targets (worst: partial "
+               f"{worst[1]} {worst[2]:+.0f} cents at {worst[0]}){what}")
+    if write:
         import tomli_w
 
         header = (f"# {inst.name}: tuned by barwright from {preset.name}\n"
@@ -265,7 +290,9 @@ def tune_command(
                if r.spec.note in shop else {}),
         })
     if json_out:
-        print_json({"bars": records, "seconds": elapsed, "out": str(out) if out else None})
+        print_json({"bars": records, "seconds": elapsed, "out": str(out) if write else None,
+                    "missed": n_missed})
+        _exit_if_missed(worst)
         return
     n_p = max(len(r.spec.ratios) for r in results)
     heads = ["note", "target Hz", "length mm", "depth mm", "span mm", "thinnest mm"]
@@ -300,8 +327,14 @@ def tune_command(
     if shop:
         typer.echo(f"'at {shop_c:g} C': what partial 1 reads in the shop when the bar is in tune "
                    f"at {inst.temperature_c:g} C.")
-    if out is not None:
+    if write:
         typer.echo(f"wrote {out}")
+    _exit_if_missed(worst)
+
+
+def _exit_if_missed(worst) -> None:
+    if worst is not None:
+        raise typer.Exit(code=EXIT_MISSED)
 
 
 # --------------------------------------------------------------------------------------
@@ -317,9 +350,9 @@ def grind_command(
                     ] = None,
     stations: Annotated[int, typer.Option(min=5, max=201, help="Band centres along the bar."
                                           )] = 21,
-    band_mm: Annotated[float, typer.Option(min=1.0, max=100.0,
+    band_mm: Annotated[float, typer.Option(min=1.0, max=100.0, metavar="mm",
                                            help="Width of the ground band, mm.")] = 10.0,
-    removal_mm: Annotated[float, typer.Option(min=0.001, max=2.0,
+    removal_mm: Annotated[float, typer.Option(min=0.001, max=2.0, metavar="mm",
                                               help="Depth of metal removed, mm.")] = 0.1,
     partials: Annotated[int, typer.Option(min=1, max=5, help="Vertical partials to show.")] = 3,
     torsion: Annotated[bool, typer.Option(help="Also show torsional mode 1.")] = False,

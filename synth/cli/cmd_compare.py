@@ -100,17 +100,21 @@ def compare_command(
         help="Play an event file instead (TOML event list or .mid), as `barwright render` "
              "reads it.")] = None,
     tail: Annotated[float, typer.Option(
+        min=0.0, max=120.0, metavar="seconds",
         help="Seconds of ringing after the last note (event files with their own length_s "
              "keep it).")] = 3.0,
     gap: Annotated[float, typer.Option(
+        min=0.05, max=10.0, metavar="seconds",
         help="Seconds of silence between the parts of AB.wav and of each trial.")] = 0.5,
     out: Annotated[Path | None, typer.Option(
         help="Folder for the files (default renders/compare-<A>-vs-<B>/).")] = None,
     blind: Annotated[int | None, typer.Option(
+        min=1, max=MAX_TRIALS,
         help="Also write this many ABX trials (A, gap, B, gap, X) in random order and their "
              "answer key, key.toml. Fix the number before listening.", show_default=False)
     ] = None,
     seed: Annotated[int | None, typer.Option(
+        min=0, max=2**32 - 1,
         help="Seed of the trial order (default: a fresh random one, kept in the key).",
         show_default=False)] = None,
     mallet: MalletOpt = None,
@@ -162,6 +166,7 @@ def compare_command(
     if fmt not in io.SAMPLE_FORMATS:
         raise ConfigError(f"= {fmt!r}: must be one of " + ", ".join(io.SAMPLE_FORMATS),
                           source="--format")
+    sequence = parse_chord(notes, "--notes") if notes is not None else None  # before reading files
     same = design_a.resolve() == design_b.resolve()
     va = _voicer(design_a, sample_rate=sample_rate, no_tubes=no_tubes, motor_rate=motor_rate)
     vb = va if same else _voicer(design_b, sample_rate=sample_rate, no_tubes=no_tubes,
@@ -174,7 +179,7 @@ def compare_command(
 
         passage = cmp.events_passage(read_events(events), tail_s=tail)
     elif notes is not None:
-        passage = cmp.sequence_passage(parse_chord(notes), tail_s=tail)
+        passage = cmp.sequence_passage(sequence, tail_s=tail)
     else:
         passage = cmp.default_passage(va.instrument.notes, vb.instrument.notes, tail_s=tail)
     gap_samples = cmp.gap_samples(gap, sample_rate)  # checks the range before any work

@@ -14,8 +14,8 @@ from typing import Annotated
 import typer
 
 from synth.cli import app
-from synth.cli.common import format_table, handle_errors, print_json, warn
-from synth.errors import ConfigError
+from synth.cli.common import EXIT_MISSED, format_table, handle_errors, missed, print_json, warn
+from synth.errors import ConfigError, SynthError
 
 
 def _num(value, fmt: str) -> str:
@@ -88,12 +88,13 @@ def measure_command(
         help="The note the bar is meant to be (e.g. A4): adds each partial's ratio to the "
              "fundamental and its interval above the note in cents.")] = None,
     reference_hz: Annotated[float | None, typer.Option(
-        min=380.0, max=480.0, help="A4 for note names (default 440 Hz per ISO 16; with "
-                                   "--calibrate the preset's reference_pitch_hz).")] = None,
+        min=380.0, max=480.0, metavar="Hz",
+        help="A4 for note names (default 440 Hz per ISO 16; with "
+             "--calibrate the preset's reference_pitch_hz).")] = None,
     max_partials: Annotated[int, typer.Option(
         min=1, max=64, help="Report at most this many partials, the strongest.")] = 12,
     channel: Annotated[int | None, typer.Option(
-        min=1, help="Analyse this channel only (1 = first); default: the mean of all.")
+        min=1, max=64, help="Analyse this channel only (1 = first); default: the mean of all.")
     ] = None,
     calibrate: Annotated[Path | None, typer.Option(
         "--calibrate", help="Instrument preset whose loss factors to fit to this recording "
@@ -102,6 +103,10 @@ def measure_command(
     out: Annotated[Path | None, typer.Option(
         help="Calibration file to write (TOML), with --calibrate.")] = None,
     force: Annotated[bool, typer.Option(help="Overwrite --out if it exists.")] = False,
+    keep_overrides: Annotated[bool, typer.Option(
+        "--keep-overrides", help="When no loss factor is identifiable from the recording, "
+                                 "still write --out with per-mode Q overrides for the note "
+                                 "(the exit code is 3 either way).")] = False,
     terms: Annotated[str | None, typer.Option(
         help="Loss terms to fit, comma-separated, from internal, thermoelastic, radiation, "
              "cords, air, tube (default: internal,cords,radiation, plus tube when the "
@@ -120,13 +125,17 @@ def measure_command(
     factors so that the model's Q of vertical modes 1-3 and torsional mode 1
     match the recording, prints the model's error before and after, and writes
     the factors to a calibration file that the preset names in its damping
-    table (calibration_file = "..."). Record with the motor stopped.
+    table (calibration_file = "..."). Record with the motor stopped. When no
+    factor is identifiable the command says so first and exits with code 3; it
+    then writes the file (per-mode Q overrides) only with --keep-overrides.
     """
     from synth.io import check_writable
     from synth.reports.measure import calibrate as fit_calibration
     from synth.reports.measure import measure_file, write_calibration
 
     instrument = None
+    if note is not None:
+        _check_keyboard_note(note)
     if calibrate is not None:
         if note is None or out is None:
             raise ConfigError("needs --note (the note recorded) and --out (the calibration "
@@ -138,31 +147,42 @@ def measure_command(
         note = instrument.check_note(note)
     elif out is not None:
         raise ConfigError("is only used with --calibrate PRESET", source="--out")
-    elif terms is not None or no_tubes:
+    elif terms is not None or no_tubes or keep_overrides:
         raise ConfigError("is only used with --calibrate PRESET",
-                          source="--terms" if terms is not None else "--no-tubes")
+                          source="--terms" if terms is not None else
+                          "--no-tubes" if no_tubes else "--keep-overrides")
     ref = reference_hz or (instrument.reference_pitch_hz if instrument else 440.0)
     measurement = measure_file(recording, note=note, reference_hz=ref,
                                max_partials=max_partials, channel=channel)
-    for w in measurement.warnings:
-        warn(w)
-    fit = None
+    fit = path = rel = None
     if instrument is not None:
         wanted = None
         if terms is not None:
             wanted = tuple(t.strip() for t in terms.split(",") if t.strip())
-        fit = fit_calibration(measurement, instrument, note, terms=wanted, tubes=not no_tubes,
-                              tolerance=tolerance)
-        for w in fit.warnings:
-            warn(w)
-        path = write_calibration(out, fit, force=force)
-        rel = os.path.relpath(path, Path(calibrate).parent)
+        try:
+            fit = fit_calibration(measurement, instrument, note, terms=wanted,
+                                  tubes=not no_tubes, tolerance=tolerance)
+        except SynthError:
+            for w in measurement.warnings:
+                warn(w)
+            raise
+        if fit.fallback:  # first line on stderr: the job ran but missed what was asked
+            missed("no loss factor is identifiable from this recording; " + (
+                f"wrote per-mode Q overrides to {out} anyway (--keep-overrides)"
+                if keep_overrides else "nothing written (use --keep-overrides to write "
+                "per-mode Q overrides instead)"))
+        if keep_overrides or not fit.fallback:
+            path = write_calibration(out, fit, force=force)
+            rel = os.path.relpath(path, Path(calibrate).parent)
+    for w in measurement.warnings + (fit.warnings if fit is not None else ()):
+        warn(w)
     if json_out:
         doc = measurement.to_dict()
         if fit is not None:
-            doc["calibration"] = {**fit.to_dict(), "file": str(path),
+            doc["calibration"] = {**fit.to_dict(), "file": path and str(path),
                                   "calibration_file": rel}
         print_json(doc)
+        _exit_if_missed(fit)
         return
     ch = ("mono" if measurement.n_channels == 1 else
           f"channel {measurement.channel} of {measurement.n_channels}" if measurement.channel
@@ -188,5 +208,29 @@ def measure_command(
         typer.echo(f"renders take the tube's effect from the coupled bar-tube pair, not from "
                    f"factors.tube: [tubes] coupling_calibration = "
                    f"{fit.coupling_calibration:.4f} gives them the fitted Q of vertical 1")
-    typer.echo(f"wrote {path}; use it from the preset's [damping] table: "
-               f'calibration_file = "{rel}"')
+    if path is not None:
+        typer.echo(f"wrote {path}; use it from the preset's [damping] table: "
+                   f'calibration_file = "{rel}"')
+    _exit_if_missed(fit)
+
+
+def _exit_if_missed(fit) -> None:
+    if fit is not None and fit.fallback:
+        raise typer.Exit(code=EXIT_MISSED)
+
+
+MIDI_NOTES = (0, 127)
+"""Note numbers of the MIDI 1.0 specification (C-1 to G9): the notes --note takes."""
+
+
+def _check_keyboard_note(note: str) -> None:
+    from synth.pitch import midi_to_note, note_to_midi
+
+    try:
+        number = note_to_midi(note)
+    except ConfigError as exc:
+        raise ConfigError(f"= {note!r}: {exc}", source="--note") from None
+    lo, hi = MIDI_NOTES
+    if not lo <= number <= hi:
+        raise ConfigError(f"= {note!r}: outside the notes of MIDI ({midi_to_note(lo)} to "
+                          f"{midi_to_note(hi)})", source="--note")

@@ -14,8 +14,12 @@ from synth.cli.common import (
     file_label,
     format_table,
     handle_errors,
+    parse_field,
     print_json,
 )
+
+MAX_T60_S = 600.0
+"""Longest T60 a target may ask for, s (the upper bound of --target-t60)."""
 
 
 @app.command("sustain")
@@ -24,23 +28,28 @@ def sustain_command(
     preset: Annotated[Path, typer.Argument(help="Instrument preset with solved [bars].",
                                            show_default=False)],
     target_t60: Annotated[float | None, typer.Option(
-        min=0.01, help="One T60 target for every note, s (default: the median of the range, "
-                       "which keeps chords fading evenly).")] = None,
+        min=0.01, max=MAX_T60_S, metavar="seconds",
+        help="One T60 target for every note, s (default: the median of the range, "
+             "which keeps chords fading evenly).")] = None,
     target_curve: Annotated[str | None, typer.Option(
         help='T60 targets through given notes, e.g. "F3:40,C5:20,F6:8" (log-interpolated).')
     ] = None,
     tolerance: Annotated[float, typer.Option(
-        min=0.1, max=500.0, help="Flag notes whose T60 misses the target by more than this "
-                                 "many percent.")] = 15.0,
+        min=0.1, max=500.0, metavar="percent",
+        help="Flag notes whose T60 misses the target by more than this "
+             "many percent.")] = 15.0,
     at_time: Annotated[float, typer.Option(
-        min=0.0, max=60.0, help="Time after the strike at which to state the level "
-                                "difference, s.")] = 2.0,
+        min=0.0, max=60.0, metavar="seconds",
+        help="Time after the strike at which to state the level "
+             "difference, s.")] = 2.0,
     min_gain: Annotated[float, typer.Option(
+        min=0.0, max=30.0, metavar="dB",
         help="Keep the tube's gain above this (dB over the bare bar) when suggesting a "
              "tube offset.")] = 3.0,
     no_tubes: Annotated[bool, typer.Option("--no-tubes", help="Bare bars.")] = False,
     motor_rate: Annotated[float | None, typer.Option(
-        min=0.0, max=50.0, help="Motor rate in rev/s, overriding the preset (0 stops it).")
+        min=0.0, max=50.0, metavar="rev/s",
+        help="Motor rate in rev/s, overriding the preset (0 stops it).")
     ] = None,
     note: Annotated[list[str] | None, typer.Option(help="Only these notes (repeatable).")
                     ] = None,
@@ -68,6 +77,8 @@ def sustain_command(
 
     if target_t60 is not None and target_curve is not None:
         raise ConfigError("give --target-t60 or --target-curve, not both", source="--target-curve")
+    if target_curve is not None:
+        check_target_curve(target_curve)
     inst = load_instrument(preset)
     notes = [inst.check_note(n) for n in note] if note else list(inst.notes)
     folder = out or Path("renders") / preset.stem
@@ -114,9 +125,38 @@ def sustain_command(
     typer.echo(f"wrote {csv_path} and {png_path}")
 
 
+def check_target_curve(text: str) -> None:
+    """Refuse a --target-curve value unless every item is NOTE:T60 with a finite T60.
+
+    Raises
+    ------
+    ConfigError
+        Naming --target-curve, the value and the item that is wrong.
+    """
+    from synth.errors import ConfigError
+    from synth.pitch import note_to_midi
+
+    example = "F3:40,C5:20,F6:8"
+    for item in text.replace(" ", "").split(","):
+        name, colon, t60 = item.partition(":")
+        try:
+            note_to_midi(name)
+        except ConfigError:
+            colon = ""
+        if not colon:
+            raise ConfigError(f"= {text!r}: {item!r} must be NOTE:T60_SECONDS, e.g. {example}",
+                              source="--target-curve") from None
+        parse_field(t60, option="--target-curve", value=text, lo=0.01, hi=MAX_T60_S,
+                    unit=" s", example=example)
+
+
 def chord_decay_report(preset: Path, voicer, items, velocity, mallet, roll_ms, duration, out,
-                       *, force: bool, json_out: bool) -> None:
-    """Print the even-decay check of a chord and write its PNG (called by ``chord``)."""
+                       *, force: bool, json_out: bool, render: dict | None = None) -> None:
+    """Print the even-decay check of a chord and write its PNG (called by ``chord``).
+
+    With ``json_out`` the one JSON document holds the check and, under ``"render"``,
+    the report of the WAV ``chord`` wrote.
+    """
     from synth import io
     from synth.reports.chord import chord_decay, chord_decay_png
 
@@ -128,7 +168,8 @@ def chord_decay_report(preset: Path, voicer, items, velocity, mallet, roll_ms, d
     io.write_bytes(png, chord_decay_png(res, f"{voicer.instrument.name}: "
                                          + " ".join(n for n, _ in items)), force=force)
     if json_out:
-        print_json({"spread_db_per_s": res.spread_db_per_s, "times_s": list(res.times_s),
+        print_json({"render": render,
+                    "spread_db_per_s": res.spread_db_per_s, "times_s": list(res.times_s),
                     "png": str(png),
                     "notes": [{"note": n.note, "frequency_hz": n.frequency_hz,
                                "decay_db_per_s": n.decay_db_per_s, "t60_s": n.t60_s,

@@ -16,6 +16,7 @@ from synth.cli.common import (
     file_label,
     handle_errors,
     info,
+    parse_field,
     print_json,
     warn,
 )
@@ -27,20 +28,23 @@ OutOpt = Annotated[Path | None, typer.Option(
     help="WAV file to write (default renders/<preset>/<what>.wav); a .json sidecar goes "
          "beside it.")]
 ForceOpt = Annotated[bool, typer.Option(help="Overwrite the WAV and its sidecar if they exist.")]
-RateOpt = Annotated[int, typer.Option("--sample-rate", help="44100, 48000 or 96000 Hz.")]
+RateOpt = Annotated[int, typer.Option("--sample-rate", min=44100, max=96000, metavar="Hz",
+                                      help="44100, 48000 or 96000 Hz.")]
 FormatOpt = Annotated[str, typer.Option(
     "--format", help="Sample format: pcm24 (24-bit PCM), float32 or pcm16.")]
 ChannelsOpt = Annotated[int, typer.Option(
     min=1, max=2, help="1 = mono, 2 = stereo (bars panned by their place on the keyboard).")]
 GainOpt = Annotated[float | None, typer.Option(
+    min=-100.0, max=100.0, metavar="dB",
     help="Keep this fixed gain in dB instead of normalising the peak to -1 dBFS; lowered "
          "(with a warning) if it would clip.")]
 MalletOpt = Annotated[str | None, typer.Option(
     help="Mallet preset from presets/mallets (default: the preset's [sound] mallet).")]
 TubesOpt = Annotated[bool, typer.Option("--no-tubes", help="Leave the tubes out (bare bars).")]
 MotorOpt = Annotated[float | None, typer.Option(
-    min=0.0, max=50.0, help="Motor rate in rev/s, overriding the preset (0 stops it). The "
-                            "tube mouths pulse at twice this rate.")]
+    min=0.0, max=50.0, metavar="rev/s",
+    help="Motor rate in rev/s, overriding the preset (0 stops it). The "
+         "tube mouths pulse at twice this rate.")]
 PlayOpt = Annotated[bool, typer.Option(help="Play the WAV after writing it (needs the play "
                                             "extra and an output device).")]
 JsonOpt = Annotated[bool, typer.Option("--json", help="Print the render's report as JSON.")]
@@ -62,7 +66,13 @@ def _voicer(preset: Path, *, sample_rate: int, channels: int, no_tubes: bool,
 
 def _finish(preset: Path, name: str, out: Path | None, voices, seconds: float, *,
             voicer, sample_rate: int, channels: int, fmt: str, gain_db: float | None,
-            force: bool, play: bool, json_out: bool, settings: dict) -> None:
+            force: bool, play: bool, json_out: bool, settings: dict,
+            report: bool = True) -> dict:
+    """Render, write the WAV and its sidecar, and print the report.
+
+    Returns the report as a dict; ``report=False`` prints nothing, for a command that
+    prints one JSON document of its own.
+    """
     from synth import io
     from synth.output import HEARING_CAUTION, render_to_wav
 
@@ -92,12 +102,13 @@ def _finish(preset: Path, name: str, out: Path | None, voices, seconds: float, *
         warn(f"--gain-db {plan.requested_gain_db:g} would clip (peak "
              f"{plan.peak_dbfs + plan.requested_gain_db - plan.gain_db:+.1f} dBFS); "
              f"lowered to {plan.gain_db:+.1f} dB so nothing clips")
-    if json_out:
-        print_json({"wav": str(rep.path), "sidecar": str(rep.sidecar), "seconds": rep.seconds,
-                    "sample_rate_hz": sample_rate, "channels": channels,
-                    "peak_dbfs": plan.peak_dbfs, "gain_db": plan.gain_db, "mode": plan.mode,
-                    "render_wall_s": rep.wall_s})
-    else:
+    record = {"wav": str(rep.path), "sidecar": str(rep.sidecar), "seconds": rep.seconds,
+              "sample_rate_hz": sample_rate, "channels": channels,
+              "peak_dbfs": plan.peak_dbfs, "gain_db": plan.gain_db, "mode": plan.mode,
+              "render_wall_s": rep.wall_s}
+    if json_out and report:
+        print_json(record)
+    elif report:
         how = ("normalised to -1 dBFS peak" if plan.mode == "normalise"
                else f"fixed gain {plan.gain_db:+.1f} dB")
         typer.echo(f"wrote {rep.path} ({rep.seconds:.2f} s, {sample_rate} Hz, "
@@ -111,6 +122,7 @@ def _finish(preset: Path, name: str, out: Path | None, voices, seconds: float, *
             io.play(samples, fs)
         except Exception as exc:  # playback is optional: the WAV is written either way
             warn(f"cannot play ({exc}); the WAV is written")
+    return record
 
 
 @app.command("strike")
@@ -124,7 +136,8 @@ def strike_command(
         min=0.0, max=1.0, help="Strength 0..1, mapped to a mallet speed by the preset's "
                                "[sound] table (default: a 1 m/s strike).")] = None,
     speed: Annotated[float | None, typer.Option(
-        min=0.01, max=20.0, help="Mallet head speed at impact, m/s (instead of --velocity).")
+        min=0.01, max=20.0, metavar="m/s",
+        help="Mallet head speed at impact, m/s (instead of --velocity).")
     ] = None,
     position: Annotated[float | None, typer.Option(
         min=0.0, max=1.0, help="Strike point along the bar, 0..1 of its length (0.5 = centre, "
@@ -132,14 +145,15 @@ def strike_command(
     across: Annotated[float | None, typer.Option(
         min=-0.5, max=0.5, help="Strike point off the centreline, -0.5..0.5 of the width "
                                 "(off-centre strikes excite torsion).")] = None,
-    duration: Annotated[float, typer.Option(min=0.05, max=600.0,
+    duration: Annotated[float, typer.Option(min=0.05, max=600.0, metavar="seconds",
                                             help="Length of the WAV, seconds.")] = 5.0,
     pedal: Annotated[float, typer.Option(
         min=0.0, max=1.0, help="Damper pedal: 1 = dampers lifted (the note rings), 0 = "
                                "dampers on the bar, in between = half pedal.")] = 1.0,
     hold: Annotated[float | None, typer.Option(
-        min=0.0, help="Key released after this many seconds; the dampers then act as "
-                      "--pedal allows (default: held for the whole render).")] = None,
+        min=0.0, max=600.0, metavar="seconds",
+        help="Key released after this many seconds; the dampers then act as "
+             "--pedal allows (default: held for the whole render).")] = None,
     no_tubes: TubesOpt = False,
     motor_rate: MotorOpt = None,
     out: OutOpt = None,
@@ -168,24 +182,23 @@ def strike_command(
                       "across": across, "pedal": pedal, "hold_s": hold})
 
 
-_CHORD_ITEM = re.compile(r"^([A-Ga-g][#b]?-?\d+)(?::([0-9.]+))?$")
+_CHORD_NOTE = re.compile(r"^[A-Ga-g][#b]?-?\d+$")
 
 
-def parse_chord(text: str) -> list[tuple[str, float | None]]:
-    """Notes of a chord, each optionally with a strength: ``"F3 A4:0.8 C5"``."""
+def parse_chord(text: str, option: str = "NOTES") -> list[tuple[str, float | None]]:
+    """Parse the notes of a chord, each optionally with a strength 0..1: ``"F3 A4:0.8 C5"``."""
     items = text.replace(",", " ").split()
     if not items:
-        raise ConfigError("= '': give at least one note, e.g. \"F3 A4 C5\"", source="NOTES")
+        raise ConfigError("= '': give at least one note, e.g. \"F3 A4 C5\"", source=option)
     out = []
     for it in items:
-        m = _CHORD_ITEM.match(it)
-        if not m:
+        name, colon, strength = it.partition(":")
+        if not _CHORD_NOTE.match(name):
             raise ConfigError(f"= {it!r}: write a note with an optional strength, e.g. A4 or "
-                              "A4:0.8", source="NOTES")
-        vel = None if m.group(2) is None else float(m.group(2))
-        if vel is not None and not 0.0 <= vel <= 1.0:
-            raise ConfigError(f"= {it!r}: strength must be 0..1", source="NOTES")
-        out.append((m.group(1), vel))
+                              "A4:0.8", source=option)
+        vel = (parse_field(strength, option=option, value=it, lo=0.0, hi=1.0,
+                           example="A4:0.8") if colon else None)
+        out.append((name, vel))
     return out
 
 
@@ -199,9 +212,10 @@ def chord_command(
     velocity: Annotated[float, typer.Option(min=0.0, max=1.0,
                                             help="Strength of notes given without one.")] = 0.6,
     roll_ms: Annotated[float, typer.Option(
-        min=0.0, max=2000.0, help="Spread the notes from the lowest up over this many ms "
-                                  "(0 = struck together).")] = 0.0,
-    duration: Annotated[float, typer.Option(min=0.05, max=600.0,
+        min=0.0, max=2000.0, metavar="ms",
+        help="Spread the notes from the lowest up over this many ms "
+             "(0 = struck together).")] = 0.0,
+    duration: Annotated[float, typer.Option(min=0.05, max=600.0, metavar="seconds",
                                             help="Length of the WAV, seconds.")] = 6.0,
     check_decay: Annotated[bool, typer.Option(
         help="Also track each note's level in its own band and report the decay per note, "
@@ -218,9 +232,10 @@ def chord_command(
     json_out: JsonOpt = False,
 ) -> None:
     """Render a chord (struck together or rolled) to WAV."""
+    chord = parse_chord(notes)  # before any file is read: a typo costs nothing
     v = _voicer(preset, sample_rate=sample_rate, channels=channels, no_tubes=no_tubes,
                 motor_rate=motor_rate)
-    items = [(v.instrument.check_note(n, option="NOTES"), vel) for n, vel in parse_chord(notes)]
+    items = [(v.instrument.check_note(n, option="NOTES"), vel) for n, vel in chord]
     order = sorted(range(len(items)), key=lambda i: v.instrument.note_fraction(items[i][0]))
     step = roll_ms / 1000.0 / max(len(items) - 1, 1) if roll_ms > 0 else 0.0
     voices = []
@@ -229,9 +244,10 @@ def chord_command(
         voices.append(v.strike_voice(name, time_s=rank * step,
                                      velocity=velocity if vel is None else vel, mallet=mallet))
     label = "-".join(file_label(n) for n, _ in items)
-    _finish(preset, f"chord-{label}", out, voices, duration, voicer=v, sample_rate=sample_rate,
+    record = _finish(
+            preset, f"chord-{label}", out, voices, duration, voicer=v, sample_rate=sample_rate,
             channels=channels, fmt=fmt, gain_db=gain_db, force=force, play=play,
-            json_out=json_out and not check_decay,
+            json_out=json_out, report=not (json_out and check_decay),
             settings={"command": "chord", "notes": [n for n, _ in items],
                       "strengths": [velocity if vel is None else vel for _, vel in items],
                       "roll_ms": roll_ms, "mallet": mallet or v.sound.mallet})
@@ -239,7 +255,7 @@ def chord_command(
         from synth.cli.cmd_reports import chord_decay_report
 
         chord_decay_report(preset, v, items, velocity, mallet, roll_ms, duration, out,
-                           force=force, json_out=json_out)
+                           force=force, json_out=json_out, render=record)
 
 
 @app.command("render")
@@ -254,8 +270,9 @@ def render_command(
         min=0.0, max=1.0, help="Pedal before the file's first pedal event: 1 = dampers "
                                "lifted, 0 = dampers on.")] = 0.0,
     tail: Annotated[float | None, typer.Option(
-        min=0.0, max=600.0, help="Seconds after the last event (default: until the "
-                                 "slowest note has fallen 60 dB, at most 30 s).")] = None,
+        min=0.0, max=600.0, metavar="seconds",
+        help="Seconds after the last event (default: until the "
+             "slowest note has fallen 60 dB, at most 30 s).")] = None,
     no_tubes: TubesOpt = False,
     motor_rate: MotorOpt = None,
     out: OutOpt = None,

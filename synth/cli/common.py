@@ -15,10 +15,8 @@ from typing import Any
 
 import typer
 
-from synth.errors import SynthError
-
-EXIT_BAD_INPUT = 2
-"""Exit code for input the user can fix (the usage-error code of click/typer)."""
+from synth.cli.usage import EXIT_BAD_INPUT, EXIT_INTERRUPTED, EXIT_MISSED
+from synth.errors import ConfigError, SynthError
 
 
 def fail(message: str) -> typer.Exit:
@@ -38,9 +36,56 @@ def handle_errors(func: Callable) -> Callable:
             raise fail(str(exc)) from None
         except KeyboardInterrupt:
             typer.echo("barwright: interrupted", err=True)
-            raise typer.Exit(code=130) from None
+            raise typer.Exit(code=EXIT_INTERRUPTED) from None
 
     return wrapper
+
+
+def missed(message: str) -> typer.Exit:
+    """Say on stderr that a job ran but missed what was asked; return the Exit (code 3).
+
+    Print this before anything else the command prints, so it is the first line a
+    user (or a script reading stderr) sees.
+    """
+    typer.echo(f"barwright: {message}", err=True)
+    return typer.Exit(code=EXIT_MISSED)
+
+
+def parse_field(text: str, *, option: str, value: str, lo: float, hi: float,
+                unit: str = "", example: str) -> float:
+    """One number inside a compound option value (``1:4:10``, ``F3:30``, ``A4:0.8``).
+
+    Parameters
+    ----------
+    text : str
+        The field as typed.
+    option : str
+        The option (or argument) it belongs to, e.g. ``"--ratios"``.
+    value : str
+        The whole value as typed, quoted in the message.
+    lo, hi : float
+        Allowed range, inclusive.
+    unit : str
+        Unit for the message, e.g. ``" s"``.
+    example : str
+        A valid value to show.
+
+    Raises
+    ------
+    ConfigError
+        Empty, not a number, NaN, infinite or out of range; the message names the
+        option, the value, the field and what is allowed.
+    """
+    field = text.strip()
+    try:
+        number = float(field) if field and "_" not in field else math.nan
+    except ValueError:
+        number = math.nan
+    if not (math.isfinite(number) and lo <= number <= hi):
+        what = "an empty field" if not field else repr(field)
+        raise ConfigError(f"= {value!r}: {what} must be a number from {lo:g} to {hi:g}{unit}, "
+                          f"e.g. {example}", source=option)
+    return number
 
 
 def warn(message: str) -> None:
@@ -132,6 +177,7 @@ class Progress:
         self.enabled = sys.stderr.isatty()
 
     def __enter__(self):
+        self.advance(0)  # draw the empty bar at once: the first step may take long
         return self.advance
 
     def advance(self, n: int = 1, note: str = "") -> None:

@@ -570,6 +570,25 @@ def tune_instrument(instrument: Instrument, notes: list[str] | None = None, *,
     return [results[n] for n in notes]
 
 
+def worst_miss(results: list[TuneResult]) -> tuple[str, int, float] | None:
+    """Find the largest miss beyond tolerance over tuned bars.
+
+    Returns
+    -------
+    (note, partial, cents) or None
+        Note of the bar, partial number (1 = fundamental) and its residual in cents
+        (signed) where the residual exceeds its tolerance most; None when every bar
+        is within tolerance (``reachable``).
+    """
+    worst, excess = None, 0.0
+    for r in results:
+        over = np.abs(r.residual_cents) - r.spec.tolerances_cents
+        i = int(np.argmax(over))
+        if not r.reachable and (worst is None or over[i] > excess):
+            worst, excess = (r.spec.note, i + 1, float(r.residual_cents[i])), float(over[i])
+    return worst
+
+
 def tuned_preset(instrument: Instrument, results: list[TuneResult]) -> dict:
     """The instrument preset as a TOML-ready table with every solved bar in [bars]."""
     import copy

@@ -125,12 +125,13 @@ length_m = 0.45
     assert ok.exit_code == 0, ok.output
 
 
-def test_tune_reports_unreachable_targets_without_failing() -> None:
+def test_tune_reports_unreachable_targets_and_exits_3() -> None:
     from synth.config import presets_dir
 
     demo = presets_dir() / "instruments" / "tarrow-37.toml"
     r = run("tune", demo, "--note", "A4", "--ratios", "1:2:3", "--family", "parabolic")
-    assert r.exit_code == 0, r.output
+    assert r.exit_code == 3, r.output  # ran, but missed what was asked
+    assert r.stderr.startswith("barwright: 1 of 1 bars missed their targets")
     assert "not reachable" in r.stdout and "depth at zero" in r.stdout
     bad = run("tune", demo, "--ratios", "2:4:10")
     assert_one_line_error(bad, "--ratios", "must start at 1")

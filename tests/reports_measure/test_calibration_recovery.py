@@ -109,9 +109,13 @@ def test_nothing_identifiable_falls_back_to_overrides(tmp_path) -> None:
     path = wav(tmp_path / "centre.wav", render_strike("A4", position=0.5, across=0.0, seed=6,
                                                       noise_dbfs=-70.0))
     out = tmp_path / "cal.toml"
+    bare = run("measure", path, "--calibrate", PRESET, "--note", "A4", "--terms", "cords",
+               "--out", out, "--json")
+    assert bare.exit_code == 3 and not out.exists(), bare.stderr  # missed: written on request
+    assert bare.stderr.splitlines()[0].startswith("barwright: no loss factor is identifiable")
     r = run("measure", path, "--calibrate", PRESET, "--note", "A4", "--terms", "cords",
-            "--out", out, "--json")
-    assert r.exit_code == 0, r.stderr
+            "--out", out, "--keep-overrides", "--json")
+    assert r.exit_code == 3, r.stderr
     cal = json.loads(r.stdout)["calibration"]
     assert cal["fallback"] is True and cal["fitted_terms"] == []
     assert any("no loss factor is identifiable" in w for w in warning_lines(r))
