@@ -9,7 +9,15 @@ import numpy as np
 import typer
 
 from synth.cli import app
-from synth.cli.common import default_output, file_label, format_table, handle_errors, print_json
+from synth.cli.common import (
+    commit_outputs,
+    default_output,
+    file_label,
+    format_table,
+    handle_errors,
+    plan_outputs,
+    print_json,
+)
 from synth.errors import ConfigError
 from synth.physics.bar_fe import BarModes, solve_bar
 from synth.physics.instrument import BarFile, Instrument, load_design
@@ -103,8 +111,7 @@ def partials_command(
     png = None
     if plot or out is not None:
         png = out or default_output(file, f"partials-{file_label(label)}.png")
-        png.parent.mkdir(parents=True, exist_ok=True)
-        io.check_writable(png, force=force)
+        plan_outputs([(png, "plot")], force=force)
     result = solve_bar(geometry, material, n_vertical=vertical, n_lateral=lateral,
                        n_torsional=torsional)
     if png is not None:
@@ -112,6 +119,7 @@ def partials_command(
 
         io.write_bytes(png, mode_shapes_png(result, title=f"{label}: mode shapes",
                                             reference_hz=ref), force=force)
+        commit_outputs()
     rows = partial_rows(result, ref)
     if json_out and losses:
         budget, _ = design_budget(design, label, result)
@@ -230,7 +238,7 @@ def tune_command(
     notes = [inst.check_note(n) for n in note] if note else list(inst.notes)
     target = _parse_ratios(ratios)
     if out is not None:
-        io.check_writable(out, force=force)
+        plan_outputs([(out, "tuned preset")], force=force)
     t0 = time.perf_counter()
     with Progress(len(notes), "tuning") as step:
         results = tune_instrument(inst, notes, ratios=target, progress=lambda n: step(1, n))
@@ -251,6 +259,7 @@ def tune_command(
                   f"# every [bars.*] table below is a solved bar; sizes in metres\n")
         text = header + tomli_w.dumps(tuned_preset(inst, results))
         io.write_bytes(out, text.encode("utf-8"), force=force)
+        commit_outputs()
     records = []
     for r in results:
         g = r.geometry
@@ -343,8 +352,7 @@ def grind_command(
     design = load_design(file)
     label, geometry, material, _ = resolve_bar(design, note)
     png = out or default_output(file, f"grind-{file_label(label)}.png")
-    png.parent.mkdir(parents=True, exist_ok=True)
-    io.check_writable(png, force=force)
+    plan_outputs([(png, "plot")], force=force)
     res = solve_bar(geometry, material, n_vertical=max(3, partials), n_lateral=0,
                     n_torsional=1 if torsion else 0)
     kinds = ("vertical", "torsional") if torsion else ("vertical",)
@@ -353,6 +361,7 @@ def grind_command(
     keep = [j for j, (k, o) in enumerate(gm.modes) if k == "vertical" or o == 1]
     io.write_bytes(png, grind_map_png(gm, geometry, title=f"{label}: grind map",
                                       cord_holes_m=res.vertical[0].nodes_m), force=force)
+    commit_outputs()
     if json_out:
         print_json({"bar": label, "band_m": gm.band_m, "removal_m": gm.removal_m,
                     "modes": [{"kind": gm.modes[j][0], "order": gm.modes[j][1],
@@ -398,10 +407,8 @@ def cutlist_command(
 
     inst = load_instrument(preset)
     folder = out or default_output(preset, "")
-    folder.mkdir(parents=True, exist_ok=True)
     csv_path, png_path = folder / "cutlist.csv", folder / "profiles.png"
-    for p in (csv_path, png_path):
-        io.check_writable(p, force=force)
+    plan_outputs([(csv_path, "cut list"), (png_path, "profile sheet")], force=force)
     missing = [n for n in inst.notes if n not in inst.bars]
     if missing:
         raise ConfigError(f"bars.{missing[0]}: {len(missing)} bar(s) have no geometry; run "
@@ -414,6 +421,7 @@ def cutlist_command(
     io.write_bytes(png_path, profile_sheet_png(
         [(r.note, inst.bar(r.note), r.cord_holes_m) for r in rows],
         title=f"{inst.name}: bar profiles (circles: cord holes)"), force=force)
+    commit_outputs()
     if json_out:
         print_json({"bars": [r.__dict__ for r in rows], "csv": str(csv_path),
                     "png": str(png_path)})

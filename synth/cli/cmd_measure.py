@@ -14,7 +14,14 @@ from typing import Annotated
 import typer
 
 from synth.cli import app
-from synth.cli.common import format_table, handle_errors, print_json, warn
+from synth.cli.common import (
+    commit_outputs,
+    format_table,
+    handle_errors,
+    plan_outputs,
+    print_json,
+    warn,
+)
 from synth.errors import ConfigError
 
 
@@ -122,7 +129,6 @@ def measure_command(
     the factors to a calibration file that the preset names in its damping
     table (calibration_file = "..."). Record with the motor stopped.
     """
-    from synth.io import check_writable
     from synth.reports.measure import calibrate as fit_calibration
     from synth.reports.measure import measure_file, write_calibration
 
@@ -131,7 +137,7 @@ def measure_command(
         if note is None or out is None:
             raise ConfigError("needs --note (the note recorded) and --out (the calibration "
                               "file to write)", source="--calibrate")
-        check_writable(out, force=force)
+        plan_outputs([(out, "calibration file")], force=force)
         from synth.physics.instrument import load_instrument
 
         instrument = load_instrument(calibrate)
@@ -156,6 +162,7 @@ def measure_command(
         for w in fit.warnings:
             warn(w)
         path = write_calibration(out, fit, force=force)
+        commit_outputs()
         rel = os.path.relpath(path, Path(calibrate).parent)
     if json_out:
         doc = measurement.to_dict()
