@@ -174,6 +174,17 @@ def _new_temp(target: Path, suffix: str) -> Path:
     return Path(name)
 
 
+def _probe(folder: Path) -> None:
+    """Create and remove a temporary in ``folder``: raise unless files can be made there."""
+    try:
+        fd, name = tempfile.mkstemp(prefix=f".write-test.{os.getpid()}-", suffix=TEMP_MARK,
+                                    dir=folder)
+    except OSError as exc:
+        raise AudioError(f"{folder}: cannot write in this folder ({_os_reason(exc)})") from None
+    os.close(fd)
+    os.unlink(name)
+
+
 def _os_reason(exc: OSError) -> str:
     reason = exc.strerror or str(exc)
     if exc.errno == errno.ENOSPC:
@@ -389,8 +400,7 @@ class OutputPlan:
                         raise AudioError(f"{m}: cannot make this folder ({_os_reason(exc)})"
                                          ) from None
                     self._made.append(m)
-                probe = _new_temp(folder / "write-test", ".probe")
-                probe.unlink()
+                _probe(folder)
                 self.removed += remove_stale_temporaries(folder)
         except BaseException:
             self._remove_made_folders()
