@@ -12,6 +12,14 @@ replaces the target only once the last block is written and the file is
 closed.  An existing target is never touched unless ``force=True``; an
 exception at any point, a ``KeyboardInterrupt`` included, removes the
 temporary file and leaves no file (or the old file) at the target path.
+Temporaries are named ``.<target>.<pid>-<random>.partial<suffix>``, so one
+stranded by a process killed outright is recognised and removed later
+(:func:`remove_stale_temporaries`).  File-system errors (disk full, no
+permission, a name too long) raise :class:`~synth.errors.AudioError`.
+
+An :class:`OutputPlan` makes a run's files one unit: all targets are checked
+before the first is written, every write goes to a temporary, and the files
+appear together when the plan commits (or none of them, when it is discarded).
 
 Samples are floats with full scale at 1.0.  A sample beyond full scale raises
 :class:`~synth.errors.AudioError` rather than being clipped (libsndfile would
