@@ -183,7 +183,8 @@ def _parse_ratios(text: str | None) -> tuple[float, ...] | None:
     except ValueError:
         raise ConfigError(f"= {text!r}: write ratios as numbers, e.g. 1:4:10 or 1,3,6",
                           source="--ratios") from None
-    if len(vals) < 1 or abs(vals[0] - 1) > 1e-12 or any(b <= a for a, b in zip(vals, vals[1:])):
+    rising = all(b > a for a, b in zip(vals, vals[1:], strict=False))
+    if len(vals) < 1 or abs(vals[0] - 1) > 1e-12 or not rising:
         raise ConfigError(f"= {text!r}: must start at 1 and increase, e.g. 1:4:10",
                           source="--ratios")
     if len(vals) > 5:
@@ -291,7 +292,8 @@ def tune_command(
         row = [rec["note"], f"{rec['target_hz']:.2f}", f"{rec['length_m'] * 1e3:.1f}",
                "-" if depth is None else f"{depth * 1e3:.2f}",
                "-" if span is None else f"{span * 1e3:.1f}", f"{rec['thinnest_m'] * 1e3:.2f}"]
-        row += [f"{c + 0.0:+.2f}" for c in np.round(r.residual_cents, 2)] + [""] * (n_p - len(r.residual_cents))
+        row += [f"{c + 0.0:+.2f}" for c in np.round(r.residual_cents, 2)]
+        row += [""] * (n_p - len(r.residual_cents))
         row.append(f"{drift[r.spec.note]:+.3f}")
         if shop:
             row.append(f"{shop[r.spec.note][0]:+.2f}")
@@ -302,7 +304,8 @@ def tune_command(
 
     bad = sum(not r.reachable for r in results)
     typer.echo(
-        f"{len(results)} bars in {elapsed:.2f} s (median {statistics.median(r.seconds for r in results) * 1e3:.0f} ms"
+        f"{len(results)} bars in {elapsed:.2f} s (median "
+        f"{statistics.median(r.seconds for r in results) * 1e3:.0f} ms"
         f" and {statistics.median(r.n_solves for r in results):.0f} solves per bar); "
         f"{len(results) - bad} on target, {bad} not reachable; A4 = {inst.reference_pitch_hz:g} Hz "
         f"at {inst.temperature_c:g} C")
@@ -368,12 +371,13 @@ def grind_command(
                                "frequency_hz": gm.frequencies_hz[j]} for j in keep],
                     "stations": [{"x_m": x, "thickness_m": t,
                                   "cents": [gm.cents[i, j] for j in keep]}
-                                 for i, (x, t) in enumerate(zip(gm.x_m, gm.thickness_m))],
+                                 for i, (x, t) in enumerate(zip(gm.x_m, gm.thickness_m,
+                                                                 strict=True))],
                     "plot": str(png)})
         return
     heads = ["x mm", "thick mm"] + [f"{gm.modes[j][0][:4]} {gm.modes[j][1]} c" for j in keep]
     rows = [[f"{x * 1e3:.1f}", f"{t * 1e3:.2f}", *[f"{gm.cents[i, j]:+.3f}" for j in keep]]
-            for i, (x, t) in enumerate(zip(gm.x_m, gm.thickness_m))]
+            for i, (x, t) in enumerate(zip(gm.x_m, gm.thickness_m, strict=True))]
     typer.echo(f"{label}: cents per {removal_mm:g} mm removed over a {band_mm:g} mm band")
     typer.echo(format_table(heads, rows))
     typer.echo(f"plot: {png}")
@@ -394,7 +398,7 @@ def cutlist_command(
     force: Annotated[bool, typer.Option(help="Overwrite existing files.")] = False,
     json_out: Annotated[bool, typer.Option("--json", help="Print JSON on stdout.")] = False,
 ) -> None:
-    """The build sheet: length, undercut stations and cord holes for every bar.
+    """Write the build sheet: length, undercut stations and cord holes for every bar.
 
     Cord holes sit at the nodes of vertical mode 1 of the actual undercut bar.
     Station thicknesses are every 10 % of the length from the left end.
@@ -458,7 +462,7 @@ def _q_cell(b, term: str) -> str:
 
 
 def _override(inst, family: str | None, venue_c: float | None):
-    """The preset with a command-line family or venue temperature (raw table too)."""
+    """Return the preset with a command-line family or venue temperature (raw table too)."""
     from dataclasses import replace
 
     from synth.physics.geometry import UNDERCUT_FAMILIES, UndercutFamily
