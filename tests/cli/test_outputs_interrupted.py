@@ -109,3 +109,15 @@ def test_rerun_of_a_killed_render_completes(tmp_path, inputs):
     assert again.exit_code == 0, again.output
     assert "removed 1 unfinished file(s)" in again.stderr
     assert sorted(p.name for p in out.iterdir()) == sorted(targets)
+
+
+@pytest.mark.parametrize("name", ["strike", "cutlist"])
+def test_ctrl_c_leaves_no_target_and_no_temporary(name, tmp_path, inputs):
+    """SIGINT (Ctrl-C): the run removes its temporaries and exits 130 (128 + SIGINT)."""
+    args, targets = COMMANDS[name]
+    out = tmp_path / "out"
+    proc, err = _start_and_kill(args(out, inputs), out, tmp_path, signal.SIGINT)
+    assert proc.returncode == 130, err
+    assert "barwright: interrupted; unfinished files removed" in err
+    assert [t for t in targets if (out / t).exists()] == []
+    assert temporaries(tmp_path) == []
