@@ -12,7 +12,7 @@ replaces the target only once the last block is written and the file is
 closed.  An existing target is never touched unless ``force=True``; an
 exception at any point, a ``KeyboardInterrupt`` included, removes the
 temporary file and leaves no file (or the old file) at the target path.
-Temporaries are named ``.<target>.<pid>-<random>.partial<suffix>``, so one
+Temporaries are named ``.<target>.<pid>@<host>-<random>.partial<suffix>``, so one
 stranded by a process killed outright is recognised and removed later
 (:func:`remove_stale_temporaries`).  File-system errors (disk full, no
 permission, a name too long) raise :class:`~synth.errors.AudioError`.
@@ -87,9 +87,9 @@ PLAY_INSTALL_HINT: Final[str] = (
 
 # --------------------------------------------------------------------------- checks
 TEMP_MARK: Final[str] = ".partial"
-"""Part of every temporary file name: ``.<target>.<pid>-<random>.partial<suffix>``."""
+"""Part of every temporary file name: ``.<target>.<pid>@<host>-<random>.partial<suffix>``."""
 
-_TEMP_NAME = re.compile(r"^\..*\.(\d+)-[A-Za-z0-9_]+\.partial(\.[A-Za-z0-9]+)?$")
+_TEMP_NAME = re.compile(r"^\..*\.(\d+)@([0-9a-f]{6})-[A-Za-z0-9_]+\.partial(\.[A-Za-z0-9]+)?$")
 _NAME_MAX_DEFAULT: Final[int] = 255
 
 
@@ -157,13 +157,29 @@ def check_writable(path: str | os.PathLike[str], *, force: bool = False) -> Path
     return p
 
 
+def host_tag() -> str:
+    """Return six hex digits naming this machine (or container) in temporary file names.
+
+    A process id means something only on the machine that runs it; temporaries of
+    another host sharing the folder are never taken for stale.
+    """
+    import hashlib
+    import socket
+
+    return hashlib.sha1(socket.gethostname().encode("utf-8")).hexdigest()[:6]
+
+
+def _owner_tag() -> str:
+    return f"{os.getpid()}@{host_tag()}"
+
+
 def _temp_prefix(target: Path) -> str:
-    """``.<name>.<pid>-``, the name shortened so the temporary's name still fits."""
+    """Return ``.<name>.<pid>@<host>-``, the name shortened so the temporary's name fits."""
     name = target.name
     room = _NAME_MAX_DEFAULT - 48  # dots, pid, random part, mark and suffix
     while len(os.fsencode(name)) > room:
         name = name[:-1]
-    return f".{name}.{os.getpid()}-"
+    return f".{name}.{_owner_tag()}-"
 
 
 def _new_temp(target: Path, suffix: str) -> Path:
@@ -185,7 +201,7 @@ def _new_temp(target: Path, suffix: str) -> Path:
 def _probe(folder: Path) -> None:
     """Create and remove a temporary in ``folder``: raise unless files can be made there."""
     try:
-        fd, name = tempfile.mkstemp(prefix=f".write-test.{os.getpid()}-", suffix=TEMP_MARK,
+        fd, name = tempfile.mkstemp(prefix=f".write-test.{_owner_tag()}-", suffix=TEMP_MARK,
                                     dir=folder)
     except OSError as exc:
         raise AudioError(f"{folder}: cannot write in this folder ({_os_reason(exc)})") from None
@@ -298,13 +314,14 @@ def remove_stale_temporaries(folder: str | os.PathLike[str]) -> list[tuple[Path,
         The removed files and their sizes in bytes.
     """
     removed = []
+    host = host_tag()
     try:
         entries = list(os.scandir(folder))
     except OSError:
         return removed
     for entry in entries:
         m = _TEMP_NAME.match(entry.name)
-        if m is None or int(m.group(1)) == os.getpid():
+        if m is None or m.group(2) != host or int(m.group(1)) == os.getpid():
             continue
         try:
             st = entry.stat(follow_symlinks=False)
@@ -331,7 +348,7 @@ class OutputPlan:
     folders the plan made, so a failed run leaves nothing behind.  Used as a
     context manager it opens, then commits or discards.
 
-    Temporaries are named ``.<target>.<pid>-<random>.partial<suffix>``; one left
+    Temporaries are named ``.<target>.<pid>@<host>-<random>.partial<suffix>``; one left
     by a process that was killed outright (SIGKILL) is removed by the next plan
     that opens in its folder.
 

@@ -93,7 +93,7 @@ def test_killed_run_leaves_no_target_and_no_temporary(name, sig, tmp_path, input
         return
     assert proc.returncode == -signal.SIGKILL
     left = _written_temporaries(out)
-    assert left and all(f".{proc.pid}-" in n for n in left), left
+    assert left and all(f".{proc.pid}@" in n for n in left), left
     again = run("tune", PRESET, "--note", "A4", "--out", out / "again.toml")
     assert again.exit_code == 0, again.output
     assert f"removed {len(left)} unfinished file(s)" in again.stderr

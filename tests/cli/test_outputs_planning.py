@@ -254,20 +254,23 @@ def test_disk_full_on_the_last_file_removes_the_earlier_ones(tmp_path, monkeypat
 
 # --------------------------------------------------------------------------- temporaries
 def test_stale_temporaries_of_dead_processes_are_removed(tmp_path):
-    """A temporary whose process is gone is removed; ours and a live process's are kept."""
+    """A temporary whose process is gone is removed; ours, a live one's, another host's kept."""
     done = subprocess.run([sys.executable, "-c", "import os; print(os.getpid())"],
                           capture_output=True, text=True, check=True)
     dead = int(done.stdout)  # exited and reaped by subprocess.run
-    stale = tmp_path / f".s.wav.{dead}-abcd1234.partial.wav"
-    ours = tmp_path / f".s.wav.{os.getpid()}-abcd1234.partial.wav"
-    parent = tmp_path / f".s.wav.{os.getppid()}-abcd1234.partial.wav"  # started before the file
+    host = io.host_tag()
+    stale = tmp_path / f".s.wav.{dead}@{host}-abcd1234.partial.wav"
+    ours = tmp_path / f".s.wav.{os.getpid()}@{host}-abcd1234.partial.wav"
+    parent = tmp_path / f".s.wav.{os.getppid()}@{host}-abcd1234.partial.wav"  # started earlier
+    other_host = "000000" if host != "000000" else "111111"
+    elsewhere = tmp_path / f".s.wav.{dead}@{other_host}-abcd1234.partial.wav"  # its pid: not ours
     other = tmp_path / "notes.partial.txt"
-    for p in (stale, ours, parent, other):
+    for p in (stale, ours, parent, elsewhere, other):
         p.write_bytes(b"x" * 10)
     removed = io.remove_stale_temporaries(tmp_path)
     assert removed == [(stale, 10)]
     assert sorted(p.name for p in tmp_path.iterdir()) == sorted(
-        p.name for p in (ours, parent, other))
+        p.name for p in (ours, parent, elsewhere, other))
 
 
 def test_temporary_names_fit_and_carry_the_process_id(tmp_path):
@@ -276,7 +279,8 @@ def test_temporary_names_fit_and_carry_the_process_id(tmp_path):
     tmp = io._new_temp(target, ".csv")
     try:
         assert len(os.fsencode(tmp.name)) <= 255
-        assert f".{os.getpid()}-" in tmp.name and tmp.name.endswith(".partial.csv")
+        assert f".{os.getpid()}@{io.host_tag()}-" in tmp.name
+        assert tmp.name.endswith(".partial.csv")
         umask = os.umask(0)
         os.umask(umask)
         assert tmp.stat().st_mode & 0o777 == 0o666 & ~umask  # not mkstemp's 0600
