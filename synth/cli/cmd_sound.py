@@ -64,6 +64,14 @@ def _voicer(preset: Path, *, sample_rate: int, channels: int, no_tubes: bool,
                   motor_rate_rev_per_s=motor_rate, channels=channels)
 
 
+def _check_format(fmt: str) -> None:
+    from synth import io
+
+    if fmt not in io.SAMPLE_FORMATS:
+        raise ConfigError(f"= {fmt!r}: must be one of " + ", ".join(io.SAMPLE_FORMATS),
+                          source="--format")
+
+
 def _finish(preset: Path, name: str, out: Path | None, voices, seconds: float, *,
             voicer, sample_rate: int, channels: int, fmt: str, gain_db: float | None,
             force: bool, play: bool, json_out: bool, settings: dict,
@@ -72,9 +80,7 @@ def _finish(preset: Path, name: str, out: Path | None, voices, seconds: float, *
     from synth import io
     from synth.output import HEARING_CAUTION, render_to_wav
 
-    if fmt not in io.SAMPLE_FORMATS:
-        raise ConfigError(f"= {fmt!r}: must be one of " + ", ".join(io.SAMPLE_FORMATS),
-                          source="--format")
+    _check_format(fmt)
     path = out or default_output(preset, f"{name}.wav")
     plan_outputs(wav_targets(path), force=force)
     n = int(round(seconds * sample_rate))
@@ -243,6 +249,7 @@ def chord_command(
         from synth.cli.cmd_reports import chord_decay_check, decay_png_path
 
         png = decay_png_path(wav)
+        _check_format(fmt)
         plan_outputs([*wav_targets(wav), (png, "decay plot")], force=force)
         decay = chord_decay_check(v, items, velocity, mallet, roll_ms, duration, png)
     _finish(preset, f"chord-{label}", wav, voices, duration, voicer=v, sample_rate=sample_rate,
