@@ -183,8 +183,7 @@ def _parse_ratios(text: str | None) -> tuple[float, ...] | None:
     except ValueError:
         raise ConfigError(f"= {text!r}: write ratios as numbers, e.g. 1:4:10 or 1,3,6",
                           source="--ratios") from None
-    rising = all(b > a for a, b in zip(vals, vals[1:], strict=False))
-    if len(vals) < 1 or abs(vals[0] - 1) > 1e-12 or not rising:
+    if len(vals) < 1 or abs(vals[0] - 1) > 1e-12 or any(b <= a for a, b in zip(vals, vals[1:])):
         raise ConfigError(f"= {text!r}: must start at 1 and increase, e.g. 1:4:10",
                           source="--ratios")
     if len(vals) > 5:

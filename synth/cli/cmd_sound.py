@@ -186,7 +186,7 @@ _CHORD_ITEM = re.compile(r"^([A-Ga-g][#b]?-?\d+)(?::([0-9.]+))?$")
 
 
 def parse_chord(text: str) -> list[tuple[str, float | None]]:
-    """Parse the notes of a chord, each optionally with a strength: ``"F3 A4:0.8 C5"``."""
+    """Notes of a chord, each optionally with a strength: ``"F3 A4:0.8 C5"``."""
     items = text.replace(",", " ").split()
     if not items:
         raise ConfigError("= '': give at least one note, e.g. \"F3 A4 C5\"", source="NOTES")
