@@ -12,6 +12,14 @@ replaces the target only once the last block is written and the file is
 closed.  An existing target is never touched unless ``force=True``; an
 exception at any point, a ``KeyboardInterrupt`` included, removes the
 temporary file and leaves no file (or the old file) at the target path.
+Temporaries are named ``.<target>.<pid>@<host>-<random>.partial<suffix>``, so one
+stranded by a process killed outright is recognised and removed later
+(:func:`remove_stale_temporaries`).  File-system errors (disk full, no
+permission, a name too long) raise :class:`~synth.errors.AudioError`.
+
+An :class:`OutputPlan` makes a run's files one unit: all targets are checked
+before the first is written, every write goes to a temporary, and the files
+appear together when the plan commits (or none of them, when it is discarded).
 
 Samples are floats with full scale at 1.0.  A sample beyond full scale raises
 :class:`~synth.errors.AudioError` rather than being clipped (libsndfile would
@@ -39,10 +47,13 @@ Playback
 from __future__ import annotations
 
 import contextlib
+import contextvars
 import dataclasses
+import errno
 import json
 import math
 import os
+import re
 import tempfile
 from collections.abc import Iterable, Mapping
 from pathlib import Path
@@ -75,32 +86,152 @@ PLAY_INSTALL_HINT: Final[str] = (
 
 
 # --------------------------------------------------------------------------- checks
-def check_writable(path: str | os.PathLike[str], *, force: bool = False) -> Path:
-    """Raise unless ``path`` may be written (new file, or ``force``); return it as a Path.
+TEMP_MARK: Final[str] = ".partial"
+"""Part of every temporary file name: ``.<target>.<pid>@<host>-<random>.partial<suffix>``."""
 
-    Call it before a long render so that a refusal comes before the work.
-    """
-    p = Path(path)
-    if p.is_dir():
-        raise AudioError(f"{p}: is a folder; give a file name")
-    if p.exists() and not force:
-        raise AudioError(f"{p}: already exists; use --force to overwrite it")
-    if not p.parent.is_dir():
-        raise AudioError(f"{p}: folder {p.parent} does not exist")
+_TEMP_NAME = re.compile(r"^\..*\.(\d+)@([0-9a-f]{6})-[A-Za-z0-9_]+\.partial(\.[A-Za-z0-9]+)?$")
+_NAME_MAX_DEFAULT: Final[int] = 255
+
+
+def _name_max(folder: Path) -> int:
+    try:
+        return int(os.pathconf(folder, "PC_NAME_MAX"))
+    except (OSError, ValueError, AttributeError):
+        return _NAME_MAX_DEFAULT
+
+
+def _existing_ancestor(folder: Path) -> Path:
+    """Return the nearest existing folder or file on the way up from ``folder``."""
+    p = folder
+    while not os.path.lexists(p) and p != p.parent:
+        p = p.parent
     return p
 
 
-def _atomic_write(target: Path, suffix: str, write, *, force: bool) -> Path:
-    """Run ``write(temp_path)``, then move the temporary file onto ``target``."""
-    check_writable(target, force=force)
-    fd, tmp_name = tempfile.mkstemp(prefix=f".{target.name}.", suffix=f".partial{suffix}",
-                                    dir=target.parent)
-    os.close(fd)
-    tmp = Path(tmp_name)
+def _folder_problem(folder: Path) -> str | None:
+    """Why files cannot be written into ``folder`` (made if missing), or None."""
+    anchor = _existing_ancestor(folder)
+    if not os.path.isdir(anchor):
+        return f"{anchor} is a file, not a folder"
+    limit = _name_max(anchor)
+    for part in folder.parts:
+        if len(os.fsencode(part)) > limit:
+            return (f"a name in the path is too long ({len(os.fsencode(part))} bytes; the file "
+                    f"system allows {limit})")
+    if not os.access(anchor, os.W_OK | os.X_OK):
+        return f"folder {anchor} is read-only"
+    return None
+
+
+def _target_problem(p: Path, *, force: bool, make_folders: bool) -> str | None:
+    """Why ``p`` may not be written, or None."""
+    limit = _name_max(_existing_ancestor(p.parent))
+    if len(os.fsencode(p.name)) > limit:
+        return (f"file name too long ({len(os.fsencode(p.name))} bytes; the file system "
+                f"allows {limit})")
+    problem = _folder_problem(p.parent)
+    if problem is not None:
+        return problem
+    if os.path.isdir(p):
+        return "is a folder; give a file name"
+    if os.path.lexists(p) and not force:
+        return "already exists; use --force to overwrite it"
+    if not make_folders and not os.path.isdir(p.parent):
+        return f"folder {p.parent} does not exist"
+    return None
+
+
+def check_writable(path: str | os.PathLike[str], *, force: bool = False) -> Path:
+    """Raise unless ``path`` may be written (new file, or ``force``); return it as a Path.
+
+    Call it before a long render so that a refusal comes before the work.  Within an
+    open :class:`OutputPlan` that holds ``path`` the plan has checked it already.
+    """
+    p = Path(path)
+    plan = _ACTIVE_PLAN.get()
+    if plan is not None and plan.holds(p):
+        return p
+    problem = _target_problem(p, force=force, make_folders=False)
+    if problem is not None:
+        raise AudioError(f"{p}: {problem}")
+    return p
+
+
+def host_tag() -> str:
+    """Return six hex digits naming this machine (or container) in temporary file names.
+
+    A process id means something only on the machine that runs it; temporaries of
+    another host sharing the folder are never taken for stale.
+    """
+    import hashlib
+    import socket
+
+    return hashlib.sha1(socket.gethostname().encode("utf-8")).hexdigest()[:6]
+
+
+def _owner_tag() -> str:
+    return f"{os.getpid()}@{host_tag()}"
+
+
+def _temp_prefix(target: Path) -> str:
+    """Return ``.<name>.<pid>@<host>-``, the name shortened so the temporary's name fits."""
+    name = target.name
+    room = _NAME_MAX_DEFAULT - 48  # dots, pid, random part, mark and suffix
+    while len(os.fsencode(name)) > room:
+        name = name[:-1]
+    return f".{name}.{_owner_tag()}-"
+
+
+def _new_temp(target: Path, suffix: str) -> Path:
+    """Create an empty temporary beside ``target``, named for it and for this process."""
     try:
-        write(tmp)
+        fd, name = tempfile.mkstemp(prefix=_temp_prefix(target), suffix=TEMP_MARK + suffix,
+                                    dir=target.parent)
+    except OSError as exc:
+        raise AudioError(f"{target}: cannot write ({_os_reason(exc)})") from None
+    try:
+        umask = os.umask(0)
+        os.umask(umask)
+        os.fchmod(fd, 0o666 & ~umask)  # mkstemp makes 0600; give the usual permissions
+    finally:
+        os.close(fd)
+    return Path(name)
+
+
+def _probe(folder: Path) -> None:
+    """Create and remove a temporary in ``folder``: raise unless files can be made there."""
+    try:
+        fd, name = tempfile.mkstemp(prefix=f".write-test.{_owner_tag()}-", suffix=TEMP_MARK,
+                                    dir=folder)
+    except OSError as exc:
+        raise AudioError(f"{folder}: cannot write in this folder ({_os_reason(exc)})") from None
+    os.close(fd)
+    os.unlink(name)
+
+
+def _os_reason(exc: OSError) -> str:
+    reason = exc.strerror or str(exc)
+    if exc.errno == errno.ENOSPC:
+        reason += "; free some space and run again"
+    elif exc.errno in (errno.EACCES, errno.EPERM, errno.EROFS):
+        reason += "; choose a folder you may write to"
+    return reason
+
+
+def _atomic_write(target: Path, suffix: str, write, *, force: bool) -> Path:
+    """Run ``write(temp_path)``, then move the temporary file onto ``target``.
+
+    Inside an open :class:`OutputPlan` the temporary is kept until the plan commits.
+    """
+    plan = _ACTIVE_PLAN.get()
+    if plan is not None:
+        return plan._stage(target, suffix, write)
+    check_writable(target, force=force)
+    tmp = _new_temp(target, suffix)
+    try:
+        _run_write(write, tmp, target)
         if force:
-            os.replace(tmp, target)
+            _replace(tmp, target)
         else:
             _move_without_overwrite(tmp, target)
     except BaseException:
@@ -110,6 +241,20 @@ def _atomic_write(target: Path, suffix: str, write, *, force: bool) -> Path:
     return target
 
 
+def _run_write(write, tmp: Path, target: Path) -> None:
+    try:
+        write(tmp)
+    except OSError as exc:
+        raise AudioError(f"{target}: cannot write ({_os_reason(exc)})") from None
+
+
+def _replace(tmp: Path, target: Path) -> None:
+    try:
+        os.replace(tmp, target)
+    except OSError as exc:
+        raise AudioError(f"{target}: cannot write ({_os_reason(exc)})") from None
+
+
 def _move_without_overwrite(tmp: Path, target: Path) -> None:
     # A hard link fails if the target appeared meanwhile, so no file is ever overwritten.
     try:
@@ -117,11 +262,257 @@ def _move_without_overwrite(tmp: Path, target: Path) -> None:
     except FileExistsError:
         raise AudioError(f"{target}: already exists; use --force to overwrite it") from None
     except OSError:  # file system without hard links: check, then rename
-        if target.exists():
+        if os.path.lexists(target):
             raise AudioError(f"{target}: already exists; use --force to overwrite it") from None
-        os.replace(tmp, target)
+        _replace(tmp, target)
         return
     tmp.unlink()
+
+
+# --------------------------------------------------------------------------- output plans
+_ACTIVE_PLAN: contextvars.ContextVar[OutputPlan | None] = contextvars.ContextVar(
+    "barwright_output_plan", default=None)
+
+
+def active_plan() -> OutputPlan | None:
+    """Return the output plan open in this context, if any."""
+    return _ACTIVE_PLAN.get()
+
+
+def _process_gone(pid: int, modified: float) -> bool:
+    """Tell whether process ``pid`` is gone, as writer of a file modified at ``modified``.
+
+    Gone: no such process, a zombie, or one started after the file was last
+    written (the number was reused).  ``modified`` is in epoch seconds.
+    """
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return True
+    except (PermissionError, OSError):
+        return False
+    try:  # Linux: a zombie, or a later process under the same number
+        stat = Path(f"/proc/{pid}/stat").read_text(encoding="ascii")
+        fields = stat[stat.rindex(")") + 2:].split()
+        if fields[0] in ("Z", "X"):
+            return True
+        boot = next(float(line.split()[1]) for line in
+                    Path("/proc/stat").read_text(encoding="ascii").splitlines()
+                    if line.startswith("btime "))
+        started = boot + int(fields[19]) / os.sysconf("SC_CLK_TCK")
+        return started > modified + 2.0
+    except (OSError, ValueError, IndexError, StopIteration):
+        return False
+
+
+def remove_stale_temporaries(folder: str | os.PathLike[str]) -> list[tuple[Path, int]]:
+    """Remove the temporaries in ``folder`` whose writing process is gone.
+
+    Returns
+    -------
+    list of (Path, int)
+        The removed files and their sizes in bytes.
+    """
+    removed = []
+    host = host_tag()
+    try:
+        entries = list(os.scandir(folder))
+    except OSError:
+        return removed
+    for entry in entries:
+        m = _TEMP_NAME.match(entry.name)
+        if m is None or m.group(2) != host or int(m.group(1)) == os.getpid():
+            continue
+        try:
+            st = entry.stat(follow_symlinks=False)
+            if not _process_gone(int(m.group(1)), st.st_mtime):
+                continue
+            os.unlink(entry.path)
+        except OSError:
+            continue
+        removed.append((Path(entry.path), int(st.st_size)))
+    return removed
+
+
+class OutputPlan:
+    """Every file one run writes, checked before anything is written, committed together.
+
+    Building the plan checks all targets: no two the same file, none existing
+    unless ``force``, every folder creatable and writable, every name short
+    enough; a problem raises :class:`~synth.errors.AudioError` naming the path.
+    :meth:`open` makes the folders, tries a temporary file in each, removes
+    temporaries left there by runs that were killed, and routes every write of
+    this module (:func:`write_wav`, :func:`write_sidecar`, :func:`write_bytes`) to
+    a temporary beside its target.  :meth:`commit` moves them all onto their
+    targets; :meth:`discard` (any error, an interrupt) removes them and the
+    folders the plan made, so a failed run leaves nothing behind.  Used as a
+    context manager it opens, then commits or discards.
+
+    Temporaries are named ``.<target>.<pid>@<host>-<random>.partial<suffix>``; one left
+    by a process that was killed outright (SIGKILL) is removed by the next plan
+    that opens in its folder.
+
+    Parameters
+    ----------
+    targets : iterable of path-like or (path-like, str)
+        Files to write, each optionally with what it is (``"WAV"``,
+        ``"settings sidecar"``) for the messages.
+    force : bool, optional
+        Replace existing files (default: refuse).
+    """
+
+    def __init__(self, targets: Iterable[Any], *, force: bool = False):
+        self.force = bool(force)
+        self.targets: dict[str, tuple[Path, str]] = {}
+        for item in targets:
+            path, what = (item, "") if isinstance(item, str | os.PathLike) else item
+            p = Path(path)
+            key = self._key(p)
+            if key in self.targets:
+                other, what0 = self.targets[key]
+                if other == p and what0 == what:
+                    continue
+                both = (f"the {what0 or 'first file'} and the {what or 'second file'}"
+                        if what0 != what or not what else f"two {what} files")
+                raise AudioError(f"{p}: {both} of this run would both be written here; "
+                                 "choose another name")
+            self.targets[key] = (p, what)
+        for p, _ in self.targets.values():
+            problem = _target_problem(p, force=self.force, make_folders=True)
+            if problem is not None:
+                raise AudioError(f"{p}: {problem}")
+        self.removed: list[tuple[Path, int]] = []
+        self._staged: dict[str, Path] = {}
+        self._made: list[Path] = []
+        self._token: contextvars.Token | None = None
+
+    @staticmethod
+    def _key(p: Path) -> str:
+        return os.path.normcase(os.path.abspath(p))
+
+    def holds(self, path: str | os.PathLike[str]) -> bool:
+        """Tell whether ``path`` is one of the planned targets."""
+        return self._key(Path(path)) in self.targets
+
+    def require(self, paths: Iterable[str | os.PathLike[str]]) -> None:
+        """Raise unless every path is planned (for a command run inside another's plan)."""
+        for p in paths:
+            if not self.holds(p):
+                raise AudioError(f"{p}: not among the files planned for this run")
+
+    @property
+    def folders(self) -> list[Path]:
+        """The target folders, each once, in plan order."""
+        return list(dict.fromkeys(p.parent for p, _ in self.targets.values()))
+
+    def open(self) -> OutputPlan:
+        """Make the folders, try writing in each, remove stale temporaries, start staging."""
+        if self._token is not None:
+            raise AudioError("an output plan is already open")
+        try:
+            for folder in self.folders:
+                missing = []
+                p = folder
+                while not os.path.lexists(p) and p != p.parent:
+                    missing.append(p)
+                    p = p.parent
+                for m in reversed(missing):
+                    try:
+                        m.mkdir()
+                    except FileExistsError:
+                        continue
+                    except OSError as exc:
+                        raise AudioError(f"{m}: cannot make this folder ({_os_reason(exc)})"
+                                         ) from None
+                    self._made.append(m)
+                _probe(folder)
+                self.removed += remove_stale_temporaries(folder)
+        except BaseException:
+            self._remove_made_folders()
+            raise
+        self._token = _ACTIVE_PLAN.set(self)
+        return self
+
+    def _stage(self, target: Path, suffix: str, write) -> Path:
+        key = self._key(target)
+        if key not in self.targets:
+            raise AudioError(f"{target}: not among the files planned for this run")
+        tmp = _new_temp(target, suffix)
+        try:
+            _run_write(write, tmp, target)
+        except BaseException:
+            with contextlib.suppress(OSError):
+                tmp.unlink()
+            raise
+        old = self._staged.pop(key, None)
+        if old is not None:
+            with contextlib.suppress(OSError):
+                old.unlink()
+        self._staged[key] = tmp
+        return target
+
+    def staged(self, path: str | os.PathLike[str]) -> Path | None:
+        """Return the temporary holding ``path`` until the plan commits, if it was written."""
+        return self._staged.get(self._key(Path(path)))
+
+    def commit(self) -> list[Path]:
+        """Move every written temporary onto its target; return the targets.
+
+        Without ``force`` a target that appeared meanwhile stops the commit and the
+        targets this commit already placed are removed again.
+        """
+        self._close()
+        done: list[Path] = []
+        try:
+            for key, tmp in list(self._staged.items()):
+                target = self.targets[key][0]
+                if self.force:
+                    _replace(tmp, target)
+                else:
+                    _move_without_overwrite(tmp, target)
+                del self._staged[key]
+                done.append(target)
+        except BaseException:
+            if not self.force:
+                for t in done:
+                    with contextlib.suppress(OSError):
+                        t.unlink()
+            self._discard_staged()
+            raise
+        return done
+
+    def discard(self) -> None:
+        """Remove every temporary and the folders the plan made; no target is touched."""
+        self._close()
+        self._discard_staged()
+        self._remove_made_folders()
+
+    def _close(self) -> None:
+        if self._token is not None:
+            _ACTIVE_PLAN.reset(self._token)
+            self._token = None
+
+    def _discard_staged(self) -> None:
+        for tmp in self._staged.values():
+            with contextlib.suppress(OSError):
+                tmp.unlink()
+        self._staged.clear()
+
+    def _remove_made_folders(self) -> None:
+        for folder in reversed(self._made):
+            with contextlib.suppress(OSError):
+                folder.rmdir()  # only if empty
+        self._made.clear()
+
+    def __enter__(self) -> OutputPlan:
+        return self.open()
+
+    def __exit__(self, exc_type, exc, tb) -> bool:
+        if exc_type is None:
+            self.commit()
+        else:
+            self.discard()
+        return False
 
 
 def _as_block(block: Any, channels: int | None, where: str) -> np.ndarray:
@@ -234,20 +625,36 @@ def write_wav(
             f = sf.SoundFile(tmp, mode="w", samplerate=int(sample_rate), channels=n_ch,
                              subtype=subtype, format="WAV")
         except (sf.LibsndfileError, RuntimeError, OSError) as exc:
-            raise AudioError(f"{where}: cannot write WAV ({exc})") from exc
-        with f:
+            raise AudioError(f"{where}: cannot write WAV ({_sf_reason(exc)})") from None
+        try:
             block = first
             while block is not None:
                 _check_range(block, where, written)
                 try:
                     f.write(block)
-                except (sf.LibsndfileError, RuntimeError, OSError) as exc:
-                    raise AudioError(f"{where}: cannot write WAV ({exc})") from exc
+                # soundfile asserts that libsndfile took every frame: a short write
+                except (RuntimeError, OSError, AssertionError) as exc:
+                    raise AudioError(f"{where}: cannot write WAV ({_sf_reason(exc)})"
+                                     ) from None
                 written += block.shape[0]
                 nxt = next(iterator, None)  # errors of the block source pass through as they are
                 block = None if nxt is None else _as_block(nxt, n_ch, where)
+        except BaseException:
+            with contextlib.suppress(Exception):
+                f.close()
+            raise
+        try:
+            f.close()  # libsndfile rewrites the header here
+        except (RuntimeError, OSError) as exc:
+            raise AudioError(f"{where}: cannot write WAV ({_sf_reason(exc)})") from None
 
     return _atomic_write(target, ".wav", write, force=force)
+
+
+def _sf_reason(exc: BaseException) -> str:
+    if isinstance(exc, OSError):
+        return _os_reason(exc)
+    return str(exc) or "the file system took fewer samples than written; is the disk full?"
 
 
 def _jsonable(obj: Any) -> Any:
@@ -332,6 +739,11 @@ def read_audio(path: str | os.PathLike[str], *, mono: bool = False) -> tuple[np.
     import soundfile as sf
 
     p = Path(path)
+    plan = _ACTIVE_PLAN.get()
+    staged = None if plan is None else plan.staged(p)
+    if staged is not None:  # written by this run, not yet committed
+        data, rate = read_audio(staged, mono=mono)
+        return data, rate
     if not p.exists():
         raise AudioError(f"{p}: file not found")
     if p.is_dir():

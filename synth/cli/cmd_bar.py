@@ -11,11 +11,13 @@ import typer
 from synth.cli import app
 from synth.cli.common import (
     EXIT_MISSED,
+    commit_outputs,
     default_output,
     file_label,
     format_table,
     handle_errors,
     missed,
+    plan_outputs,
     print_json,
 )
 from synth.errors import ConfigError
@@ -111,8 +113,7 @@ def partials_command(
     png = None
     if plot or out is not None:
         png = out or default_output(file, f"partials-{file_label(label)}.png")
-        png.parent.mkdir(parents=True, exist_ok=True)
-        io.check_writable(png, force=force)
+        plan_outputs([(png, "plot")], force=force)
     result = solve_bar(geometry, material, n_vertical=vertical, n_lateral=lateral,
                        n_torsional=torsional)
     if png is not None:
@@ -120,6 +121,7 @@ def partials_command(
 
         io.write_bytes(png, mode_shapes_png(result, title=f"{label}: mode shapes",
                                             reference_hz=ref), force=force)
+        commit_outputs()
     rows = partial_rows(result, ref)
     if json_out and losses:
         budget, _ = design_budget(design, label, result)
@@ -245,7 +247,7 @@ def tune_command(
     inst = _override(inst, family, venue_c)
     notes = [inst.check_note(n) for n in note] if note else list(inst.notes)
     if out is not None:
-        io.check_writable(out, force=force)
+        plan_outputs([(out, "tuned preset")], force=force)
     t0 = time.perf_counter()
     with Progress(len(notes), "tuning") as step:
         results = tune_instrument(inst, notes, ratios=target, progress=lambda n: step(1, n))
@@ -276,6 +278,7 @@ def tune_command(
                   f"# every [bars.*] table below is a solved bar; sizes in metres\n")
         text = header + tomli_w.dumps(tuned_preset(inst, results))
         io.write_bytes(out, text.encode("utf-8"), force=force)
+        commit_outputs()
     records = []
     for r in results:
         g = r.geometry
@@ -309,7 +312,8 @@ def tune_command(
         row = [rec["note"], f"{rec['target_hz']:.2f}", f"{rec['length_m'] * 1e3:.1f}",
                "-" if depth is None else f"{depth * 1e3:.2f}",
                "-" if span is None else f"{span * 1e3:.1f}", f"{rec['thinnest_m'] * 1e3:.2f}"]
-        row += [f"{c + 0.0:+.2f}" for c in np.round(r.residual_cents, 2)] + [""] * (n_p - len(r.residual_cents))
+        row += [f"{c + 0.0:+.2f}" for c in np.round(r.residual_cents, 2)]
+        row += [""] * (n_p - len(r.residual_cents))
         row.append(f"{drift[r.spec.note]:+.3f}")
         if shop:
             row.append(f"{shop[r.spec.note][0]:+.2f}")
@@ -320,7 +324,8 @@ def tune_command(
 
     bad = sum(not r.reachable for r in results)
     typer.echo(
-        f"{len(results)} bars in {elapsed:.2f} s (median {statistics.median(r.seconds for r in results) * 1e3:.0f} ms"
+        f"{len(results)} bars in {elapsed:.2f} s (median "
+        f"{statistics.median(r.seconds for r in results) * 1e3:.0f} ms"
         f" and {statistics.median(r.n_solves for r in results):.0f} solves per bar); "
         f"{len(results) - bad} on target, {bad} not reachable; A4 = {inst.reference_pitch_hz:g} Hz "
         f"at {inst.temperature_c:g} C")
@@ -376,8 +381,7 @@ def grind_command(
     design = load_design(file)
     label, geometry, material, _ = resolve_bar(design, note)
     png = out or default_output(file, f"grind-{file_label(label)}.png")
-    png.parent.mkdir(parents=True, exist_ok=True)
-    io.check_writable(png, force=force)
+    plan_outputs([(png, "plot")], force=force)
     res = solve_bar(geometry, material, n_vertical=max(3, partials), n_lateral=0,
                     n_torsional=1 if torsion else 0)
     kinds = ("vertical", "torsional") if torsion else ("vertical",)
@@ -386,18 +390,20 @@ def grind_command(
     keep = [j for j, (k, o) in enumerate(gm.modes) if k == "vertical" or o == 1]
     io.write_bytes(png, grind_map_png(gm, geometry, title=f"{label}: grind map",
                                       cord_holes_m=res.vertical[0].nodes_m), force=force)
+    commit_outputs()
     if json_out:
         print_json({"bar": label, "band_m": gm.band_m, "removal_m": gm.removal_m,
                     "modes": [{"kind": gm.modes[j][0], "order": gm.modes[j][1],
                                "frequency_hz": gm.frequencies_hz[j]} for j in keep],
                     "stations": [{"x_m": x, "thickness_m": t,
                                   "cents": [gm.cents[i, j] for j in keep]}
-                                 for i, (x, t) in enumerate(zip(gm.x_m, gm.thickness_m))],
+                                 for i, (x, t) in enumerate(zip(gm.x_m, gm.thickness_m,
+                                                                 strict=True))],
                     "plot": str(png)})
         return
     heads = ["x mm", "thick mm"] + [f"{gm.modes[j][0][:4]} {gm.modes[j][1]} c" for j in keep]
     rows = [[f"{x * 1e3:.1f}", f"{t * 1e3:.2f}", *[f"{gm.cents[i, j]:+.3f}" for j in keep]]
-            for i, (x, t) in enumerate(zip(gm.x_m, gm.thickness_m))]
+            for i, (x, t) in enumerate(zip(gm.x_m, gm.thickness_m, strict=True))]
     typer.echo(f"{label}: cents per {removal_mm:g} mm removed over a {band_mm:g} mm band")
     typer.echo(format_table(heads, rows))
     typer.echo(f"plot: {png}")
@@ -418,7 +424,7 @@ def cutlist_command(
     force: Annotated[bool, typer.Option(help="Overwrite existing files.")] = False,
     json_out: Annotated[bool, typer.Option("--json", help="Print JSON on stdout.")] = False,
 ) -> None:
-    """The build sheet: length, undercut stations and cord holes for every bar.
+    """Write the build sheet: length, undercut stations and cord holes for every bar.
 
     Cord holes sit at the nodes of vertical mode 1 of the actual undercut bar.
     Station thicknesses are every 10 % of the length from the left end.
@@ -431,10 +437,8 @@ def cutlist_command(
 
     inst = load_instrument(preset)
     folder = out or default_output(preset, "")
-    folder.mkdir(parents=True, exist_ok=True)
     csv_path, png_path = folder / "cutlist.csv", folder / "profiles.png"
-    for p in (csv_path, png_path):
-        io.check_writable(p, force=force)
+    plan_outputs([(csv_path, "cut list"), (png_path, "profile sheet")], force=force)
     missing = [n for n in inst.notes if n not in inst.bars]
     if missing:
         raise ConfigError(f"bars.{missing[0]}: {len(missing)} bar(s) have no geometry; run "
@@ -447,6 +451,7 @@ def cutlist_command(
     io.write_bytes(png_path, profile_sheet_png(
         [(r.note, inst.bar(r.note), r.cord_holes_m) for r in rows],
         title=f"{inst.name}: bar profiles (circles: cord holes)"), force=force)
+    commit_outputs()
     if json_out:
         print_json({"bars": [r.__dict__ for r in rows], "csv": str(csv_path),
                     "png": str(png_path)})
@@ -483,7 +488,7 @@ def _q_cell(b, term: str) -> str:
 
 
 def _override(inst, family: str | None, venue_c: float | None):
-    """The preset with a command-line family or venue temperature (raw table too)."""
+    """Return the preset with a command-line family or venue temperature (raw table too)."""
     from dataclasses import replace
 
     from synth.physics.geometry import UNDERCUT_FAMILIES, UndercutFamily

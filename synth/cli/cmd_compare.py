@@ -17,7 +17,16 @@ from synth.cli.cmd_sound import (
     TubesOpt,
     parse_chord,
 )
-from synth.cli.common import Progress, format_table, handle_errors, info, print_json, warn
+from synth.cli.common import (
+    Progress,
+    commit_outputs,
+    format_table,
+    handle_errors,
+    info,
+    plan_outputs,
+    print_json,
+    warn,
+)
 from synth.errors import ConfigError
 
 MAX_TRIALS = 200
@@ -185,12 +194,8 @@ def compare_command(
     gap_samples = cmp.gap_samples(gap, sample_rate)  # checks the range before any work
 
     directory = out or Path("renders") / f"compare-{design_a.stem}-vs-{design_b.stem}"
-    if directory.exists() and not directory.is_dir():
-        raise ConfigError("exists and is not a folder", source=str(directory))
-    directory.mkdir(parents=True, exist_ok=True)
     planned = cmp.planned_files(directory, blind)
-    for p in planned:
-        io.check_writable(p, force=force)
+    plan_outputs(planned, force=force)
     stale = sorted(p.name for p in directory.glob("trial-*.wav") if p not in set(planned))
     if stale:
         warn(f"{directory} also holds {len(stale)} trial file(s) of an earlier run "
@@ -226,6 +231,7 @@ def compare_command(
                                                   gap_s=gap, designs=files,
                                                   sample_format=fmt, force=force,
                                                   settings=settings)
+    commit_outputs()
     if json_out:
         print_json({**record, "out_dir": str(directory),
                     "files": [str(p) for p in written] + [str(png), str(report)],

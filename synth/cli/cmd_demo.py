@@ -4,6 +4,8 @@ The demo instrument (presets/instruments/tarrow-37.toml) is invented: a
 three-octave F3-F6 instrument of 6061-T6 bars built by an invented shop for an
 invented client.  The demo writes only into its output folder (default
 ``renders/demo/``) and replaces the files it wrote there on an earlier run.
+Every file is planned before the first is written and all appear together at
+the end; a demo that fails or is stopped leaves none of them.
 """
 
 from __future__ import annotations
@@ -17,10 +19,40 @@ import numpy as np
 import typer
 
 from synth.cli import app
-from synth.cli.common import Progress, format_table, handle_errors, info
+from synth.cli.common import (
+    Progress,
+    commit_outputs,
+    format_table,
+    handle_errors,
+    info,
+    plan_outputs,
+)
 from synth.config import presets_dir
 
 DEMO_PRESET = "tarrow-37.toml"
+
+DEMO_WAVS = ("strike-A4.wav", "strike-A4-bare.wav", "strike-F3-motor.wav", "strike-C5-hard.wav",
+             "chord-F3-A4-C5-E6.wav", "harbour-waltz.wav")
+"""The renders of step 4, in order."""
+
+DEMO_TRIALS = 8
+"""Blind trials of step 6."""
+
+
+def demo_outputs(out: Path) -> list[tuple[Path, str]]:
+    """Return every file the demo writes into ``out``."""
+    from synth import io
+    from synth.reports.compare import planned_files
+
+    files = [(out / "cutlist.csv", "cut list"), (out / "profiles.png", "profile sheet")]
+    for name in DEMO_WAVS:
+        files += [(out / name, "WAV"), (io.sidecar_path(out / name), "settings sidecar")]
+    files += [(out / "sustain.csv", "table"), (out / "sustain.png", "plot"),
+              (out / "chord-decay.png", "plot")]
+    files += [(p, "comparison file") for p in planned_files(out / "compare", DEMO_TRIALS)]
+    files += [(out / "prototype-A4.wav", "recording"),
+              (out / "calibration-A4.toml", "calibration file")]
+    return files
 
 
 def demo_preset_path() -> Path:
@@ -45,7 +77,7 @@ def demo_command(
 
     path = demo_preset_path()
     inst = load_instrument(path)
-    out.mkdir(parents=True, exist_ok=True)
+    plan_outputs(demo_outputs(out), force=True)
     typer.echo(f"demo instrument: {inst.name} ({inst.description})")
     typer.echo(f"  {inst.raw.get('workshop', '')}; for {inst.raw.get('client', '')}")
     typer.echo(f"  {len(inst.notes)} bars {inst.notes[0]}-{inst.notes[-1]}, "
@@ -113,21 +145,21 @@ def demo_command(
     stereo = Voicer(inst, sample_rate=float(fs), channels=2)
     spinning = Voicer(inst, sample_rate=float(fs), channels=2, motor_rate_rev_per_s=3.0)
     bare = Voicer(inst, sample_rate=float(fs), channels=2, tubes=False)
+    a4, a4_bare, f3_motor, c5_hard, chord, waltz = DEMO_WAVS
     renders = [
-        ("strike-A4.wav", [stereo.strike_voice("A4", velocity=0.6)], 5.0, "A4, tubes on"),
-        ("strike-A4-bare.wav", [bare.strike_voice("A4", velocity=0.6)], 5.0,
-         "A4 without its tube"),
-        ("strike-F3-motor.wav", [spinning.strike_voice("F3", velocity=0.6)], 8.0,
+        (a4, [stereo.strike_voice("A4", velocity=0.6)], 5.0, "A4, tubes on"),
+        (a4_bare, [bare.strike_voice("A4", velocity=0.6)], 5.0, "A4 without its tube"),
+        (f3_motor, [spinning.strike_voice("F3", velocity=0.6)], 8.0,
          "F3 with the motor at 3 rev/s (6 pulses/s)"),
-        ("strike-C5-hard.wav", [stereo.strike_voice("C5", velocity=0.7, mallet="hard")], 4.0,
+        (c5_hard, [stereo.strike_voice("C5", velocity=0.7, mallet="hard")], 4.0,
          "C5 with a hard mallet"),
-        ("chord-F3-A4-C5-E6.wav", [stereo.strike_voice(n, time_s=0.02 * k, velocity=0.6)
-                                   for k, n in enumerate(("F3", "A4", "C5", "E6"))], 6.0,
+        (chord, [stereo.strike_voice(n, time_s=0.02 * k, velocity=0.6)
+                 for k, n in enumerate(("F3", "A4", "C5", "E6"))], 6.0,
          "F major-seventh spread, rolled 60 ms"),
     ]
     score = read_events(presets_dir() / "events" / "harbour-waltz.toml")
     passage = stereo.score_voices(score)
-    renders.append(("harbour-waltz.wav", passage, score.last_event_s + 1.0,
+    renders.append((waltz, passage, score.last_event_s + 1.0,
                     "a short passage (presets/events/harbour-waltz.toml)"))
     with Progress(len(renders), "rendering") as step:
         for name, voices, seconds, what in renders:
@@ -170,8 +202,8 @@ def demo_command(
 
     option = presets_dir() / "instruments" / "tarrow-37-7075.toml"
     typer.echo("6. for the client: 6061-T6 (A) against 7075-T6 (B), loudness-matched")
-    compare_command(design_a=path, design_b=option, out=out / "compare", blind=8, seed=37,
-                    force=True)
+    compare_command(design_a=path, design_b=option, out=out / "compare", blind=DEMO_TRIALS,
+                    seed=37, force=True)
     typer.echo("")
 
     # 7. Back from the shop: measure a prototype bar and pull the loss model onto it
@@ -190,4 +222,5 @@ def demo_command(
     recording = io.write_wav(out / "prototype-A4.wav", take, sample_rate=fs, force=True)
     measure_command(recording=recording, note="A4", calibrate=path,
                     out=out / "calibration-A4.toml", force=True)
+    commit_outputs()
     info(f"demo done: files in {out}")

@@ -14,7 +14,16 @@ from typing import Annotated
 import typer
 
 from synth.cli import app
-from synth.cli.common import EXIT_MISSED, format_table, handle_errors, missed, print_json, warn
+from synth.cli.common import (
+    EXIT_MISSED,
+    commit_outputs,
+    format_table,
+    handle_errors,
+    missed,
+    plan_outputs,
+    print_json,
+    warn,
+)
 from synth.errors import ConfigError, SynthError
 
 
@@ -129,7 +138,6 @@ def measure_command(
     factor is identifiable the command says so first and exits with code 3; it
     then writes the file (per-mode Q overrides) only with --keep-overrides.
     """
-    from synth.io import check_writable
     from synth.reports.measure import calibrate as fit_calibration
     from synth.reports.measure import measure_file, write_calibration
 
@@ -140,7 +148,7 @@ def measure_command(
         if note is None or out is None:
             raise ConfigError("needs --note (the note recorded) and --out (the calibration "
                               "file to write)", source="--calibrate")
-        check_writable(out, force=force)
+        plan_outputs([(out, "calibration file")], force=force)
         from synth.physics.instrument import load_instrument
 
         instrument = load_instrument(calibrate)
@@ -173,6 +181,7 @@ def measure_command(
                 "per-mode Q overrides instead)"))
         if keep_overrides or not fit.fallback:
             path = write_calibration(out, fit, force=force)
+            commit_outputs()  # before a non-zero exit, which discards uncommitted files
             rel = os.path.relpath(path, Path(calibrate).parent)
     for w in measurement.warnings + (fit.warnings if fit is not None else ()):
         warn(w)

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Annotated
 
@@ -10,11 +11,12 @@ import typer
 from synth.cli import app
 from synth.cli.common import (
     Progress,
+    commit_outputs,
     default_output,
-    file_label,
     format_table,
     handle_errors,
     parse_field,
+    plan_outputs,
     print_json,
 )
 
@@ -81,11 +83,9 @@ def sustain_command(
         check_target_curve(target_curve)
     inst = load_instrument(preset)
     notes = [inst.check_note(n) for n in note] if note else list(inst.notes)
-    folder = out or Path("renders") / preset.stem
-    folder.mkdir(parents=True, exist_ok=True)
+    folder = out or default_output(preset, "")
     csv_path, png_path = folder / "sustain.csv", folder / "sustain.png"
-    for p in (csv_path, png_path):
-        io.check_writable(p, force=force)
+    plan_outputs([(csv_path, "table"), (png_path, "plot")], force=force)
     v = Voicer(inst, sample_rate=48000.0, tubes=not no_tubes, motor_rate_rev_per_s=motor_rate,
                channels=1)
     curve = parse_target_curve(target_curve, notes) if target_curve else None
@@ -96,6 +96,7 @@ def sustain_command(
     io.write_bytes(csv_path, sustain_csv(rep).encode("utf-8"), force=force)
     io.write_bytes(png_path, sustain_png(rep, f"{inst.name}: sustain of the fundamental"),
                    force=force)
+    commit_outputs()
     if json_out:
         print_json({
             "target": rep.target_label, "tolerance_percent": rep.tolerance_percent,
@@ -150,35 +151,57 @@ def check_target_curve(text: str) -> None:
                     unit=" s", example=example)
 
 
-def chord_decay_report(preset: Path, voicer, items, velocity, mallet, roll_ms, duration, out,
-                       *, force: bool, json_out: bool, render: dict | None = None) -> None:
-    """Print the even-decay check of a chord and write its PNG (called by ``chord``).
+def decay_png_path(wav: Path) -> Path:
+    """Return where ``chord --check-decay`` draws its plot: beside the WAV, ``-decay.png``."""
+    base = wav.with_suffix("")
+    return base.parent / f"{base.name}-decay.png"
 
-    With ``json_out`` the one JSON document holds the check and, under ``"render"``,
-    the report of the WAV ``chord`` wrote.
-    """
-    from synth import io
-    from synth.reports.chord import chord_decay, chord_decay_png
+
+@dataclass
+class ChordDecayCheck:
+    """The even-decay check of a chord, computed before anything is written."""
+
+    result: object
+    png: Path
+    title: str
+
+    def write(self) -> None:
+        """Write the plot (into the running command's plan)."""
+        from synth import io
+        from synth.reports.chord import chord_decay_png
+
+        io.write_bytes(self.png, chord_decay_png(self.result, self.title), force=True)
+
+    def report(self, *, json_out: bool, render: dict | None = None) -> None:
+        """Print the decay per note and the balance over time.
+
+        With ``json_out`` the one JSON document holds the check and, under ``"render"``,
+        the report of the WAV ``chord`` wrote.
+        """
+        res, png = self.result, self.png
+        if json_out:
+            print_json({"render": render, "spread_db_per_s": res.spread_db_per_s, "times_s": list(res.times_s),
+                        "png": str(png),
+                        "notes": [{"note": n.note, "frequency_hz": n.frequency_hz,
+                                   "decay_db_per_s": n.decay_db_per_s, "t60_s": n.t60_s,
+                                   "balance_db": list(n.balance_db),
+                                   "warnings": list(n.warnings)}
+                                  for n in res.notes]})
+            return
+        typer.echo(format_table(
+            ["note", "f1 Hz", "decay dB/s", "T60 s", *[f"at {t:g} s dB" for t in res.times_s]],
+            [[n.note, f"{n.frequency_hz:.2f}", f"{n.decay_db_per_s:.2f}", f"{n.t60_s:.2f}",
+              *["-" if b != b else f"{b:+.1f}" for b in n.balance_db]] for n in res.notes],
+            title="decay of each note in its own band (balance: level re the loudest note)"))
+        typer.echo(f"spread of decay rates: {res.spread_db_per_s:.2f} dB/s; plot: {png}")
+
+
+def chord_decay_check(voicer, items, velocity, mallet, roll_ms, duration,
+                      png: Path) -> ChordDecayCheck:
+    """Track each note of the chord in its own band (called by ``chord`` before it writes)."""
+    from synth.reports.chord import chord_decay
 
     strengths = [(n, velocity if v is None else v) for n, v in items]
     res = chord_decay(voicer, strengths, mallet=mallet, roll_ms=roll_ms, seconds=duration)
-    base = out.with_suffix("") if out is not None else (
-        default_output(preset, "chord-" + "-".join(file_label(n) for n, _ in items)))
-    png = base.parent / f"{base.name}-decay.png"
-    io.write_bytes(png, chord_decay_png(res, f"{voicer.instrument.name}: "
-                                         + " ".join(n for n, _ in items)), force=force)
-    if json_out:
-        print_json({"render": render,
-                    "spread_db_per_s": res.spread_db_per_s, "times_s": list(res.times_s),
-                    "png": str(png),
-                    "notes": [{"note": n.note, "frequency_hz": n.frequency_hz,
-                               "decay_db_per_s": n.decay_db_per_s, "t60_s": n.t60_s,
-                               "balance_db": list(n.balance_db), "warnings": list(n.warnings)}
-                              for n in res.notes]})
-        return
-    typer.echo(format_table(
-        ["note", "f1 Hz", "decay dB/s", "T60 s", *[f"at {t:g} s dB" for t in res.times_s]],
-        [[n.note, f"{n.frequency_hz:.2f}", f"{n.decay_db_per_s:.2f}", f"{n.t60_s:.2f}",
-          *["-" if b != b else f"{b:+.1f}" for b in n.balance_db]] for n in res.notes],
-        title="decay of each note in its own band (balance: level re the loudest note)"))
-    typer.echo(f"spread of decay rates: {res.spread_db_per_s:.2f} dB/s; plot: {png}")
+    return ChordDecayCheck(res, png, f"{voicer.instrument.name}: "
+                           + " ".join(n for n, _ in items))

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import math
 import re
+from collections.abc import Callable
 from pathlib import Path
 from typing import Annotated
 
@@ -12,13 +13,16 @@ import typer
 from synth.cli import app
 from synth.cli.common import (
     Progress,
+    commit_outputs,
     default_output,
     file_label,
     handle_errors,
     info,
     parse_field,
+    plan_outputs,
     print_json,
     warn,
+    wav_targets,
 )
 from synth.errors import ConfigError
 
@@ -64,11 +68,19 @@ def _voicer(preset: Path, *, sample_rate: int, channels: int, no_tubes: bool,
                   motor_rate_rev_per_s=motor_rate, channels=channels)
 
 
+def _check_format(fmt: str) -> None:
+    from synth import io
+
+    if fmt not in io.SAMPLE_FORMATS:
+        raise ConfigError(f"= {fmt!r}: must be one of " + ", ".join(io.SAMPLE_FORMATS),
+                          source="--format")
+
+
 def _finish(preset: Path, name: str, out: Path | None, voices, seconds: float, *,
             voicer, sample_rate: int, channels: int, fmt: str, gain_db: float | None,
             force: bool, play: bool, json_out: bool, settings: dict,
-            report: bool = True) -> dict:
-    """Render, write the WAV and its sidecar, and print the report.
+            also_write: Callable[[], None] | None = None, report: bool = True) -> dict:
+    """Render to the WAV (planned with its sidecar), run ``also_write``, commit, report.
 
     Returns the report as a dict; ``report=False`` prints nothing, for a command that
     prints one JSON document of its own.
@@ -76,12 +88,9 @@ def _finish(preset: Path, name: str, out: Path | None, voices, seconds: float, *
     from synth import io
     from synth.output import HEARING_CAUTION, render_to_wav
 
-    if fmt not in io.SAMPLE_FORMATS:
-        raise ConfigError(f"= {fmt!r}: must be one of " + ", ".join(io.SAMPLE_FORMATS),
-                          source="--format")
+    _check_format(fmt)
     path = out or default_output(preset, f"{name}.wav")
-    if out is None:
-        path.parent.mkdir(parents=True, exist_ok=True)
+    plan_outputs(wav_targets(path), force=force)
     n = int(round(seconds * sample_rate))
     settings = {"preset": str(preset), "tubes": voicer.tubes_active,
                 "motor_rate_rev_per_s": voicer.motor.rate_rev_per_s, **settings}
@@ -97,6 +106,9 @@ def _finish(preset: Path, name: str, out: Path | None, voices, seconds: float, *
         rep = render_to_wav(path, voices, n, sample_rate=sample_rate, channels=channels,
                             sample_format=fmt, gain_db=gain_db, force=force, settings=settings,
                             progress=progress)
+    if also_write is not None:
+        also_write()
+    commit_outputs()
     plan = rep.plan
     if plan.would_clip:
         warn(f"--gain-db {plan.requested_gain_db:g} would clip (peak "
@@ -244,18 +256,25 @@ def chord_command(
         voices.append(v.strike_voice(name, time_s=rank * step,
                                      velocity=velocity if vel is None else vel, mallet=mallet))
     label = "-".join(file_label(n) for n, _ in items)
+    wav = out or default_output(preset, f"chord-{label}.wav")
+    decay = None
+    if check_decay:
+        from synth.cli.cmd_reports import chord_decay_check, decay_png_path
+
+        png = decay_png_path(wav)
+        _check_format(fmt)
+        plan_outputs([*wav_targets(wav), (png, "decay plot")], force=force)
+        decay = chord_decay_check(v, items, velocity, mallet, roll_ms, duration, png)
     record = _finish(
-            preset, f"chord-{label}", out, voices, duration, voicer=v, sample_rate=sample_rate,
+            preset, f"chord-{label}", wav, voices, duration, voicer=v, sample_rate=sample_rate,
             channels=channels, fmt=fmt, gain_db=gain_db, force=force, play=play,
             json_out=json_out, report=not (json_out and check_decay),
             settings={"command": "chord", "notes": [n for n, _ in items],
                       "strengths": [velocity if vel is None else vel for _, vel in items],
-                      "roll_ms": roll_ms, "mallet": mallet or v.sound.mallet})
-    if check_decay:
-        from synth.cli.cmd_reports import chord_decay_report
-
-        chord_decay_report(preset, v, items, velocity, mallet, roll_ms, duration, out,
-                           force=force, json_out=json_out, render=record)
+                      "roll_ms": roll_ms, "mallet": mallet or v.sound.mallet},
+            also_write=None if decay is None else decay.write)
+    if decay is not None:
+        decay.report(json_out=json_out, render=record)
 
 
 @app.command("render")

@@ -5,17 +5,20 @@ Only the ``synth.cli`` package prints or exits; everything below it returns data
 
 from __future__ import annotations
 
+import contextvars
 import functools
 import json
 import math
+import signal
 import sys
+import threading
 from collections.abc import Callable, Iterable, Sequence
 from pathlib import Path
 from typing import Any
 
 import typer
 
-from synth.cli.usage import EXIT_BAD_INPUT, EXIT_INTERRUPTED, EXIT_MISSED
+from synth.cli.usage import EXIT_BAD_INPUT, EXIT_INTERRUPTED, EXIT_MISSED, EXIT_TERMINATED
 from synth.errors import ConfigError, SynthError
 
 
@@ -25,18 +28,58 @@ def fail(message: str) -> typer.Exit:
     return typer.Exit(code=EXIT_BAD_INPUT)
 
 
+
+
+class Terminated(BaseException):
+    """A SIGTERM arrived; raised in the main thread so that unfinished files are removed."""
+
+
+_RUN_PLANS: contextvars.ContextVar[list | None] = contextvars.ContextVar(
+    "barwright_run_plans", default=None)
+
+
+def _on_sigterm(signum, frame) -> None:
+    signal.signal(signal.SIGTERM, signal.SIG_IGN)  # one is enough: let the cleanup finish
+    raise Terminated
+
+
 def handle_errors(func: Callable) -> Callable:
-    """Turn a SynthError raised by a command into one stderr line and exit code 2."""
+    """Run a command: a SynthError becomes one stderr line and exit code 2.
+
+    The files the command planned (:func:`plan_outputs`) are committed when it
+    returns and removed when it fails or is stopped (Ctrl-C, SIGTERM).
+    """
 
     @functools.wraps(func)
     def wrapper(*args, **kwargs):
+        outermost = _RUN_PLANS.get() is None
+        plans: list = []
+        token = _RUN_PLANS.set(plans)
+        previous = None
+        if outermost and threading.current_thread() is threading.main_thread():
+            previous = signal.signal(signal.SIGTERM, _on_sigterm)
         try:
-            return func(*args, **kwargs)
+            result = func(*args, **kwargs)
+            _commit(plans)
+            return result
         except SynthError as exc:
+            _discard(plans)
             raise fail(str(exc)) from None
         except KeyboardInterrupt:
-            typer.echo("barwright: interrupted", err=True)
+            _discard(plans)
+            typer.echo("barwright: interrupted; unfinished files removed", err=True)
             raise typer.Exit(code=EXIT_INTERRUPTED) from None
+        except Terminated:
+            _discard(plans)
+            typer.echo("barwright: terminated; unfinished files removed", err=True)
+            raise typer.Exit(code=EXIT_TERMINATED) from None
+        except BaseException:
+            _discard(plans)
+            raise
+        finally:
+            _RUN_PLANS.reset(token)
+            if previous is not None:
+                signal.signal(signal.SIGTERM, previous)
 
     return wrapper
 
@@ -88,6 +131,69 @@ def parse_field(text: str, *, option: str, value: str, lo: float, hi: float,
     return number
 
 
+def _commit(plans: list) -> None:
+    while plans:
+        plans[0].commit()
+        plans.pop(0)
+
+
+def _discard(plans: list) -> None:
+    for plan in plans:
+        plan.discard()
+    plans.clear()
+
+
+def plan_outputs(targets: Iterable[Any], *, force: bool):
+    """Check every file the running command will write, before it writes any.
+
+    ``targets`` are paths or (path, what) pairs (see :class:`synth.io.OutputPlan`).
+    A problem with any of them raises AudioError (one line, exit 2) and nothing is
+    written.  Otherwise the folders are made, temporaries left there by killed runs
+    are removed (and listed on stderr), and every write goes to a temporary until
+    the command ends: :func:`commit_outputs`, or the return of the command, puts
+    the files in place; an error or an interrupt removes them.  A command run by
+    another one (``demo``) writes within the caller's plan, which must hold its
+    files.
+    """
+    from synth import io
+
+    targets = list(targets)
+    active = io.active_plan()
+    if active is not None:
+        active.require(t if isinstance(t, str | Path) else t[0] for t in targets)
+        return active
+    plan = io.OutputPlan(targets, force=force)
+    plan.open()
+    plans = _RUN_PLANS.get()
+    if plans is None:
+        plan.discard()
+        raise RuntimeError("plan_outputs is for commands wrapped in handle_errors")
+    plans.append(plan)
+    by_folder: dict[Path, list] = {}
+    for path, size in plan.removed:
+        by_folder.setdefault(path.parent, []).append((path, size))
+    for folder, files in by_folder.items():
+        total = sum(s for _, s in files)
+        info(f"barwright: removed {len(files)} unfinished file(s) ({total / 1e6:.1f} MB) "
+             f"left in {folder} by runs that were killed: "
+             + ", ".join(p.name for p, _ in files))
+    return plan
+
+
+def commit_outputs() -> None:
+    """Put the running command's planned files in place now (before saying so)."""
+    plans = _RUN_PLANS.get()
+    if plans:
+        _commit(plans)
+
+
+def wav_targets(path: Path) -> list[tuple[Path, str]]:
+    """Return the files of a render: the WAV and its settings sidecar."""
+    from synth import io
+
+    return [(path, "WAV"), (io.sidecar_path(path), "settings sidecar")]
+
+
 def warn(message: str) -> None:
     """Print a warning line on stderr."""
     typer.echo(f"barwright: warning: {message}", err=True)
@@ -104,7 +210,7 @@ def default_output(file: Path, name: str) -> Path:
 
 
 def file_label(label: str) -> str:
-    """A bar or note label as part of a file name (F#4 -> Fs4, spaces to underscores)."""
+    """Return a bar or note label as part of a file name (F#4 -> Fs4, spaces to _)."""
     return label.replace(" ", "_").replace("#", "s")
 
 

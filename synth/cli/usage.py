@@ -23,6 +23,9 @@ EXIT_BAD_INPUT = 2
 EXIT_MISSED = 3
 """The job ran but its result misses what was asked (e.g. a bar outside tolerance)."""
 EXIT_INTERRUPTED = 130
+"""Exit code after Ctrl-C (128 + SIGINT)."""
+EXIT_TERMINATED = 143
+"""Exit code after a SIGTERM (128 + SIGTERM)."""
 
 
 def _exception_modules() -> list[types.ModuleType]:
