@@ -43,7 +43,7 @@ from typing import Any, Final
 
 import numpy as np
 
-from synth.config import Section, load_toml, presets_dir
+from synth.config import LIMITS, Section, find_preset, load_toml, one_line, presets_dir
 from synth.errors import ConfigError, ModelError
 from synth.numerics import beta_function, bracketed_root
 
@@ -62,11 +62,12 @@ __all__ = [
     "simulate_contact",
 ]
 
-EXPONENT_RANGE: Final[tuple[float, float]] = (1.0, 5.0)
+EXPONENT_RANGE: Final[tuple[float, float]] = (LIMITS["mallet.exponent"].lo,
+                                              LIMITS["mallet.exponent"].hi)
 """Allowed contact-law exponents p (inclusive): 1 is a linear spring, 3/2 Hertz,
 2-3.5 felt and yarn (Stulov 1995, from memory); above 5 is no known head material."""
 
-MASS_LIMIT_KG: Final[float] = 2.0
+MASS_LIMIT_KG: Final[float] = LIMITS["mallet.mass_kg"].hi
 """Largest head mass accepted, kg.  Real heads weigh grams to tens of grams; the
 limit catches a mass typed in grams where kilograms are asked for."""
 
@@ -149,13 +150,8 @@ class Mallet:
 
 
 def _check_values(sec: Section) -> dict[str, float]:
-    lo, hi = EXPONENT_RANGE
-    return {
-        "mass_kg": sec.number("mass_kg", gt=0.0, le=MASS_LIMIT_KG, unit="kg"),
-        "stiffness": sec.number("stiffness", gt=0.0, unit="N/m^p"),
-        "exponent": sec.number("exponent", ge=lo, le=hi),
-        "loss_s_per_m": sec.number("loss_s_per_m", ge=0.0, unit="s/m"),
-    }
+    # ranges: synth.config.LIMITS["mallet.*"]
+    return {k: sec.number(k, limit=f"mallet.{k}") for k in _KEYS}
 
 
 def mallet_names() -> list[str]:
@@ -177,7 +173,7 @@ def _from_section(sec: Section, name: str, *, preset: bool) -> Mallet:
     if src is not None:
         src.check_keys(_KEYS)
         for key, text in src.data.items():
-            if not isinstance(text, str) or not text.strip():
+            if not isinstance(text, str) or not src.string(key).strip():
                 raise src.error(key, "must be a non-empty string naming the source")
             source[key] = text
     if preset:
@@ -231,19 +227,16 @@ def load_mallet(
         )
     text = os.fspath(spec)
     folder = presets_dir() / "mallets"
-    path = folder / f"{text}.toml"
-    bundled = True
-    if not (isinstance(spec, str) and path.is_file()):
-        path = Path(text)
-        bundled = path.resolve().parent == folder.resolve()
-        if path.suffix != ".toml" or not path.exists():
-            raise ConfigError(
-                f"= {text!r}: unknown mallet; available: "
-                + ", ".join(mallet_names())
-                + " (or the path of a .toml file)",
-                source=source or None,
-                key=key,
-            )
+    path = find_preset(text, "mallets") if isinstance(spec, str) else Path(text)
+    if path is None or path.suffix != ".toml" or not path.is_file():
+        raise ConfigError(
+            f"= {one_line(repr(text), 60)}: unknown mallet; available: "
+            + ", ".join(mallet_names())
+            + " (or the path of a .toml file)",
+            source=source or None,
+            key=key,
+        )
+    bundled = path.resolve().parent == folder.resolve()
     data = load_toml(path)
     return _from_section(Section(data, str(path)), path.stem, preset=bundled)
 
