@@ -17,11 +17,11 @@ from __future__ import annotations
 
 import math
 import os
+import re
 import tomllib
 from collections.abc import Iterable, Mapping
-from pathlib import Path
-import re
 from dataclasses import dataclass
+from pathlib import Path
 from typing import Any, Final
 
 from synth.errors import ConfigError

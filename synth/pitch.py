@@ -51,7 +51,7 @@ def note_to_midi(name: str) -> int:
     """
     m = _NOTE_RE.match(name) if isinstance(name, str) and len(name) <= 12 else None
     if not m:
-        shown = repr(name) if not isinstance(name, str) or len(name) <= 12 else repr(name[:12] + "...")
+        shown = repr(name if not isinstance(name, str) or len(name) <= 12 else name[:12] + "...")
         raise ConfigError(
             f"unknown note {shown}: write a letter A-G, optional # or b, and an octave "
             "0-9, e.g. A4, F#5, Bb3"

@@ -58,8 +58,10 @@ __all__ = [
     "load_mallet",
     "mallet_names",
     "mode_excitation",
+    "parse_sound",
     "rigid_contact",
     "simulate_contact",
+    "SoundSettings",
 ]
 
 EXPONENT_RANGE: Final[tuple[float, float]] = (LIMITS["mallet.exponent"].lo,
@@ -152,6 +154,56 @@ class Mallet:
 def _check_values(sec: Section) -> dict[str, float]:
     # ranges: synth.config.LIMITS["mallet.*"]
     return {k: sec.number(k, limit=f"mallet.{k}") for k in _KEYS}
+
+
+@dataclass(frozen=True)
+class SoundSettings:
+    """How the instrument is played by default (``[sound]`` table)."""
+
+    mallet: str = "medium"
+    position: float = 0.45
+    across: float = 0.0
+    speed_min_m_s: float = 0.3
+    speed_max_m_s: float = 3.0
+    damper_t60_s: float = 0.25
+    pan_width: float = 0.8
+    listening_distance_m: float = 1.0
+
+    def speed_of(self, velocity: float) -> float:
+        """Mallet speed for a strength 0..1 (geometric between the two limits)."""
+        v = min(max(float(velocity), 0.0), 1.0)
+        return self.speed_min_m_s * (self.speed_max_m_s / self.speed_min_m_s) ** v
+
+
+def parse_sound(sec: Section | None) -> SoundSettings:
+    """Read a preset's ``[sound]`` table (every key optional)."""
+    if sec is None:
+        return SoundSettings()
+    sec.check_keys({"mallet", "position", "across", "speed_min_m_s", "speed_max_m_s",
+                    "damper_t60_s", "pan_width", "listening_distance_m"})
+    lo = sec.number("speed_min_m_s", 0.3, limit="mallet.speed_m_s")
+    hi = sec.number("speed_max_m_s", 3.0, limit="mallet.speed_m_s")
+    if hi < lo:
+        raise sec.error("speed_max_m_s", "must be >= speed_min_m_s")
+    return SoundSettings(
+        mallet=_mallet_name(sec),
+        position=sec.number("position", 0.45, limit="strike.position"),
+        across=sec.number("across", 0.0, limit="strike.across"),
+        speed_min_m_s=lo, speed_max_m_s=hi,
+        damper_t60_s=sec.number("damper_t60_s", 0.25, limit="sound.damper_t60_s"),
+        pan_width=sec.number("pan_width", 0.8, limit="sound.pan_width"),
+        listening_distance_m=sec.number("listening_distance_m", 1.0,
+                                        limit="sound.listening_distance_m"),
+    )
+
+
+def _mallet_name(sec: Section) -> str:
+    """The ``mallet`` key of a table: a preset name or the path of a .toml file."""
+    name = sec.string("mallet", "medium")
+    if find_preset(name, "mallets") is None:
+        raise sec.error("mallet", "unknown mallet; available: " + ", ".join(mallet_names())
+                        + " (or the path of a .toml file)")
+    return name
 
 
 def mallet_names() -> list[str]:

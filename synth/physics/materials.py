@@ -101,7 +101,7 @@ def _from_section(sec: Section, name: str, *, inline: bool) -> Material:
     source: dict[str, str] = {}
     src = sec.section("source", None)
     if src is not None:
-        for key, text in src.data.items():
+        for key in src.data:
             source[key] = src.string(key)
     fallback = None
     for key in OPTIONAL:
