@@ -249,8 +249,11 @@ def _strike_of(sec: Section, seconds_per_beat: float | None) -> Strike:
 
 def _tables(top: Section, name: str) -> list[Section]:
     value = top.data.get(name, [])
-    if not isinstance(value, list) or not all(isinstance(v, dict) for v in value):
+    if not isinstance(value, list):
         raise top.error(name, f"must be an array of tables, written [[{name}]]")
+    for i, v in enumerate(value):
+        if not isinstance(v, dict):
+            raise top.error(f"{name}[{i}]", f"must be a table, written [[{name}]]")
     count = sum(len(v) for v in top.data.values() if isinstance(v, list))
     if count > MAX_EVENTS:
         raise ConfigError(f"holds {count} strikes and pedal changes; allowed: up to "

@@ -235,6 +235,7 @@ def _bar_file(sec: Section) -> BarFile:
     material = load_material(sec._get("material", None) or _missing(sec, "material"),
                              source=sec.source, key="material")
     geometry = parse_geometry(sec)
+    sec.string("description", "")
     note = sec.string("note", None)
     if note is not None:
         try:
@@ -285,6 +286,8 @@ def _instrument(sec: Section, data: dict) -> Instrument:
 
     usec = sec.section("undercut", None)
     family = parse_family(usec) if usec is not None else None
+    for key in ("workshop", "client"):   # free text, shown by `barwright demo`
+        sec.string(key, "")
 
     bars: dict[str, BarGeometry] = {}
     tube_lengths: dict[str, float] = {}

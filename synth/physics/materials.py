@@ -10,6 +10,7 @@ the values of 6061-T6 aluminium and say so in ``source``.
 from __future__ import annotations
 
 import math
+import os
 from dataclasses import dataclass, field, replace
 from typing import Any
 
@@ -129,7 +130,8 @@ def _from_section(sec: Section, name: str, *, inline: bool) -> Material:
     )
 
 
-def load_material(spec: str | dict, *, source: str = "", key: str = "material") -> Material:
+def load_material(spec: str | os.PathLike[str] | dict, *, source: str = "",
+                  key: str = "material") -> Material:
     """Return a Material from a preset name, a TOML path or an inline table.
 
     Parameters
@@ -143,6 +145,8 @@ def load_material(spec: str | dict, *, source: str = "", key: str = "material") 
     """
     if isinstance(spec, dict):
         return _from_section(Section(spec, source or "<inline>", key), "inline", inline=True)
+    if isinstance(spec, os.PathLike):
+        spec = os.fspath(spec)
     if not isinstance(spec, str):
         raise ConfigError(
             f"= {spec!r}: must be a material name or an inline table", source=source or None,
