@@ -222,8 +222,8 @@ def _check_depth(data: Any, source: str) -> None:
     while stack:
         value, depth = stack.pop()
         if depth > MAX_DEPTH:
-            raise ConfigError(f"nested {depth} levels deep; allowed: up to {MAX_DEPTH} levels "
-                              "of tables and arrays", source=source)
+            raise ConfigError(f"nested more than {MAX_DEPTH} levels deep; allowed: up to "
+                              f"{MAX_DEPTH} levels of tables and arrays", source=source)
         if isinstance(value, dict):
             stack.extend((v, depth + 1) for v in value.values())
         elif isinstance(value, list):

@@ -11,12 +11,10 @@ the key.  Nothing else may escape.  The loops stop at load: no bar is solved.
 
 from __future__ import annotations
 
-import io
 import math
 import tempfile
 from pathlib import Path
 
-import mido
 import mutate
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
@@ -110,43 +108,8 @@ def _bounded(score: Score) -> None:
 
 
 # --------------------------------------------------------------------------- MIDI
-_MESSAGES = st.one_of(
-    st.builds(lambda n, v, t: mido.Message("note_on", note=n, velocity=v, time=t),
-              st.integers(0, 127), st.integers(0, 127), st.integers(0, 0x0FFFFFFF)),
-    st.builds(lambda n, t: mido.Message("note_off", note=n, time=t),
-              st.integers(0, 127), st.integers(0, 5000)),
-    st.builds(lambda v, t: mido.Message("control_change", control=64, value=v, time=t),
-              st.integers(0, 127), st.integers(0, 5000)),
-    st.builds(lambda us, t: mido.MetaMessage("set_tempo", tempo=us, time=t),
-              st.integers(0, 0xFFFFFF), st.integers(0, 5000)),
-)
-
-
-@st.composite
-def midi_bytes(draw) -> bytes:
-    """A MIDI file: built by mido from drawn messages, then perhaps damaged."""
-    midi = mido.MidiFile(type=draw(st.sampled_from([0, 1])),
-                         ticks_per_beat=draw(st.sampled_from([1, 96, 480, 0x7FFF])))
-    track = mido.MidiTrack(draw(st.lists(_MESSAGES, max_size=12)))
-    midi.tracks.append(track)
-    buf = io.BytesIO()
-    midi.save(file=buf)
-    data = bytearray(buf.getvalue())
-    how = draw(st.sampled_from(["keep", "type", "flip", "cut", "junk"]))
-    if how == "type":
-        data[8:10] = draw(st.integers(0, 0xFFFF)).to_bytes(2, "big")
-    elif how == "flip" and data:
-        i = draw(st.integers(0, len(data) - 1))
-        data[i] = draw(st.integers(0, 255))
-    elif how == "cut":
-        data = data[: draw(st.integers(0, len(data)))]
-    elif how == "junk":
-        data = bytearray(draw(st.binary(max_size=64)))
-    return bytes(data)
-
-
 @CASES
-@given(midi_bytes())
+@given(mutate.midi_bytes())
 def test_midi_bytes(data: bytes) -> None:
     file = _DIR / "passage.mid"
     file.write_bytes(data)
