@@ -62,19 +62,19 @@ class Limit:
     hi_open: bool = False
 
     def allows(self, value: float) -> bool:
-        """True if ``value`` lies in the range."""
+        """Tell whether ``value`` lies in the range."""
         above = value > self.lo if self.lo_open else value >= self.lo
         below = value < self.hi if self.hi_open else value <= self.hi
         return above and below
 
     def text(self) -> str:
-        """The range as written in messages: ``0.02 to 3 m``."""
+        """Return the range as written in messages: ``0.02 to 3 m``."""
         lo = f"{self.lo:g}" + (" (excluded)" if self.lo_open else "")
         hi = f"{self.hi:g}" + (" (excluded)" if self.hi_open else "")
         return f"{lo} to {hi}" + (f" {self.unit}" if self.unit else "")
 
     def problem(self, value: float) -> str:
-        """What is wrong with a value outside the range."""
+        """Say what is wrong with a value outside the range."""
         too_small = value < self.lo or (self.lo_open and value == self.lo)
         return "too small" if too_small else "too large"
 
@@ -237,7 +237,7 @@ def one_line(text: str, limit: int = 200) -> str:
 
 
 def key_text(name: Any) -> str:
-    """A key as shown in messages: bare keys as they are, others quoted and cut short."""
+    """Return a key as shown in messages: bare keys as they are, others quoted, cut short."""
     name = str(name)
     if _BARE_KEY_RE.match(name):
         return name
@@ -258,7 +258,7 @@ def check_name(value: Any, source: str | None, key: str, what: str) -> str:
 
 
 def find_preset(spec: str, folder: str) -> Path | None:
-    """The file a preset name or a TOML path stands for, or None if there is none.
+    """Return the file a preset name or a TOML path stands for, or None if none.
 
     A name (see :func:`check_name`) is looked up in ``presets/<folder>``; anything
     else must be the path of an existing ``.toml`` file.  A name is checked for its
@@ -278,7 +278,7 @@ def find_preset(spec: str, folder: str) -> Path | None:
 
 
 def is_name(value: Any) -> bool:
-    """True if ``value`` has the form of a preset name (see :func:`check_name`)."""
+    """Tell whether ``value`` has the form of a preset name (see :func:`check_name`)."""
     return isinstance(value, str) and bool(_NAME_RE.match(value))
 
 

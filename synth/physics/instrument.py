@@ -146,7 +146,8 @@ class Instrument:
             raise ConfigError(exc.detail, source=option) from None
         if name not in self.notes:
             raise ConfigError(
-                f"= {note!r}: not in this instrument's range {self.notes[0]}..{self.notes[-1]}",
+                f"= {note!r}: not in this instrument's range; allowed: {self.notes[0]} to "
+                f"{self.notes[-1]}",
                 source=self.source, key=option,
             )
         return name

@@ -198,7 +198,7 @@ def parse_sound(sec: Section | None) -> SoundSettings:
 
 
 def _mallet_name(sec: Section) -> str:
-    """The ``mallet`` key of a table: a preset name or the path of a .toml file."""
+    """Return the ``mallet`` key of a table: a preset name or a .toml path."""
     name = sec.string("mallet", "medium")
     if find_preset(name, "mallets") is None:
         raise sec.error("mallet", "unknown mallet; available: " + ", ".join(mallet_names())

@@ -114,7 +114,8 @@ def test_malformed_toml_is_a_config_error(tmp_path: Path) -> None:
 
 def test_direct_construction_is_checked_too() -> None:
     good = Mallet("ok", 0.03, 1e7, 1.5, 0.1)
-    with pytest.raises(ConfigError, match=re.escape("mallet 'ok': exponent = 7: too large; allowed: 1 to 5")):
+    rule = "mallet 'ok': exponent = 7: too large; allowed: 1 to 5"
+    with pytest.raises(ConfigError, match=re.escape(rule)):
         replace(good, exponent=7.0)
     with pytest.raises(ConfigError, match="mass_kg"):
         Mallet("x", 0.0, 1e7, 1.5, 0.1)
