@@ -201,6 +201,8 @@ def load_toml(path: str | os.PathLike[str]) -> dict[str, Any]:
         raise ConfigError("is not UTF-8 text, expected a TOML file", source=str(p)) from None
     except OSError as exc:
         raise ConfigError(f"cannot be read ({exc.strerror})", source=str(p)) from None
+    except ValueError:   # a NUL byte in the name
+        raise ConfigError("is not a usable file name", source=repr(str(p))) from None
     return parse_toml(text, str(p))
 
 

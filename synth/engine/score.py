@@ -321,11 +321,13 @@ def read_midi(path: str | os.PathLike[str]) -> Score:
     p = Path(path)
     source = str(p)
     try:
-        is_file, size = p.is_file(), (p.stat().st_size if p.is_file() else 0)
-    except (OSError, ValueError):
-        is_file, size = False, 0
+        is_file, is_dir = p.is_file(), p.is_dir()
+        size = p.stat().st_size if is_file else 0
+    except (OSError, ValueError) as exc:   # a name too long, a NUL byte
+        raise ConfigError(f"cannot be read ({getattr(exc, 'strerror', None) or exc})",
+                          source=repr(source)) from None
     if not is_file:
-        raise ConfigError("is a folder, expected a MIDI file" if p.is_dir() else
+        raise ConfigError("is a folder, expected a MIDI file" if is_dir else
                           "file not found", source=source)
     if size > MAX_FILE_BYTES:
         raise ConfigError(f"is {size} bytes; allowed: up to {MAX_FILE_BYTES} bytes",

@@ -339,3 +339,9 @@ def test_every_number_read_from_a_file_names_its_range(module: str) -> None:
             prefix = "".join(v.value for v in kws["limit"].values if isinstance(v, ast.Constant))
             assert any(n.startswith(prefix) for n in LIMITS), (module, node.lineno)
     assert seen, f"{module} reads no numbers"
+
+
+@pytest.mark.parametrize("name", ["a\x00b", "y" * 5000])
+def test_unusable_file_names(name: str) -> None:
+    for reader, suffix in ((load_toml, ".toml"), (read_midi, ".mid"), (read_events, ".mid")):
+        refused(lambda r=reader, s=suffix: r(name + s))
