@@ -102,6 +102,7 @@ def _from_section(sec: Section, name: str, *, inline: bool) -> Material:
     source: dict[str, str] = {}
     src = sec.section("source", None)
     if src is not None:
+        src.check_keys({*REQUIRED, *OPTIONAL})
         for key in src.data:
             source[key] = src.string(key)
     fallback = None
