@@ -152,6 +152,16 @@ def test_a_flat_spelt_tube_override_is_used(tmp_path: Path) -> None:
     assert voicer.tube_spec("B3").length_m != 0.1   # the neighbour keeps its solved length
 
 
+def test_a_flat_spelt_bar_keeps_its_tube_in_the_tuned_preset(tmp_path: Path) -> None:
+    from synth.physics.tuning import tuned_preset
+
+    text = DEMO.read_text(encoding="utf-8").replace('[bars."A#3"', "[bars.Bb3")
+    p = write(tmp_path, text.replace("[bars.Bb3]\n", "[bars.Bb3]\ntube = { length_m = 0.1 }\n"),
+              "preset.toml")
+    bars = tuned_preset(load_design(p), [])["bars"]
+    assert "Bb3" not in bars and bars["A#3"]["tube"] == {"length_m": 0.1}
+
+
 def test_the_same_bar_spelt_twice_is_refused(tmp_path: Path) -> None:
     text = DEMO.read_text(encoding="utf-8") + "\n[bars.Bb3]\nlength_m = 0.3\n"
     p = write(tmp_path, text, "preset.toml")
