@@ -27,7 +27,7 @@ _BARE = re.compile(r"^[A-Za-z0-9_.#\[\]-]{1,64}$")
 
 
 def load(relative: str) -> dict:
-    """A demo file of ``presets/`` parsed."""
+    """Parse a demo file of ``presets/``."""
     return tomllib.loads((PRESETS / relative).read_text(encoding="utf-8"))
 
 
@@ -46,7 +46,7 @@ def paths(doc: Any, prefix: tuple = ()) -> list[tuple]:
 
 
 def key_of(path: tuple) -> str:
-    """The dotted key a message uses for ``path``: ``strike[2].velocity``."""
+    """Return the dotted key a message uses for ``path``: ``strike[2].velocity``."""
     text = ""
     for part in path:
         if isinstance(part, int):
@@ -58,7 +58,7 @@ def key_of(path: tuple) -> str:
 
 
 def put(doc: dict, path: tuple, value: Any) -> dict:
-    """A copy of ``doc`` with ``value`` at ``path`` (``DELETE`` removes it)."""
+    """Return a copy of ``doc`` with ``value`` at ``path`` (``DELETE`` removes it)."""
     out = copy.deepcopy(doc)
     node = out
     for part in path[:-1]:
@@ -74,7 +74,7 @@ DELETE = object()
 
 
 def nested(depth: int) -> dict:
-    """A table nested ``depth`` deep."""
+    """Return a table nested ``depth`` deep."""
     value: Any = 1.0
     for _ in range(depth):
         value = {"t": value}
@@ -145,7 +145,7 @@ def write(path: Path, doc: dict) -> Path:
 
 
 def check_error(exc: BaseException, source: Path, path: tuple, surely_bad: bool) -> None:
-    """The reader's promise for one refused file: one line, the file, the key."""
+    """Check the reader's promise for one refused file: one line, the file, the key."""
     text = str(exc)
     assert "\n" not in text and "\r" not in text, text
     assert len(text) < 600, text
@@ -175,7 +175,7 @@ _MESSAGES = st.one_of(
 
 @st.composite
 def midi_bytes(draw) -> bytes:
-    """A MIDI file: built by mido from drawn messages, then perhaps damaged."""
+    """Draw a MIDI file: built by mido from drawn messages, then perhaps damaged."""
     midi = mido.MidiFile(type=draw(st.sampled_from([0, 1])),
                          ticks_per_beat=draw(st.sampled_from([1, 96, 480, 0x7FFF])))
     track = mido.MidiTrack(draw(st.lists(_MESSAGES, max_size=12)))

@@ -51,7 +51,7 @@ def write(tmp_path: Path, text: str, name: str) -> Path:
 
 
 def preset_with(tmp_path: Path, extra_in_a4: str = "", tail: str = "") -> Path:
-    """The demo preset with lines added to [bars.A4] and at the end."""
+    """Write the demo preset with lines added to [bars.A4] and at the end."""
     text = DEMO.read_text(encoding="utf-8")
     text = text.replace("[bars.A4]\n", "[bars.A4]\n" + extra_in_a4 + "\n", 1)
     return write(tmp_path, text + "\n" + tail, "preset.toml")
