@@ -2,8 +2,12 @@
 
 Everything a user writes (bar files, instrument presets, material, mallet and event
 files) is read through :class:`Section`, which checks type, range and unknown keys
-and raises :class:`~synth.errors.ConfigError` with a message of the form
-``file: key = value: what is wrong, what is allowed``.
+and raises :class:`~synth.errors.ConfigError` with one line of the form
+``file: key = value: what is wrong; allowed: lo to hi unit``.
+
+Every number a file may hold has its physical range in :data:`LIMITS`, stated once
+with its unit and where the bound comes from; readers name the range they apply
+(``sec.number("length_m", limit="bar.length_m")``).
 
 The typed dataclasses built from these sections live next to the models that use
 them (for example :mod:`synth.physics.geometry`); this module only knows TOML.
@@ -13,14 +17,156 @@ from __future__ import annotations
 
 import math
 import os
+import re
 import tomllib
 from collections.abc import Iterable, Mapping
+from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
+from typing import Any, Final
 
 from synth.errors import ConfigError
 
 _MISSING = object()
+
+MAX_FILE_BYTES: Final[int] = 16 * 1024 * 1024
+"""Largest input file read (16 MiB): presets and event lists are a few kB."""
+
+MAX_DEPTH: Final[int] = 16
+"""Deepest nesting of tables and arrays in a TOML input (presets use 4)."""
+
+MAX_STRING_CHARS: Final[int] = 2000
+"""Longest text value (names, descriptions, sources)."""
+
+MAX_SCORE_S: Final[float] = 4 * 3600.0
+"""Longest passage: event times, releases and render lengths end within 4 hours."""
+
+MAX_EVENTS: Final[int] = 20_000
+"""Most note and pedal events in one event list or MIDI file."""
+
+_NAME_RE = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_-]{0,63}$")
+_BARE_KEY_RE = re.compile(r"^[A-Za-z0-9_.#\[\]-]{1,64}$")
+
+
+@dataclass(frozen=True)
+class Limit:
+    """The allowed range of one setting: ``lo <= value <= hi`` in ``unit``.
+
+    ``lo_open`` / ``hi_open`` exclude the end itself (a length of exactly 0, a
+    Poisson ratio of exactly 0.5).
+    """
+
+    lo: float
+    hi: float
+    unit: str = ""
+    lo_open: bool = False
+    hi_open: bool = False
+
+    def allows(self, value: float) -> bool:
+        """Tell whether ``value`` lies in the range."""
+        above = value > self.lo if self.lo_open else value >= self.lo
+        below = value < self.hi if self.hi_open else value <= self.hi
+        return above and below
+
+    def text(self) -> str:
+        """Return the range as written in messages: ``0.02 to 3 m``."""
+        lo = f"{self.lo:g}" + (" (excluded)" if self.lo_open else "")
+        hi = f"{self.hi:g}" + (" (excluded)" if self.hi_open else "")
+        return f"{lo} to {hi}" + (f" {self.unit}" if self.unit else "")
+
+    def problem(self, value: float) -> str:
+        """Say what is wrong with a value outside the range."""
+        too_small = value < self.lo or (self.lo_open and value == self.lo)
+        return "too small" if too_small else "too large"
+
+
+# Every range is generous but finite: wide enough for any real bar, tube, mallet or
+# passage, narrow enough that no model overflows or runs without end.  Where a bound
+# is a property of matter it comes from handbook tables of engineering solids (from
+# memory: ASM Handbook Vols. 1-2 and materials tables of the Kaye & Laby kind); the
+# rest are common practice of the trade, no source, widened by a factor of several.
+LIMITS: Final[dict[str, Limit]] = {
+    # -- bars (bar files, [bars.*], [blank]): from a glockenspiel's 2 cm to a bass
+    # bar's 1.5 m, widened; common practice, no source
+    "bar.length_m": Limit(0.02, 3.0, "m"),
+    "bar.width_m": Limit(0.005, 0.5, "m"),
+    "bar.thickness_m": Limit(0.001, 0.2, "m"),
+    "bar.min_thickness_m": Limit(0.0001, 0.2, "m"),
+    # arch undercuts: sizes of the same bars (the fit to the bar is checked after)
+    "undercut.depth_m": Limit(0.0, 0.2, "m", lo_open=True),
+    "undercut.span_m": Limit(0.0, 3.0, "m", lo_open=True),
+    "undercut.center_m": Limit(0.0, 3.0, "m", lo_open=True),
+    "undercut.flat_m": Limit(0.0, 3.0, "m"),
+    "undercut.exponent": Limit(1.0, 12.0),
+    # the tuner's undercut family (fractions of the bar)
+    "family.flat_fraction": Limit(0.0, 0.95, hi_open=True),
+    "family.span_fraction": Limit(0.1, 0.98, lo_open=True),
+    "family.depth_fraction": Limit(0.0, 1.0, lo_open=True),
+    "family.smoothness": Limit(0.0, 1e6),
+    # -- tuning: A4 between 380 and 480 Hz covers baroque to the sharpest orchestras;
+    # the shop between -20 and 50 C (common practice, no source)
+    "reference_pitch_hz": Limit(380.0, 480.0, "Hz"),
+    "temperature_c": Limit(-20.0, 50.0, "C"),
+    # overtone ratios of the first few vertical partials (uniform bar: 2.76, 5.40, ...)
+    "target_ratio": Limit(1.0, 100.0),
+    # -- materials: engineering solids, metals and the like (handbook tables, from
+    # memory): moduli from soft polymers' 1 GPa to diamond's 1.2 TPa, densities from
+    # light woods to osmium's 22.6 t/m3, Poisson 0 to the incompressible 0.5,
+    # expansion up to polymers' 2e-4 per K, conductivity up to silver's 429 W/(m K),
+    # specific heat from lead's 129 to beryllium's 1825 J/(kg K), loss factors from
+    # fused silica to rubbery polymers
+    "material.youngs_modulus_pa": Limit(1e9, 1.2e12, "Pa"),
+    "material.density_kg_m3": Limit(500.0, 25000.0, "kg/m3"),
+    "material.poisson_ratio": Limit(0.0, 0.5, hi_open=True),
+    "material.thermal_expansion_per_k": Limit(0.0, 2e-4, "1/K"),
+    "material.thermal_conductivity_w_m_k": Limit(0.1, 500.0, "W/(m K)"),
+    "material.specific_heat_j_kg_k": Limit(100.0, 2500.0, "J/(kg K)"),
+    "material.modulus_temperature_coefficient_per_k": Limit(-2e-3, 1e-3, "1/K"),
+    "material.loss_factor": Limit(1e-7, 0.1),
+    # -- mallets: heads from a gram to a 2 kg hammer; stiffness K of F = K d^p for
+    # 1 mN to 10 kN at 0.1 mm to 1 m compression over every allowed p (its unit
+    # depends on p); Hunt & Crossley lambda as in the literature (0.1-1 s/m, from
+    # memory), widened
+    "mallet.mass_kg": Limit(0.001, 2.0, "kg"),
+    "mallet.stiffness": Limit(1e-3, 1e24, "N/m^p"),
+    "mallet.exponent": Limit(1.0, 5.0),
+    "mallet.loss_s_per_m": Limit(0.0, 10.0, "s/m"),
+    "mallet.speed_m_s": Limit(0.01, 20.0, "m/s"),
+    # -- how a bar is struck and heard ([sound], [[strike]])
+    "strike.position": Limit(0.0, 1.0),
+    "strike.across": Limit(-0.5, 0.5),
+    "strike.velocity": Limit(0.0, 1.0),
+    "sound.damper_t60_s": Limit(0.001, 30.0, "s"),
+    "sound.pan_width": Limit(0.0, 1.0),
+    "sound.listening_distance_m": Limit(0.1, 100.0, "m"),
+    # -- supports: cords through the nodes (common practice, no source)
+    "supports.cord_loss_n_s_m": Limit(0.0, 100.0, "N s/m"),
+    "supports.fraction": Limit(0.0, 0.5, lo_open=True, hi_open=True),
+    "supports.offset_m": Limit(-0.05, 0.05, "m", lo_open=True, hi_open=True),
+    # -- damping calibration
+    "damping.factor": Limit(0.0, 1e4),
+    "damping.order": Limit(1, 50),
+    "damping.q": Limit(1.0, 1e8, lo_open=True),
+    # -- tubes: radii of real resonators are 5 mm to 15 cm (common practice, no
+    # source), widened
+    "tubes.inner_radius_m": Limit(0.002, 0.3, "m"),
+    "tubes.gap_m": Limit(0.0, 0.2, "m", lo_open=True),
+    "tubes.offset_cents": Limit(-600.0, 600.0, "cents"),
+    "tubes.calibration": Limit(0.0, 100.0),
+    "tubes.length_m": Limit(0.01, 5.0, "m"),
+    # -- motor: discs turn a few revolutions a second (common practice, no source)
+    "motor.rate_rev_per_s": Limit(0.0, 50.0, "rev/s"),
+    "motor.block_fraction": Limit(0.0, 1.0, hi_open=True),
+    "motor.angle_deg": Limit(-360.0, 360.0, "degrees"),
+    "motor.spin_up_s": Limit(0.0, 60.0, "s"),
+    # -- event lists: a passage of at most MAX_SCORE_S
+    "score.time_s": Limit(0.0, MAX_SCORE_S, "s"),
+    "score.beat": Limit(0.0, 1e6, "beats"),
+    "score.tempo_bpm": Limit(10.0, 1000.0, "bpm"),
+    "score.length_s": Limit(0.01, MAX_SCORE_S, "s"),
+    "score.duration_s": Limit(0.0, MAX_SCORE_S, "s", lo_open=True),
+    "score.duration_beats": Limit(0.0, 1e6, "beats", lo_open=True),
+    "score.pedal": Limit(0.0, 1.0),
+}
 
 
 def presets_dir() -> Path:
@@ -36,9 +182,16 @@ def presets_dir() -> Path:
 
 
 def load_toml(path: str | os.PathLike[str]) -> dict[str, Any]:
-    """Read a TOML file, turning every failure into a one-line ConfigError."""
+    """Read a TOML file, turning every failure into a one-line ConfigError.
+
+    Refuses files over :data:`MAX_FILE_BYTES` and nesting deeper than
+    :data:`MAX_DEPTH`, so no later reader can run out of memory or recursion.
+    """
     p = Path(path)
     try:
+        if p.is_file() and p.stat().st_size > MAX_FILE_BYTES:
+            raise ConfigError(f"is {p.stat().st_size} bytes; allowed: up to {MAX_FILE_BYTES} "
+                              "bytes", source=str(p))
         text = p.read_bytes().decode("utf-8")
     except FileNotFoundError:
         raise ConfigError("file not found", source=str(p)) from None
@@ -48,20 +201,105 @@ def load_toml(path: str | os.PathLike[str]) -> dict[str, Any]:
         raise ConfigError("is not UTF-8 text, expected a TOML file", source=str(p)) from None
     except OSError as exc:
         raise ConfigError(f"cannot be read ({exc.strerror})", source=str(p)) from None
+    except ValueError:   # a NUL byte in the name
+        raise ConfigError("is not a usable file name", source=repr(str(p))) from None
+    return parse_toml(text, str(p))
+
+
+def parse_toml(text: str, source: str) -> dict[str, Any]:
+    """Parse TOML text read from ``source``; every failure is a one-line ConfigError."""
     try:
-        return tomllib.loads(text)
+        data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
-        raise ConfigError(f"malformed TOML: {exc}", source=str(p)) from None
+        raise ConfigError(f"malformed TOML: {one_line(str(exc))}", source=source) from None
+    except RecursionError:
+        raise ConfigError(f"nested too deeply; allowed: up to {MAX_DEPTH} levels of tables "
+                          "and arrays", source=source) from None
+    _check_depth(data, source)
+    return data
+
+
+def _check_depth(data: Any, source: str) -> None:
+    stack = [(data, 0)]
+    while stack:
+        value, depth = stack.pop()
+        if depth > MAX_DEPTH:
+            raise ConfigError(f"nested more than {MAX_DEPTH} levels deep; allowed: up to "
+                              f"{MAX_DEPTH} levels of tables and arrays", source=source)
+        if isinstance(value, dict):
+            stack.extend((v, depth + 1) for v in value.values())
+        elif isinstance(value, list):
+            stack.extend((v, depth + 1) for v in value)
+
+
+def one_line(text: str, limit: int = 200) -> str:
+    """``text`` with line breaks replaced and cut to ``limit`` characters."""
+    text = " ".join(str(text).split())
+    return text if len(text) <= limit else text[: limit - 3] + "..."
+
+
+def key_text(name: Any) -> str:
+    """Return a key as shown in messages: bare keys as they are, others quoted, cut short."""
+    name = str(name)
+    if _BARE_KEY_RE.match(name):
+        return name
+    return one_line(repr(name), 40)
+
+
+def check_name(value: Any, source: str | None, key: str, what: str) -> str:
+    """Return ``value`` if it is a preset name (letters, digits, ``-``, ``_``; 1-64).
+
+    Checked before a name becomes part of a file path, so a long or odd name is
+    refused in one line instead of failing in the file system.
+    """
+    if not isinstance(value, str) or not _NAME_RE.match(value):
+        raise ConfigError(f"= {_fmt(value)}: not a {what} name; allowed: 1 to 64 letters, "
+                          "digits, '-' and '_', starting with a letter or digit",
+                          source=source or None, key=key)
+    return value
+
+
+def find_preset(spec: str, folder: str) -> Path | None:
+    """Return the file a preset name or a TOML path stands for, or None if none.
+
+    A name (see :func:`check_name`) is looked up in ``presets/<folder>``; anything
+    else must be the path of an existing ``.toml`` file.  A name is checked for its
+    form before it becomes part of a path, and no file-system error escapes.
+    """
+    try:
+        if is_name(spec):
+            path = presets_dir() / folder / f"{spec}.toml"
+            if path.is_file():
+                return path
+        path = Path(spec)
+        if spec.endswith(".toml") and len(spec) <= 4096 and path.is_file():
+            return path
+    except (OSError, ValueError):  # a name too long for the file system, a NUL byte
+        pass
+    return None
+
+
+def is_name(value: Any) -> bool:
+    """Tell whether ``value`` has the form of a preset name (see :func:`check_name`)."""
+    return isinstance(value, str) and bool(_NAME_RE.match(value))
 
 
 def _fmt(value: Any) -> str:
+    if isinstance(value, bool):
+        return "true" if value else "false"
     if isinstance(value, float):
         return f"{value:g}"
+    if isinstance(value, int):
+        return str(value) if abs(value) < 10**15 else f"{'-' if value < 0 else ''}" \
+            f"{str(abs(value))[0]}e+{len(str(abs(value))) - 1}"
     if isinstance(value, str):
-        return repr(value)
-    if isinstance(value, list) and len(value) > 8:
-        return "[" + ", ".join(_fmt(v) for v in value[:8]) + ", ...]"
-    return repr(value)
+        return one_line(repr(value), 60)
+    if isinstance(value, list):
+        return "[...]" if len(value) > 8 else one_line("[" + ", ".join(_fmt(v) for v in value)
+                                                       + "]", 80)
+    if isinstance(value, dict):
+        return "{...}" if value else "{}"
+    return one_line(repr(value), 60)
 
 
 class Section:
@@ -89,6 +327,7 @@ class Section:
     # -- helpers -----------------------------------------------------------------
     def key(self, name: str) -> str:
         """Return the dotted key of ``name`` inside the file."""
+        name = key_text(name)
         return f"{self.prefix}.{name}" if self.prefix else name
 
     def error(self, name: str | None, message: str) -> ConfigError:
@@ -107,7 +346,8 @@ class Section:
         for name in self.data:
             if name not in allowed:
                 raise ConfigError(
-                    "unknown key; allowed here: " + ", ".join(sorted(allowed)),
+                    f"= {_fmt(self.data[name])}: unknown key; allowed here: "
+                    + ", ".join(sorted(allowed)),
                     source=self.source,
                     key=self.key(name),
                 )
@@ -125,24 +365,34 @@ class Section:
         name: str,
         default: Any = _MISSING,
         *,
+        limit: str | Limit | None = None,
         gt: float | None = None,
         ge: float | None = None,
         lt: float | None = None,
         le: float | None = None,
         unit: str = "",
     ) -> float:
-        """Return a finite float, optionally bounded."""
+        """Return a finite float in the named range ``limit`` (a key of LIMITS).
+
+        ``gt``/``ge``/``lt``/``le`` are the older one-off bounds, kept for tables
+        that have no named range yet.
+        """
         value = self._get(name, default)
         if value is None:
             return value
-        return _check_number(self, name, value, gt=gt, ge=ge, lt=lt, le=le, unit=unit)
+        return _check_number(self, name, value, limit=_limit(limit), gt=gt, ge=ge, lt=lt,
+                             le=le, unit=unit)
 
-    def integer(self, name: str, default: Any = _MISSING, *, ge: int | None = None,
-                le: int | None = None) -> int:
-        """Return an integer, optionally bounded."""
+    def integer(self, name: str, default: Any = _MISSING, *, limit: str | Limit | None = None,
+                ge: int | None = None, le: int | None = None) -> int:
+        """Return an integer, in the named range ``limit`` or between ``ge`` and ``le``."""
         value = self._get(name, default)
         if isinstance(value, bool) or not isinstance(value, int):
-            raise self.error(name, "must be an integer")
+            raise self.error(name, "must be a whole number"
+                             + (f"; allowed: {_limit(limit).text()}" if limit else ""))
+        lim = _limit(limit)
+        if lim is not None and not lim.allows(value):
+            raise self.error(name, f"{lim.problem(value)}; allowed: {lim.text()}")
         if ge is not None and value < ge:
             raise self.error(name, f"must be >= {ge}")
         if le is not None and value > le:
@@ -157,10 +407,13 @@ class Section:
             return value
         if not isinstance(value, str):
             raise self.error(name, "must be a string")
+        if len(value) > MAX_STRING_CHARS:
+            raise self.error(name, f"is {len(value)} characters long; allowed: up to "
+                                   f"{MAX_STRING_CHARS}")
         if choices is not None:
             choices = list(choices)
             if value not in choices:
-                raise self.error(name, "must be one of " + ", ".join(choices))
+                raise self.error(name, "not a choice; allowed: " + ", ".join(choices))
         return value
 
     def boolean(self, name: str, default: Any = _MISSING) -> bool:
@@ -175,14 +428,16 @@ class Section:
         name: str,
         default: Any = _MISSING,
         *,
+        limit: str | Limit | None = None,
         gt: float | None = None,
         ge: float | None = None,
         min_len: int = 1,
+        max_len: int = 1000,
         length: int | None = None,
         increasing: bool = False,
         unit: str = "",
     ) -> list[float]:
-        """Return a list of finite floats."""
+        """Return a list of finite floats, each in the named range ``limit``."""
         value = self._get(name, default)
         if value is None:
             return value
@@ -192,8 +447,11 @@ class Section:
             raise self.error(name, f"must hold exactly {length} numbers, has {len(value)}")
         if len(value) < min_len:
             raise self.error(name, f"must hold at least {min_len} numbers")
+        if len(value) > max_len:
+            raise self.error(name, f"holds {len(value)} numbers; allowed: up to {max_len}")
+        lim = _limit(limit)
         out = [
-            _check_number(self, name, v, gt=gt, ge=ge, unit=unit, index=i)
+            _check_number(self, name, v, limit=lim, gt=gt, ge=ge, unit=unit, index=i)
             for i, v in enumerate(value)
         ]
         if increasing and any(b <= a for a, b in zip(out, out[1:], strict=False)):
@@ -218,16 +476,23 @@ def checked_number(value: Any, key: str, rule: str, ok) -> float:
     """
     try:
         v = float(value)
-    except (TypeError, ValueError):
+    except (TypeError, ValueError, OverflowError):
         raise ConfigError(f"= {value!r}: must be a number {rule}", key=key) from None
     if not (math.isfinite(v) and ok(v)):
         raise ConfigError(f"= {value!r}: must be {rule}", key=key)
     return v
 
 
-def _check_number(sec: Section, name: str, value: Any, *, gt=None, ge=None, lt=None, le=None,
-                  unit: str = "", index: int | None = None) -> float:
+def _limit(limit: str | Limit | None) -> Limit | None:
+    if limit is None or isinstance(limit, Limit):
+        return limit
+    return LIMITS[limit]
+
+
+def _check_number(sec: Section, name: str, value: Any, *, limit: Limit | None = None, gt=None,
+                  ge=None, lt=None, le=None, unit: str = "", index: int | None = None) -> float:
     where = f"{name}[{index}]" if index is not None else name
+    allowed = f"; allowed: {limit.text()}" if limit is not None else ""
 
     def fail(rule: str) -> ConfigError:
         return ConfigError(
@@ -235,10 +500,15 @@ def _check_number(sec: Section, name: str, value: Any, *, gt=None, ge=None, lt=N
         )
 
     if isinstance(value, bool) or not isinstance(value, int | float):
-        raise fail("must be a number")
-    value = float(value)
+        raise fail("must be a number" + allowed)
+    try:
+        value = float(value)
+    except OverflowError:
+        raise fail("too large" + allowed) from None
     if not math.isfinite(value):
-        raise fail("must be a finite number")
+        raise fail("must be a finite number" + allowed)
+    if limit is not None and not limit.allows(value):
+        raise fail(limit.problem(value) + allowed)
     u = f" {unit}" if unit else ""
     if gt is not None and not value > gt:
         raise fail(f"must be > {gt:g}{u}")

@@ -2,8 +2,11 @@
 
 Scientific pitch notation counts octaves from C, so C4 is middle C and A4 is the
 reference pitch (440 Hz by ISO 16:1975; bar makers often tune to 442 Hz).  Notes
-are written as a letter, an optional accidental (``#``, ``b``, ``♯``, ``♭``) and
-an octave number: ``A4``, ``F#5``, ``Bb3``, ``C-1``.
+are written as a letter A-G, an optional accidental (``#``, ``b``, ``♯``, ``♭``)
+and an octave number 0-9: ``A4``, ``F#5``, ``Bb3``.  Only notes from C0 to C9
+(MIDI 12-120) are accepted: a keyboard's compass and then some.  Every spelling
+of a note means the same note: ``Bb3`` and ``A#3`` are one key, written ``A#3``
+by :func:`canonical_note`.
 
 References
 ----------
@@ -26,11 +29,16 @@ DEFAULT_REFERENCE_HZ: Final[float] = 440.0
 CENTS_PER_OCTAVE: Final[float] = 1200.0
 
 _LETTERS: Final[dict[str, int]] = {"C": 0, "D": 2, "E": 4, "F": 5, "G": 7, "A": 9, "B": 11}
-_ACCIDENTALS: Final[dict[str, int]] = {"": 0, "#": 1, "♯": 1, "b": -1, "♭": -1, "##": 2, "bb": -2}
+_ACCIDENTALS: Final[dict[str, int]] = {"": 0, "#": 1, "♯": 1, "b": -1, "♭": -1}
 _SHARP_NAMES: Final[tuple[str, ...]] = (
     "C", "C#", "D", "D#", "E", "F", "F#", "G", "G#", "A", "A#", "B",
 )
-_NOTE_RE = re.compile(r"^\s*([A-Ga-g])(##|bb|#|b|♯|♭)?(-?\d+)\s*$")
+_NOTE_RE = re.compile(r"^\s*([A-Ga-g])(#|b|♯|♭)?([0-9])\s*$")
+
+LOWEST_MIDI: Final[int] = 12
+"""C0, the lowest note a file may name."""
+HIGHEST_MIDI: Final[int] = 120
+"""C9, the highest note a file may name."""
 
 
 def note_to_midi(name: str) -> int:
@@ -39,16 +47,20 @@ def note_to_midi(name: str) -> int:
     Raises
     ------
     ConfigError
-        If ``name`` is not a note in scientific pitch notation.
+        If ``name`` is not a note in scientific pitch notation from C0 to C9.
     """
-    m = _NOTE_RE.match(name) if isinstance(name, str) else None
+    m = _NOTE_RE.match(name) if isinstance(name, str) and len(name) <= 12 else None
     if not m:
+        shown = repr(name if not isinstance(name, str) or len(name) <= 12 else name[:12] + "...")
         raise ConfigError(
-            f"unknown note {name!r}: write a letter A-G, optional # or b, and an octave "
-            "number, e.g. A4, F#5, Bb3"
+            f"unknown note {shown}: write a letter A-G, optional # or b, and an octave "
+            "0-9, e.g. A4, F#5, Bb3"
         )
     letter, acc, octave = m.group(1).upper(), m.group(2) or "", int(m.group(3))
-    return 12 * (octave + 1) + _LETTERS[letter] + _ACCIDENTALS[acc]
+    number = 12 * (octave + 1) + _LETTERS[letter] + _ACCIDENTALS[acc]
+    if not LOWEST_MIDI <= number <= HIGHEST_MIDI:
+        raise ConfigError(f"note {name.strip()!r} is off the keyboard; allowed: C0 to C9")
+    return number
 
 
 def midi_to_note(number: int) -> str:

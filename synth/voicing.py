@@ -38,10 +38,10 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, field
 from functools import lru_cache
+from pathlib import Path
 
 import numpy as np
 
-from synth.config import Section
 from synth.engine.score import Score, Strike
 from synth.engine.voice import CoupledPair, ModeBank, Voice, constant_power_pan, seconds_to_sample
 from synth.errors import ConfigError
@@ -56,13 +56,26 @@ from synth.physics.losses import (
     parse_calibration,
     parse_supports,
 )
-from synth.physics.mallet import Mallet, load_mallet, simulate_contact
-from synth.physics.motor import DiscModulation, MotorSpec, disc_modulation, steady_bar_decay_per_s
+from synth.physics.mallet import (
+    Mallet,
+    SoundSettings,  # noqa: F401 (re-exported)
+    load_mallet,
+    parse_sound,
+    simulate_contact,
+)
+from synth.physics.motor import (
+    DiscModulation,
+    disc_modulation,
+    parse_motor,
+    steady_bar_decay_per_s,
+)
 from synth.physics.tube import (
+    TubeSettings,  # noqa: F401 (re-exported)
     TubeSpec,
     air_density,
     bar_area_over_mouth,
     bar_cover_fraction,
+    parse_tubes,
     speed_of_sound,
     tube_length_for_bar,
 )
@@ -75,110 +88,8 @@ LN_1000 = math.log(1000.0)
 # --------------------------------------------------------------------------------------
 
 
-@dataclass(frozen=True)
-class SoundSettings:
-    """How the instrument is played by default (``[sound]`` table)."""
-
-    mallet: str = "medium"
-    position: float = 0.45
-    across: float = 0.0
-    speed_min_m_s: float = 0.3
-    speed_max_m_s: float = 3.0
-    damper_t60_s: float = 0.25
-    pan_width: float = 0.8
-    listening_distance_m: float = 1.0
-
-    def speed_of(self, velocity: float) -> float:
-        """Mallet speed for a strength 0..1 (geometric between the two limits)."""
-        v = min(max(float(velocity), 0.0), 1.0)
-        return self.speed_min_m_s * (self.speed_max_m_s / self.speed_min_m_s) ** v
-
-
-def parse_sound(sec: Section | None) -> SoundSettings:
-    """Read a preset's ``[sound]`` table (every key optional)."""
-    if sec is None:
-        return SoundSettings()
-    sec.check_keys({"mallet", "position", "across", "speed_min_m_s", "speed_max_m_s",
-                    "damper_t60_s", "pan_width", "listening_distance_m"})
-    lo = sec.number("speed_min_m_s", 0.3, gt=0.0, le=20.0, unit="m/s")
-    hi = sec.number("speed_max_m_s", 3.0, gt=0.0, le=20.0, unit="m/s")
-    if hi < lo:
-        raise sec.error("speed_max_m_s", "must be >= speed_min_m_s")
-    return SoundSettings(
-        mallet=sec.string("mallet", "medium"),
-        position=sec.number("position", 0.45, ge=0.0, le=1.0),
-        across=sec.number("across", 0.0, ge=-0.5, le=0.5),
-        speed_min_m_s=lo, speed_max_m_s=hi,
-        damper_t60_s=sec.number("damper_t60_s", 0.25, gt=0.0, le=30.0, unit="s"),
-        pan_width=sec.number("pan_width", 0.8, ge=0.0, le=1.0),
-        listening_distance_m=sec.number("listening_distance_m", 1.0, gt=0.0, unit="m"),
-    )
-
-
-@dataclass(frozen=True)
-class TubeSettings:
-    """The resonators under the bars (``[tubes]`` table)."""
-
-    inner_radius_m: tuple[float, float]
-    gap_m: float
-    offset_cents: float = 0.0
-    flanged: bool = False
-    coupling_calibration: float = 1.0
-    gap_calibration: float = 1.0
-    enabled: bool = True
-
-    def radius_at(self, fraction: float) -> float:
-        """Inner radius at ``fraction`` of the range (geometric grading)."""
-        lo, hi = self.inner_radius_m
-        return lo * (hi / lo) ** fraction
-
-
-def parse_tubes(sec: Section | None) -> TubeSettings | None:
-    """Read a preset's ``[tubes]`` table (None without one)."""
-    if sec is None:
-        return None
-    sec.check_keys({"inner_radius_m", "gap_m", "offset_cents", "flanged",
-                    "coupling_calibration", "gap_calibration", "enabled"})
-    raw = sec.data.get("inner_radius_m")
-    if isinstance(raw, list):
-        radii = tuple(sec.numbers("inner_radius_m", gt=0.0, length=2, unit="m"))
-    else:
-        r = sec.number("inner_radius_m", gt=0.0, unit="m")
-        radii = (r, r)
-    return TubeSettings(
-        inner_radius_m=radii,
-        gap_m=sec.number("gap_m", gt=0.0, le=0.2, unit="m"),
-        offset_cents=sec.number("offset_cents", 0.0, ge=-600.0, le=600.0),
-        flanged=sec.boolean("flanged", False),
-        coupling_calibration=sec.number("coupling_calibration", 1.0, ge=0.0),
-        gap_calibration=sec.number("gap_calibration", 1.0, ge=0.0),
-        enabled=sec.boolean("enabled", True),
-    )
-
-
-def parse_motor(sec: Section | None) -> tuple[MotorSpec, float]:
-    """Read a preset's ``[motor]`` table: the shaft and the per-bar disc phase step."""
-    if sec is None:
-        return MotorSpec(), 0.0
-    sec.check_keys({"rate_rev_per_s", "block_fraction", "resting", "spin_up_s",
-                    "spin_up_law", "phase_step_deg"})
-    resting = sec.data.get("resting", "open")
-    if not isinstance(resting, str):
-        resting = sec.number("resting", ge=-360.0, le=360.0)
-    elif resting not in ("open", "closed"):
-        raise sec.error("resting", 'must be "open", "closed" or an angle in degrees')
-    try:
-        spec = MotorSpec(
-            rate_rev_per_s=sec.number("rate_rev_per_s", 0.0, ge=0.0, le=50.0, unit="rev/s"),
-            block_fraction=sec.number("block_fraction", 0.85, ge=0.0, lt=1.0),
-            resting=resting,
-            spin_up_s=sec.number("spin_up_s", 0.0, ge=0.0, unit="s"),
-            spin_up_law=sec.string("spin_up_law", "exponential",
-                                   choices=("exponential", "linear")),
-        )
-    except ConfigError as exc:
-        raise ConfigError(exc.detail, source=sec.source, key=exc.key) from None
-    return spec, sec.number("phase_step_deg", 0.0, ge=-360.0, le=360.0)
+# The [sound], [tubes] and [motor] readers live beside their models (mallet, tube,
+# motor) so that a preset is checked whole when it is loaded.
 
 
 # --------------------------------------------------------------------------------------
@@ -294,13 +205,8 @@ class Voicer:
         template = TubeSpec(radius, 1.0, gap_to_bar_m=ts.gap_m, flanged=ts.flanged,
                             bar_cover_fraction=bar_cover_fraction(geo.width_m, radius),
                             gap_calibration=ts.gap_calibration)
-        raw = self.instrument.raw.get("bars", {}).get(note, {}).get("tube", {})
-        if "length_m" in raw:
-            length = float(raw["length_m"])
-            if not length > 0:
-                raise ConfigError(f"= {length}: must be > 0 m", source=self.instrument.source,
-                                  key=f"bars.{note}.tube.length_m")
-        else:
+        length = self.instrument.tube_lengths.get(note)   # [bars.NOTE] tube, read at load
+        if length is None:
             if modes is None:
                 modes = solve_bar(geo, self.material, n_vertical=1, n_lateral=0, n_torsional=0)
             length = tube_length_for_bar(modes.fundamental_hz, template,
@@ -508,6 +414,13 @@ class Voicer:
                      progress=None) -> list[Voice]:
         """Voices for every strike of a score (pedal changes applied)."""
         pedal = ((0.0, default_pedal),) + tuple((p.time_s, p.value) for p in score.pedal)
+        notes = self.instrument.notes
+        for st in score.strikes:   # every note checked before any work starts
+            if st.note not in notes:
+                raise ConfigError(
+                    f"= {st.note!r}: not in the range of {Path(self.instrument.source).name}; "
+                    f"allowed: {notes[0]} to {notes[-1]}",
+                    source=score.source or None, key=f"{st.key}.note" if st.key else "note")
         voices = []
         for k, st in enumerate(score.strikes):
             voices.append(self._strike_of(st, pedal))

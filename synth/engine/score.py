@@ -47,16 +47,22 @@ One optional ``[score]`` table and any number of ``[[strike]]`` and
     value = 0.5             # half pedal
 
 Keys of ``[[strike]]``: ``time_s`` or ``beat`` (exactly one, >= 0), ``note``
-(scientific pitch notation: ``A4``, ``F#5``, ``Bb3``), ``velocity`` (0..1) or
-``mallet_speed_m_s`` (> 0, exactly one), ``mallet``, ``position``, ``across``,
-``duration_s`` or ``duration_beats`` (> 0, at most one).  Keys of
-``[[pedal]]``: ``time_s`` or ``beat``, ``value`` (0..1).  Unknown keys are
-errors, and every error names the file, the key, the value and the rule.
-Before the first pedal change the pedal is in the renderer's default state.
+(scientific pitch notation, C0 to C9: ``A4``, ``F#5``, ``Bb3``), ``velocity``
+(0..1) or ``mallet_speed_m_s`` (0.01-20 m/s, exactly one), ``mallet``,
+``position``, ``across``, ``duration_s`` or ``duration_beats`` (> 0, at most
+one).  Keys of ``[[pedal]]``: ``time_s`` or ``beat``, ``value`` (0..1).  Unknown
+keys are errors, and every error names the file, the key, the value and the
+allowed range (all ranges in :data:`synth.config.LIMITS`).  A passage ends within
+4 hours (:data:`synth.config.MAX_SCORE_S`: event times, releases and
+``length_s``) and holds at most :data:`synth.config.MAX_EVENTS` strikes and pedal
+changes together.  Before the first pedal change the pedal is in the renderer's
+default state.
 
 Standard MIDI files
 -------------------
-:func:`read_midi` reads type 0 and 1 files with mido.  Note-on with velocity
+:func:`read_midi` reads type 0 and 1 files with mido (other types are refused;
+so are notes outside C0..C9, events after 4 hours and more than
+:data:`synth.config.MAX_EVENTS` events).  Note-on with velocity
 > 0 starts a strike (``velocity = v/127``); the matching note-off (or note-on
 with velocity 0) on the same channel and key sets its release; a key struck
 again while still held is released at the new strike.  Controller 64 (the
@@ -76,12 +82,21 @@ References
 from __future__ import annotations
 
 import os
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 
-from synth.config import Section, load_toml
+from synth.config import (
+    LIMITS,
+    MAX_EVENTS,
+    MAX_FILE_BYTES,
+    MAX_SCORE_S,
+    Section,
+    find_preset,
+    load_toml,
+    one_line,
+)
 from synth.errors import ConfigError
-from synth.pitch import midi_to_note, note_to_midi
+from synth.pitch import HIGHEST_MIDI, LOWEST_MIDI, midi_to_note, note_to_midi
 
 _STRIKE_KEYS = ("time_s", "beat", "note", "velocity", "mallet_speed_m_s", "mallet", "position",
                 "across", "duration_s", "duration_beats")
@@ -114,6 +129,8 @@ class Strike:
     release_s : float or None
         When the note's own damping starts (key up, MIDI note-off), s; ``None``:
         the note has no release of its own (it rings until pedal or the end).
+    key : str or None
+        Where the strike was given (``"strike[3]"``), for messages; not compared.
     """
 
     time_s: float
@@ -124,6 +141,7 @@ class Strike:
     position: float | None = None
     across: float | None = None
     release_s: float | None = None
+    key: str | None = field(default=None, compare=False)
 
 
 @dataclass(frozen=True)
@@ -178,11 +196,18 @@ def _time_of(sec: Section, seconds_per_beat: float | None) -> float:
     if has_t == has_b:
         raise sec.error(None, "give exactly one of time_s (seconds) or beat")
     if has_t:
-        return sec.number("time_s", ge=0.0, unit="s")
-    beat = sec.number("beat", ge=0.0)
+        return sec.number("time_s", limit="score.time_s")
+    beat = sec.number("beat", limit="score.beat")
     if seconds_per_beat is None:
         raise sec.error("beat", "needs tempo_bpm in the [score] table")
-    return beat * seconds_per_beat
+    return _within_score(sec, "beat", beat * seconds_per_beat)
+
+
+def _within_score(sec: Section, key: str, time_s: float) -> float:
+    if time_s > MAX_SCORE_S:
+        raise sec.error(key, f"falls at {time_s:g} s, too late; allowed: "
+                             f"{LIMITS['score.time_s'].text()}")
+    return time_s
 
 
 def _note_of(sec: Section) -> str:
@@ -199,28 +224,40 @@ def _strike_of(sec: Section, seconds_per_beat: float | None) -> Strike:
     note = _note_of(sec)
     if ("velocity" in sec) == ("mallet_speed_m_s" in sec):
         raise sec.error(None, "give exactly one of velocity (0..1) or mallet_speed_m_s (m/s)")
-    velocity = sec.number("velocity", None, ge=0.0, le=1.0)
-    speed = sec.number("mallet_speed_m_s", None, gt=0.0, unit="m/s")
+    velocity = sec.number("velocity", None, limit="strike.velocity")
+    speed = sec.number("mallet_speed_m_s", None, limit="mallet.speed_m_s")
     mallet = sec.string("mallet", None)
-    position = sec.number("position", None, ge=0.0, le=1.0)
-    across = sec.number("across", None, ge=-0.5, le=0.5)
+    if mallet is not None and find_preset(mallet, "mallets") is None:
+        raise sec.error("mallet", "unknown mallet; allowed: a name from presets/mallets or "
+                                  "the path of a .toml file")
+    position = sec.number("position", None, limit="strike.position")
+    across = sec.number("across", None, limit="strike.across")
     if "duration_s" in sec and "duration_beats" in sec:
         raise sec.error(None, "give at most one of duration_s or duration_beats")
     release = None
     if "duration_s" in sec:
-        release = time_s + sec.number("duration_s", gt=0.0, unit="s")
+        release = _within_score(sec, "duration_s",
+                                time_s + sec.number("duration_s", limit="score.duration_s"))
     elif "duration_beats" in sec:
-        beats = sec.number("duration_beats", gt=0.0)
+        beats = sec.number("duration_beats", limit="score.duration_beats")
         if seconds_per_beat is None:
             raise sec.error("duration_beats", "needs tempo_bpm in the [score] table")
-        release = time_s + beats * seconds_per_beat
-    return Strike(time_s, note, velocity, speed, mallet, position, across, release)
+        release = _within_score(sec, "duration_beats", time_s + beats * seconds_per_beat)
+    return Strike(time_s, note, velocity, speed, mallet, position, across, release,
+                  key=sec.prefix)
 
 
 def _tables(top: Section, name: str) -> list[Section]:
     value = top.data.get(name, [])
-    if not isinstance(value, list) or not all(isinstance(v, dict) for v in value):
+    if not isinstance(value, list):
         raise top.error(name, f"must be an array of tables, written [[{name}]]")
+    for i, v in enumerate(value):
+        if not isinstance(v, dict):
+            raise top.error(f"{name}[{i}]", f"must be a table, written [[{name}]]")
+    count = sum(len(v) for v in top.data.values() if isinstance(v, list))
+    if count > MAX_EVENTS:
+        raise ConfigError(f"holds {count} strikes and pedal changes; allowed: up to "
+                          f"{MAX_EVENTS}", source=top.source, key=name)
     return [Section(v, top.source, f"{name}[{i}]") for i, v in enumerate(value)]
 
 
@@ -251,15 +288,15 @@ def parse_events(data: dict, source: str) -> Score:
     length_s = None
     if head is not None:
         head.check_keys(_SCORE_KEYS)
-        tempo = head.number("tempo_bpm", None, gt=0.0, unit="bpm")
+        tempo = head.number("tempo_bpm", None, limit="score.tempo_bpm")
         seconds_per_beat = None if tempo is None else 60.0 / tempo
-        length_s = head.number("length_s", None, gt=0.0, unit="s")
+        length_s = head.number("length_s", None, limit="score.length_s")
     strikes = [_strike_of(sec, seconds_per_beat) for sec in _tables(top, "strike")]
     pedal = []
     for sec in _tables(top, "pedal"):
         sec.check_keys(_PEDAL_KEYS)
         pedal.append(PedalChange(_time_of(sec, seconds_per_beat),
-                                 sec.number("value", ge=0.0, le=1.0)))
+                                 sec.number("value", limit="score.pedal")))
     strikes.sort(key=lambda s: s.time_s)
     pedal.sort(key=lambda p: p.time_s)
     return Score(tuple(strikes), tuple(pedal), length_s, source)
@@ -283,16 +320,27 @@ def read_midi(path: str | os.PathLike[str]) -> Score:
 
     p = Path(path)
     source = str(p)
-    if not p.is_file():
-        raise ConfigError("file not found" if not p.exists() else "is a folder, expected a "
-                          "MIDI file", source=source)
+    try:
+        is_file, is_dir = p.is_file(), p.is_dir()
+        size = p.stat().st_size if is_file else 0
+    except (OSError, ValueError) as exc:   # a name too long, a NUL byte
+        raise ConfigError(f"cannot be read ({getattr(exc, 'strerror', None) or exc})",
+                          source=repr(source)) from None
+    if not is_file:
+        raise ConfigError("is a folder, expected a MIDI file" if is_dir else
+                          "file not found", source=source)
+    if size > MAX_FILE_BYTES:
+        raise ConfigError(f"is {size} bytes; allowed: up to {MAX_FILE_BYTES} bytes",
+                          source=source)
     try:
         midi = mido.MidiFile(p)
-    except (OSError, EOFError, ValueError, KeyError, IndexError) as exc:
-        raise ConfigError(f"not a readable standard MIDI file ({exc})", source=source) from None
-    if midi.type == 2:
-        raise ConfigError("MIDI type 2 (independent sequences) is not supported; "
-                          "save as type 0 or 1", source=source)
+    except Exception as exc:  # noqa: BLE001 -- mido raises many kinds on damaged files
+        raise ConfigError(f"not a readable standard MIDI file ({one_line(str(exc), 80)})",
+                          source=source) from None
+    if midi.type not in (0, 1):
+        raise ConfigError(f"MIDI type = {midi.type!r}: not supported; allowed: 0 or 1 (type 2, "
+                          "independent sequences, is not read; save as type 0 or 1)",
+                          source=source)
     tpq = midi.ticks_per_beat
     if not isinstance(tpq, int) or tpq <= 0:
         raise ConfigError(f"ticks per beat = {tpq!r}: must be a positive whole number "
@@ -310,6 +358,18 @@ def read_midi(path: str | os.PathLike[str]) -> Score:
     pedal: list[PedalChange] = []
     for msg in mido.merge_tracks(midi.tracks):
         tick += msg.time
+        if msg.is_meta and msg.type == "end_of_track":
+            continue   # only where the track ends, not an event
+        if seconds(tick) > MAX_SCORE_S:
+            raise ConfigError(f"an event at tick {tick} falls at {seconds(tick):g} s, too late; "
+                              f"allowed: up to {MAX_SCORE_S:g} s", source=source)
+        if len(notes) + len(pedal) > MAX_EVENTS:
+            raise ConfigError(f"holds more than {MAX_EVENTS} strikes and pedal changes; "
+                              f"allowed: up to {MAX_EVENTS}", source=source)
+        if msg.type in ("note_on", "note_off") and not LOWEST_MIDI <= msg.note <= HIGHEST_MIDI:
+            raise ConfigError(f"note number {msg.note} at {seconds(tick):g} s is off the "
+                              f"keyboard; allowed: {LOWEST_MIDI} to {HIGHEST_MIDI} (C0 to C9)",
+                              source=source)
         if msg.type == "set_tempo":
             seg_us += (tick - seg_tick) * tempo
             seg_tick, tempo = tick, msg.tempo

@@ -314,18 +314,19 @@ def parse_undercut(sec: Section) -> Undercut:
         h = sec.numbers("thickness_m", gt=0, length=len(x), unit="m")
         return StationUndercut(tuple(x), tuple(h), sec.boolean("smooth", False))
     family = sec.string("family", choices=UNDERCUT_FAMILIES)
-    center = sec.number("center_m", None, gt=0, unit="m")
+    center = sec.number("center_m", None, limit="undercut.center_m")
     if family in ("parabolic", "power"):
         sec.check_keys({"family", "depth_m", "span_m", "center_m", "exponent"})
-        exponent = 2.0 if family == "parabolic" else sec.number("exponent", ge=1.0, le=12.0)
+        exponent = 2.0 if family == "parabolic" else sec.number("exponent",
+                                                                limit="undercut.exponent")
         if family == "parabolic" and "exponent" in sec:
             raise sec.error("exponent", "only with family = \"power\"; a parabolic arch has 2")
-        return ArchUndercut(sec.number("depth_m", gt=0, unit="m"),
-                            sec.number("span_m", gt=0, unit="m"), exponent, center)
+        return ArchUndercut(sec.number("depth_m", limit="undercut.depth_m"),
+                            sec.number("span_m", limit="undercut.span_m"), exponent, center)
     sec.check_keys({"family", "depth_m", "span_m", "center_m", "flat_m", "ramp"})
-    return FlatArchUndercut(sec.number("depth_m", gt=0, unit="m"),
-                            sec.number("span_m", gt=0, unit="m"),
-                            sec.number("flat_m", ge=0, unit="m"),
+    return FlatArchUndercut(sec.number("depth_m", limit="undercut.depth_m"),
+                            sec.number("span_m", limit="undercut.span_m"),
+                            sec.number("flat_m", limit="undercut.flat_m"),
                             sec.string("ramp", "round", choices=("straight", "round")), center)
 
 
@@ -340,16 +341,17 @@ def parse_geometry(sec: Section, defaults: dict | None = None) -> BarGeometry:
     """
     defaults = defaults or {}
 
-    def num(key, **kw):
+    def num(key):
         if key in sec or key not in defaults:
-            return sec.number(key, **kw)
+            return sec.number(key, limit=f"bar.{key}")
         return defaults[key]
 
-    length = num("length_m", gt=0, unit="m")
-    width = num("width_m", gt=0, unit="m")
-    thick = num("thickness_m", gt=0, unit="m")
+    length = num("length_m")
+    width = num("width_m")
+    thick = num("thickness_m")
     min_t = sec.number("min_thickness_m", defaults.get("min_thickness_m",
-                                                       DEFAULT_MIN_THICKNESS_M), gt=0, unit="m")
+                                                       DEFAULT_MIN_THICKNESS_M),
+                       limit="bar.min_thickness_m")
     if min_t >= thick:
         raise sec.error("min_thickness_m", f"must be below the blank thickness {thick:g} m")
     uc_sec = sec.section("undercut", None)
@@ -431,13 +433,13 @@ def parse_family(sec: Section) -> UndercutFamily:
         raise sec.error("exponent", 'only with family = "power"')
     return UndercutFamily(
         family=family,
-        exponent=sec.number("exponent", 4.0, ge=1.0, le=12.0),
+        exponent=sec.number("exponent", 4.0, limit="undercut.exponent"),
         ramp=sec.string("ramp", "round", choices=("straight", "round")),
-        flat_fraction=sec.number("flat_fraction", 0.3, ge=0.0, lt=0.95),
-        span_fraction=sec.number("span_fraction", 0.6, gt=0.1, le=0.98),
-        depth_fraction=sec.number("depth_fraction", 0.6, gt=0.0, le=1.0),
+        flat_fraction=sec.number("flat_fraction", 0.3, limit="family.flat_fraction"),
+        span_fraction=sec.number("span_fraction", 0.6, limit="family.span_fraction"),
+        depth_fraction=sec.number("depth_fraction", 0.6, limit="family.depth_fraction"),
         stations=sec.integer("stations", 6, ge=3, le=24),
-        smoothness=sec.number("smoothness", 1.0, ge=0.0),
+        smoothness=sec.number("smoothness", 1.0, limit="family.smoothness"),
     )
 
 

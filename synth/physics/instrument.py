@@ -40,8 +40,12 @@ An **instrument preset** describes a range of bars::
     undercut = { family = "power", exponent = 4.0, depth_m = 0.0081, span_m = 0.29 }
 
 Tables ``[tubes]``, ``[motor]``, ``[supports]``, ``[damping]`` and ``[sound]`` are
-read by the modules that use them; this module keeps them as validated
-:class:`~synth.config.Section` objects.
+read by the modules that use them; this module reads each once at load (so a bad
+value is refused before any work starts) and keeps them as
+:class:`~synth.config.Section` objects.  A bar's own ``tube = { length_m = ... }``
+sets the cut length of its tube.  Note keys may use either spelling (``[bars.Bb3]``
+is ``[bars."A#3"]``) and are kept in the sharp spelling.  Every number has its
+range in :data:`synth.config.LIMITS`.
 """
 
 from __future__ import annotations
@@ -49,7 +53,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from synth.config import Section, load_toml
+from synth.config import Section, key_text, load_toml
 from synth.errors import ConfigError
 from synth.physics.geometry import (
     DEFAULT_MIN_THICKNESS_M,
@@ -58,7 +62,11 @@ from synth.physics.geometry import (
     parse_family,
     parse_geometry,
 )
+from synth.physics.losses import parse_calibration, parse_supports
+from synth.physics.mallet import parse_sound
 from synth.physics.materials import Material, load_material
+from synth.physics.motor import parse_motor
+from synth.physics.tube import parse_tube_override, parse_tubes
 from synth.pitch import DEFAULT_REFERENCE_HZ, canonical_note, note_range, note_to_hz, note_to_midi
 
 DEFAULT_RATIOS = (1.0, 4.0, 2.0 ** (40.0 / 12.0))
@@ -118,6 +126,7 @@ class Instrument:
     undercut_family: UndercutFamily | None
     bars: dict[str, BarGeometry]
     sections: dict[str, Section] = field(default_factory=dict, compare=False)
+    tube_lengths: dict[str, float] = field(default_factory=dict, compare=False)
     raw: dict = field(default_factory=dict, compare=False, repr=False)
 
     def target_hz(self, note: str) -> float:
@@ -137,7 +146,8 @@ class Instrument:
             raise ConfigError(exc.detail, source=option) from None
         if name not in self.notes:
             raise ConfigError(
-                f"= {note!r}: not in this instrument's range {self.notes[0]}..{self.notes[-1]}",
+                f"= {note!r}: not in this instrument's range; allowed: {self.notes[0]} to "
+                f"{self.notes[-1]}",
                 source=self.source, key=option,
             )
         return name
@@ -179,12 +189,18 @@ class BarFile:
     sections: dict[str, Section] = field(default_factory=dict, compare=False)
 
 
-def _extra_sections(sec: Section) -> dict[str, Section]:
+def _extra_sections(sec: Section, notes: tuple[str, ...] | None) -> dict[str, Section]:
     out = {}
     for name in EXTRA_SECTIONS:
         s = sec.section(name, None)
         if s is not None:
             out[name] = s
+    # Read every table once now, so that a bad value stops the load, not a render.
+    parse_supports(out.get("supports"))
+    parse_calibration(out.get("damping"), notes)
+    parse_tubes(out.get("tubes"))
+    parse_motor(out.get("motor"))
+    parse_sound(out.get("sound"))
     return out
 
 
@@ -208,11 +224,11 @@ def load_instrument(path: str | Path) -> Instrument:
 
 
 def _reference(sec: Section) -> float:
-    return sec.number("reference_pitch_hz", DEFAULT_REFERENCE_HZ, ge=380.0, le=480.0, unit="Hz")
+    return sec.number("reference_pitch_hz", DEFAULT_REFERENCE_HZ, limit="reference_pitch_hz")
 
 
 def _temperature(sec: Section) -> float:
-    return sec.number("temperature_c", 20.0, ge=-30.0, le=60.0, unit="C")
+    return sec.number("temperature_c", 20.0, limit="temperature_c")
 
 
 def _bar_file(sec: Section) -> BarFile:
@@ -220,6 +236,7 @@ def _bar_file(sec: Section) -> BarFile:
     material = load_material(sec._get("material", None) or _missing(sec, "material"),
                              source=sec.source, key="material")
     geometry = parse_geometry(sec)
+    sec.string("description", "")
     note = sec.string("note", None)
     if note is not None:
         try:
@@ -227,7 +244,8 @@ def _bar_file(sec: Section) -> BarFile:
         except ConfigError as exc:
             raise sec.error("note", exc.detail) from None
     return BarFile(sec.source, sec.string("name", Path(sec.source).stem), geometry, material,
-                   _reference(sec), _temperature(sec), note, _extra_sections(sec))
+                   _reference(sec), _temperature(sec), note,
+                   _extra_sections(sec, None if note is None else (note,)))
 
 
 def _missing(sec: Section, key: str):
@@ -238,13 +256,17 @@ def _instrument(sec: Section, data: dict) -> Instrument:
     sec.check_keys(INSTRUMENT_KEYS)
     material_spec = sec._get("material", None) or _missing(sec, "material")
     material = load_material(material_spec, source=sec.source, key="material")
-    lowest = sec.string("lowest_note")
-    highest = sec.string("highest_note")
+    for key in ("lowest_note", "highest_note"):
+        try:
+            note_to_midi(sec.string(key))
+        except ConfigError as exc:
+            raise sec.error(key, exc.detail) from None
     try:
-        notes = note_range(lowest, highest)
+        notes = note_range(sec.string("lowest_note"), sec.string("highest_note"))
     except ConfigError as exc:
-        raise ConfigError(exc.detail, source=sec.source, key="lowest_note") from None
-    ratios = tuple(sec.numbers("target_ratios", list(DEFAULT_RATIOS), gt=0, min_len=1))
+        raise sec.error("highest_note", exc.detail) from None
+    ratios = tuple(sec.numbers("target_ratios", list(DEFAULT_RATIOS), limit="target_ratio",
+                               max_len=16))
     if abs(ratios[0] - 1.0) > 1e-12:
         raise sec.error("target_ratios", "the first ratio is the fundamental and must be 1")
     if any(b <= a for a, b in zip(ratios, ratios[1:], strict=False)):
@@ -255,29 +277,38 @@ def _instrument(sec: Section, data: dict) -> Instrument:
     if bsec is not None:
         bsec.check_keys({"width_m", "thickness_m", "grading", "min_thickness_m"})
         blank = Blank(
-            tuple(bsec.numbers("width_m", gt=0, length=2, unit="m")),
-            tuple(bsec.numbers("thickness_m", gt=0, length=2, unit="m")),
+            tuple(bsec.numbers("width_m", limit="bar.width_m", length=2)),
+            tuple(bsec.numbers("thickness_m", limit="bar.thickness_m", length=2)),
             bsec.string("grading", "geometric", choices=("linear", "geometric")),
-            bsec.number("min_thickness_m", DEFAULT_MIN_THICKNESS_M, gt=0, unit="m"),
+            bsec.number("min_thickness_m", DEFAULT_MIN_THICKNESS_M, limit="bar.min_thickness_m"),
         )
         if blank.min_thickness_m >= min(blank.thickness_m):
             raise bsec.error("min_thickness_m", "must be below the blank thickness")
 
     usec = sec.section("undercut", None)
     family = parse_family(usec) if usec is not None else None
+    for key in ("workshop", "client"):   # free text, shown by `barwright demo`
+        sec.string(key, "")
 
     bars: dict[str, BarGeometry] = {}
+    tube_lengths: dict[str, float] = {}
+    spelt: dict[str, str] = {}
     bsecs = sec.section("bars", None)
     if bsecs is not None:
         for note_key in bsecs.data:
+            where = f"bars.{key_text(note_key)}"
             try:
                 note = canonical_note(note_key)
-            except ConfigError:
-                raise ConfigError("is not a note name (write e.g. F3, F#3, Bb4)",
-                                  source=sec.source, key=f"bars.{note_key}") from None
+            except ConfigError as exc:
+                raise ConfigError(f"is not a note name: {exc.detail}", source=sec.source,
+                                  key=where) from None
             if note not in notes:
-                raise ConfigError(f"outside the range {notes[0]}..{notes[-1]}",
-                                  source=sec.source, key=f"bars.{note_key}")
+                raise ConfigError(f"not in this instrument's range; allowed: {notes[0]} to "
+                                  f"{notes[-1]}", source=sec.source, key=where)
+            if note in spelt:
+                raise ConfigError(f"the same note as bars.{spelt[note]}; give each bar once",
+                                  source=sec.source, key=where)
+            spelt[note] = note_key
             bar_sec = bsecs.section(note_key)
             bar_sec.check_keys({"length_m", "width_m", "thickness_m", "min_thickness_m",
                                 "undercut", "tube"})
@@ -288,6 +319,9 @@ def _instrument(sec: Section, data: dict) -> Instrument:
                 defaults = {"width_m": w, "thickness_m": t,
                             "min_thickness_m": blank.min_thickness_m}
             bars[note] = parse_geometry(bar_sec, defaults)
+            tube_sec = bar_sec.section("tube", None)
+            if tube_sec is not None:
+                tube_lengths[note] = parse_tube_override(tube_sec)
 
     return Instrument(
         source=sec.source,
@@ -302,6 +336,7 @@ def _instrument(sec: Section, data: dict) -> Instrument:
         blank=blank,
         undercut_family=family,
         bars=bars,
-        sections=_extra_sections(sec),
+        sections=_extra_sections(sec, tuple(notes)),
+        tube_lengths=tube_lengths,
         raw=data,
     )

@@ -61,8 +61,12 @@ from synth.config import Section
 from synth.errors import ConfigError
 from synth.physics.bar_fe import BarModes, Mode
 from synth.physics.tube import air_density, dynamic_viscosity, speed_of_sound
+from synth.pitch import canonical_note
 
 TERMS = ("internal", "thermoelastic", "radiation", "cords", "air", "tube")
+
+MAX_OVERRIDES = 1000
+"""Most ``[[damping.override]]`` tables in one file (a few per note of a full range)."""
 LN_1000 = math.log(1000.0)
 
 DEFAULT_CORD_LOSS_N_S_M = 0.3
@@ -96,10 +100,11 @@ def parse_supports(sec: Section | None) -> Supports:
         return Supports()
     sec.check_keys({"cord_loss_n_s_m", "position", "fraction", "offset_m"})
     return Supports(
-        cord_loss_n_s_m=sec.number("cord_loss_n_s_m", DEFAULT_CORD_LOSS_N_S_M, ge=0.0),
+        cord_loss_n_s_m=sec.number("cord_loss_n_s_m", DEFAULT_CORD_LOSS_N_S_M,
+                                   limit="supports.cord_loss_n_s_m"),
         position=sec.string("position", "nodes", choices=("nodes", "fraction")),
-        fraction=sec.number("fraction", 0.2242, gt=0.0, lt=0.5),
-        offset_m=sec.number("offset_m", 0.0, gt=-0.05, lt=0.05, unit="m"),
+        fraction=sec.number("fraction", 0.2242, limit="supports.fraction"),
+        offset_m=sec.number("offset_m", 0.0, limit="supports.offset_m"),
     )
 
 
@@ -132,7 +137,7 @@ class Calibration:
         return table
 
 
-def parse_calibration(sec: Section | None) -> Calibration:
+def parse_calibration(sec: Section | None, notes: tuple[str, ...] | None = None) -> Calibration:
     """Read a ``[damping]`` table or a calibration file.
 
     Keys: ``factors = {internal = 1.0, thermoelastic = 1.0, radiation = 1.0, cords = 1.0,
@@ -142,25 +147,31 @@ def parse_calibration(sec: Section | None) -> Calibration:
     ``calibration_file`` (a preset's ``[damping]`` only) names a calibration file,
     relative to the preset, whose own ``[damping]`` table is merged in: a factor or
     an override the preset gives explicitly wins over the file's.
+
+    Override notes may be spelt either way (``Bb4`` is ``A#4``) and are kept in the
+    sharp spelling; with ``notes`` (the instrument's range) a note outside it is
+    refused.
     """
     if sec is None:
         return Calibration()
     sec.check_keys({"factors", "override", "calibration_file"})
-    own = _parse_damping(sec)
+    own = _parse_damping(sec, notes)
     name = sec.string("calibration_file", None)
     if name is None:
         return own
-    base = _calibration_file(sec, name)
+    base = _calibration_file(sec, name, notes)
     return Calibration({**base.factors, **own.factors}, {**base.overrides, **own.overrides},
                        f"{sec.source} (with {base.source})")
 
 
-def _calibration_file(sec: Section, name: str) -> Calibration:
+def _calibration_file(sec: Section, name: str, notes: tuple[str, ...] | None) -> Calibration:
     """Read the ``[damping]`` table of a calibration file named by a preset."""
     from pathlib import Path
 
     from synth.config import load_toml
 
+    if not name.endswith(".toml") or len(name) > 4096:
+        raise sec.error("calibration_file", "must be the path of a .toml file")
     path = Path(name)
     if not path.is_absolute():
         path = Path(sec.source).parent / path
@@ -176,26 +187,43 @@ def _calibration_file(sec: Section, name: str) -> Calibration:
         raise ConfigError("has no [damping] table; a calibration file holds [damping] with "
                           "factors and [[damping.override]] tables", source=str(path))
     table.check_keys({"factors", "override"})
-    return _parse_damping(table)
+    return _parse_damping(table, notes)
 
 
-def _parse_damping(sec: Section) -> Calibration:
+def _override_note(osec: Section, notes: tuple[str, ...] | None) -> str:
+    name = osec.string("note", "*")
+    if name == "*":
+        return name
+    try:
+        note = canonical_note(name)
+    except ConfigError as exc:
+        raise osec.error("note", exc.detail) from None
+    if notes is not None and note not in notes:
+        raise osec.error("note", f"not in this instrument's range; allowed: {notes[0]} to "
+                                 f"{notes[-1]}, or \"*\" for every note")
+    return note
+
+
+def _parse_damping(sec: Section, notes: tuple[str, ...] | None = None) -> Calibration:
     factors = {}
     fsec = sec.section("factors", None)
     if fsec is not None:
         fsec.check_keys(TERMS)
         for k in fsec.data:
-            factors[k] = fsec.number(k, ge=0.0, le=1e4)
+            factors[k] = fsec.number(k, limit="damping.factor")
     overrides = {}
     raw = sec.data.get("override", [])
     if not isinstance(raw, list):
         raise sec.error("override", "must be a list of tables [[override]]")
+    if len(raw) > MAX_OVERRIDES:
+        raise sec.error("override", f"holds {len(raw)} tables; allowed: up to {MAX_OVERRIDES}")
     for i, item in enumerate(raw):
         osec = Section(item, sec.source, sec.key(f"override[{i}]"))
         osec.check_keys({"note", "kind", "order", "q"})
-        overrides[(osec.string("note", "*"),
+        overrides[(_override_note(osec, notes),
                    osec.string("kind", "vertical", choices=("vertical", "lateral", "torsional")),
-                   osec.integer("order", ge=1))] = osec.number("q", gt=1.0)
+                   osec.integer("order", limit="damping.order"))] = osec.number(
+                       "q", limit="damping.q")
     return Calibration(factors, overrides, sec.source)
 
 

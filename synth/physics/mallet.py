@@ -43,7 +43,7 @@ from typing import Any, Final
 
 import numpy as np
 
-from synth.config import Section, load_toml, presets_dir
+from synth.config import LIMITS, Section, find_preset, load_toml, one_line, presets_dir
 from synth.errors import ConfigError, ModelError
 from synth.numerics import beta_function, bracketed_root
 
@@ -58,15 +58,18 @@ __all__ = [
     "load_mallet",
     "mallet_names",
     "mode_excitation",
+    "parse_sound",
     "rigid_contact",
     "simulate_contact",
+    "SoundSettings",
 ]
 
-EXPONENT_RANGE: Final[tuple[float, float]] = (1.0, 5.0)
+EXPONENT_RANGE: Final[tuple[float, float]] = (LIMITS["mallet.exponent"].lo,
+                                              LIMITS["mallet.exponent"].hi)
 """Allowed contact-law exponents p (inclusive): 1 is a linear spring, 3/2 Hertz,
 2-3.5 felt and yarn (Stulov 1995, from memory); above 5 is no known head material."""
 
-MASS_LIMIT_KG: Final[float] = 2.0
+MASS_LIMIT_KG: Final[float] = LIMITS["mallet.mass_kg"].hi
 """Largest head mass accepted, kg.  Real heads weigh grams to tens of grams; the
 limit catches a mass typed in grams where kilograms are asked for."""
 
@@ -149,13 +152,58 @@ class Mallet:
 
 
 def _check_values(sec: Section) -> dict[str, float]:
-    lo, hi = EXPONENT_RANGE
-    return {
-        "mass_kg": sec.number("mass_kg", gt=0.0, le=MASS_LIMIT_KG, unit="kg"),
-        "stiffness": sec.number("stiffness", gt=0.0, unit="N/m^p"),
-        "exponent": sec.number("exponent", ge=lo, le=hi),
-        "loss_s_per_m": sec.number("loss_s_per_m", ge=0.0, unit="s/m"),
-    }
+    # ranges: synth.config.LIMITS["mallet.*"]
+    return {k: sec.number(k, limit=f"mallet.{k}") for k in _KEYS}
+
+
+@dataclass(frozen=True)
+class SoundSettings:
+    """How the instrument is played by default (``[sound]`` table)."""
+
+    mallet: str = "medium"
+    position: float = 0.45
+    across: float = 0.0
+    speed_min_m_s: float = 0.3
+    speed_max_m_s: float = 3.0
+    damper_t60_s: float = 0.25
+    pan_width: float = 0.8
+    listening_distance_m: float = 1.0
+
+    def speed_of(self, velocity: float) -> float:
+        """Mallet speed for a strength 0..1 (geometric between the two limits)."""
+        v = min(max(float(velocity), 0.0), 1.0)
+        return self.speed_min_m_s * (self.speed_max_m_s / self.speed_min_m_s) ** v
+
+
+def parse_sound(sec: Section | None) -> SoundSettings:
+    """Read a preset's ``[sound]`` table (every key optional)."""
+    if sec is None:
+        return SoundSettings()
+    sec.check_keys({"mallet", "position", "across", "speed_min_m_s", "speed_max_m_s",
+                    "damper_t60_s", "pan_width", "listening_distance_m"})
+    lo = sec.number("speed_min_m_s", 0.3, limit="mallet.speed_m_s")
+    hi = sec.number("speed_max_m_s", 3.0, limit="mallet.speed_m_s")
+    if hi < lo:
+        raise sec.error("speed_max_m_s", "must be >= speed_min_m_s")
+    return SoundSettings(
+        mallet=_mallet_name(sec),
+        position=sec.number("position", 0.45, limit="strike.position"),
+        across=sec.number("across", 0.0, limit="strike.across"),
+        speed_min_m_s=lo, speed_max_m_s=hi,
+        damper_t60_s=sec.number("damper_t60_s", 0.25, limit="sound.damper_t60_s"),
+        pan_width=sec.number("pan_width", 0.8, limit="sound.pan_width"),
+        listening_distance_m=sec.number("listening_distance_m", 1.0,
+                                        limit="sound.listening_distance_m"),
+    )
+
+
+def _mallet_name(sec: Section) -> str:
+    """Return the ``mallet`` key of a table: a preset name or a .toml path."""
+    name = sec.string("mallet", "medium")
+    if find_preset(name, "mallets") is None:
+        raise sec.error("mallet", "unknown mallet; available: " + ", ".join(mallet_names())
+                        + " (or the path of a .toml file)")
+    return name
 
 
 def mallet_names() -> list[str]:
@@ -177,7 +225,7 @@ def _from_section(sec: Section, name: str, *, preset: bool) -> Mallet:
     if src is not None:
         src.check_keys(_KEYS)
         for key, text in src.data.items():
-            if not isinstance(text, str) or not text.strip():
+            if not isinstance(text, str) or not src.string(key).strip():
                 raise src.error(key, "must be a non-empty string naming the source")
             source[key] = text
     if preset:
@@ -231,19 +279,16 @@ def load_mallet(
         )
     text = os.fspath(spec)
     folder = presets_dir() / "mallets"
-    path = folder / f"{text}.toml"
-    bundled = True
-    if not (isinstance(spec, str) and path.is_file()):
-        path = Path(text)
-        bundled = path.resolve().parent == folder.resolve()
-        if path.suffix != ".toml" or not path.exists():
-            raise ConfigError(
-                f"= {text!r}: unknown mallet; available: "
-                + ", ".join(mallet_names())
-                + " (or the path of a .toml file)",
-                source=source or None,
-                key=key,
-            )
+    path = find_preset(text, "mallets") if isinstance(spec, str) else Path(text)
+    if path is None or path.suffix != ".toml" or not path.is_file():
+        raise ConfigError(
+            f"= {one_line(repr(text), 60)}: unknown mallet; available: "
+            + ", ".join(mallet_names())
+            + " (or the path of a .toml file)",
+            source=source or None,
+            key=key,
+        )
+    bundled = path.resolve().parent == folder.resolve()
     data = load_toml(path)
     return _from_section(Section(data, str(path)), path.stem, preset=bundled)
 

@@ -10,11 +10,11 @@ the values of 6061-T6 aluminium and say so in ``source``.
 from __future__ import annotations
 
 import math
+import os
 from dataclasses import dataclass, field, replace
-from pathlib import Path
 from typing import Any
 
-from synth.config import Section, load_toml, presets_dir
+from synth.config import Section, find_preset, load_toml, one_line, presets_dir
 from synth.errors import ConfigError
 
 REQUIRED = ("youngs_modulus_pa", "density_kg_m3", "poisson_ratio")
@@ -97,25 +97,18 @@ def material_names() -> list[str]:
 
 def _from_section(sec: Section, name: str, *, inline: bool) -> Material:
     sec.check_keys({*REQUIRED, *OPTIONAL, "description", "source", "name"})
-    values: dict[str, Any] = {
-        "youngs_modulus_pa": sec.number("youngs_modulus_pa", gt=0, unit="Pa"),
-        "density_kg_m3": sec.number("density_kg_m3", gt=0, unit="kg/m3"),
-        "poisson_ratio": sec.number("poisson_ratio", gt=-1.0, lt=0.5),
-    }
+    # ranges: synth.config.LIMITS["material.*"]
+    values: dict[str, Any] = {k: sec.number(k, limit=f"material.{k}") for k in REQUIRED}
     source: dict[str, str] = {}
     src = sec.section("source", None)
     if src is not None:
-        for key, text in src.data.items():
-            if not isinstance(text, str):
-                raise src.error(key, "must be a string naming the source")
-            source[key] = text
+        src.check_keys({*REQUIRED, *OPTIONAL})
+        for key in src.data:
+            source[key] = src.string(key)
     fallback = None
     for key in OPTIONAL:
         if key in sec:
-            if key == "modulus_temperature_coefficient_per_k":
-                values[key] = sec.number(key, gt=-0.01, lt=0.01, unit="1/K")
-            else:
-                values[key] = sec.number(key, gt=0)
+            values[key] = sec.number(key, limit=f"material.{key}")
         elif inline:
             fallback = fallback or load_material(_FALLBACK)
             values[key] = getattr(fallback, key)
@@ -138,7 +131,8 @@ def _from_section(sec: Section, name: str, *, inline: bool) -> Material:
     )
 
 
-def load_material(spec: str | dict, *, source: str = "", key: str = "material") -> Material:
+def load_material(spec: str | os.PathLike[str] | dict, *, source: str = "",
+                  key: str = "material") -> Material:
     """Return a Material from a preset name, a TOML path or an inline table.
 
     Parameters
@@ -152,21 +146,21 @@ def load_material(spec: str | dict, *, source: str = "", key: str = "material") 
     """
     if isinstance(spec, dict):
         return _from_section(Section(spec, source or "<inline>", key), "inline", inline=True)
+    if isinstance(spec, os.PathLike):
+        spec = os.fspath(spec)
     if not isinstance(spec, str):
         raise ConfigError(
             f"= {spec!r}: must be a material name or an inline table", source=source or None,
             key=key,
         )
-    path = presets_dir() / "materials" / f"{spec}.toml"
-    if not path.exists():
-        candidate = Path(spec)
-        if candidate.suffix == ".toml" and candidate.exists():
-            path = candidate
-        else:
-            raise ConfigError(
-                f"= {spec!r}: unknown material; available: " + ", ".join(material_names()),
-                source=source or None,
-                key=key,
-            )
+    path = find_preset(spec, "materials")
+    if path is None:
+        raise ConfigError(
+            f"= {one_line(repr(spec), 60)}: unknown material; available: "
+            + ", ".join(material_names()) + " (or the path of a .toml file)",
+            source=source or None,
+            key=key,
+        )
     data = load_toml(path)
     return _from_section(Section(data, str(path)), path.stem, inline=False)
+

@@ -80,7 +80,7 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
-from synth.config import checked_number
+from synth.config import Section, checked_number
 from synth.constants import (
     CENTS_PER_NEPER,
     END_CORRECTION_FLANGED,
@@ -103,6 +103,56 @@ from synth.numerics import bracketed_root
 
 KA_CORRECTION_LIMIT = 0.5
 """Largest ka for which the (ka)^2 end-correction fit is used without a warning [3]."""
+
+
+# --------------------------------------------------------------------------- [tubes]
+
+
+@dataclass(frozen=True)
+class TubeSettings:
+    """The resonators under the bars (``[tubes]`` table)."""
+
+    inner_radius_m: tuple[float, float]
+    gap_m: float
+    offset_cents: float = 0.0
+    flanged: bool = False
+    coupling_calibration: float = 1.0
+    gap_calibration: float = 1.0
+    enabled: bool = True
+
+    def radius_at(self, fraction: float) -> float:
+        """Inner radius at ``fraction`` of the range (geometric grading)."""
+        lo, hi = self.inner_radius_m
+        return lo * (hi / lo) ** fraction
+
+
+def parse_tubes(sec: Section | None) -> TubeSettings | None:
+    """Read a preset's ``[tubes]`` table (None without one)."""
+    if sec is None:
+        return None
+    sec.check_keys({"inner_radius_m", "gap_m", "offset_cents", "flanged",
+                    "coupling_calibration", "gap_calibration", "enabled"})
+    raw = sec.data.get("inner_radius_m")
+    if isinstance(raw, list):
+        radii = tuple(sec.numbers("inner_radius_m", limit="tubes.inner_radius_m", length=2))
+    else:
+        r = sec.number("inner_radius_m", limit="tubes.inner_radius_m")
+        radii = (r, r)
+    return TubeSettings(
+        inner_radius_m=radii,
+        gap_m=sec.number("gap_m", limit="tubes.gap_m"),
+        offset_cents=sec.number("offset_cents", 0.0, limit="tubes.offset_cents"),
+        flanged=sec.boolean("flanged", False),
+        coupling_calibration=sec.number("coupling_calibration", 1.0, limit="tubes.calibration"),
+        gap_calibration=sec.number("gap_calibration", 1.0, limit="tubes.calibration"),
+        enabled=sec.boolean("enabled", True),
+    )
+
+
+def parse_tube_override(sec: Section) -> float:
+    """Read a bar's own ``tube = { length_m = ... }`` table: the cut length, m."""
+    sec.check_keys({"length_m"})
+    return sec.number("length_m", limit="tubes.length_m")
 
 
 # --------------------------------------------------------------------------- air

@@ -69,7 +69,7 @@ from synth.physics.bar_fe import (
 from synth.physics.geometry import BarGeometry, StationUndercut, UndercutFamily
 from synth.physics.instrument import Instrument
 from synth.physics.materials import Material
-from synth.pitch import cents
+from synth.pitch import canonical_note, cents
 
 CENTS_PER_LN = 1200.0 / math.log(2.0)
 FUNDAMENTAL_TOL_CENTS = 1.0
@@ -594,7 +594,8 @@ def tuned_preset(instrument: Instrument, results: list[TuneResult]) -> dict:
     import copy
 
     table = copy.deepcopy(instrument.raw)
-    bars = dict(table.get("bars", {}))
+    # [bars.Bb3] and [bars."A#3"] are one bar (the loader refused both): sharp spelling
+    bars = {canonical_note(k): v for k, v in table.get("bars", {}).items()}
     for r in results:
         entry = dict(bars.get(r.spec.note, {}))
         geo = r.geometry.to_table()

@@ -22,7 +22,7 @@ def test_iso16_and_12tet_frequencies(name: str, hz: float) -> None:
 def test_sharps_and_flats_are_enharmonic() -> None:
     assert pitch.note_to_midi("F#5") == pitch.note_to_midi("Gb5") == 78
     assert pitch.note_to_midi("Bb3") == pitch.note_to_midi("A#3") == 58
-    assert pitch.note_to_midi("C-1") == 0
+    assert pitch.note_to_midi("C0") == 12 and pitch.note_to_midi("C9") == 120
     assert pitch.canonical_note("Bb3") == "A#3"
 
 
@@ -44,7 +44,15 @@ def test_note_range_is_chromatic() -> None:
     assert len(notes) == 37 and notes[0] == "F3" and notes[-1] == "F6"
 
 
-@pytest.mark.parametrize("bad", ["H4", "A", "4A", "A#", "", "Cx4"])
+@pytest.mark.parametrize("bad", ["H4", "A", "4A", "A#", "", "Cx4", "C-1", "C10", "Bbb3",
+                                 "C99999999", "A" * 300])
 def test_unknown_note_names_are_refused(bad: str) -> None:
     with pytest.raises(ConfigError, match="unknown note"):
+        pitch.note_to_midi(bad)
+
+
+@pytest.mark.parametrize("bad", ["C#9", "Cb0", "G9"])
+def test_notes_off_the_keyboard_are_refused(bad: str) -> None:
+    # scientific pitch notation spans C0..C9 here (MIDI 12..120): common practice, no source
+    with pytest.raises(ConfigError, match="off the keyboard; allowed: C0 to C9"):
         pitch.note_to_midi(bad)
