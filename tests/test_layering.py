@@ -22,6 +22,7 @@ FORBIDDEN = {
     "pitch": {"physics", "engine", "voicing", "io", "analysis", "reports", "cli", "bench"},
     "config": {"physics", "engine", "voicing", "io", "analysis", "reports", "cli", "bench"},
     "numerics": {"physics", "engine", "voicing", "io", "analysis", "reports", "cli", "bench"},
+    "executor": {"physics", "engine", "voicing", "io", "analysis", "reports", "cli", "bench"},
     "physics": {"engine", "voicing", "io", "analysis", "reports", "cli", "bench"},
     "engine": {"physics", "voicing", "io", "output", "analysis", "reports", "cli", "bench",
                "instrument"},
