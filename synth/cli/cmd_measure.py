@@ -228,18 +228,11 @@ def _exit_if_missed(fit) -> None:
         raise typer.Exit(code=EXIT_MISSED)
 
 
-MIDI_NOTES = (0, 127)
-"""Note numbers of the MIDI 1.0 specification (C-1 to G9): the notes --note takes."""
-
-
 def _check_keyboard_note(note: str) -> None:
-    from synth.pitch import midi_to_note, note_to_midi
+    """Refuse a --note that is not on a keyboard (C0 to C9, see synth.pitch)."""
+    from synth.pitch import note_to_midi
 
     try:
-        number = note_to_midi(note)
+        note_to_midi(note)
     except ConfigError as exc:
-        raise ConfigError(f"= {note!r}: {exc}", source="--note") from None
-    lo, hi = MIDI_NOTES
-    if not lo <= number <= hi:
-        raise ConfigError(f"= {note!r}: outside the notes of MIDI ({midi_to_note(lo)} to "
-                          f"{midi_to_note(hi)})", source="--note")
+        raise ConfigError(f"= {note!r}: {exc.detail}", source="--note") from None

@@ -35,7 +35,7 @@ REPO = Path(__file__).resolve().parents[2]
     (["chord", DEMO, "F3 A4:"], ["NOTES", "an empty field"]),
     (["chord", DEMO, "F3 A4:-inf"], ["NOTES", "'-inf'"]),
     # printed NaN ratios in its JSON
-    (["measure", "take.wav", "--note", "C-99", "--json"], ["--note", "'C-99'", "MIDI"]),
+    (["measure", "take.wav", "--note", "C-99", "--json"], ["--note", "'C-99'", "octave 0-9"]),
     # click's multi-line usage block
     (["strike", DEMO, "A4", "--duration", "abc"], ["strike --duration = abc", "0.05 to 600"]),
     (["partials", DEMO, "--note", "A4", "--vertical", "99"],
