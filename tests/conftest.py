@@ -21,5 +21,5 @@ def _one_blas_thread():
 
 @pytest.fixture
 def rng() -> np.random.Generator:
-    """A generator with a fixed seed so noisy checks are repeatable."""
+    """Return a generator with a fixed seed so noisy checks are repeatable."""
     return np.random.default_rng(20261202)

@@ -57,6 +57,7 @@ def _imports(path: Path) -> set[str]:
 
 @pytest.mark.parametrize("path", sorted(ROOT.rglob("*.py")), ids=lambda p: str(p.relative_to(ROOT)))
 def test_imports_point_downward(path: Path) -> None:
+    """No module imports a layer above its own."""
     layer = _layer_of(path)
     bad = _imports(path) & FORBIDDEN.get(layer, set())
     assert not bad, f"{path.relative_to(ROOT)} ({layer}) imports {sorted(bad)}"
@@ -102,6 +103,7 @@ def test_numba_finder_sees_every_import_form(snippet: str) -> None:
     "from . import numba",
 ])
 def test_numba_finder_ignores_lookalikes(snippet: str) -> None:
+    """Names that merely contain "numba", text and relative imports are not numba."""
     assert _numba_imports(snippet) == []
 
 

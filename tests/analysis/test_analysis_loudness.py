@@ -63,7 +63,7 @@ def _k_gain_db(freq_hz: float) -> float:
 
 
 def _sine_loudness_by_definition(freq_hz: float, amplitude: float) -> float:
-    """Closed form of BS.1770-4 for a steady sine in one channel.
+    """Return BS.1770-4 loudness of a steady sine in one channel, in closed form.
 
     Every 400 ms block holds the same mean square A^2/2 |H_K(f)|^2, so no gate
     removes a block and the integrated loudness is Eq. 2 applied to that value.

@@ -42,7 +42,7 @@ def read_csv(path: Path) -> list[dict[str, str]]:
 
 
 def assert_png(path: Path, *, min_side: int = 200) -> np.ndarray:
-    """The file is a PNG that decodes to a picture with something drawn on it."""
+    """Check that the file is a PNG that decodes to a picture with something drawn."""
     from matplotlib import image
 
     assert path.read_bytes()[:8] == PNG_SIGNATURE, path

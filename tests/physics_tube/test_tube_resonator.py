@@ -70,7 +70,7 @@ def test_dynamic_viscosity_against_a_published_table(temperature_c):
 
 
 def test_kinematic_viscosity_against_the_table_and_the_ideal_gas():
-    """nu = mu / rho at 20 C: the table's 18.2 uPa s over the ideal-gas density.
+    """Kinematic viscosity nu = mu / rho at 20 C: the table's 18.2 uPa s over the ideal-gas density.
 
     rho = p / (R T) with p = 101325 Pa, R = 287.05 J/(kg K) for dry air (ideal gas,
     Kinsler et al. 2000; R from memory) gives 1.2041 kg/m^3; tolerance as above.  The
