@@ -1,4 +1,4 @@
-"""Shared fixtures: seeded random numbers and one BLAS thread for the whole session."""
+"""Shared fixtures: seeded random numbers and one BLAS thread for the whole test run."""
 
 from __future__ import annotations
 

@@ -19,7 +19,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 import soundfile as sf
-from e2e_helpers import assert_png, read_csv, run_json, run_ok
+from e2e_common import assert_png, read_csv, run_json, run_ok
 
 import synth.bench
 
@@ -144,7 +144,7 @@ def test_demo_tube_makes_the_note_louder(demo) -> None:
 def test_demo_build_sheet_is_the_cutlist_command(demo, tmp_path) -> None:
     """The demo's cutlist.csv is what `barwright cutlist` writes for the same preset."""
     folder, _ = demo
-    from e2e_helpers import DEMO
+    from e2e_common import DEMO
 
     run_ok("cutlist", DEMO, "--out", tmp_path)
     assert read_csv(folder / "cutlist.csv") == read_csv(tmp_path / "cutlist.csv")

@@ -20,7 +20,7 @@ import math
 import numpy as np
 import pytest
 import soundfile as sf
-from e2e_helpers import DEMO, assert_png, run_json, run_ok
+from e2e_common import DEMO, assert_png, run_json, run_ok
 
 from synth.analysis import find_partials
 from synth.physics.instrument import load_instrument

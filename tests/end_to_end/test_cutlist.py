@@ -28,7 +28,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from e2e_helpers import DEMO, assert_png, read_csv, run_json
+from e2e_common import DEMO, assert_png, read_csv, run_json
 
 from synth.physics.bar_fe import solve_bar
 from synth.physics.geometry import ArchUndercut, BarGeometry

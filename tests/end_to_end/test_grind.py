@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from e2e_helpers import DEMO, assert_png, run_json
+from e2e_common import DEMO, assert_png, run_json
 
 from synth.physics.bar_fe import solve_bar
 from synth.physics.geometry import BarGeometry, GroundUndercut

@@ -21,7 +21,7 @@ from pathlib import Path
 
 import pytest
 import soundfile as sf
-from e2e_helpers import DEMO, assert_png, read_csv, run_json, run_ok
+from e2e_common import DEMO, assert_png, read_csv, run_json, run_ok
 
 from synth.analysis import fit_decay
 from synth.physics.instrument import load_instrument

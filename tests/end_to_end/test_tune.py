@@ -20,7 +20,7 @@ import tomllib
 
 import numpy as np
 import pytest
-from e2e_helpers import DEMO, run_json
+from e2e_common import DEMO, run_json
 
 from synth.physics.bar_fe import solve_bar
 from synth.physics.instrument import load_instrument

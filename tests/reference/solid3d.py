@@ -893,7 +893,7 @@ def solve_bar(
     Results are cached on the (hashable, value-compared) arguments for the life of the
     process, however they are passed, so tests that share a bar share a solve; and on
     disk under :data:`CACHE_DIR`, keyed by the arguments, this file and the versions of
-    numpy, scipy and scikit-fem, so later sessions read them back.
+    numpy, scipy and scikit-fem, so later test runs read them back.
 
     Parameters
     ----------
@@ -933,6 +933,10 @@ CACHE_DIR = Path(os.environ.get("SOLID3D_CACHE", Path(__file__).resolve().parent
 to an empty string to switch the disk cache off."""
 
 
+_SOURCE_SHA256 = hashlib.sha256(Path(__file__).read_bytes()).hexdigest()
+"""This file as it was imported: a change to the model makes every stored entry stale."""
+
+
 def _disk_key(args: tuple) -> str | None:
     """Key of one solve: the inputs, this file's source and the library versions.
 
@@ -944,14 +948,12 @@ def _disk_key(args: tuple) -> str | None:
     text = repr(args)
     if " at 0x" in text:
         return None
-    source = Path(__file__).read_bytes()
-    parts = (text, hashlib.sha256(source).hexdigest(), np.__version__, scipy.__version__,
-             skfem.__version__)
+    parts = (text, _SOURCE_SHA256, np.__version__, scipy.__version__, skfem.__version__)
     return hashlib.sha256("\n".join(parts).encode()).hexdigest()[:32]
 
 
 def _disk_cached(func: Callable) -> Callable:
-    """Keep results on disk between test sessions, keyed by :func:`_disk_key`.
+    """Keep results on disk between test runs, keyed by :func:`_disk_key`.
 
     A 3-D solve takes seconds to tens of seconds; its result depends only on the
     geometry, material, mesh and the code and libraries that compute it, all of which
