@@ -927,10 +927,12 @@ def solve_bar(
     return _solve_bar_cached(geometry, material, mesh, int(n_modes), bool(use_symmetry))
 
 
-CACHE_DIR = Path(os.environ.get("SOLID3D_CACHE", Path(__file__).resolve().parent.parent
-                                / ".cache" / "solid3d"))
+_CACHE_SETTING = os.environ.get("SOLID3D_CACHE")
+CACHE_DIR: Path | None = (
+    Path(__file__).resolve().parent.parent / ".cache" / "solid3d" if _CACHE_SETTING is None
+    else Path(_CACHE_SETTING) if _CACHE_SETTING.strip() else None)
 """Folder of the on-disk result cache (git-ignored); set ``SOLID3D_CACHE`` to move it, or
-to an empty string to switch the disk cache off."""
+to an empty string to switch the disk cache off (None)."""
 
 
 _SOURCE_SHA256 = hashlib.sha256(Path(__file__).read_bytes()).hexdigest()
@@ -962,7 +964,7 @@ def _disk_cached(func: Callable) -> Callable:
 
     @functools.wraps(func)
     def wrapper(*args):
-        key = _disk_key(args) if str(CACHE_DIR) else None
+        key = _disk_key(args) if CACHE_DIR is not None else None
         path = CACHE_DIR / f"{key}.pkl" if key else None
         if path is not None and path.is_file():
             try:
