@@ -115,12 +115,8 @@ def sustain_command(
 
 
 def chord_decay_report(preset: Path, voicer, items, velocity, mallet, roll_ms, duration, out,
-                       *, force: bool, json_out: bool, render: dict | None = None) -> None:
-    """Print the even-decay check of a chord and write its PNG (called by ``chord``).
-
-    With ``json_out`` the render's record (``render``) goes into the same JSON object,
-    so stdout holds exactly one JSON document.
-    """
+                       *, force: bool, json_out: bool) -> None:
+    """Print the even-decay check of a chord and write its PNG (called by ``chord``)."""
     from synth import io
     from synth.reports.chord import chord_decay, chord_decay_png
 
@@ -132,8 +128,7 @@ def chord_decay_report(preset: Path, voicer, items, velocity, mallet, roll_ms, d
     io.write_bytes(png, chord_decay_png(res, f"{voicer.instrument.name}: "
                                          + " ".join(n for n, _ in items)), force=force)
     if json_out:
-        print_json({**({"render": render} if render is not None else {}),
-                    "spread_db_per_s": res.spread_db_per_s, "times_s": list(res.times_s),
+        print_json({"spread_db_per_s": res.spread_db_per_s, "times_s": list(res.times_s),
                     "png": str(png),
                     "notes": [{"note": n.note, "frequency_hz": n.frequency_hz,
                                "decay_db_per_s": n.decay_db_per_s, "t60_s": n.t60_s,

@@ -62,9 +62,7 @@ def _voicer(preset: Path, *, sample_rate: int, channels: int, no_tubes: bool,
 
 def _finish(preset: Path, name: str, out: Path | None, voices, seconds: float, *,
             voicer, sample_rate: int, channels: int, fmt: str, gain_db: float | None,
-            force: bool, play: bool, json_out: bool, settings: dict,
-            quiet: bool = False) -> dict:
-    """Render to WAV, report it (a table line, or JSON with ``json_out``), return the record."""
+            force: bool, play: bool, json_out: bool, settings: dict) -> None:
     from synth import io
     from synth.output import HEARING_CAUTION, render_to_wav
 
@@ -94,13 +92,12 @@ def _finish(preset: Path, name: str, out: Path | None, voices, seconds: float, *
         warn(f"--gain-db {plan.requested_gain_db:g} would clip (peak "
              f"{plan.peak_dbfs + plan.requested_gain_db - plan.gain_db:+.1f} dBFS); "
              f"lowered to {plan.gain_db:+.1f} dB so nothing clips")
-    record = {"wav": str(rep.path), "sidecar": str(rep.sidecar), "seconds": rep.seconds,
-              "sample_rate_hz": sample_rate, "channels": channels,
-              "peak_dbfs": plan.peak_dbfs, "gain_db": plan.gain_db, "mode": plan.mode,
-              "render_wall_s": rep.wall_s}
     if json_out:
-        print_json(record)
-    elif not quiet:
+        print_json({"wav": str(rep.path), "sidecar": str(rep.sidecar), "seconds": rep.seconds,
+                    "sample_rate_hz": sample_rate, "channels": channels,
+                    "peak_dbfs": plan.peak_dbfs, "gain_db": plan.gain_db, "mode": plan.mode,
+                    "render_wall_s": rep.wall_s})
+    else:
         how = ("normalised to -1 dBFS peak" if plan.mode == "normalise"
                else f"fixed gain {plan.gain_db:+.1f} dB")
         typer.echo(f"wrote {rep.path} ({rep.seconds:.2f} s, {sample_rate} Hz, "
@@ -114,7 +111,6 @@ def _finish(preset: Path, name: str, out: Path | None, voices, seconds: float, *
             io.play(samples, fs)
         except Exception as exc:  # playback is optional: the WAV is written either way
             warn(f"cannot play ({exc}); the WAV is written")
-    return record
 
 
 @app.command("strike")
@@ -176,7 +172,7 @@ _CHORD_ITEM = re.compile(r"^([A-Ga-g][#b]?-?\d+)(?::([0-9.]+))?$")
 
 
 def parse_chord(text: str) -> list[tuple[str, float | None]]:
-    """Return the notes of a chord, each optionally with a strength: ``"F3 A4:0.8 C5"``."""
+    """Notes of a chord, each optionally with a strength: ``"F3 A4:0.8 C5"``."""
     items = text.replace(",", " ").split()
     if not items:
         raise ConfigError("= '': give at least one note, e.g. \"F3 A4 C5\"", source="NOTES")
@@ -233,21 +229,17 @@ def chord_command(
         voices.append(v.strike_voice(name, time_s=rank * step,
                                      velocity=velocity if vel is None else vel, mallet=mallet))
     label = "-".join(file_label(n) for n, _ in items)
-    # With --check-decay --json, stdout carries one JSON object: the decay report with
-    # the render's record inside it.
-    record = _finish(preset, f"chord-{label}", out, voices, duration, voicer=v,
-                     sample_rate=sample_rate, channels=channels, fmt=fmt, gain_db=gain_db,
-                     force=force, play=play, json_out=json_out and not check_decay,
-                     quiet=json_out and check_decay,
-                     settings={"command": "chord", "notes": [n for n, _ in items],
-                               "strengths": [velocity if vel is None else vel
-                                             for _, vel in items],
-                               "roll_ms": roll_ms, "mallet": mallet or v.sound.mallet})
+    _finish(preset, f"chord-{label}", out, voices, duration, voicer=v, sample_rate=sample_rate,
+            channels=channels, fmt=fmt, gain_db=gain_db, force=force, play=play,
+            json_out=json_out and not check_decay,
+            settings={"command": "chord", "notes": [n for n, _ in items],
+                      "strengths": [velocity if vel is None else vel for _, vel in items],
+                      "roll_ms": roll_ms, "mallet": mallet or v.sound.mallet})
     if check_decay:
         from synth.cli.cmd_reports import chord_decay_report
 
         chord_decay_report(preset, v, items, velocity, mallet, roll_ms, duration, out,
-                           force=force, json_out=json_out, render=record)
+                           force=force, json_out=json_out)
 
 
 @app.command("render")

@@ -931,8 +931,8 @@ _CACHE_SETTING = os.environ.get("SOLID3D_CACHE")
 CACHE_DIR: Path | None = (
     Path(__file__).resolve().parent.parent / ".cache" / "solid3d" if _CACHE_SETTING is None
     else Path(_CACHE_SETTING) if _CACHE_SETTING.strip() else None)
-"""Folder of the on-disk result cache (git-ignored); set ``SOLID3D_CACHE`` to move it, or
-to an empty string to switch the disk cache off (None)."""
+"""Folder of the on-disk result cache (it ignores itself for git); set ``SOLID3D_CACHE``
+to move it, or to an empty string to switch the disk cache off (None)."""
 
 
 _SOURCE_SHA256 = hashlib.sha256(Path(__file__).read_bytes()).hexdigest()
@@ -975,6 +975,9 @@ def _disk_cached(func: Callable) -> Callable:
         result = func(*args)
         if path is not None:
             path.parent.mkdir(parents=True, exist_ok=True)
+            ignore = CACHE_DIR / ".gitignore"  # the folder keeps itself out of git
+            if not ignore.exists():
+                ignore.write_text("# results cached by tests/reference/solid3d.py\n*\n")
             tmp = path.with_suffix(f".{os.getpid()}.tmp")
             with tmp.open("wb") as f:
                 pickle.dump(result, f, protocol=pickle.HIGHEST_PROTOCOL)
