@@ -58,18 +58,63 @@ def _imports(path: Path) -> set[str]:
 
 @pytest.mark.parametrize("path", sorted(ROOT.rglob("*.py")), ids=lambda p: str(p.relative_to(ROOT)))
 def test_imports_point_downward(path: Path) -> None:
+    """No module imports a layer above its own."""
     layer = _layer_of(path)
     bad = _imports(path) & FORBIDDEN.get(layer, set())
     assert not bad, f"{path.relative_to(ROOT)} ({layer}) imports {sorted(bad)}"
 
 
+KERNELS = ROOT / "engine" / "kernels.py"
+
+
+def _numba_imports(source: str) -> list[int]:
+    """Line numbers where ``source`` imports numba in any form.
+
+    Catches ``import numba``, ``import numba as nb``, ``import numba.core.types``,
+    ``from numba import njit``, ``from numba.core import types``, and imports nested
+    inside functions (``ast.walk`` visits every node).
+    """
+    lines = []
+    for node in ast.walk(ast.parse(source)):
+        if isinstance(node, ast.Import):
+            if any(a.name == "numba" or a.name.startswith("numba.") for a in node.names):
+                lines.append(node.lineno)
+        elif isinstance(node, ast.ImportFrom) and node.level == 0 and node.module and (
+                node.module == "numba" or node.module.startswith("numba.")):
+            lines.append(node.lineno)
+    return lines
+
+
+@pytest.mark.parametrize("snippet", [
+    "import numba",
+    "import numba as nb",
+    "import numba.core.types",
+    "import os, numba",
+    "from numba import njit",
+    "from numba.core import types",
+    "def f():\n    from numba import prange\n    return prange",
+])
+def test_numba_finder_sees_every_import_form(snippet: str) -> None:
+    """The checker below must not be fooled by the spelling of the import."""
+    assert _numba_imports(snippet) != []
+
+
+@pytest.mark.parametrize("snippet", [
+    "import numbers", "from numbat import x", "x = 'import numba'", "# import numba",
+    "from . import numba",
+])
+def test_numba_finder_ignores_lookalikes(snippet: str) -> None:
+    """Names that merely contain "numba", text and relative imports are not numba."""
+    assert _numba_imports(snippet) == []
+
+
 def test_numba_only_in_kernels() -> None:
     """Every @njit lives in synth/engine/kernels.py (style guide, section 5)."""
+    assert _numba_imports(KERNELS.read_text(encoding="utf-8")), "kernels.py lost its numba"
     offenders = [
-        str(p.relative_to(ROOT))
-        for p in ROOT.rglob("*.py")
-        if p.name != "kernels.py" and "numba" in p.read_text(encoding="utf-8")
-        and "import numba" in p.read_text(encoding="utf-8")
+        f"{p.relative_to(ROOT)}:{line}"
+        for p in sorted(ROOT.rglob("*.py")) if p != KERNELS
+        for line in _numba_imports(p.read_text(encoding="utf-8"))
     ]
     assert offenders == []
 

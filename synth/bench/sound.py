@@ -1,5 +1,7 @@
-"""Sound benchmarks on the demo instrument: a strike from the command line, and
-the sustain report against the rendering it analyses.
+"""Sound benchmarks on the demo instrument.
+
+A strike from the command line, and the sustain report against the rendering it
+analyses.
 
 Figures
 -------
@@ -8,11 +10,15 @@ sound.strike_wall_s
     second run, so numba's kernels come from its cache.  Target < 1.5 s.
 sound.strike_first_wall_s
     The first run of the same (may compile and fill the cache).
+sustain.notes
+    Notes in that report (all 37; every fourth with --quick).
 sustain.seconds
-    ``sustain_report`` on all 37 notes with tubes and the motor running.
+    ``sustain_report`` on those notes with tubes and the motor running.
 sustain.render_s, sustain.analysis_s, sustain.analysis_over_render
     Time spent rendering the strikes it measures and analysing them; the ratio
     should stay at or below 1 (analysis no dearer than the rendering).
+sustain.audio_s
+    Seconds of audio rendered and analysed for the report.
 """
 
 from __future__ import annotations

@@ -2,6 +2,8 @@
 
 Figures
 -------
+tuning.bars, tuning.on_target
+    Bars tuned (all 37; every sixth with --quick) and how many reached their targets.
 tuning.range_s
     Wall time to tune all 37 bars of the demo instrument to 1 : 4 : 10.08 with no
     starting solution (the first bar from the uniform bar's length).  Target < 30 s.

@@ -18,10 +18,12 @@ DEMO = presets_dir() / "instruments" / "tarrow-37.toml"
 
 
 def run(*args):
+    """Invoke ``barwright`` in-process; stdout and stderr are kept apart."""
     return CliRunner().invoke(app, [str(a) for a in args])
 
 
 def test_strike_writes_wav_and_sidecar_and_refuses_to_overwrite(tmp_path: Path) -> None:
+    """A strike writes WAV and sidecar at -1 dBFS; a second run needs --force."""
     out = tmp_path / "a4.wav"
     r = run("strike", DEMO, "A4", "--duration", "1.0", "--out", out)
     assert r.exit_code == 0, r.output
@@ -41,6 +43,7 @@ def test_strike_writes_wav_and_sidecar_and_refuses_to_overwrite(tmp_path: Path) 
 @pytest.mark.parametrize(("fmt", "subtype"), [("pcm16", "PCM_16"), ("pcm24", "PCM_24"),
                                               ("float32", "FLOAT")])
 def test_formats_and_rates(tmp_path: Path, fmt: str, subtype: str) -> None:
+    """Each sample format and rate lands in the file header."""
     out = tmp_path / f"{fmt}.wav"
     r = run("strike", DEMO, "C5", "--duration", "0.3", "--format", fmt, "--sample-rate", "44100",
             "--channels", "1", "--out", out)
@@ -50,6 +53,7 @@ def test_formats_and_rates(tmp_path: Path, fmt: str, subtype: str) -> None:
 
 
 def test_fixed_gain_that_would_clip_is_lowered_and_warned(tmp_path: Path) -> None:
+    """A fixed gain that would clip is lowered, with a warning."""
     out = tmp_path / "loud.wav"
     r = run("strike", DEMO, "A4", "--duration", "0.5", "--gain-db", "60", "--out", out)
     assert r.exit_code == 0, r.output
@@ -58,6 +62,7 @@ def test_fixed_gain_that_would_clip_is_lowered_and_warned(tmp_path: Path) -> Non
 
 
 def test_midi_file_renders_notes_at_their_times(tmp_path: Path) -> None:
+    """MIDI notes start on their sample; the sustain pedal holds them, then damps them."""
     mid = mido.MidiFile(ticks_per_beat=480)
     track = mido.MidiTrack()
     mid.tracks.append(track)
@@ -89,9 +94,36 @@ def test_midi_file_renders_notes_at_their_times(tmp_path: Path) -> None:
     assert abs(x[24000 + 5] - gain * render([a4], 24006, sample_rate=fs)[24005, 0]) > 1e-4
     # the pedal goes down at 1.25 s: the sound dies (dampers T60 0.25 s) well before the end
     assert len(x) / fs < 1.25 + 0.5
+    _assert_pedal_holds_then_dampers_fall(x, fs, pedal_down_s=1.25)
+
+
+def _assert_pedal_holds_then_dampers_fall(x: np.ndarray, fs: int, *, pedal_down_s: float) -> None:
+    """Both keys were released with the pedal up: the notes ring until it goes down.
+
+    Just before the pedal goes down the level is within 10 dB of the peak (without
+    the pedal the dampers would have fallen at the note-offs, 0.25 and 0.75 s, and
+    taken 60 dB per 0.25 s). After it, the dampers decay the sound at 60 dB per damper
+    T60 (the preset's damper_t60_s, by the definition of T60; physics.md section 6), so
+    the peak of the last 50 ms must lie at least 60 (t - t_pedal) / T60 - 10 dB below
+    the file's peak, t the start of that stretch: the 10 dB margin covers the level
+    already below the peak at the pedal (measured 2.5 dB) and the dampers' onset.
+    Measured: 35 dB required, 50 dB found.
+    """
+    import tomllib
+
+    t60 = tomllib.loads(DEMO.read_text(encoding="utf-8"))["sound"]["damper_t60_s"]
+    peak = float(np.max(np.abs(x)))
+    before = x[int((pedal_down_s - 0.1) * fs):int((pedal_down_s - 0.05) * fs)]
+    assert 20 * np.log10(np.max(np.abs(before)) / peak) >= -10.0
+    start = len(x) / fs - 0.05
+    required_db = 60.0 * (start - pedal_down_s) / t60 - 10.0
+    assert required_db >= 30.0  # the file runs long enough past the pedal to tell
+    tail = x[int(start * fs):]
+    assert 20 * np.log10(np.max(np.abs(tail)) / peak) <= -required_db
 
 
 def test_bad_inputs_exit_2_with_one_line(tmp_path: Path) -> None:
+    """Bad notes, mallets, rates, formats and event files: exit 2, one line."""
     cases = [
         ("strike", DEMO, "H4"),
         ("strike", DEMO, "C8"),

@@ -46,13 +46,41 @@ def test_speed_of_sound_dry_air_formula(temperature_c, expected):
     assert speed_of_sound(temperature_c) == pytest.approx(expected, abs=0.5 * 10 ** -digits)
 
 
-def test_kinematic_viscosity_matches_handbook_value():
-    """Sutherland law / ideal-gas density reproduce nu = 1.506e-5 m^2/s at 20 C.
+# Dynamic viscosity of dry air at 0.1 MPa, micro-pascal seconds: Kadoya, K., Matsunaga, N.
+# and Nagashima, A., "Viscosity and thermal conductivity of dry air in the gaseous
+# phase", J. Phys. Chem. Ref. Data 14(4), 947-970, 1985, tabulated values (figures to
+# three digits and the table's stated uncertainty of about 1 % are from memory).
+AIR_VISCOSITY_TABLE_UPA_S = {0.0: 17.2, 20.0: 18.2, 40.0: 19.1}
+TABLE_UNCERTAINTY = 0.01
 
-    Handbook value quoted in physics.md section 7; 0.2% covers the rounding of
-    the Sutherland constants (from memory).
+
+@pytest.mark.parametrize("temperature_c", sorted(AIR_VISCOSITY_TABLE_UPA_S))
+def test_dynamic_viscosity_against_a_published_table(temperature_c):
+    """The Sutherland law in tube.py against tabulated viscosity of air (Kadoya et al. 1985).
+
+    Tolerance: the table's uncertainty (about 1 %, from memory) plus half a unit of its
+    last quoted digit (0.05 uPa s, 0.3 %).  The wall losses scale with sqrt(nu), so this
+    bounds their error to well under 1 %.  Measured: -0.2 % to -0.4 %.
     """
-    assert kinematic_viscosity(20.0) == pytest.approx(KINEMATIC_VISCOSITY_AIR_20C_M2_S, rel=2e-3)
+    from synth.physics.tube import dynamic_viscosity
+
+    ref = AIR_VISCOSITY_TABLE_UPA_S[temperature_c] * 1e-6
+    tol = TABLE_UNCERTAINTY * ref + 0.05e-6
+    assert dynamic_viscosity(temperature_c) == pytest.approx(ref, abs=tol)
+
+
+def test_kinematic_viscosity_against_the_table_and_the_ideal_gas():
+    """Kinematic viscosity nu = mu / rho at 20 C: the table's 18.2 uPa s over the ideal-gas density.
+
+    rho = p / (R T) with p = 101325 Pa, R = 287.05 J/(kg K) for dry air (ideal gas,
+    Kinsler et al. 2000; R from memory) gives 1.2041 kg/m^3; tolerance as above.  The
+    constant the wall-loss formula quotes (1.506e-5 m^2/s) must agree too.
+    """
+    rho = 101325.0 / (287.05 * 293.15)
+    ref = AIR_VISCOSITY_TABLE_UPA_S[20.0] * 1e-6 / rho
+    tol = TABLE_UNCERTAINTY * ref + 0.05e-6 / rho
+    assert kinematic_viscosity(20.0) == pytest.approx(ref, abs=tol)
+    assert KINEMATIC_VISCOSITY_AIR_20C_M2_S == pytest.approx(ref, abs=tol)
 
 
 @pytest.mark.parametrize("radius_m, length_m", [(0.025, 0.18), (0.02, 0.4), (0.03, 0.09)])

@@ -47,12 +47,17 @@ References
 from __future__ import annotations
 
 import functools
+import hashlib
 import math
+import os
+import pickle
 import time
 from collections.abc import Callable
 from dataclasses import dataclass, field
+from pathlib import Path
 
 import numpy as np
+import scipy
 import scipy.sparse as sp
 import scipy.sparse.linalg as sla
 
@@ -886,7 +891,9 @@ def solve_bar(
     """Lowest elastic modes of a free-free bar by 3-D finite elements.
 
     Results are cached on the (hashable, value-compared) arguments for the life of the
-    process, however they are passed, so tests that share a bar share a solve.
+    process, however they are passed, so tests that share a bar share a solve; and on
+    disk under :data:`CACHE_DIR`, keyed by the arguments, this file and the versions of
+    numpy, scipy and scikit-fem, so later test runs read them back.
 
     Parameters
     ----------
@@ -920,7 +927,68 @@ def solve_bar(
     return _solve_bar_cached(geometry, material, mesh, int(n_modes), bool(use_symmetry))
 
 
+_CACHE_SETTING = os.environ.get("SOLID3D_CACHE")
+CACHE_DIR: Path | None = (
+    Path(__file__).resolve().parent.parent / ".cache" / "solid3d" if _CACHE_SETTING is None
+    else Path(_CACHE_SETTING) if _CACHE_SETTING.strip() else None)
+"""Folder of the on-disk result cache (it ignores itself for git); set ``SOLID3D_CACHE``
+to move it, or to an empty string to switch the disk cache off (None)."""
+
+
+_SOURCE_SHA256 = hashlib.sha256(Path(__file__).read_bytes()).hexdigest()
+"""This file as it was imported: a change to the model makes every stored entry stale."""
+
+
+def _disk_key(args: tuple) -> str | None:
+    """Key of one solve: the inputs, this file's source and the library versions.
+
+    None when an input has no stable text form (a profile compared by identity), so
+    such solves are never stored.
+    """
+    import skfem
+
+    text = repr(args)
+    if " at 0x" in text:
+        return None
+    parts = (text, _SOURCE_SHA256, np.__version__, scipy.__version__, skfem.__version__)
+    return hashlib.sha256("\n".join(parts).encode()).hexdigest()[:32]
+
+
+def _disk_cached(func: Callable) -> Callable:
+    """Keep results on disk between test runs, keyed by :func:`_disk_key`.
+
+    A 3-D solve takes seconds to tens of seconds; its result depends only on the
+    geometry, material, mesh and the code and libraries that compute it, all of which
+    enter the key, so a stale entry cannot be read. Unreadable entries are recomputed.
+    """
+
+    @functools.wraps(func)
+    def wrapper(*args):
+        key = _disk_key(args) if CACHE_DIR is not None else None
+        path = CACHE_DIR / f"{key}.pkl" if key else None
+        if path is not None and path.is_file():
+            try:
+                with path.open("rb") as f:
+                    return pickle.load(f)
+            except Exception:  # a damaged or unreadable entry is recomputed
+                pass
+        result = func(*args)
+        if path is not None:
+            path.parent.mkdir(parents=True, exist_ok=True)
+            ignore = CACHE_DIR / ".gitignore"  # the folder keeps itself out of git
+            if not ignore.exists():
+                ignore.write_text("# results cached by tests/reference/solid3d.py\n*\n")
+            tmp = path.with_suffix(f".{os.getpid()}.tmp")
+            with tmp.open("wb") as f:
+                pickle.dump(result, f, protocol=pickle.HIGHEST_PROTOCOL)
+            os.replace(tmp, path)
+        return result
+
+    return wrapper
+
+
 @functools.lru_cache(maxsize=64)
+@_disk_cached
 def _solve_bar_cached(
     geometry: BarGeometry,
     material: Material,
