@@ -31,9 +31,10 @@ kinks of a station table (:func:`mesh_cuts`); each segment between them gets
 elements in proportion to the bending waves it holds (thin sections carry shorter
 waves).  The weak kinks of a densely measured profile stay inside elements, whose
 section integrals then run piecewise over the stations (:func:`_spanning_values`),
-so the mesh, and the cost, follow the bar's waves, not its station count.  The first solve uses degree ``p - 1`` on that mesh, the second
-degree ``p``; if some requested frequency changed by ``tolerance`` (default
-1e-4, 0.01 %) or more, the mesh is refined by 1.5 until it settles.
+so the mesh, and the cost, follow the bar's waves, not its station count.  The
+first solve uses degree ``p - 1`` on that mesh, the second degree ``p``; if some
+requested frequency changed by ``tolerance`` (default 1e-4, 0.01 %) or more, the
+mesh is refined by 1.5 until it settles.
 
 The lowest eigenvalues of each field are rigid-body motions and are skipped:
 three in the vertical field (heave, pitch and sliding along the bar), two in the
@@ -1023,8 +1024,8 @@ def _too_slender(bar: BarGeometry, kind: str, rounding: float, mesh: Mesh) -> st
     thin = bar.thinnest_m()
     return (f"the bar is too slender to model: length {bar.length_m:g} m over its thinnest "
             f"section {thin:g} m is {bar.length_m / thin:.3g} thicknesses; double precision "
-            f"then leaves {kind} partial 1 uncertain by {rounding:.1e} (relative) on "
-            f"{mesh.n_elements} elements")
+            f"then leaves {kind} partial 1 uncertain by {rounding:.2g} (relative, on "
+            f"{mesh.n_elements} elements; the model needs below 5e-4)")
 
 
 def _bending_only(K: np.ndarray, nodal: np.ndarray, n: int):

@@ -13,6 +13,7 @@ import numpy as np
 import pytest
 
 from synth.config import presets_dir
+from synth.errors import ModelError
 from synth.physics.bar_fe import (
     PHASE_PER_ELEMENT,
     dense_reference_frequencies,
@@ -52,16 +53,49 @@ def test_automatic_refinement_meets_its_tolerance() -> None:
         assert a.frequency_hz == pytest.approx(f.frequency_hz, rel=1e-4)
 
 
+def rounding_bound(bar: BarGeometry, mesh, kind: str, f: np.ndarray) -> np.ndarray:
+    """Relative error rounding may put on frequencies f solved on ``mesh``.
+
+    A symmetric eigensolver is backward stable: each computed eigenvalue is within
+    about eps lambda_max of an exact one (LAPACK Users' Guide, 3rd ed., section 4.7,
+    error bounds for the symmetric eigenproblem, which takes the modestly growing
+    factor p(n) as 1; from memory), so |df / f| <= eps (f_max / f)**2 / 2 with f_max
+    the mesh's highest frequency of that field.  Measured here: rigid-body eigenvalues
+    at 0.03 to 0.7 eps lambda_max on 8 to 256 elements.
+    """
+    f_max = dense_reference_frequencies(bar, AL, mesh)[kind][-1]
+    return np.finfo(float).eps * (f_max / np.asarray(f)) ** 2 / 2
+
+
 def test_refinement_past_the_degree_step_meets_a_tight_tolerance() -> None:
-    """Below what the degree 5 -> 6 step can show, the mesh itself is refined."""
+    """Below what the degree 5 -> 6 step can show, the mesh itself is refined.
+
+    Reference: 24 elements of degree 6, in the asymptotic range but not dominated by
+    rounding (partials 2-5 agree with 16 and 36 elements within 3e-10; partial 1
+    only to its rounding bound, about 8e-9 there).  The claim checked: the tight
+    solve is within its tolerance of the reference, give or take the rounding of the
+    two solves (rounding_bound).
+    """
     bar = BarGeometry(0.35, 0.055, 0.013, ArchUndercut(0.008, 0.22, 3.0))
     first = start_mesh(bar)
     tight = solve_bar(bar, AL, tolerance=1e-8, n_lateral=0, n_torsional=0)
-    fine = solve_bar(bar, AL, n_elements=96, degree=6, n_lateral=0, n_torsional=0)
+    ref = solve_bar(bar, AL, n_elements=24, degree=6, n_lateral=0, n_torsional=0)
     assert tight.change < 1e-8
     assert tight.n_elements > first.n_elements
-    for a, f in zip(tight.modes, fine.modes, strict=True):
-        assert a.frequency_hz == pytest.approx(f.frequency_hz, rel=1e-8)
+    ft = np.array([m.frequency_hz for m in tight.vertical])
+    fr = np.array([m.frequency_hz for m in ref.vertical])
+    allowed = (1e-8 + rounding_bound(bar, tight.modes[0].mesh, "vertical", ft)
+               + rounding_bound(bar, ref.modes[0].mesh, "vertical", fr))
+    assert np.all(np.abs(ft / fr - 1) <= allowed), (ft / fr - 1, allowed)
+
+
+def test_a_tolerance_below_rounding_is_refused() -> None:
+    """Finer meshes only raise the rounding floor (lambda_max grows as 1 / h_e**2):
+    a tolerance below it cannot be met, and the solver says so instead of refining
+    to its element limit."""
+    bar = BarGeometry(0.35, 0.055, 0.013, ArchUndercut(0.008, 0.22, 3.0))
+    with pytest.raises(ModelError, match="below what double precision resolves"):
+        solve_bar(bar, AL, tolerance=1e-12, n_lateral=0, n_torsional=0)
 
 
 def test_start_mesh_follows_the_bending_wavelength() -> None:
@@ -95,10 +129,9 @@ def test_scaled_standard_problem_equals_the_general_dense_one() -> None:
     dense = dense_reference_frequencies(bar, AL, mesh)
 
     def rounding(kind: str, f: float) -> float:
-        # symmetric eigensolvers are backward stable: |d lambda| <~ n eps lambda_max,
-        # so |df / f| <~ n eps (f_max / f)**2 / 2 (Golub & Van Loan, Matrix Computations,
-        # symmetric eigenproblem chapter; section from memory)
-        return len(dense[kind]) * np.finfo(float).eps * (dense[kind][-1] / f) ** 2 / 2
+        # both solves are backward stable, each within eps lambda_max of the exact
+        # eigenvalue (see rounding_bound): twice eps (f_max / f)**2 / 2
+        return np.finfo(float).eps * (dense[kind][-1] / f) ** 2
 
     for kind in ("lateral", "torsional"):
         for m, d in zip(res.of_kind(kind), dense[kind], strict=False):
