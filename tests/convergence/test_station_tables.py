@@ -21,7 +21,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from synth.physics.bar_fe import dense_reference_frequencies, make_mesh, solve_bar
+from synth.physics.bar_fe import make_mesh, solve_bar
 from synth.physics.geometry import ArchUndercut, BarGeometry, StationUndercut
 from synth.physics.materials import Material
 
@@ -30,7 +30,6 @@ L, B, H0, DEPTH, SPAN = 0.3, 0.05, 0.02, 0.012, 0.18
 ARCH = BarGeometry(L, B, H0, ArchUndercut(DEPTH, SPAN, 2.0), min_thickness_m=0.003)
 H2 = 2 * DEPTH / (SPAN / 2) ** 2  # h'' of the parabola
 H_MIN = H0 - DEPTH
-EPS = np.finfo(float).eps
 ELEMENTS = 24  # degree 6: the arch's partials agree with 16 and 36 elements within 1e-9
 
 
@@ -40,26 +39,20 @@ def table(n: int) -> BarGeometry:
                        min_thickness_m=0.003)
 
 
-def partials(bar: BarGeometry) -> tuple[np.ndarray, float]:
-    """Five vertical partials on a fixed mesh, and their rounding bound.
-
-    The rounding bound of a symmetric eigensolve is eps lambda_max on each eigenvalue
-    (LAPACK Users' Guide, 3rd ed., section 4.7, error bounds for the symmetric
-    eigenproblem; from memory), so a frequency f carries eps (f_max / f)**2 / 2.
-    """
+def partials(bar: BarGeometry, fe_rounding) -> tuple[np.ndarray, np.ndarray]:
+    """Five vertical partials on a fixed mesh, and their rounding bound."""
     res = solve_bar(bar, AL, n_elements=ELEMENTS, degree=6, n_lateral=0, n_torsional=0)
     f = np.array([m.frequency_hz for m in res.vertical])
-    f_max = dense_reference_frequencies(bar, AL, res.modes[0].mesh)["vertical"][-1]
-    return f, EPS * (f_max / f) ** 2 / 2
+    return f, fe_rounding(bar, AL, res.modes[0].mesh, "vertical", f)
 
 
 @pytest.fixture(scope="module")
-def differences() -> dict[int, tuple[float, np.ndarray, np.ndarray]]:
+def differences(fe_rounding) -> dict[int, tuple[float, np.ndarray, np.ndarray]]:
     """Station count -> (dx, relative difference to the arch, rounding allowance)."""
-    fa, ra = partials(ARCH)
+    fa, ra = partials(ARCH, fe_rounding)
     out = {}
     for n in (11, 41, 241, 2001, 100_000):
-        ft, rt = partials(table(n))
+        ft, rt = partials(table(n), fe_rounding)
         dx = SPAN / (n - 1)
         out[n] = (dx, ft / fa - 1, ra + rt)
     return out
