@@ -114,6 +114,9 @@ KINK_SIZE = 0.01
 of bending wave (mode 5 of the blank, at the local thickness) exceeds this share of
 the local thickness.  Weaker kinks, those of a densely measured smooth profile, are
 left inside elements, whose integrals then run piecewise over the stations."""
+MIN_LENGTH_PER_SIDE = 2.0
+"""A bar shorter than twice its width or thickness is a block, not a beam: one-
+dimensional bending and torsion no longer describe it (common practice, no source)."""
 KINK_PHASE = 0.8
 """Kinks that get nodes are at least this many radians of the same wave apart (the
 stronger one wins), a quarter of the start mesh's element at the default five
@@ -691,7 +694,7 @@ def _field_system(kind: str, mesh: Mesh, sec: _Sections) -> tuple[np.ndarray, np
 
 
 def _mass_matrix(nodal: np.ndarray) -> np.ndarray:
-    """The nodal mass blocks as one dense matrix in the field-block DOF layout."""
+    """Return the nodal mass blocks as one dense matrix in the field-block DOF layout."""
     nn, nf, _ = nodal.shape
     M = np.zeros((nf * nn, nf * nn))
     idx = np.arange(nn)
@@ -741,7 +744,7 @@ class Mode:
 
     @property
     def angular_frequency(self) -> float:
-        """omega = 2 pi f in rad/s."""
+        """Angular frequency omega = 2 pi f in rad/s."""
         return 2.0 * math.pi * self.frequency_hz
 
     def shape_at(self, x, derivative: int = 0) -> np.ndarray:
@@ -1020,16 +1023,37 @@ def _solve_once(bar: BarGeometry, mesh: Mesh, sec: _Sections, counts: dict[str, 
 
 
 def _too_slender(bar: BarGeometry, kind: str, rounding: float, mesh: Mesh) -> str:
-    """Message of a bar whose partials drown in rounding: name its proportions."""
+    """Message of a bar whose partials drown in rounding: name its proportions.
+
+    The depth that matters is the thickness for vertical bending, the width for
+    lateral bending, the smaller of the two for torsion.
+    """
     thin = bar.thinnest_m()
-    return (f"the bar is too slender to model: length {bar.length_m:g} m over its thinnest "
-            f"section {thin:g} m is {bar.length_m / thin:.3g} thicknesses; double precision "
-            f"then leaves {kind} partial 1 uncertain by {rounding:.2g} (relative, on "
+    depth, what = {"vertical": (thin, "thinnest section"),
+                   "lateral": (bar.width_m, "width")}.get(
+        kind, (min(thin, bar.width_m), "thinner side"))
+    return (f"the bar is too slender to model: length {bar.length_m:g} m over its {what} "
+            f"{depth:g} m is {bar.length_m / depth:.3g} times; double precision then leaves "
+            f"{kind} partial 1 uncertain by {rounding:.2g} (relative, on "
             f"{mesh.n_elements} elements; the model needs below 5e-4)")
 
 
+def _check_beam(bar: BarGeometry) -> None:
+    """Raise ModelError when the bar is too short for a beam model.
+
+    Checked by :func:`solve_bar`; the optimisers' fast path
+    (:func:`vertical_frequencies`) may probe such lengths on its way.
+    """
+    side = max(bar.width_m, bar.thickness_m)
+    if bar.length_m < MIN_LENGTH_PER_SIDE * side:
+        raise ModelError(
+            f"length_m = {bar.length_m:g} m is too short for a beam of {bar.width_m:g} x "
+            f"{bar.thickness_m:g} m section: the bar model needs at least "
+            f"{MIN_LENGTH_PER_SIDE:g} times the larger side, {MIN_LENGTH_PER_SIDE * side:g} m")
+
+
 def _bending_only(K: np.ndarray, nodal: np.ndarray, n: int):
-    """The lowest n bending modes of the coupled vertical field, longitudinal ones skipped.
+    """Return the lowest n bending modes of the vertical field, longitudinal ones skipped.
 
     A mode whose kinetic energy is mostly axial (the u field; vectors are
     M-orthonormal, so the share is u^T M_uu u) is longitudinal.
@@ -1085,6 +1109,7 @@ def solve_bar(
     -------
     BarModes
     """
+    _check_beam(bar)
     counts = {"vertical": n_vertical, "lateral": n_lateral, "torsional": n_torsional}
     if min(counts.values()) < 0 or sum(counts.values()) == 0:
         raise ModelError("ask for at least one mode and no negative counts")
@@ -1134,7 +1159,7 @@ def solve_bar(
 
 
 def start_mesh(bar: BarGeometry, n_modes: int = 5, degree: int = 6) -> Mesh:
-    """The first mesh of the refinement, graded by the local bending wavelength.
+    """Return the first mesh of the refinement, graded by the local bending wavelength.
 
     At the frequency of free-free mode ``n_modes`` of the blank (beta L =
     (2n + 1) pi / 2, Blevins' asymptotic root) a bending wave's wavenumber grows
@@ -1161,9 +1186,11 @@ def _start_counts(bar: BarGeometry, n_modes: int, degree: int) -> tuple[int, ...
 
 
 def _refinements(bar: BarGeometry, counts: tuple[int, ...], degree: int, limit: int):
-    """The discretisations tried in turn: the start mesh (``counts`` elements per
-    segment) one degree lower, the start mesh, then meshes refined by
-    :data:`REFINE_FACTOR` up to ``limit`` elements."""
+    """Yield the discretisations tried in turn.
+
+    The start mesh (``counts`` elements per segment) one degree lower, the start
+    mesh, then meshes refined by :data:`REFINE_FACTOR` up to ``limit`` elements.
+    """
     first = make_mesh(bar, 0, degree, counts)
     if degree > 1:
         yield Mesh(first.edges_m, degree - 1)

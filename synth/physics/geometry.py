@@ -99,6 +99,7 @@ class StationUndercut(Undercut):
         return np.asarray(self.thickness_m, dtype=float)
 
     def thickness(self, x, blank_thickness_m, length_m):
+        """Return the local thickness at positions ``x`` (m)."""
         x = np.asarray(x, dtype=float)
         xs, hs = self._xs, self._hs
         out = np.full_like(x, blank_thickness_m)
@@ -114,6 +115,7 @@ class StationUndercut(Undercut):
         return out
 
     def breakpoints(self, length_m):
+        """Return the positions where the profile's formula changes."""
         return [float(v) for v in self.x_m] if not self.smooth else [self.x_m[0], self.x_m[-1]]
 
     def kinks(self, length_m, blank_thickness_m):
@@ -130,10 +132,12 @@ class StationUndercut(Undercut):
         return xs, jump
 
     def describe(self):
+        """Return a short human description."""
         kind = "smooth" if self.smooth else "linear"
         return f"{len(self.x_m)} stations ({kind}), thinnest {min(self.thickness_m) * 1e3:.2f} mm"
 
     def to_table(self):
+        """Return the TOML table that reproduces this undercut."""
         table = {"x_m": [float(v) for v in self.x_m],
                  "thickness_m": [float(v) for v in self.thickness_m]}
         if self.smooth:
@@ -141,6 +145,7 @@ class StationUndercut(Undercut):
         return table
 
     def validate(self, bar, sec=None):
+        """Raise ConfigError if the undercut does not fit the bar."""
         def err(key, msg):
             if sec is not None:
                 return sec.error(key, msg)
@@ -178,20 +183,24 @@ class ArchUndercut(Undercut):
         return 0.5 * length_m if self.center_m is None else self.center_m
 
     def thickness(self, x, blank_thickness_m, length_m):
+        """Return the local thickness at positions ``x`` (m)."""
         x = np.asarray(x, dtype=float)
         u = np.abs(x - self._center(length_m)) / (0.5 * self.span_m)
         cut = np.where(u < 1.0, self.depth_m * (1.0 - np.minimum(u, 1.0) ** self.exponent), 0.0)
         return blank_thickness_m - cut
 
     def breakpoints(self, length_m):
+        """Return the positions where the profile's formula changes."""
         c = self._center(length_m)
         return [c - 0.5 * self.span_m, c, c + 0.5 * self.span_m]
 
     def describe(self):
+        """Return a short human description."""
         name = "parabolic" if self.exponent == 2.0 else f"power {self.exponent:g}"
         return f"{name} arch, depth {self.depth_m * 1e3:.2f} mm over {self.span_m * 1e3:.1f} mm"
 
     def to_table(self):
+        """Return the TOML table that reproduces this undercut."""
         table = {"family": "parabolic" if self.exponent == 2.0 else "power",
                  "depth_m": float(self.depth_m), "span_m": float(self.span_m)}
         if self.exponent != 2.0:
@@ -201,6 +210,7 @@ class ArchUndercut(Undercut):
         return table
 
     def validate(self, bar, sec=None):
+        """Raise ConfigError if the undercut does not fit the bar."""
         _validate_span(self, bar, sec, self.depth_m, self.span_m, self._center(bar.length_m))
 
 
@@ -218,6 +228,7 @@ class FlatArchUndercut(Undercut):
         return 0.5 * length_m if self.center_m is None else self.center_m
 
     def thickness(self, x, blank_thickness_m, length_m):
+        """Return the local thickness at positions ``x`` (m)."""
         x = np.asarray(x, dtype=float)
         d = np.abs(x - self._center(length_m))
         half_flat = 0.5 * self.flat_m
@@ -229,15 +240,18 @@ class FlatArchUndercut(Undercut):
         return blank_thickness_m - self.depth_m * frac
 
     def breakpoints(self, length_m):
+        """Return the positions where the profile's formula changes."""
         c = self._center(length_m)
         return [c - 0.5 * self.span_m, c - 0.5 * self.flat_m, c + 0.5 * self.flat_m,
                 c + 0.5 * self.span_m]
 
     def describe(self):
+        """Return a short human description."""
         return (f"flat-bottomed arch, depth {self.depth_m * 1e3:.2f} mm, flat "
                 f"{self.flat_m * 1e3:.1f} of {self.span_m * 1e3:.1f} mm, {self.ramp} ramps")
 
     def to_table(self):
+        """Return the TOML table that reproduces this undercut."""
         table = {"family": "flat", "depth_m": float(self.depth_m), "span_m": float(self.span_m),
                  "flat_m": float(self.flat_m), "ramp": self.ramp}
         if self.center_m is not None:
@@ -245,6 +259,7 @@ class FlatArchUndercut(Undercut):
         return table
 
     def validate(self, bar, sec=None):
+        """Raise ConfigError if the undercut does not fit the bar."""
         _validate_span(self, bar, sec, self.depth_m, self.span_m, self._center(bar.length_m))
         if not 0 <= self.flat_m < self.span_m:
             msg = f"flat_m = {self.flat_m:g}: must be >= 0 and shorter than span_m {self.span_m:g}"
@@ -470,7 +485,7 @@ class UndercutFamily:
     smoothness: float = 1.0
 
     def build(self, length_m: float, depth_m: float, span_m: float) -> Undercut:
-        """The parametric undercut of this family at the given sizes."""
+        """Return the parametric undercut of this family at the given sizes."""
         if self.family == "flat":
             return FlatArchUndercut(depth_m, span_m, self.flat_fraction * span_m, self.ramp)
         if self.family in ("parabolic", "power"):
@@ -521,6 +536,7 @@ class GroundUndercut(Undercut):
     grinds: tuple[tuple[float, float, float], ...]
 
     def thickness(self, x, blank_thickness_m, length_m):
+        """Return the local thickness at positions ``x`` (m)."""
         x = np.asarray(x, dtype=float)
         h = (np.full_like(x, blank_thickness_m) if self.base is None
              else self.base.thickness(x, blank_thickness_m, length_m))
@@ -529,6 +545,7 @@ class GroundUndercut(Undercut):
         return h
 
     def breakpoints(self, length_m):
+        """Return the positions where the profile's formula changes."""
         pts = [] if self.base is None else list(self.base.breakpoints(length_m))
         for c, w, _ in self.grinds:
             pts += [c - 0.5 * w, c + 0.5 * w]
@@ -543,8 +560,10 @@ class GroundUndercut(Undercut):
                 np.concatenate([jump, np.full(len(edges), math.inf)]))
 
     def describe(self):
+        """Return a short human description."""
         base = "no undercut" if self.base is None else self.base.describe()
         return f"{base}, {len(self.grinds)} ground band(s)"
 
     def to_table(self):
+        """Return the TOML table that reproduces this undercut."""
         raise ValueError("a ground profile is written as measured stations, not as a family")

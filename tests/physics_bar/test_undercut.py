@@ -100,8 +100,20 @@ def test_too_slender_a_bar_is_refused_in_its_own_terms(al6061) -> None:
     from synth.errors import ModelError
 
     with pytest.raises(ModelError, match=r"too slender to model: length 0\.3 m over its "
-                                         r"thinnest section 0\.0001 m is 3e\+03 thicknesses"):
+                                         r"thinnest section 0\.0001 m is 3e\+03 times"):
         solve_bar(BarGeometry(0.3, 0.05, 0.0001, min_thickness_m=5e-5), al6061)
+    # lateral bending: the width is the depth that matters
+    with pytest.raises(ModelError, match=r"over its width 1e-05 m is 3e\+04 times"):
+        solve_bar(BarGeometry(0.3, 1e-5, 0.02), al6061)
+
+
+def test_a_block_is_not_a_beam(al6061) -> None:
+    """A bar shorter than twice its larger side is refused, naming its length."""
+    from synth.errors import ModelError
+
+    with pytest.raises(ModelError, match=r"length_m = 0\.05 m is too short for a beam of "
+                                         r"0\.05 x 0\.02 m section.*0\.1 m"):
+        solve_bar(BarGeometry(0.05, 0.05, 0.02), al6061)
 
 
 def test_undercut_mass_by_quadrature(al6061) -> None:
