@@ -360,8 +360,8 @@ def mesh_cuts(bar: BarGeometry) -> tuple[float, ...]:
     table each keep their node.
     """
     pos, jump = bar.kinks()
-    if len(pos) == 0:
-        return (0.0, bar.length_m)
+    if np.all(np.isinf(jump)):  # parametric forms and steps: every breakpoint
+        return (0.0, *(float(p) for p in pos), bar.length_m)
     h = bar.thickness_at(pos)
     one_radian = np.sqrt(h / bar.thickness_m) * 2.0 * bar.length_m / (11.0 * math.pi)
     size = np.where(np.isinf(jump), np.inf, jump * one_radian / h)
@@ -415,9 +415,10 @@ class _Sections:
 
     An element that spans breakpoints of the profile (weak kinks of a dense station
     table) carries moment-matched values instead of point values, see
-    :func:`_spanning_values`; its full-rule values then sit in
-    :data:`COMPOSITE_POINTS` extra columns after the ordinary ones (zero in the
-    ordinary elements, which keep zeros there).
+    :func:`_spanning_values`.  Its full-rule values sit at the 2p + 1 points of
+    :func:`_composite_rule`, in extra columns after the p + 3 ordinary ones; the
+    other elements hold zeros there, and spanning elements zeros in the ordinary
+    columns, so one product integrates both kinds.
     """
 
     jac: np.ndarray  # (ne,) dx/dxi
@@ -505,10 +506,12 @@ def _spanning_values(bar: BarGeometry, mat: Material, mesh: Mesh):
     stations), so a Gauss rule on the element would integrate its section
     properties with an error of the order of the kinks.  Instead every property P
     is integrated piecewise, over the sub-intervals between the breakpoints, with
-    ``degree + 3`` Gauss points each; for the bending properties (cubic in x between
-    linear stations) these integrals are exact to rounding, for the torsion
-    constants (smooth functions of h) their error is that of a (degree + 3)-point
-    Gauss rule on one station interval.  From them:
+    ``degree + 3`` Gauss points each (exact for polynomials of degree 2p + 5).  The
+    bending, stretching, shear and inertia properties are polynomials of degree <= 3
+    in x between linear stations, and the weights below of degree <= 2p, so these
+    integrals are exact to rounding; the torsion and warping constants are smooth
+    functions of h, and their relative error is that of a (p + 3)-point Gauss rule
+    on one station interval, O((dx |h'| / h)**(2p + 6)).  From them:
 
     * full rule: Legendre moments mu_k = int P P_k, k <= 2p, give the values of the
       degree-2p L2 projection of P at the ``2p + 1`` points of :func:`_composite_rule`;
