@@ -1,4 +1,4 @@
-"""Shared fixtures: seeded random numbers, a scratch folder for outputs, the FE rounding bound."""
+"""Shared fixtures: seeded random numbers and a scratch folder for outputs."""
 
 from __future__ import annotations
 
