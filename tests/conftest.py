@@ -23,3 +23,25 @@ def _one_blas_thread():
 def rng() -> np.random.Generator:
     """Return a generator with a fixed seed so noisy checks are repeatable."""
     return np.random.default_rng(20261202)
+
+
+def _fe_rounding(bar, material, mesh, kind: str, freqs) -> np.ndarray:
+    """Relative error rounding may put on FE frequencies ``freqs`` of one field.
+
+    A symmetric eigensolver is backward stable, each eigenvalue within about
+    eps lambda_max of an exact one (LAPACK Users' Guide, 3rd ed., section 4.7, error
+    bounds for the symmetric eigenproblem, with its factor p(n) = 1; from memory):
+    |df / f| <= eps (f_max / f)**2 / 2, f_max the mesh's highest frequency of the
+    field.  Measured on the bar model: rigid-body eigenvalues at 0.03 to 0.7
+    eps lambda_max on 8 to 256 elements.
+    """
+    from synth.physics.bar_fe import dense_reference_frequencies
+
+    f_max = dense_reference_frequencies(bar, material, mesh)[kind][-1]
+    return np.finfo(float).eps * (f_max / np.asarray(freqs)) ** 2 / 2
+
+
+@pytest.fixture(scope="session")
+def fe_rounding():
+    """The rounding bound of bar-model frequencies (see _fe_rounding)."""
+    return _fe_rounding

@@ -28,7 +28,9 @@ optional ``center_m`` (default: the middle), ``exponent`` (``power`` only),
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, replace
+from functools import cached_property
 
 import numpy as np
 
@@ -37,6 +39,11 @@ from synth.errors import ConfigError
 
 DEFAULT_MIN_THICKNESS_M = 0.002
 """Default thinnest metal left by an undercut, m (shop default, common practice, no source)."""
+MAX_STATIONS = 100_000
+"""Most stations a table may hold: a scanned profile at 0.01 mm steps over a 1 m
+bar.  The solver's cost no longer grows with the station count (the mesh follows
+the bending waves, not the stations), but reading, checking and integrating a
+table still do, linearly."""
 
 
 class Undercut:
@@ -47,8 +54,21 @@ class Undercut:
         raise NotImplementedError
 
     def breakpoints(self, length_m: float) -> list[float]:
-        """Return the positions where the profile has a kink (mesh nodes go there)."""
+        """Return the positions where the profile's formula changes (kinks, steps).
+
+        Integrals of section properties are split there.
+        """
         raise NotImplementedError
+
+    def kinks(self, length_m: float, blank_thickness_m: float) -> tuple[np.ndarray, np.ndarray]:
+        """Return the breakpoints and the jump of the slope dh/dx at each.
+
+        ``inf`` marks a breakpoint that always gets a mesh node (a step in h, or
+        one of the few corners of a parametric form); a finite jump lets the
+        mesher leave a weak kink inside an element (a densely measured profile).
+        """
+        pts = np.asarray(self.breakpoints(length_m), dtype=float)
+        return pts, np.full(len(pts), math.inf)
 
     def describe(self) -> str:
         """Return a short human description."""
@@ -70,10 +90,18 @@ class StationUndercut(Undercut):
     thickness_m: tuple[float, ...]
     smooth: bool = False
 
+    @cached_property
+    def _xs(self) -> np.ndarray:
+        return np.asarray(self.x_m, dtype=float)
+
+    @cached_property
+    def _hs(self) -> np.ndarray:
+        return np.asarray(self.thickness_m, dtype=float)
+
     def thickness(self, x, blank_thickness_m, length_m):
+        """Return the local thickness at positions ``x`` (m)."""
         x = np.asarray(x, dtype=float)
-        xs = np.asarray(self.x_m)
-        hs = np.asarray(self.thickness_m)
+        xs, hs = self._xs, self._hs
         out = np.full_like(x, blank_thickness_m)
         inside = (x >= xs[0]) & (x <= xs[-1])
         if self.smooth and len(xs) >= 3:
@@ -87,13 +115,29 @@ class StationUndercut(Undercut):
         return out
 
     def breakpoints(self, length_m):
+        """Return the positions where the profile's formula changes."""
         return [float(v) for v in self.x_m] if not self.smooth else [self.x_m[0], self.x_m[-1]]
 
+    def kinks(self, length_m, blank_thickness_m):
+        """Return the stations and the slope jump at each (inf at a step to the blank)."""
+        if self.smooth or len(self.x_m) < 2:
+            return super().kinks(length_m, blank_thickness_m)
+        xs, hs = self._xs, self._hs
+        slope = np.diff(hs) / np.diff(xs)
+        jump = np.abs(np.diff(np.concatenate([[0.0], slope, [0.0]])))  # blank outside: flat
+        # an end station thinner than the blank is a step: always a node
+        for end in (0, -1):
+            if abs(hs[end] - blank_thickness_m) > 1e-9 * blank_thickness_m:
+                jump[end] = math.inf
+        return xs, jump
+
     def describe(self):
+        """Return a short human description."""
         kind = "smooth" if self.smooth else "linear"
         return f"{len(self.x_m)} stations ({kind}), thinnest {min(self.thickness_m) * 1e3:.2f} mm"
 
     def to_table(self):
+        """Return the TOML table that reproduces this undercut."""
         table = {"x_m": [float(v) for v in self.x_m],
                  "thickness_m": [float(v) for v in self.thickness_m]}
         if self.smooth:
@@ -101,11 +145,14 @@ class StationUndercut(Undercut):
         return table
 
     def validate(self, bar, sec=None):
+        """Raise ConfigError if the undercut does not fit the bar."""
         def err(key, msg):
             if sec is not None:
                 return sec.error(key, msg)
             return ConfigError(f"{key}: {msg}")
 
+        if len(self.x_m) > MAX_STATIONS:
+            raise err("x_m", f"holds {len(self.x_m)} stations; at most {MAX_STATIONS} are read")
         if len(self.x_m) != len(self.thickness_m):
             raise err("thickness_m", f"needs one value per station ({len(self.x_m)} in x_m)")
         if any(b <= a for a, b in zip(self.x_m, self.x_m[1:], strict=False)):
@@ -136,20 +183,24 @@ class ArchUndercut(Undercut):
         return 0.5 * length_m if self.center_m is None else self.center_m
 
     def thickness(self, x, blank_thickness_m, length_m):
+        """Return the local thickness at positions ``x`` (m)."""
         x = np.asarray(x, dtype=float)
         u = np.abs(x - self._center(length_m)) / (0.5 * self.span_m)
         cut = np.where(u < 1.0, self.depth_m * (1.0 - np.minimum(u, 1.0) ** self.exponent), 0.0)
         return blank_thickness_m - cut
 
     def breakpoints(self, length_m):
+        """Return the positions where the profile's formula changes."""
         c = self._center(length_m)
         return [c - 0.5 * self.span_m, c, c + 0.5 * self.span_m]
 
     def describe(self):
+        """Return a short human description."""
         name = "parabolic" if self.exponent == 2.0 else f"power {self.exponent:g}"
         return f"{name} arch, depth {self.depth_m * 1e3:.2f} mm over {self.span_m * 1e3:.1f} mm"
 
     def to_table(self):
+        """Return the TOML table that reproduces this undercut."""
         table = {"family": "parabolic" if self.exponent == 2.0 else "power",
                  "depth_m": float(self.depth_m), "span_m": float(self.span_m)}
         if self.exponent != 2.0:
@@ -159,6 +210,7 @@ class ArchUndercut(Undercut):
         return table
 
     def validate(self, bar, sec=None):
+        """Raise ConfigError if the undercut does not fit the bar."""
         _validate_span(self, bar, sec, self.depth_m, self.span_m, self._center(bar.length_m))
 
 
@@ -176,6 +228,7 @@ class FlatArchUndercut(Undercut):
         return 0.5 * length_m if self.center_m is None else self.center_m
 
     def thickness(self, x, blank_thickness_m, length_m):
+        """Return the local thickness at positions ``x`` (m)."""
         x = np.asarray(x, dtype=float)
         d = np.abs(x - self._center(length_m))
         half_flat = 0.5 * self.flat_m
@@ -187,15 +240,18 @@ class FlatArchUndercut(Undercut):
         return blank_thickness_m - self.depth_m * frac
 
     def breakpoints(self, length_m):
+        """Return the positions where the profile's formula changes."""
         c = self._center(length_m)
         return [c - 0.5 * self.span_m, c - 0.5 * self.flat_m, c + 0.5 * self.flat_m,
                 c + 0.5 * self.span_m]
 
     def describe(self):
+        """Return a short human description."""
         return (f"flat-bottomed arch, depth {self.depth_m * 1e3:.2f} mm, flat "
                 f"{self.flat_m * 1e3:.1f} of {self.span_m * 1e3:.1f} mm, {self.ramp} ramps")
 
     def to_table(self):
+        """Return the TOML table that reproduces this undercut."""
         table = {"family": "flat", "depth_m": float(self.depth_m), "span_m": float(self.span_m),
                  "flat_m": float(self.flat_m), "ramp": self.ramp}
         if self.center_m is not None:
@@ -203,6 +259,7 @@ class FlatArchUndercut(Undercut):
         return table
 
     def validate(self, bar, sec=None):
+        """Raise ConfigError if the undercut does not fit the bar."""
         _validate_span(self, bar, sec, self.depth_m, self.span_m, self._center(bar.length_m))
         if not 0 <= self.flat_m < self.span_m:
             msg = f"flat_m = {self.flat_m:g}: must be >= 0 and shorter than span_m {self.span_m:g}"
@@ -252,9 +309,33 @@ class BarGeometry:
 
     def breakpoints(self) -> list[float]:
         """Sorted positions in (0, L) where the profile kinks."""
+        return list(self._breakpoints)
+
+    @cached_property
+    def _breakpoints(self) -> tuple[float, ...]:
         pts = [] if self.undercut is None else self.undercut.breakpoints(self.length_m)
         eps = 1e-9 * self.length_m
-        return sorted({round(p, 12) for p in pts if eps < p < self.length_m - eps})
+        return tuple(sorted({round(p, 12) for p in pts if eps < p < self.length_m - eps}))
+
+    def kinks(self) -> tuple[np.ndarray, np.ndarray]:
+        """Return the breakpoints and the slope jump at each.
+
+        ``inf`` marks one that always gets a mesh node (see :meth:`Undercut.kinks`).
+        """
+        pts = self.breakpoints()
+        if not pts:
+            return np.zeros(0), np.zeros(0)
+        at = np.asarray(pts)
+        raw, jump = self.undercut.kinks(self.length_m, self.thickness_m)
+        raw = np.asarray(raw, dtype=float)
+        # each raw kink to the nearest breakpoint (those were rounded to 1e-12 m)
+        idx = np.clip(np.searchsorted(at, raw), 1, max(len(at) - 1, 1))
+        idx = np.where(np.abs(raw - at[idx - 1]) <= np.abs(raw - at[np.minimum(idx, len(at) - 1)]),
+                       idx - 1, np.minimum(idx, len(at) - 1))
+        ok = np.abs(raw - at[idx]) <= 1e-11
+        out = np.zeros(len(at))
+        np.maximum.at(out, idx[ok], np.asarray(jump, dtype=float)[ok])
+        return at, out
 
     def thinnest_m(self, n: int = 4001) -> float:
         """Return the thinnest section of the bar."""
@@ -263,13 +344,11 @@ class BarGeometry:
 
     def mass_kg(self, density_kg_m3: float) -> float:
         """Return the bar's mass (Gauss quadrature between breakpoints)."""
-        edges = [0.0, *self.breakpoints(), self.length_m]
+        edges = np.array([0.0, *self.breakpoints(), self.length_m])
         xg, wg = np.polynomial.legendre.leggauss(12)
-        total = 0.0
-        for a, b in zip(edges[:-1], edges[1:], strict=True):
-            x = 0.5 * (b - a) * xg + 0.5 * (a + b)
-            total += 0.5 * (b - a) * np.sum(wg * self.thickness_at(x))
-        return float(density_kg_m3 * self.width_m * total)
+        a, b = edges[:-1, None], edges[1:, None]
+        h = self.thickness_at(0.5 * (b - a) * xg[None, :] + 0.5 * (a + b))
+        return float(density_kg_m3 * self.width_m * np.sum(0.5 * (b - a) * wg[None, :] * h))
 
     def scaled(self, factor: float) -> BarGeometry:
         """Return the bar with every length scaled by ``factor`` (thermal expansion)."""
@@ -310,6 +389,10 @@ def parse_undercut(sec: Section) -> Undercut:
     """Build an Undercut from an ``[undercut]`` table (see the module docstring)."""
     if "family" not in sec:
         sec.check_keys({"x_m", "thickness_m", "smooth"})
+        for key in ("x_m", "thickness_m"):
+            if isinstance(sec.data.get(key), list) and len(sec.data[key]) > MAX_STATIONS:
+                raise sec.error(key, f"holds {len(sec.data[key])} stations; at most "
+                                     f"{MAX_STATIONS} are read")
         x = sec.numbers("x_m", ge=0, min_len=2, increasing=True, unit="m")
         h = sec.numbers("thickness_m", gt=0, length=len(x), unit="m")
         return StationUndercut(tuple(x), tuple(h), sec.boolean("smooth", False))
@@ -404,7 +487,7 @@ class UndercutFamily:
     smoothness: float = 1.0
 
     def build(self, length_m: float, depth_m: float, span_m: float) -> Undercut:
-        """The parametric undercut of this family at the given sizes."""
+        """Return the parametric undercut of this family at the given sizes."""
         if self.family == "flat":
             return FlatArchUndercut(depth_m, span_m, self.flat_fraction * span_m, self.ramp)
         if self.family in ("parabolic", "power"):
@@ -455,6 +538,7 @@ class GroundUndercut(Undercut):
     grinds: tuple[tuple[float, float, float], ...]
 
     def thickness(self, x, blank_thickness_m, length_m):
+        """Return the local thickness at positions ``x`` (m)."""
         x = np.asarray(x, dtype=float)
         h = (np.full_like(x, blank_thickness_m) if self.base is None
              else self.base.thickness(x, blank_thickness_m, length_m))
@@ -463,14 +547,25 @@ class GroundUndercut(Undercut):
         return h
 
     def breakpoints(self, length_m):
+        """Return the positions where the profile's formula changes."""
         pts = [] if self.base is None else list(self.base.breakpoints(length_m))
         for c, w, _ in self.grinds:
             pts += [c - 0.5 * w, c + 0.5 * w]
         return pts
 
+    def kinks(self, length_m, blank_thickness_m):
+        """Return the base's kinks and the band edges (steps: inf)."""
+        pts, jump = (np.zeros(0), np.zeros(0)) if self.base is None else self.base.kinks(
+            length_m, blank_thickness_m)
+        edges = [e for c, w, _ in self.grinds for e in (c - 0.5 * w, c + 0.5 * w)]
+        return (np.concatenate([pts, edges]),
+                np.concatenate([jump, np.full(len(edges), math.inf)]))
+
     def describe(self):
+        """Return a short human description."""
         base = "no undercut" if self.base is None else self.base.describe()
         return f"{base}, {len(self.grinds)} ground band(s)"
 
     def to_table(self):
+        """Return the TOML table that reproduces this undercut."""
         raise ValueError("a ground profile is written as measured stations, not as a family")

@@ -79,6 +79,31 @@ def test_stations_outside_or_unordered(tmp_path: Path) -> None:
     assert_one_line_error(run("partials", p), str(p), "undercut.x_m", "increasing")
 
 
+def test_too_many_stations(tmp_path: Path) -> None:
+    """A table is read up to MAX_STATIONS (100 000) stations; one more is refused
+    at load, naming the key and the bound, before any number is checked."""
+    from synth.physics.geometry import MAX_STATIONS
+
+    n = MAX_STATIONS + 1
+    x = ", ".join(f"{0.06 + 0.2 * i / n:.9f}" for i in range(n))
+    h = ", ".join(["0.011"] * n)
+    p = write(tmp_path, GOOD + f"[undercut]\nx_m = [{x}]\nthickness_m = [{h}]\n")
+    assert_one_line_error(run("partials", p), str(p), "undercut.x_m", "100001 stations",
+                          "at most 100000")
+
+
+def test_dense_stations_solve(tmp_path: Path) -> None:
+    """20 001 stations of a parabolic arch (a scanned profile) solve like the arch."""
+    n = 20_001
+    xs = [0.07 + 0.18 * i / (n - 1) for i in range(n)]
+    hs = [0.012 - 0.005 * (1 - ((x - 0.16) / 0.09) ** 2) for x in xs]
+    p = write(tmp_path, GOOD + "[undercut]\nx_m = [" + ", ".join(f"{v:.9f}" for v in xs)
+              + "]\nthickness_m = [" + ", ".join(f"{v:.9f}" for v in hs) + "]\n")
+    r = run("partials", p)
+    assert r.exit_code == 0, r.output
+    assert "vertical" in r.stdout
+
+
 def test_unknown_material(tmp_path: Path) -> None:
     p = write(tmp_path, GOOD.replace("aluminium-6061-t6", "unobtainium"))
     assert_one_line_error(run("partials", p), str(p), "material", "unknown material",

@@ -15,3 +15,4 @@ def al6061() -> Material:
     from memory); thermal and loss values do not enter these tests.
     """
     return Material("al6061-check", 68.9e9, 2700.0, 0.33, 23.6e-6, 167.0, 896.0, -4e-4, 5e-5)
+
