@@ -389,12 +389,9 @@ def parse_undercut(sec: Section) -> Undercut:
     """Build an Undercut from an ``[undercut]`` table (see the module docstring)."""
     if "family" not in sec:
         sec.check_keys({"x_m", "thickness_m", "smooth"})
-        for key in ("x_m", "thickness_m"):
-            if isinstance(sec.data.get(key), list) and len(sec.data[key]) > MAX_STATIONS:
-                raise sec.error(key, f"holds {len(sec.data[key])} stations; at most "
-                                     f"{MAX_STATIONS} are read")
-        x = sec.numbers("x_m", ge=0, min_len=2, increasing=True, unit="m")
-        h = sec.numbers("thickness_m", gt=0, length=len(x), unit="m")
+        x = sec.numbers("x_m", ge=0, min_len=2, max_len=MAX_STATIONS, increasing=True,
+                        unit="m")
+        h = sec.numbers("thickness_m", gt=0, length=len(x), max_len=MAX_STATIONS, unit="m")
         return StationUndercut(tuple(x), tuple(h), sec.boolean("smooth", False))
     family = sec.string("family", choices=UNDERCUT_FAMILIES)
     center = sec.number("center_m", None, limit="undercut.center_m")

@@ -88,8 +88,8 @@ def test_too_many_stations(tmp_path: Path) -> None:
     x = ", ".join(f"{0.06 + 0.2 * i / n:.9f}" for i in range(n))
     h = ", ".join(["0.011"] * n)
     p = write(tmp_path, GOOD + f"[undercut]\nx_m = [{x}]\nthickness_m = [{h}]\n")
-    assert_one_line_error(run("partials", p), str(p), "undercut.x_m", "100001 stations",
-                          "at most 100000")
+    assert_one_line_error(run("partials", p), str(p), "undercut.x_m", "holds 100001 numbers",
+                          "allowed: up to 100000")
 
 
 def test_dense_stations_solve(tmp_path: Path) -> None:
