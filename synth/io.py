@@ -24,8 +24,9 @@ next to it (``take.wav`` -> ``take.json``), atomically as well.
 Reading
 -------
 :func:`read_audio` reads any file libsndfile understands (WAV, FLAC, AIFF,
-OGG...) as float64 samples scaled to full scale 1.0, for the analysis of
-recordings.
+OGG...), or a stretch of it, as float64 samples scaled to full scale 1.0, for
+the analysis of recordings; :func:`audio_info` gives its length, rate and
+channels without reading the samples.
 
 Playback
 --------
@@ -307,8 +308,38 @@ def write_sidecar(path: str | os.PathLike[str], settings: Mapping[str, Any], *,
 
 
 # --------------------------------------------------------------------------- reading
-def read_audio(path: str | os.PathLike[str], *, mono: bool = False) -> tuple[np.ndarray, int]:
-    """Read an audio file as float64 samples.
+def _readable(path: str | os.PathLike[str]) -> Path:
+    p = Path(path)
+    if not p.exists():
+        raise AudioError(f"{p}: file not found")
+    if p.is_dir():
+        raise AudioError(f"{p}: is a folder, expected an audio file")
+    return p
+
+
+def audio_info(path: str | os.PathLike[str]) -> tuple[int, int, int]:
+    """Return ``(frames, sample_rate, channels)`` of an audio file without reading its samples.
+
+    Raises
+    ------
+    AudioError
+        As :func:`read_audio`.
+    """
+    import soundfile as sf
+
+    p = _readable(path)
+    try:
+        info = sf.info(str(p))
+    except (sf.LibsndfileError, RuntimeError) as exc:
+        raise AudioError(f"{p}: not a readable audio file ({exc})") from None
+    except OSError as exc:
+        raise AudioError(f"{p}: cannot be read ({exc.strerror or exc})") from None
+    return int(info.frames), int(info.samplerate), int(info.channels)
+
+
+def read_audio(path: str | os.PathLike[str], *, mono: bool = False, start: int = 0,
+               stop: int | None = None) -> tuple[np.ndarray, int]:
+    """Read an audio file (or the frames ``start .. stop - 1`` of it) as float64 samples.
 
     Parameters
     ----------
@@ -316,6 +347,8 @@ def read_audio(path: str | os.PathLike[str], *, mono: bool = False) -> tuple[np.
         Any format libsndfile reads (WAV, FLAC, AIFF, OGG...).
     mono : bool, optional
         Average the channels into one (returns a 1-D array).
+    start, stop : int, optional
+        First frame and the frame after the last to read (default: the whole file).
 
     Returns
     -------
@@ -331,13 +364,9 @@ def read_audio(path: str | os.PathLike[str], *, mono: bool = False) -> tuple[np.
     """
     import soundfile as sf
 
-    p = Path(path)
-    if not p.exists():
-        raise AudioError(f"{p}: file not found")
-    if p.is_dir():
-        raise AudioError(f"{p}: is a folder, expected an audio file")
+    p = _readable(path)
     try:
-        data, rate = sf.read(p, dtype="float64", always_2d=True)
+        data, rate = sf.read(p, dtype="float64", always_2d=True, start=start, stop=stop)
     except (sf.LibsndfileError, RuntimeError) as exc:
         raise AudioError(f"{p}: not a readable audio file ({exc})") from None
     except OSError as exc:
