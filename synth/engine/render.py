@@ -24,22 +24,29 @@ A long passage must not keep every voice it has started.  Every
 :data:`RETIRE_EVERY` samples of the output clock the render takes an upper
 bound of what each sounding voice can still add from that sample on: the sum
 of its mode amplitudes times their decay so far (closed form, damping
-included), plus, for each coupled pair, the magnitude of its present state
-times the sum of its output weights (a pair's state never grows: the coupling
-conserves it and the decays only shrink it), all times the voice's largest
-channel gain and gain-curve value.  A voice is retired, and its state released,
-when that bound, added to the bounds still owed by the voices retired before
-it (each decays at least at its slowest rate), stays below ``retire_db``
-(default :data:`DEFAULT_RETIRE_DB`, -100 dB) re the largest output sample so
-far.  The output's final peak is at least that large, so the sum of every tail
-that was dropped stays below ``retire_db`` re the output's peak at every
-sample: the render differs from one that keeps every voice to the end by less
-than that.  Memory therefore follows the number of voices sounding at once,
-not the number of strikes.  The decisions fall on the fixed grid of the
-output clock and take the voices in list order, so they do not depend on the
-block size either.  A gain curve or a pair weight curve without a declared
-bound (``gain_curve_max``, ``weight_2_max``) is taken at the largest value it
-has given so far.  ``retire_db=None`` keeps every voice to its stop or the end.
+included), plus, for each coupled pair, a bound from its present state (its
+magnitude never grows: the coupling conserves it and the decays only shrink
+it; member 2 stays below its own magnitude plus ``|mu| / (g2 - g1)`` times
+the state's when ``g2 > g1``; a pair with constant coefficients is bounded
+eigenmode by eigenmode, ``sum_j |w . V_j| |(V^-1 a)_j|``; the smallest of
+these) times its output weights, all times the voice's largest channel gain
+and gain-curve value.  Each of these bounds also decays at least at the
+voice's slowest rate.  A voice is retired, and its state released, when that
+bound, added to the bounds still owed by the voices retired before it (each
+decaying at its slowest rate), stays below ``retire_db`` (default
+:data:`DEFAULT_RETIRE_DB`, -100 dB) re the largest output sample so far.  The
+output's final peak is at least that large, so the sum of every tail that was
+dropped stays below ``retire_db`` re the output's peak at every sample: the
+render differs from one that keeps every voice to the end by less than that.
+Memory therefore follows the number of voices sounding at once, not the
+number of strikes.  The decisions fall on the fixed grid of the output clock
+and take the voices in list order, so they do not depend on the block size
+either.  A voice that is not yet retirable is checked again after half the
+wait its bound's decay predicts (never past its next damping change), which
+only delays retirements.  A gain curve or a pair weight or coupling curve
+without a declared bound (``gain_curve_max``, ``weight_2_max``) is taken at
+the largest value it has given so far.  ``retire_db=None`` keeps every voice
+to its stop or the end.
 
 Guards
 ------
@@ -240,16 +247,21 @@ class _PairState:
     def output_bound(self) -> float:
         """Bound of ``|w1 Im a1 + w2 Im a2|`` from the present state on (weights as bounded).
 
-        The state's magnitude never grows; member 2, driven by member 1 through
-        ``mu`` and decaying at least at ``g2``, stays below its present magnitude
-        plus ``|mu| / g2`` times the state's; a pair with constant coefficients
-        is bounded mode by mode as well, and the smaller bound is taken.
+        The state's magnitude never grows and decays at least at
+        ``gamma = min(g1, g2)``.  Member 2, driven by member 1 through ``mu`` and
+        decaying at least at ``g2 > gamma``, obeys
+        ``|a2(t0 + s)| <= (|a2(t0)| + |mu| |a(t0)| / (g2 - gamma)) exp(-gamma s)``
+        (variation of constants).  A pair with constant coefficients is bounded
+        mode by mode as well, each mode decaying at least at ``gamma``; the
+        smaller bound is taken.  Every bound here thus also bounds the tail as
+        ``bound exp(-gamma s)``, which the retired tails rely on.
         """
         st = self.state
         norm = math.sqrt(float(np.dot(st, st))) * _PAIR_ENERGY_MARGIN
         a2 = math.hypot(st[2], st[3]) * _PAIR_ENERGY_MARGIN
-        if self.g2 > 0:
-            a2 = min(norm, a2 + self.mu_bound() / self.g2 * norm)
+        gamma = min(self.g1, self.g2)
+        if self.g2 > gamma:
+            a2 = min(norm, a2 + self.mu_bound() / (self.g2 - gamma) * norm)
         else:
             a2 = norm
         bound = abs(self.pair.weight_1) * norm + self.weight_2_bound() * a2
@@ -837,9 +849,11 @@ def peak_bound(
     bound times the sum of its mode amplitudes and pair magnitudes (times their
     output weights), and every part of it decays at least at its slowest rate
     (damping and retirement only take away).  The sum of these decaying bounds
-    is largest at some voice's start, where it is evaluated.  Struck voices put
-    the true peak typically 2 to 4 dB below it, more for dense chords: use it to
-    know in advance that a fixed gain cannot clip, not to normalise.
+    is largest at some voice's start, where it is evaluated.  Single strikes of
+    the demo instrument peak 3.4 to 6.4 dB below it (low to high notes), a
+    four-note chord 6 dB below, a 20 s passage with the dampers lifted 5.6 dB
+    below: use it to know in advance that a fixed gain cannot clip, never to
+    normalise.
 
     Parameters
     ----------
