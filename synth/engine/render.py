@@ -477,11 +477,22 @@ def _max_abs(values: np.ndarray) -> float:
     return max(float(values.max()), -float(values.min()))
 
 
+_CONSTANTS_KEPT: Final[int] = 256
+"""Distinct constants a render keeps as arrays (about 128 kB each at most)."""
+
+
 def _constant(cache: dict, value: float, n: int) -> np.ndarray:
-    """Return ``n`` copies of ``value`` from a per-pair cache (the kernels only read it)."""
+    """Return ``n`` copies of ``value`` from a cache shared by the render (read only).
+
+    Strikes of one note share their constants, so the cache follows the notes
+    in use, not the voices sounding; it is emptied if it ever holds more than
+    :data:`_CONSTANTS_KEPT` values.
+    """
     arr = cache.get(value)
     if arr is None or arr.size < n:
-        arr = np.full(max(n, RETIRE_EVERY), value)
+        if arr is None and len(cache) >= _CONSTANTS_KEPT:
+            cache.clear()
+        arr = np.full(n, value)
         cache[value] = arr
     return arr[:n]
 
@@ -593,6 +604,7 @@ def render_blocks(
 def _stream(voices, order, n_samples, n_ch, block_size, gain, dtype, sample_rate, threshold,
             progress):
     active: list[_Prepared] = []
+    constants: dict[float, np.ndarray] = {}  # constant pair coefficients, shared
     tails = _RetiredTails(sample_rate)
     peak_so_far = 0.0
     nxt = 0
@@ -605,7 +617,10 @@ def _stream(voices, order, n_samples, n_ch, block_size, gain, dtype, sample_rate
             started = False
             while nxt < len(order) and order[nxt][0] < c1:
                 i = order[nxt][1]
-                active.append(_Prepared(voices[i], sample_rate, n_ch, n_samples, i))
+                p = _Prepared(voices[i], sample_rate, n_ch, n_samples, i)
+                for ps in p.pairs:
+                    ps.constants = constants
+                active.append(p)
                 nxt += 1
                 started = True
             if started:
