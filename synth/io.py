@@ -308,38 +308,9 @@ def write_sidecar(path: str | os.PathLike[str], settings: Mapping[str, Any], *,
 
 
 # --------------------------------------------------------------------------- reading
-def _readable(path: str | os.PathLike[str]) -> Path:
-    p = Path(path)
-    if not p.exists():
-        raise AudioError(f"{p}: file not found")
-    if p.is_dir():
-        raise AudioError(f"{p}: is a folder, expected an audio file")
-    return p
-
-
-def audio_info(path: str | os.PathLike[str]) -> tuple[int, int, int]:
-    """Return ``(frames, sample_rate, channels)`` of an audio file without reading its samples.
-
-    Raises
-    ------
-    AudioError
-        As :func:`read_audio`.
-    """
-    import soundfile as sf
-
-    p = _readable(path)
-    try:
-        info = sf.info(str(p))
-    except (sf.LibsndfileError, RuntimeError) as exc:
-        raise AudioError(f"{p}: not a readable audio file ({exc})") from None
-    except OSError as exc:
-        raise AudioError(f"{p}: cannot be read ({exc.strerror or exc})") from None
-    return int(info.frames), int(info.samplerate), int(info.channels)
-
-
 def read_audio(path: str | os.PathLike[str], *, mono: bool = False, start: int = 0,
                stop: int | None = None) -> tuple[np.ndarray, int]:
-    """Read an audio file (or the frames ``start .. stop - 1`` of it) as float64 samples.
+    """Read an audio file (or its frames ``start .. stop - 1``) as float64 samples.
 
     Parameters
     ----------
@@ -348,7 +319,7 @@ def read_audio(path: str | os.PathLike[str], *, mono: bool = False, start: int =
     mono : bool, optional
         Average the channels into one (returns a 1-D array).
     start, stop : int, optional
-        First frame and the frame after the last to read (default: the whole file).
+        First frame to read and the frame after the last (default: the whole file).
 
     Returns
     -------
@@ -364,7 +335,11 @@ def read_audio(path: str | os.PathLike[str], *, mono: bool = False, start: int =
     """
     import soundfile as sf
 
-    p = _readable(path)
+    p = Path(path)
+    if not p.exists():
+        raise AudioError(f"{p}: file not found")
+    if p.is_dir():
+        raise AudioError(f"{p}: is a folder, expected an audio file")
     try:
         data, rate = sf.read(p, dtype="float64", always_2d=True, start=start, stop=stop)
     except (sf.LibsndfileError, RuntimeError) as exc:
@@ -376,6 +351,30 @@ def read_audio(path: str | os.PathLike[str], *, mono: bool = False, start: int =
     if mono:
         data = data.mean(axis=1)
     return data, int(rate)
+
+
+def audio_info(path: str | os.PathLike[str]) -> tuple[int, int, int]:
+    """Return ``(frames, sample_rate, channels)`` of an audio file without reading its samples.
+
+    Raises
+    ------
+    AudioError
+        As :func:`read_audio`.
+    """
+    import soundfile as sf
+
+    p = Path(path)
+    if not p.exists():
+        raise AudioError(f"{p}: file not found")
+    if p.is_dir():
+        raise AudioError(f"{p}: is a folder, expected an audio file")
+    try:
+        info = sf.info(str(p))
+    except (sf.LibsndfileError, RuntimeError) as exc:
+        raise AudioError(f"{p}: not a readable audio file ({exc})") from None
+    except OSError as exc:
+        raise AudioError(f"{p}: cannot be read ({exc.strerror or exc})") from None
+    return int(info.frames), int(info.samplerate), int(info.channels)
 
 
 # --------------------------------------------------------------------------- playback
