@@ -359,21 +359,12 @@ def audio_info(path: str | os.PathLike[str]) -> tuple[int, int, int]:
     Raises
     ------
     AudioError
-        As :func:`read_audio`.
+        As :func:`read_audio` (which reads the first frame to check the file).
     """
     import soundfile as sf
 
-    p = Path(path)
-    if not p.exists():
-        raise AudioError(f"{p}: file not found")
-    if p.is_dir():
-        raise AudioError(f"{p}: is a folder, expected an audio file")
-    try:
-        info = sf.info(str(p))
-    except (sf.LibsndfileError, RuntimeError) as exc:
-        raise AudioError(f"{p}: not a readable audio file ({exc})") from None
-    except OSError as exc:
-        raise AudioError(f"{p}: cannot be read ({exc.strerror or exc})") from None
+    read_audio(path, stop=1)
+    info = sf.info(str(path))
     return int(info.frames), int(info.samplerate), int(info.channels)
 
 
