@@ -32,8 +32,9 @@ next to it (``take.wav`` -> ``take.json``), atomically as well.
 Reading
 -------
 :func:`read_audio` reads any file libsndfile understands (WAV, FLAC, AIFF,
-OGG...) as float64 samples scaled to full scale 1.0, for the analysis of
-recordings.
+OGG...), or a stretch of it, as float64 samples scaled to full scale 1.0, for
+the analysis of recordings; :func:`audio_info` gives its length, rate and
+channels without reading the samples.
 
 Playback
 --------
@@ -714,8 +715,9 @@ def write_sidecar(path: str | os.PathLike[str], settings: Mapping[str, Any], *,
 
 
 # --------------------------------------------------------------------------- reading
-def read_audio(path: str | os.PathLike[str], *, mono: bool = False) -> tuple[np.ndarray, int]:
-    """Read an audio file as float64 samples.
+def read_audio(path: str | os.PathLike[str], *, mono: bool = False, start: int = 0,
+               stop: int | None = None) -> tuple[np.ndarray, int]:
+    """Read an audio file (or its frames ``start .. stop - 1``) as float64 samples.
 
     Parameters
     ----------
@@ -723,6 +725,8 @@ def read_audio(path: str | os.PathLike[str], *, mono: bool = False) -> tuple[np.
         Any format libsndfile reads (WAV, FLAC, AIFF, OGG...).
     mono : bool, optional
         Average the channels into one (returns a 1-D array).
+    start, stop : int, optional
+        First frame to read and the frame after the last (default: the whole file).
 
     Returns
     -------
@@ -749,7 +753,7 @@ def read_audio(path: str | os.PathLike[str], *, mono: bool = False) -> tuple[np.
     if p.is_dir():
         raise AudioError(f"{p}: is a folder, expected an audio file")
     try:
-        data, rate = sf.read(p, dtype="float64", always_2d=True)
+        data, rate = sf.read(p, dtype="float64", always_2d=True, start=start, stop=stop)
     except (sf.LibsndfileError, RuntimeError) as exc:
         raise AudioError(f"{p}: not a readable audio file ({exc})") from None
     except OSError as exc:
@@ -759,6 +763,21 @@ def read_audio(path: str | os.PathLike[str], *, mono: bool = False) -> tuple[np.
     if mono:
         data = data.mean(axis=1)
     return data, int(rate)
+
+
+def audio_info(path: str | os.PathLike[str]) -> tuple[int, int, int]:
+    """Return ``(frames, sample_rate, channels)`` of an audio file without reading its samples.
+
+    Raises
+    ------
+    AudioError
+        As :func:`read_audio` (which reads the first frame to check the file).
+    """
+    import soundfile as sf
+
+    read_audio(path, stop=1)
+    info = sf.info(str(path))
+    return int(info.frames), int(info.samplerate), int(info.channels)
 
 
 # --------------------------------------------------------------------------- playback

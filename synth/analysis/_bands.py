@@ -61,15 +61,28 @@ class Spectrum:
     bin_hz: float
 
 
+def _power(seg: np.ndarray, w: np.ndarray, nfft: int) -> np.ndarray:
+    """``|rfft(seg w)|^2 / sum(w^2)``, freeing each temporary as soon as it is used."""
+    spec = np.fft.rfft(seg * w, nfft)
+    power = np.abs(spec)
+    del spec
+    power **= 2
+    power /= np.sum(w**2)
+    return power
+
+
 def segment_spectrum(seg: np.ndarray, fs: float, *, block_hz: float = 20.0) -> Spectrum:
     """Decay-window power spectrum and Hann-window noise floor of a segment."""
     n = seg.size
     nfft = next_pow2(2 * n) if n <= (1 << 21) else next_pow2(n)
-    k = np.arange(n)
-    w_decay = 0.5 * (1.0 + np.cos(np.pi * k / n))
-    w_hann = 0.5 * (1.0 - np.cos(2.0 * np.pi * (k + 0.5) / n))
-    p = np.abs(np.fft.rfft(seg * w_decay, nfft)) ** 2 / np.sum(w_decay**2)
-    q = np.abs(np.fft.rfft(seg * w_hann, nfft)) ** 2 / np.sum(w_hann**2)
+    # one window and one spectrum at a time (the same numbers, less memory for long segments)
+    k = np.arange(n, dtype=np.float64)
+    w = 0.5 * (1.0 + np.cos(np.pi * k / n))                 # decay window
+    p = _power(seg, w, nfft)
+    w = 0.5 * (1.0 - np.cos(2.0 * np.pi * (k + 0.5) / n))   # Hann window
+    del k
+    q = _power(seg, w, nfft)
+    del w
     bin_hz = fs / nfft
     freqs = np.arange(p.size) * bin_hz
     block = max(16, int(round(block_hz / bin_hz)))

@@ -123,6 +123,11 @@ def _db_power(p: float) -> float:
     return 10.0 * math.log10(p) if p > 0 else -math.inf
 
 
+_FLUX_CHUNK = 2048
+"""Frames whose spectra are held at once (the flux is computed in chunks, frame by frame
+the same numbers as all at once, so memory stays bounded for long files)."""
+
+
 def _flux(x: np.ndarray, fs: float, frame_s: float, hop_s: float, range_db: float,
           fmin_hz: float, fmax_hz: float):
     nwin = max(16, int(round(frame_s * fs)))
@@ -130,19 +135,37 @@ def _flux(x: np.ndarray, fs: float, frame_s: float, hop_s: float, range_db: floa
     nfft = next_pow2(nwin)
     xp = np.concatenate((np.zeros(nwin), x, np.zeros(nwin)))
     frames = np.lib.stride_tricks.sliding_window_view(xp, nwin)[::hop]
+    n_frames = frames.shape[0]
     win = np.hanning(nwin)
-    spec = np.fft.rfft(frames * win, nfft)
     freqs = np.fft.rfftfreq(nfft, 1.0 / fs)
     sel = (freqs >= fmin_hz) & (freqs <= fmax_hz)
-    mag = np.abs(spec[:, sel])
-    energy = np.sum(mag * mag, axis=1) * (2.0 / (nfft * np.sum(win * win)))
-    level = 20.0 * np.log10(np.maximum(mag, 1e-300))
-    top = float(level.max())
-    level = np.maximum(level, top - range_db)
-    rise = np.diff(level, axis=0)
-    flux = np.concatenate(([0.0], np.mean(np.maximum(rise, 0.0), axis=1)))
+    scale = 2.0 / (nfft * np.sum(win * win))
+
+    def magnitudes(lo: int, hi: int) -> np.ndarray:
+        return np.abs(np.fft.rfft(frames[lo:hi] * win, nfft)[:, sel])
+
+    # pass 1: band energy per frame and the loudest bin of the file
+    energy = np.empty(n_frames)
+    top_mag = 0.0
+    for lo in range(0, n_frames, _FLUX_CHUNK):
+        mag = magnitudes(lo, min(n_frames, lo + _FLUX_CHUNK))
+        energy[lo:lo + mag.shape[0]] = np.sum(mag * mag, axis=1) * scale
+        top_mag = max(top_mag, float(mag.max()))
+    top = float(20.0 * np.log10(np.maximum(top_mag, 1e-300)))
+    # pass 2: rise of the clipped level spectrum from frame to frame
+    flux = np.zeros(n_frames)
+    prev = None
+    for lo in range(0, n_frames, _FLUX_CHUNK):
+        mag = magnitudes(lo, min(n_frames, lo + _FLUX_CHUNK))
+        level = np.maximum(20.0 * np.log10(np.maximum(mag, 1e-300)), top - range_db)
+        if prev is not None:
+            level = np.concatenate((prev, level))
+        rise = np.diff(level, axis=0)
+        first = lo if prev is not None else 1
+        flux[first:first + rise.shape[0]] = np.mean(np.maximum(rise, 0.0), axis=1)
+        prev = level[-1:]
     # frame n covers xp[n hop : n hop + nwin] = x[n hop - nwin : n hop]
-    starts = np.arange(frames.shape[0]) * hop - nwin
+    starts = np.arange(n_frames) * hop - nwin
     return flux, energy, starts, nwin, hop
 
 

@@ -63,7 +63,7 @@ def _passage(rng: np.random.Generator, n_voices: int, n_modes: int, n_samples: i
 
 
 def _drain(voices, n_samples) -> None:
-    for _ in render_blocks(voices, n_samples, sample_rate=FS, silence_db=-1000.0):
+    for _ in render_blocks(voices, n_samples, sample_rate=FS, retire_db=None):
         pass
 
 

@@ -184,6 +184,12 @@ class CoupledPair:
         value below it, or one with ``(g1 + g2) / (2 sample_rate) > 0.005``
         (240 /s at 48 kHz),
         raises ModelError at render time.
+    weight_2_max : float, optional
+        Bound of ``|weight_2|`` when it is a curve, used to decide when the
+        voice may be retired and to bound the peak in advance; a curve value
+        above it raises ModelError at render time.  Without it the render takes
+        the largest value the curve has given so far, and no advance peak bound
+        exists.
     """
 
     frequency_hz: tuple[float, float]
@@ -195,10 +201,13 @@ class CoupledPair:
     weight_2: CurveOrConstant = 1.0
     damped: tuple[bool, bool] = (True, True)
     decay_2_curve: Curve | None = None
+    weight_2_max: float | None = None
 
     def __post_init__(self) -> None:
         if self.decay_2_curve is not None and not callable(self.decay_2_curve):
             raise ModelError("coupled pair: decay_2_curve must be a callable (first_sample, n)")
+        object.__setattr__(self, "weight_2_max",
+                           _bound_or_none(self.weight_2_max, "weight_2_max", "coupled pair"))
         for name in ("frequency_hz", "decay_per_s", "amplitude", "phase_rad"):
             vals = getattr(self, name)
             try:
@@ -250,13 +259,17 @@ class Voice:
         rates >= 0 (see the module docstring).
     gain_curve : curve, optional
         Per-sample gain applied to the whole voice, ``curve(first_sample, n)``.
-        The engine assumes it never exceeds its largest value by more than the
-        silence threshold allows (a curve that rises by 140 dB late in a voice
-        could be cut off; see :func:`synth.engine.render.render_blocks`).
     pairs : sequence of CoupledPair, optional
         Coupled oscillator pairs sounding with the modes.
     label : str, optional
         Free text used in error messages (the voice plan puts the note here).
+    gain_curve_max : float, optional
+        Bound of the gain curve's magnitude.  The render uses it to decide when
+        the voice may be retired and to bound the peak in advance; a curve
+        value above it raises ModelError.  Without it the render takes the
+        largest value the curve has given so far (a curve that rises far above
+        that late in a voice could be cut off; see
+        :mod:`synth.engine.render`), and no advance peak bound exists.
     """
 
     start_sample: int
@@ -267,6 +280,7 @@ class Voice:
     gain_curve: Curve | None = None
     pairs: tuple[CoupledPair, ...] = field(default=())
     label: str = ""
+    gain_curve_max: float | None = None
 
     def __post_init__(self) -> None:
         where = self.where
@@ -312,6 +326,8 @@ class Voice:
         object.__setattr__(self, "damping", tuple(changes))
         if self.gain_curve is not None and not callable(self.gain_curve):
             raise ModelError(f"{where}: gain_curve must be a callable (first_sample, n) -> array")
+        object.__setattr__(self, "gain_curve_max",
+                           _bound_or_none(self.gain_curve_max, "gain_curve_max", where))
         pairs = tuple(self.pairs)
         if not all(isinstance(p, CoupledPair) for p in pairs):
             raise ModelError(f"{where}: pairs must be CoupledPair objects")
@@ -326,6 +342,18 @@ class Voice:
     def n_channels(self) -> int:
         """Number of output channels this voice is panned over."""
         return len(self.channel_gains)
+
+
+def _bound_or_none(value, name: str, where: str) -> float | None:
+    if value is None:
+        return None
+    try:
+        v = float(value)
+    except (TypeError, ValueError):
+        raise ModelError(f"{where}: {name} = {value!r}: must be a number or None") from None
+    if not (math.isfinite(v) and v >= 0):
+        raise ModelError(f"{where}: {name} = {v}: must be finite and >= 0")
+    return v
 
 
 def _as_sample(value, name: str, where: str) -> int:

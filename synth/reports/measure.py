@@ -155,6 +155,21 @@ source]."""
 SILENT_FACTOR = 1e-6
 """A fitted factor below this counts as driven to zero by the fit."""
 
+WINDOW_S = 60.0
+"""Longest stretch of a recording that is read and analysed, s.  A struck bar's
+decay reaches the noise of a recording well within it (a fundamental of T60
+30 s falls 120 dB in 60 s); a longer file is measured on the stretch around its
+strike, so memory stays bounded whatever the file's length."""
+
+LEAD_S = 5.0
+"""In a longer file, seconds kept before the strike (the noise floor before it)."""
+
+STRIKE_WITHIN_DB = 20.0
+"""In a longer file, the strike is the first 10 ms frame whose peak comes within
+this many dB of the file's loudest frame."""
+
+_SCAN_HOPS = 2048
+
 
 # --------------------------------------------------------------------------------------
 # Measuring
@@ -413,13 +428,52 @@ def measure_signal(signal, sample_rate: float, *, recording: str = "signal",
 
 
 def measure_file(path, **kwargs) -> Measurement:
-    """Read a recording (:func:`synth.io.read_audio`) and measure it (:func:`measure_signal`)."""
-    from synth.io import read_audio
+    """Read a recording (:func:`synth.io.read_audio`) and measure it (:func:`measure_signal`).
 
-    samples, rate = read_audio(path)
+    A file up to :data:`WINDOW_S` long is read whole.  From a longer one only
+    the :data:`WINDOW_S` seconds from :data:`LEAD_S` before its strike are read
+    (the strike is located in a scan that holds one block at a time), so the
+    memory needed does not grow with the file; the measurement is then that of
+    this stretch, with times referred to the file's start and a warning naming
+    the stretch.
+    """
+    from synth.io import audio_info, read_audio
+
+    frames, rate, _ = audio_info(path)
+    window = int(round(WINDOW_S * rate))
+    if frames <= window:
+        samples, rate = read_audio(path)
+        if samples.shape[1] == 1:
+            samples = samples[:, 0]
+        return measure_signal(samples, rate, recording=str(path), **kwargs)
+    start = _window_start(path, frames, rate, window)
+    samples, rate = read_audio(path, start=start, stop=start + window)
     if samples.shape[1] == 1:
         samples = samples[:, 0]
-    return measure_signal(samples, rate, recording=str(path), **kwargs)
+    m = measure_signal(samples, rate, recording=str(path), **kwargs)
+    note = (f"long recording ({frames / rate:.1f} s): measured on the {WINDOW_S:g} s from "
+            f"{start / rate:.2f} s, around the strike")
+    return replace(m, duration_s=frames / rate, onset_s=m.onset_s + start / rate,
+                   warnings=(*m.warnings, note))
+
+
+def _window_start(path, frames: int, rate: int, window: int) -> int:
+    """First frame of the analysed stretch of a long file: LEAD_S before its strike."""
+    from synth.io import read_audio
+
+    hop = max(1, rate // 100)
+    step = hop * _SCAN_HOPS  # blocks of whole frames
+    peaks = []
+    for first in range(0, frames, step):
+        block, _ = read_audio(path, start=first, stop=min(frames, first + step))
+        a = np.max(np.abs(block), axis=1)
+        n = -(-a.size // hop) * hop
+        a = np.concatenate([a, np.zeros(n - a.size)])
+        peaks.append(a.reshape(-1, hop).max(axis=1))
+    env = np.concatenate(peaks)
+    loud = float(env.max())
+    strike = int(np.flatnonzero(env >= loud * 10 ** (-STRIKE_WITHIN_DB / 20))[0]) * hop
+    return int(min(max(0, strike - int(round(LEAD_S * rate))), frames - window))
 
 
 # --------------------------------------------------------------------------------------

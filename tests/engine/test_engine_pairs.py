@@ -27,7 +27,7 @@ def pair_outputs(pair_kwargs, n, fs=FS, block_size=8192):
     for w1, w2 in ((1.0, 0.0), (0.0, 1.0)):
         p = CoupledPair(weight_1=w1, weight_2=w2, **pair_kwargs)
         out.append(render([Voice(0, ModeBank.empty(), pairs=(p,))], n, sample_rate=fs,
-                          silence_db=-1000.0, block_size=block_size)[:, 0])
+                          retire_db=None, block_size=block_size)[:, 0])
     return out
 
 
@@ -85,7 +85,7 @@ def test_zero_coupling_is_two_plain_modes():
     for j, y in enumerate((y1, y2)):
         bank = ModeBank([kw["frequency_hz"][j]], [kw["decay_per_s"][j]],
                         [kw["amplitude"][j]], [kw["phase_rad"][j]])
-        ref = render([Voice(0, bank)], n, sample_rate=FS, silence_db=-1000.0)[:, 0]
+        ref = render([Voice(0, bank)], n, sample_rate=FS, retire_db=None)[:, 0]
         # The pair steps without re-anchoring, so its rounding accumulates over the
         # 20000 steps: N eps = 20000 x 2.2e-16 = 4.4e-12 of the amplitude (1.0).
         assert np.max(np.abs(y - ref)) <= 20000 * np.finfo(float).eps

@@ -1,0 +1,113 @@
+"""One render per WAV: the file equals that of the former two-pass render.
+
+Reference: the two-pass procedure kept in the engine (``measure_peak`` for the
+peak, :func:`plan_gain`, then ``render_blocks(gain=...)`` streamed into
+:func:`synth.io.write_wav`), read back with soundfile (libsndfile).  The
+one-pass writer scales the same float64 samples by the same gain, so the files
+must agree bit for bit, and the sidecar must carry the same peak and gain.
+"""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pytest
+import soundfile as sf
+
+from synth.engine import (
+    CoupledPair,
+    ModeBank,
+    Voice,
+    constant_power_pan,
+    measure_peak,
+    peak_bound,
+    plan_gain,
+    render_blocks,
+)
+from synth.io import write_wav
+from synth.output import render_to_wav
+
+FS = 48000
+
+
+def _opening(first, n):
+    t = np.arange(first, first + n) / FS
+    return 0.6 + 0.4 * np.cos(2 * np.pi * 6.0 * t)
+
+
+def voices(curves: bool):
+    """Six strikes with bar-tube pairs (constant or following the opening), panned."""
+    out = []
+    for k, f0 in enumerate((175.0, 262.0, 349.0, 440.0, 523.0, 698.0)):
+        bank = ModeBank([f0 * 3.9, f0 * 9.8], [6.0, 20.0], [0.05, -0.02], [0.3, 1.0])
+        if curves:
+            pair = CoupledPair((f0, f0 * 1.017), (0.8, 8.0), (0.1, 0.0),
+                               coupling_rad_s=lambda first, n: 3.0 * _opening(first, n),
+                               weight_1=0.5, weight_2=lambda first, n: 12.0 * _opening(first, n),
+                               decay_2_curve=lambda first, n: 8.0 + 20 * (1 - _opening(first, n)))
+        else:
+            pair = CoupledPair((f0, f0 * 1.017), (0.8, 8.0), (0.1, 0.0), coupling_rad_s=3.0,
+                               weight_1=0.5, weight_2=12.0)
+        out.append(Voice(k * 7001, bank, channel_gains=constant_power_pan(-0.8 + 0.3 * k),
+                         pairs=(pair,), damping=[(k * 7001 + 30000, 4.0)]))
+    return out
+
+
+def two_pass(path, vs, n, fmt, gain_db=None):
+    """Write the former way: measure the peak in one render, write a second, scaled one."""
+    plan = plan_gain(measure_peak(vs, n, sample_rate=FS, channels=2), gain_db=gain_db)
+    write_wav(path, render_blocks(vs, n, sample_rate=FS, channels=2, gain=plan.gain,
+                                  dtype=np.float32 if fmt == "float32" else np.float64),
+              sample_rate=FS, sample_format=fmt)
+    return plan
+
+
+@pytest.mark.parametrize("fmt", ["pcm24", "float32", "pcm16"])
+@pytest.mark.parametrize("curves", [False, True])
+@pytest.mark.parametrize("gain_db", [None, -30.0, 20.0])
+def test_one_pass_file_equals_two_pass_file(tmp_path, fmt, curves, gain_db):
+    """Normalised, fixed and limited gains: the same samples bit for bit, the same plan."""
+    vs = voices(curves)
+    n = 60000
+    ref = two_pass(tmp_path / "two.wav", vs, n, fmt, gain_db)
+    rep = render_to_wav(tmp_path / "one.wav", vs, n, sample_rate=FS, channels=2,
+                        sample_format=fmt, gain_db=gain_db)
+    a, _ = sf.read(tmp_path / "two.wav", dtype="float64")
+    b, _ = sf.read(tmp_path / "one.wav", dtype="float64")
+    assert np.array_equal(a, b)
+    assert rep.plan == ref
+    side = json.loads(rep.sidecar.read_text())
+    assert side["peak_unscaled"] == ref.peak and side["gain_db"] == ref.gain_db
+    # only the hidden temporary is gone: the WAV and its sidecar remain
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["one.json", "one.wav", "two.wav"]
+
+
+def test_fixed_gain_streams_only_when_it_cannot_clip(tmp_path):
+    """-30 dB on constant voices: the advance bound says no clipping, the WAV is streamed.
+
+    +20 dB would clip: the render goes through the temporary file and is limited.
+    With curves (no declared bounds) there is no advance bound: temporary file.
+    """
+    vs = voices(False)
+    n = 60000
+    bound = peak_bound(vs, n, sample_rate=FS, channels=2)
+    assert bound * 10 ** (-30 / 20) <= 1.0 < bound * 10 ** (20 / 20)
+    quiet = render_to_wav(tmp_path / "q.wav", vs, n, sample_rate=FS, gain_db=-30.0)
+    loud = render_to_wav(tmp_path / "l.wav", vs, n, sample_rate=FS, gain_db=20.0)
+    curved = render_to_wav(tmp_path / "c.wav", voices(True), n, sample_rate=FS, gain_db=-30.0)
+    assert quiet.streamed and not loud.streamed and not curved.streamed
+    assert loud.plan.limited and loud.plan.peak_dbfs == pytest.approx(-1.0, abs=1e-12)
+
+
+def test_render_error_leaves_no_file(tmp_path):
+    """A voice that fails mid-render leaves neither WAV, sidecar nor temporary behind."""
+    from synth.errors import ModelError
+
+    def bad_curve(first, n):
+        return np.full(n, np.nan if first >= 20000 else 1.0)
+
+    vs = [Voice(0, ModeBank([440.0], [1.0], [0.5]), gain_curve=bad_curve)]
+    with pytest.raises(ModelError, match="not finite"):
+        render_to_wav(tmp_path / "x.wav", vs, 40000, sample_rate=FS)
+    assert list(tmp_path.iterdir()) == []
