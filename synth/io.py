@@ -746,7 +746,7 @@ def read_audio(path: str | os.PathLike[str], *, mono: bool = False, start: int =
     plan = _ACTIVE_PLAN.get()
     staged = None if plan is None else plan.staged(p)
     if staged is not None:  # written by this run, not yet committed
-        data, rate = read_audio(staged, mono=mono)
+        data, rate = read_audio(staged, mono=mono, start=start, stop=stop)
         return data, rate
     if not p.exists():
         raise AudioError(f"{p}: file not found")
@@ -776,7 +776,9 @@ def audio_info(path: str | os.PathLike[str]) -> tuple[int, int, int]:
     import soundfile as sf
 
     read_audio(path, stop=1)
-    info = sf.info(str(path))
+    plan = _ACTIVE_PLAN.get()
+    staged = None if plan is None else plan.staged(Path(path))
+    info = sf.info(str(path if staged is None else staged))
     return int(info.frames), int(info.samplerate), int(info.channels)
 
 
