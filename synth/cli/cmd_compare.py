@@ -128,7 +128,18 @@ def compare_command(
         show_default=False)] = None,
     mallet: MalletOpt = None,
     no_tubes: TubesOpt = False,
+    bare_b: Annotated[bool, typer.Option(
+        "--bare-b", help="Render design B without its tubes (A keeps them): with the same "
+                         "preset twice and --match gain, hear what the tubes add.")] = False,
     motor_rate: MotorOpt = None,
+    match: Annotated[str, typer.Option(
+        metavar="loudness|gain",
+        help="loudness: B gets the gain that brings it to A's loudness (BS.1770-4); gain: "
+             "both get one gain, so a louder design stays louder.")] = "loudness",
+    band_range: Annotated[float, typer.Option(
+        min=3.0, max=120.0, metavar="dB",
+        help="Give spectral differences only in octave bands within this many dB of the "
+             "loudest band (quieter bands are masked by it).")] = 30.0,
     sample_rate: RateOpt = 48000,
     fmt: FormatOpt = "pcm24",
     force: ForceOpt = False,
@@ -176,10 +187,14 @@ def compare_command(
         raise ConfigError(f"= {fmt!r}: must be one of " + ", ".join(io.SAMPLE_FORMATS),
                           source="--format")
     sequence = parse_chord(notes, "--notes") if notes is not None else None  # before reading files
-    same = design_a.resolve() == design_b.resolve()
+    if match not in cmp.MATCH_MODES:
+        raise ConfigError(f"= {match!r}: must be one of " + ", ".join(cmp.MATCH_MODES),
+                          source="--match")
+    cmp.check_band_range(band_range)
+    same = design_a.resolve() == design_b.resolve() and not bare_b
     va = _voicer(design_a, sample_rate=sample_rate, no_tubes=no_tubes, motor_rate=motor_rate)
-    vb = va if same else _voicer(design_b, sample_rate=sample_rate, no_tubes=no_tubes,
-                                 motor_rate=motor_rate)
+    vb = va if same else _voicer(design_b, sample_rate=sample_rate,
+                                 no_tubes=no_tubes or bare_b, motor_rate=motor_rate)
     if same:
         warn(f"A and B are the same file ({design_a}): the two renders are identical, so any "
              "difference heard is imagined and a blind test can only score by chance")
@@ -208,14 +223,14 @@ def compare_command(
             step(done - last[0])
             last[0] = done
 
-        comp = cmp.compare_designs(va, vb, passage, mallet=mallet, progress=progress)
+        comp = cmp.compare_designs(va, vb, passage, mallet=mallet, match=match,
+                                   band_range_db=band_range, progress=progress)
 
     names = (va.instrument.name, vb.instrument.name)
     files = (str(design_a), str(design_b))
     settings = {"command": "compare", "design_a": files[0], "design_b": files[1],
-                "name_a": names[0], "name_b": names[1], "tubes": va.tubes_active,
-                "motor_rate_rev_per_s": va.motor.rate_rev_per_s, "mallet": mallet,
-                "sample_rate_hz": sample_rate, "channels": 2,
+                "name_a": names[0], "name_b": names[1], "sample_rate_hz": sample_rate,
+                "channels": 2,
                 "events": None if events is None else str(events), "notes": notes}
     written = cmp.write_listening_files(comp, directory, gap_s=gap, sample_format=fmt,
                                         force=force, settings=settings)
@@ -256,20 +271,33 @@ def compare_command(
     info(HEARING_CAUTION)
 
 
+def _design_rows(comp, names, files) -> list[list[str]]:
+    rows = []
+    for d, nm, f, st in zip(("A", "B"), names, files, comp.designs, strict=True):
+        rate = st.get("motor_rate_rev_per_s", 0.0)
+        rows.append([d, f"{nm} ({f})", "on" if st.get("tubes") else "off",
+                     f"{rate:g} rev/s" if rate > 0 else "stopped", str(st.get("mallet", "-")),
+                     _cell(st.get("output_gain_db_re_1_per_pa", math.nan), "+.2f")])
+    return rows
+
+
 def _print_report(comp, names, files) -> None:
     lv = comp.levels
-    typer.echo(f"A: {files[0]} ({names[0]})")
-    typer.echo(f"B: {files[1]} ({names[1]})")
+    typer.echo(format_table(["", "design", "tubes", "motor", "mallet", "gain dB re 1/Pa"],
+                            _design_rows(comp, names, files), align="llllll",
+                            title="what each design was rendered with"))
     typer.echo(f"passage: {comp.passage.label}")
     typer.echo(f"render length {comp.length_s:.2f} s per design at {comp.sample_rate} Hz, "
                "stereo, onsets aligned (integrated loudness of ringing notes depends on the "
                "length)")
     typer.echo("")
+    after = ("as written (B matched to A)" if comp.match == "loudness"
+             else "as written (one gain on both)")
     rows = [
         ["before matching (one gain on both)", _cell(lv.loudness_before_lufs[0], ".2f"),
          _cell(lv.loudness_before_lufs[1], ".2f"), _cell(lv.loudness_difference_before_lu, "+.2f"),
          _cell(lv.true_peak_before_dbtp[0], ".2f"), _cell(lv.true_peak_before_dbtp[1], ".2f")],
-        ["as written (B matched to A)", _cell(lv.loudness_after_lufs[0], ".2f"),
+        [after, _cell(lv.loudness_after_lufs[0], ".2f"),
          _cell(lv.loudness_after_lufs[1], ".2f"), _cell(lv.loudness_difference_after_lu, "+.2f"),
          _cell(lv.true_peak_after_dbtp[0], ".2f"), _cell(lv.true_peak_after_dbtp[1], ".2f")],
     ]
@@ -286,11 +314,20 @@ def _print_report(comp, names, files) -> None:
     typer.echo(format_table(
         ["note", "f1 A Hz", "f1 B Hz", "f1 B-A c", "p2 B-A c", "p3 B-A c", "T60 A s", "T60 B s",
          "T60 B/A"], rows,
-        title="per note (from the models; f1 and its T60 are the bar-tube pair's bar-like mode)"
+        title="per note (from the models, each with its own tubes and motor; f1 and its T60 "
+              "are the bar-tube pair's bar-like mode where tubed)"
         if tubed else "per note (from the models; bare bars)"))
     typer.echo("")
-    rows = [[f"{w.window_s[0]:g}-{w.window_s[1]:g}"] + [_cell(x, "+.1f") for x in w.difference_db]
-            for w in comp.balance]
-    typer.echo(format_table(["window s"] + [lab for lab, _, _, _ in comp.bands], rows,
-                            title="spectral balance after matching: octave-band level B - A, dB "
-                                  "(windows from the start of the render)"))
+    rows = []
+    for w in comp.balance:
+        span = f"{w.window_s[0]:g}-{w.window_s[1]:g}"
+        rows.append([span, "A dBFS"] + [_cell(x, ".0f") for x in w.level_a_db])
+        rows.append(["", "B dBFS"] + [_cell(x, ".0f") for x in w.level_b_db])
+        rows.append(["", "B-A dB"] + [_cell(x, "+.1f") for x in w.difference_db])
+    range_db = comp.balance[0].range_db if comp.balance else 30.0
+    typer.echo(format_table(["window s", ""] + [lab for lab, _, _, _ in comp.bands], rows,
+                            title="spectral balance as written: octave-band level, dB re full "
+                                  "scale, and B - A (windows from the start of the render)"))
+    typer.echo(f"B - A is given only in bands within {range_db:g} dB of the window's loudest "
+               "band (--band-range); about 1 dB is the smallest level change most listeners "
+               "notice")
