@@ -49,7 +49,8 @@ def demo_outputs(out: Path) -> list[tuple[Path, str]]:
         files += [(out / name, "WAV"), (io.sidecar_path(out / name), "settings sidecar")]
     files += [(out / "sustain.csv", "table"), (out / "sustain.png", "plot"),
               (out / "chord-decay.png", "plot")]
-    files += [(p, "comparison file") for p in planned_files(out / "compare", DEMO_TRIALS)]
+    files += [(p, "comparison file") for p in planned_files(out / "compare", DEMO_TRIALS,
+                                                            page=True)]
     files += [(out / "prototype-A4.wav", "recording"),
               (out / "calibration-A4.toml", "calibration file")]
     return files
@@ -203,7 +204,7 @@ def demo_command(
     option = presets_dir() / "instruments" / "tarrow-37-7075.toml"
     typer.echo("6. for the client: 6061-T6 (A) against 7075-T6 (B), loudness-matched")
     compare_command(design_a=path, design_b=option, out=out / "compare", blind=DEMO_TRIALS,
-                    seed=37, force=True)
+                    seed=37, force=True, page=True)
     typer.echo("")
 
     # 7. Back from the shop: measure a prototype bar and pull the loss model onto it

@@ -942,9 +942,9 @@ def abx_key(n_trials: int, seed: int) -> tuple[str, ...]:
 
 
 def trial_name(k: int, n_trials: int) -> str:
-    """File name of trial ``k`` (1-based): ``trial-01.wav`` (three digits from 100 trials)."""
+    """File name of blind trial ``k`` (1-based): ``blind-01.wav`` (three digits from 100)."""
     width = max(2, len(str(n_trials)))
-    return f"trial-{k:0{width}d}.wav"
+    return f"blind-{k:0{width}d}.wav"
 
 
 LISTENING_FILES: Final[tuple[str, ...]] = ("A.wav", "B.wav", "AB.wav")
@@ -953,11 +953,15 @@ LISTENING_FILES: Final[tuple[str, ...]] = ("A.wav", "B.wav", "AB.wav")
 REPORT_FILES: Final[tuple[str, ...]] = ("differences.json", "differences.png")
 """The report of differences, written beside the listening files."""
 
-KEY_FILE: Final[str] = "key.toml"
+KEY_FILE: Final[str] = "blind-key.toml"
 """Answer key of the blind trials."""
 
+PAGE_FILE: Final[str] = "listen.html"
+"""The listening page (``compare --page``), beside the files it plays."""
 
-def planned_files(directory: str | Path, n_trials: int | None) -> list[Path]:
+
+def planned_files(directory: str | Path, n_trials: int | None, *,
+                  page: bool = False) -> list[Path]:
     """Every file a comparison with ``n_trials`` blind trials writes into ``directory``."""
     d = Path(directory)
     names = list(LISTENING_FILES)
@@ -968,6 +972,8 @@ def planned_files(directory: str | Path, n_trials: int | None) -> list[Path]:
     paths += [d / nm for nm in REPORT_FILES]
     if n_trials:
         paths.append(d / KEY_FILE)
+    if page:
+        paths.append(d / PAGE_FILE)
     return paths
 
 
@@ -1035,6 +1041,7 @@ class BlindKey:
     files: tuple[str, ...]
     gap_s: float
     source: str = ""
+    run: str = ""
 
     @property
     def trials(self) -> int:
@@ -1048,11 +1055,14 @@ def key_toml(key: BlindKey) -> str:
         return json.dumps(v)  # a JSON string is a valid TOML basic string
 
     lines = [
-        "# Answer key of an ABX listening test written by `barwright compare --blind`.",
-        "# Keep this file away from the listener until every answer is written down.",
-        "# Each trial plays A, gap, B, gap, X; x below says which design X is.",
-        "# Score with: barwright compare --score key.toml --answers \"A,B,...\"",
-        "# The number of trials was fixed before listening; score all of them.",
+        "# Answer key of the blind trials written by `barwright compare --blind`.",
+        "# Keep this file from the listener until every answer is in.",
+        "# Each trial file plays A, a pause, B, a pause, then the unknown X;",
+        "# x below says which design the unknown is in each trial.",
+        f"# Score: barwright compare --score {KEY_FILE} --answers \"A,B,...\"",
+        "#    or: barwright compare --score KEY --answers-file FILE (saved by the page)",
+        "# The number of trials was fixed before listening; score every one of them.",
+        f"run = {s(key.run)}",
         f"design_a = {s(key.design_a)}",
         f"design_b = {s(key.design_b)}",
         f"trials = {key.trials}",
@@ -1068,7 +1078,7 @@ def read_key(path: str | Path) -> BlindKey:
     """Read and check a key file written by :func:`write_blind_trials`."""
     src = str(path)
     sec = Section(load_toml(path), src)
-    sec.check_keys({"design_a", "design_b", "trials", "seed", "gap_s", "files", "x"})
+    sec.check_keys({"run", "design_a", "design_b", "trials", "seed", "gap_s", "files", "x"})
     n = sec.integer("trials", ge=1)
     raw = sec.data.get("x")
     if not isinstance(raw, list) or not all(isinstance(v, str) for v in raw):
@@ -1084,11 +1094,12 @@ def read_key(path: str | Path) -> BlindKey:
         raise sec.error("files", "must be a list of file names")
     return BlindKey(x=x, seed=sec.integer("seed", 0, ge=0), design_a=sec.string("design_a", ""),
                     design_b=sec.string("design_b", ""), files=tuple(files),
-                    gap_s=sec.number("gap_s", DEFAULT_GAP_S, gt=0.0), source=src)
+                    gap_s=sec.number("gap_s", DEFAULT_GAP_S, gt=0.0), source=src,
+                    run=sec.string("run", ""))
 
 
 def write_blind_trials(comp: Comparison, directory: str | Path, n_trials: int, *, seed: int,
-                       gap_s: float, designs: tuple[str, str],
+                       gap_s: float, designs: tuple[str, str], run: str = "",
                        sample_format: str = io.DEFAULT_SAMPLE_FORMAT, force: bool = False,
                        settings: Mapping[str, Any] | None = None) -> tuple[list[Path], Path]:
     """Write ``n_trials`` ABX trials and their key.
@@ -1113,7 +1124,7 @@ def write_blind_trials(comp: Comparison, directory: str | Path, n_trials: int, *
         path = io.write_wav(d / name, sig, sample_rate=comp.sample_rate,
                             sample_format=sample_format, force=force)
         io.write_sidecar(path, {**base, "designs": design_table(comp), "file": name,
-                                "trial": k, "trials": n_trials,
+                                "trial": k, "trials": n_trials, "run": run,
                                 "layout": "A, gap, B, gap, X (X is A or B; see the key)",
                                 "gap_s": gap / comp.sample_rate,
                                 "part_samples": int(comp.a.shape[0]),
@@ -1121,7 +1132,7 @@ def write_blind_trials(comp: Comparison, directory: str | Path, n_trials: int, *
                          force=force)
         paths.append(path)
     key = BlindKey(x=x, seed=int(seed), design_a=designs[0], design_b=designs[1],
-                   files=tuple(p.name for p in paths), gap_s=gap / comp.sample_rate)
+                   files=tuple(p.name for p in paths), gap_s=gap / comp.sample_rate, run=run)
     key_path = io.write_bytes(d / KEY_FILE, key_toml(key).encode("utf-8"), force=force)
     return paths, key_path
 
@@ -1179,6 +1190,66 @@ def parse_answers(text: str) -> tuple[str, ...]:
             raise ConfigError(f"answer {k} = {t!r}: each answer must be A or B",
                               source="--answers")
     return out
+
+
+ANSWERS_FORMAT: Final[str] = "barwright blind answers"
+"""The ``format`` value of an answers file saved by the listening page."""
+
+MAX_ANSWERS_BYTES: Final[int] = 1 << 20
+"""Largest answers file read, bytes (one answer per trial needs far less)."""
+
+
+def read_answers_file(path: str | Path, key: BlindKey) -> tuple[str, ...]:
+    """Read the answers a listening page saved and check them against ``key``.
+
+    The file is JSON: ``{"format": "barwright blind answers", "version": 1,
+    "run": "...", "trials": n, "answers": ["A", "B", null, ...]}`` (null: not
+    answered).  Its ``run`` must be the key's (when the key has one), it must
+    hold one answer per trial, and every trial must be answered.
+
+    Raises
+    ------
+    ConfigError
+        Naming ``--answers-file``: unreadable, not such a file, another run's
+        answers, the wrong count, or unanswered trials.
+    """
+    src = str(path)
+    p = Path(path)
+    try:
+        if p.stat().st_size > MAX_ANSWERS_BYTES:
+            raise ConfigError(f"{src}: larger than {MAX_ANSWERS_BYTES} bytes; not an answers "
+                              "file", source="--answers-file")
+        data = json.loads(p.read_text(encoding="utf-8"))
+    except FileNotFoundError:
+        raise ConfigError(f"{src}: no such file", source="--answers-file") from None
+    except (OSError, UnicodeDecodeError, ValueError) as exc:
+        raise ConfigError(f"{src}: not a readable answers file ({exc})",
+                          source="--answers-file") from None
+    if not isinstance(data, dict) or data.get("format") != ANSWERS_FORMAT:
+        raise ConfigError(f"{src}: not an answers file saved by the listening page (no "
+                          f"\"format\": \"{ANSWERS_FORMAT}\")", source="--answers-file")
+    run = data.get("run")
+    if key.run and run != key.run:
+        raise ConfigError(f"{src}: answers of run {run!r}, but the key is of run {key.run!r}; "
+                          "give the key written with these trials", source="--answers-file")
+    raw = data.get("answers")
+    if not isinstance(raw, list):
+        raise ConfigError(f"{src}: \"answers\" must be a list", source="--answers-file")
+    if len(raw) != key.trials:
+        raise ConfigError(f"{src}: holds {len(raw)} answers; the key holds {key.trials} "
+                          "trials", source="--answers-file")
+    missing = [k for k, a in enumerate(raw, start=1) if a is None]
+    if missing:
+        raise ConfigError(f"{src}: trial {missing[0]} is not answered ({len(missing)} of "
+                          f"{key.trials} open); answer every trial before scoring",
+                          source="--answers-file")
+    out = []
+    for k, a in enumerate(raw, start=1):
+        if not isinstance(a, str) or a.strip().upper() not in DESIGNS:
+            raise ConfigError(f"{src}: answer {k} = {a!r}: each answer must be A or B",
+                              source="--answers-file")
+        out.append(a.strip().upper())
+    return tuple(out)
 
 
 def score_answers(key: Sequence[str], answers: Sequence[str]) -> BlindScore:
