@@ -23,8 +23,8 @@ from typer.testing import CliRunner
 from synth.cli import app
 from synth.config import presets_dir
 
-DESIGN_A = presets_dir() / "instruments" / "tarrow-37.toml"
-DESIGN_B = presets_dir() / "instruments" / "tarrow-37-7075.toml"
+DESIGN_A = presets_dir() / "instruments" / "lantern-street-bars.toml"
+DESIGN_B = presets_dir() / "instruments" / "lantern-street-bars-7075.toml"
 TRIALS = 6
 RIGHT = 4  # answer the first four trials right and the last two wrong
 BLOCK = 1024  # samples: a loaded player's duration must match its WAV within one block

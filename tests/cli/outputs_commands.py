@@ -15,8 +15,8 @@ from synth.cli import app
 from synth.config import presets_dir
 from synth.io import TEMP_MARK
 
-PRESET = presets_dir() / "instruments" / "tarrow-37.toml"
-OPTION = presets_dir() / "instruments" / "tarrow-37-7075.toml"
+PRESET = presets_dir() / "instruments" / "lantern-street-bars.toml"
+OPTION = presets_dir() / "instruments" / "lantern-street-bars-7075.toml"
 BAR = presets_dir() / "bars" / "parabolic-example.toml"
 
 EVENTS = """\

@@ -21,7 +21,7 @@ from synth.reports.chord import chord_decay
 from synth.reports.sustain import parse_target_curve, sustain_report
 from synth.voicing import Voicer
 
-DEMO = presets_dir() / "instruments" / "tarrow-37.toml"
+DEMO = presets_dir() / "instruments" / "lantern-street-bars.toml"
 
 
 @pytest.fixture(scope="module")
