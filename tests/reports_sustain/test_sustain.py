@@ -26,10 +26,12 @@ DEMO = presets_dir() / "instruments" / "lantern-street-bars.toml"
 
 @pytest.fixture(scope="module")
 def inst():
+    """Load the demo instrument once."""
     return load_instrument(DEMO)
 
 
 def test_rendered_t60_matches_budget_for_every_note_with_tubes_and_motor(inst) -> None:
+    """Rendered T60 within 5 % of the budget for all 37 notes, tubes on, motor 3 rev/s."""
     v = Voicer(inst, sample_rate=48000, channels=1, motor_rate_rev_per_s=3.0)
     rep = sustain_report(v, max_render_s=6.0)
     assert len(rep.rows) == 37
@@ -40,6 +42,7 @@ def test_rendered_t60_matches_budget_for_every_note_with_tubes_and_motor(inst) -
 
 
 def test_mismatch_flags_and_level_difference(inst) -> None:
+    """Mismatch, level difference and flag follow their definitions against 30 s."""
     v = Voicer(inst, sample_rate=48000, channels=1)
     notes = ["F3", "A4", "F6"]
     rep = sustain_report(v, notes, target_t60_s=30.0, tolerance_percent=15.0, at_time_s=2.0,
@@ -54,6 +57,7 @@ def test_mismatch_flags_and_level_difference(inst) -> None:
 
 
 def test_target_curve_interpolates_in_log_t60() -> None:
+    """A curve through two notes is geometric between them and held beyond."""
     curve = parse_target_curve("F3:40,F5:10", ["F3", "F4", "F5", "F6"])
     assert curve["F3"] == pytest.approx(40.0)
     assert curve["F4"] == pytest.approx(20.0)  # geometric midpoint over 12 semitones
@@ -61,6 +65,7 @@ def test_target_curve_interpolates_in_log_t60() -> None:
 
 
 def test_chord_decay_rates_match_the_notes_t60(inst) -> None:
+    """Each chord note decays at 60 dB / T60 of its own model."""
     v = Voicer(inst, sample_rate=48000, channels=2, tubes=False)
     res = chord_decay(v, [("C4", 0.6), ("G5", 0.6)], seconds=4.0)
     for n in res.notes:
