@@ -9,7 +9,6 @@ from __future__ import annotations
 
 import os
 import shutil
-from pathlib import Path
 
 import pytest
 
@@ -20,8 +19,7 @@ CHROMIUM_FLAGS = ("--headless=new", "--no-sandbox", "--disable-gpu", "--disable-
 
 
 def _binary(name: str) -> str | None:
-    return shutil.which(name) or next((str(p) for p in (Path("/usr/bin") / name,)
-                                       if p.exists()), None)
+    return shutil.which(name)
 
 
 @pytest.fixture()
