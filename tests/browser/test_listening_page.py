@@ -170,3 +170,33 @@ def test_layout_fits_desktop_and_phone(folder, browser, tmp_path, width, height,
     browser.save_screenshot(str(shot))
     assert shot.stat().st_size > 0
     print(f"screenshot: {shot}")
+
+
+def test_keyboard_alone_answers_a_trial(folder, browser) -> None:
+    """Tab to trial 1's A, Space to choose it, arrow to B: the choice is kept, no mouse."""
+    from selenium.webdriver.common.keys import Keys
+
+    open_page(browser, folder)
+    browser.execute_script("localStorage.clear()")
+    open_page(browser, folder)
+    first = browser.find_element("css selector", "input[name='answer-1'][value='A']")
+    body = browser.find_element("tag name", "body")
+    body.send_keys(Keys.TAB)
+    for _ in range(60):  # walk the tab order until trial 1's first answer has the focus
+        if browser.switch_to.active_element == first:
+            break
+        browser.switch_to.active_element.send_keys(Keys.TAB)
+    assert browser.switch_to.active_element == first, "trial 1's answer is not in the tab order"
+    first.send_keys(Keys.SPACE)
+    browser.switch_to.active_element.send_keys(Keys.ARROW_RIGHT)
+    kept = browser.execute_script(
+        "return JSON.parse(localStorage.getItem(JSON.parse(document.getElementById("
+        "'page-data').textContent).storageKey)).answers[0]")
+    assert kept == "B"
+    # Every control has a name a screen reader can say.
+    unnamed = browser.execute_script(
+        "return Array.from(document.querySelectorAll('button, input, audio')).filter(e => "
+        "!(e.getAttribute('aria-label') || e.getAttribute('aria-labelledby') || "
+        "e.closest('label') || (e.id && document.querySelector(`label[for='${e.id}']`)) || "
+        "e.textContent.trim())).map(e => e.outerHTML.slice(0, 80))")
+    assert unnamed == []
