@@ -130,8 +130,9 @@ def compare_command(
         help="Folder for the files (default renders/compare-<A>-vs-<B>/).")] = None,
     blind: Annotated[int | None, typer.Option(
         min=1, max=MAX_TRIALS,
-        help="Also write this many ABX trials (A, gap, B, gap, X) in random order and their "
-             "answer key, key.toml. Fix the number before listening.", show_default=False)
+        help="Also write this many blind trials blind-NN.wav (A, gap, B, gap, then X: A or B "
+             "at random; the ABX method) and their answer key, blind-key.toml. Fix the number "
+             "before listening.", show_default=False)
     ] = None,
     seed: Annotated[int | None, typer.Option(
         min=0, max=2**32 - 1,
