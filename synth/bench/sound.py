@@ -36,7 +36,7 @@ from synth.voicing import Voicer
 
 
 def _strike_once(out: Path) -> float:
-    preset = presets_dir() / "instruments" / "tarrow-37.toml"
+    preset = presets_dir() / "instruments" / "lantern-street-bars.toml"
     t0 = time.perf_counter()
     subprocess.run([sys.executable, "-m", "synth", "strike", str(preset), "A4", "--duration",
                     "5", "--out", str(out), "--force"], check=True, capture_output=True)
@@ -51,7 +51,7 @@ def run(quick: bool = False) -> dict[str, float]:
         figures["sound.strike_first_wall_s"] = _strike_once(out)
         runs = [_strike_once(out) for _ in range(1 if quick else 3)]
         figures["sound.strike_wall_s"] = sorted(runs)[len(runs) // 2]
-    inst = load_instrument(presets_dir() / "instruments" / "tarrow-37.toml")
+    inst = load_instrument(presets_dir() / "instruments" / "lantern-street-bars.toml")
     v = Voicer(inst, sample_rate=48000.0, channels=1, motor_rate_rev_per_s=3.0)
     notes = list(inst.notes[::4]) if quick else list(inst.notes)
     t0 = time.perf_counter()

@@ -27,7 +27,7 @@ from synth.physics.tuning import tune_instrument
 
 def run(quick: bool = False) -> dict[str, float]:
     """Run the suite."""
-    inst = load_instrument(presets_dir() / "instruments" / "tarrow-37.toml")
+    inst = load_instrument(presets_dir() / "instruments" / "lantern-street-bars.toml")
     notes = list(inst.notes[::6]) if quick else list(inst.notes)
     t0 = time.perf_counter()
     res = tune_instrument(inst, notes)

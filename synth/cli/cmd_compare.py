@@ -40,7 +40,8 @@ ForceOpt = Annotated[bool, typer.Option(
 JsonOpt = Annotated[bool, typer.Option("--json", help="Print the report (or the score) as JSON.")]
 
 REMINDER = ("Fix the number of trials before listening and score every one of them: stopping "
-            "on a lucky run, or adding trials after a poor one, makes the p-value meaningless.")
+            "on a lucky run, or adding trials after a poor one, makes the chance figure "
+            "meaningless.")
 
 
 def _voicer(preset: Path, *, sample_rate: int, no_tubes: bool, motor_rate: float | None):
@@ -60,14 +61,18 @@ def _cell(x: float, fmt: str) -> str:
     return "-" if x is None or not math.isfinite(x) else format(x, fmt)
 
 
-def _score(key_path: Path, answers: str, json_out: bool) -> None:
-    from synth.reports.compare import parse_answers, read_key, score_answers
+def _score(key_path: Path, answers: str | None, answers_file: Path | None,
+           json_out: bool) -> None:
+    from synth.reports.compare import parse_answers, read_answers_file, read_key, score_answers
 
     key = read_key(key_path)
-    result = score_answers(key.x, parse_answers(answers))
+    given = (read_answers_file(answers_file, key) if answers_file is not None
+             else parse_answers(answers or ""))
+    result = score_answers(key.x, given)
+    chance = 100.0 * result.p_value
     if json_out:
         print_json({"key": str(key_path), "trials": result.trials, "correct": result.correct,
-                    "p_value_one_sided": result.p_value,
+                    "chance_by_guessing": result.p_value,
                     "test": "exact one-sided binomial against guessing (1/2 per trial)",
                     "per_trial": [{"trial": k, "x": x, "answer": a, "right": r}
                                   for k, (x, a, r) in enumerate(
@@ -79,18 +84,24 @@ def _score(key_path: Path, answers: str, json_out: bool) -> None:
             for k, (x, a, r) in enumerate(zip(result.key, result.answers, result.right,
                                               strict=True), start=1)]
     typer.echo(format_table(["trial", "X was", "answer", "right"], rows, align="rlll",
-                            title=f"ABX trials of {key_path}"))
+                            title=f"blind trials of {key_path}"))
     typer.echo("")
-    typer.echo(f"{result.correct} of {result.trials} correct "
-               f"({100.0 * result.correct / result.trials:.0f}%); one-sided binomial "
-               f"p = {result.p_value:.5f} against guessing (1/2 per trial)")
+    typer.echo(f"trials answered correctly: {result.correct} of {result.trials}; chance of "
+               f"doing this well by guessing: {_percent(chance)}")
     if result.p_value <= 0.05:
-        typer.echo("that many right is unlikely by guessing alone (p <= 0.05): the listener "
-                   "told the designs apart")
+        typer.echo("guessing does this well at most 1 time in 20: the listener told the "
+                   "designs apart")
     else:
-        typer.echo("consistent with guessing (p > 0.05): no difference shown, which does not "
-                   "prove there is none")
+        typer.echo("guessing does this well more than 1 time in 20: no difference shown, which "
+                   "does not prove there is none")
     typer.echo(REMINDER)
+
+
+def _percent(x: float) -> str:
+    """Format a percentage with two significant figures (3.8 %, 0.011 %, 50 %)."""
+    if x >= 10.0:
+        return f"{x:.0f} %"
+    return f"{float(f'{x:.2g}'):g} %"
 
 
 @app.command("compare")
@@ -119,8 +130,9 @@ def compare_command(
         help="Folder for the files (default renders/compare-<A>-vs-<B>/).")] = None,
     blind: Annotated[int | None, typer.Option(
         min=1, max=MAX_TRIALS,
-        help="Also write this many ABX trials (A, gap, B, gap, X) in random order and their "
-             "answer key, key.toml. Fix the number before listening.", show_default=False)
+        help="Also write this many blind trials blind-NN.wav (A, gap, B, gap, then X: A or B "
+             "at random; the ABX method) and their answer key, blind-key.toml. Fix the number "
+             "before listening.", show_default=False)
     ] = None,
     seed: Annotated[int | None, typer.Option(
         min=0, max=2**32 - 1,
@@ -128,32 +140,55 @@ def compare_command(
         show_default=False)] = None,
     mallet: MalletOpt = None,
     no_tubes: TubesOpt = False,
+    bare_b: Annotated[bool, typer.Option(
+        "--bare-b", help="Render design B without its tubes (A keeps them): with the same "
+                         "preset twice and --match gain, hear what the tubes add.")] = False,
     motor_rate: MotorOpt = None,
+    match: Annotated[str, typer.Option(
+        metavar="loudness|gain",
+        help="loudness: B gets the gain that brings it to A's loudness (BS.1770-4); gain: "
+             "both get one gain, so a louder design stays louder.")] = "loudness",
+    band_range: Annotated[float, typer.Option(
+        min=3.0, max=120.0, metavar="dB",
+        help="Give spectral differences only in octave bands within this many dB of the "
+             "loudest band (quieter bands are masked by it).")] = 30.0,
     sample_rate: RateOpt = 48000,
     fmt: FormatOpt = "pcm24",
     force: ForceOpt = False,
     json_out: JsonOpt = False,
+    page: Annotated[bool, typer.Option(
+        "--page", help="Also write listen.html: players, the differences in plain words, the "
+                       "plot and (with --blind) a form per trial whose answers the listener "
+                       "saves to a file. Opens from disk with the WAVs beside it.")] = False,
     score: Annotated[Path | None, typer.Option(
-        help="Score a listener: the key.toml of a blind run (with --answers).",
-        show_default=False)] = None,
+        help="Score a listener: the blind-key.toml of a blind run (with --answers or "
+             "--answers-file).", show_default=False)] = None,
     answers: Annotated[str | None, typer.Option(
         help='The listener\'s answers with --score, one A or B per trial in order, e.g. '
              '"A,B,B,A".', show_default=False)] = None,
+    answers_file: Annotated[Path | None, typer.Option(
+        help="The answers file saved by the listening page, with --score.",
+        show_default=False)] = None,
 ) -> None:
     """Hear two designs side by side: the same passage, level-matched, and blind ABX trials.
 
     Writes A.wav, B.wav and AB.wav (A, gap, B, gap, A, gap, B) at equal BS.1770-4
-    loudness, both under -1 dBTP, and prints the differences per note and over
-    time. With --score KEY --answers "..." it scores a listener instead.
+    loudness (or one gain, --match gain), both under -1 dBTP, and prints the
+    differences per note and over time; --page adds a listening page. With
+    --score KEY --answers "..." (or --answers-file FILE) it scores a listener.
     """
-    if score is not None or answers is not None:
-        if score is None or answers is None:
-            raise ConfigError("scoring needs both --score KEY and --answers \"A,B,...\"",
-                              source="--score" if score is None else "--answers")
+    if score is not None or answers is not None or answers_file is not None:
+        if answers is not None and answers_file is not None:
+            raise ConfigError("give --answers or --answers-file, not both",
+                              source="--answers-file")
+        if score is None or (answers is None and answers_file is None):
+            raise ConfigError("scoring needs --score KEY and --answers \"A,B,...\" (or "
+                              "--answers-file FILE)", source="--score" if score is None else
+                              "--answers")
         if design_a is not None or design_b is not None:
             raise ConfigError("--score takes no design presets; give only --score KEY "
                               "--answers \"...\"", source="--score")
-        _score(score, answers, json_out)
+        _score(score, answers, answers_file, json_out)
         return
     if design_a is None or design_b is None:
         raise ConfigError("give two design presets, A and B (or --score KEY --answers "
@@ -176,10 +211,14 @@ def compare_command(
         raise ConfigError(f"= {fmt!r}: must be one of " + ", ".join(io.SAMPLE_FORMATS),
                           source="--format")
     sequence = parse_chord(notes, "--notes") if notes is not None else None  # before reading files
-    same = design_a.resolve() == design_b.resolve()
+    if match not in cmp.MATCH_MODES:
+        raise ConfigError(f"= {match!r}: must be one of " + ", ".join(cmp.MATCH_MODES),
+                          source="--match")
+    cmp.check_band_range(band_range)
+    same = design_a.resolve() == design_b.resolve() and not bare_b
     va = _voicer(design_a, sample_rate=sample_rate, no_tubes=no_tubes, motor_rate=motor_rate)
-    vb = va if same else _voicer(design_b, sample_rate=sample_rate, no_tubes=no_tubes,
-                                 motor_rate=motor_rate)
+    vb = va if same else _voicer(design_b, sample_rate=sample_rate,
+                                 no_tubes=no_tubes or bare_b, motor_rate=motor_rate)
     if same:
         warn(f"A and B are the same file ({design_a}): the two renders are identical, so any "
              "difference heard is imagined and a blind test can only score by chance")
@@ -194,9 +233,9 @@ def compare_command(
     gap_samples = cmp.gap_samples(gap, sample_rate)  # checks the range before any work
 
     directory = out or Path("renders") / f"compare-{design_a.stem}-vs-{design_b.stem}"
-    planned = cmp.planned_files(directory, blind)
+    planned = cmp.planned_files(directory, blind, page=page)
     plan_outputs(planned, force=force)
-    stale = sorted(p.name for p in directory.glob("trial-*.wav") if p not in set(planned))
+    stale = sorted(p.name for p in directory.glob("blind-*.wav") if p not in set(planned))
     if stale:
         warn(f"{directory} also holds {len(stale)} trial file(s) of an earlier run "
              f"({stale[0]}...); they are not part of this key")
@@ -208,34 +247,44 @@ def compare_command(
             step(done - last[0])
             last[0] = done
 
-        comp = cmp.compare_designs(va, vb, passage, mallet=mallet, progress=progress)
+        comp = cmp.compare_designs(va, vb, passage, mallet=mallet, match=match,
+                                   band_range_db=band_range, progress=progress)
 
     names = (va.instrument.name, vb.instrument.name)
     files = (str(design_a), str(design_b))
     settings = {"command": "compare", "design_a": files[0], "design_b": files[1],
-                "name_a": names[0], "name_b": names[1], "tubes": va.tubes_active,
-                "motor_rate_rev_per_s": va.motor.rate_rev_per_s, "mallet": mallet,
-                "sample_rate_hz": sample_rate, "channels": 2,
+                "name_a": names[0], "name_b": names[1], "sample_rate_hz": sample_rate,
+                "channels": 2,
                 "events": None if events is None else str(events), "notes": notes}
     written = cmp.write_listening_files(comp, directory, gap_s=gap, sample_format=fmt,
                                         force=force, settings=settings)
     record = cmp.comparison_record(comp, names=names, files=files)
-    png = io.write_bytes(directory / "differences.png", cmp.comparison_png(comp, names=names),
-                         force=force)
+    png_bytes = cmp.comparison_png(comp, names=names)
+    png = io.write_bytes(directory / "differences.png", png_bytes, force=force)
     report = io.write_bytes(directory / "differences.json",
                             cmp.record_json(record).encode("utf-8"), force=force)
-    trials, key_path = [], None
+    trials, key_path, page_path = [], None, None
+    run_id = secrets.token_hex(6)  # names this run's answers; says nothing about the key
     if blind is not None:
         seed_used = seed if seed is not None else secrets.randbelow(2**31)
         trials, key_path = cmp.write_blind_trials(comp, directory, blind, seed=seed_used,
-                                                  gap_s=gap, designs=files,
+                                                  gap_s=gap, designs=files, run=run_id,
                                                   sample_format=fmt, force=force,
                                                   settings=settings)
+    if page:
+        from synth.reports.page import listening_page
+
+        text = listening_page(comp, names=names, png=png_bytes,
+                              trials=[p.name for p in trials], run=run_id,
+                              gap_s=gap_samples / sample_rate)
+        page_path = io.write_bytes(directory / cmp.PAGE_FILE, text.encode("utf-8"),
+                                   force=force)
     commit_outputs()
     if json_out:
         print_json({**record, "out_dir": str(directory),
                     "files": [str(p) for p in written] + [str(png), str(report)],
                     "gap_s": gap_samples / sample_rate,
+                    "page": None if page_path is None else str(page_path),
                     "blind": None if blind is None else {
                         "trials": blind, "files": [str(p) for p in trials],
                         "key": str(key_path)}})
@@ -248,28 +297,46 @@ def compare_command(
         if blind is not None:
             typer.echo(f"blind: {blind} trials {trials[0].name}..{trials[-1].name} (A, gap, B, "
                        f"gap, X) and their answer key {key_path.name}")
+        if page_path is not None:
+            typer.echo(f"listening page: {page_path} (open it in a browser; keep it with the "
+                       "WAVs)")
     if blind is not None:
-        info(f"Give the listener only the trial files; keep {key_path} out of sight. Score "
-             f"with: barwright compare --score {key_path} --answers \"A,B,...\"")
+        info(f"Give the listener only the trial files{' and the page' if page else ''}; keep "
+             f"{key_path} out of sight. Score with: barwright compare --score {key_path} "
+             + ("--answers-file FILE (the file the page saves)" if page
+                else "--answers \"A,B,...\""))
     for w in comp.warnings:
         warn(w)
     info(HEARING_CAUTION)
 
 
+def _design_rows(comp, names, files) -> list[list[str]]:
+    rows = []
+    for d, nm, f, st in zip(("A", "B"), names, files, comp.designs, strict=True):
+        rate = st.get("motor_rate_rev_per_s", 0.0)
+        rows.append([d, f"{nm} ({f})", "on" if st.get("tubes") else "off",
+                     f"{rate:g} rev/s" if rate > 0 else "stopped", str(st.get("mallet", "-")),
+                     _cell(st.get("output_gain_db_re_1_per_pa", math.nan), "+.2f")])
+    return rows
+
+
 def _print_report(comp, names, files) -> None:
     lv = comp.levels
-    typer.echo(f"A: {files[0]} ({names[0]})")
-    typer.echo(f"B: {files[1]} ({names[1]})")
+    typer.echo(format_table(["", "design", "tubes", "motor", "mallet", "gain dB re 1/Pa"],
+                            _design_rows(comp, names, files), align="llllll",
+                            title="what each design was rendered with"))
     typer.echo(f"passage: {comp.passage.label}")
     typer.echo(f"render length {comp.length_s:.2f} s per design at {comp.sample_rate} Hz, "
                "stereo, onsets aligned (integrated loudness of ringing notes depends on the "
                "length)")
     typer.echo("")
+    after = ("as written (B matched to A)" if comp.match == "loudness"
+             else "as written (one gain on both)")
     rows = [
         ["before matching (one gain on both)", _cell(lv.loudness_before_lufs[0], ".2f"),
          _cell(lv.loudness_before_lufs[1], ".2f"), _cell(lv.loudness_difference_before_lu, "+.2f"),
          _cell(lv.true_peak_before_dbtp[0], ".2f"), _cell(lv.true_peak_before_dbtp[1], ".2f")],
-        ["as written (B matched to A)", _cell(lv.loudness_after_lufs[0], ".2f"),
+        [after, _cell(lv.loudness_after_lufs[0], ".2f"),
          _cell(lv.loudness_after_lufs[1], ".2f"), _cell(lv.loudness_difference_after_lu, "+.2f"),
          _cell(lv.true_peak_after_dbtp[0], ".2f"), _cell(lv.true_peak_after_dbtp[1], ".2f")],
     ]
@@ -286,11 +353,20 @@ def _print_report(comp, names, files) -> None:
     typer.echo(format_table(
         ["note", "f1 A Hz", "f1 B Hz", "f1 B-A c", "p2 B-A c", "p3 B-A c", "T60 A s", "T60 B s",
          "T60 B/A"], rows,
-        title="per note (from the models; f1 and its T60 are the bar-tube pair's bar-like mode)"
+        title="per note (from the models, each with its own tubes and motor; f1 and its T60 "
+              "are the bar-tube pair's bar-like mode where tubed)"
         if tubed else "per note (from the models; bare bars)"))
     typer.echo("")
-    rows = [[f"{w.window_s[0]:g}-{w.window_s[1]:g}"] + [_cell(x, "+.1f") for x in w.difference_db]
-            for w in comp.balance]
-    typer.echo(format_table(["window s"] + [lab for lab, _, _, _ in comp.bands], rows,
-                            title="spectral balance after matching: octave-band level B - A, dB "
-                                  "(windows from the start of the render)"))
+    rows = []
+    for w in comp.balance:
+        span = f"{w.window_s[0]:g}-{w.window_s[1]:g}"
+        rows.append([span, "A dBFS"] + [_cell(x, ".0f") for x in w.level_a_db])
+        rows.append(["", "B dBFS"] + [_cell(x, ".0f") for x in w.level_b_db])
+        rows.append(["", "B-A dB"] + [_cell(x, "+.1f") for x in w.difference_db])
+    range_db = comp.balance[0].range_db if comp.balance else 30.0
+    typer.echo(format_table(["window s", ""] + [lab for lab, _, _, _ in comp.bands], rows,
+                            title="spectral balance as written: octave-band level, dB re full "
+                                  "scale, and B - A (windows from the start of the render)"))
+    typer.echo(f"B - A is given only in bands within {range_db:g} dB of the window's loudest "
+               "band (--band-range); about 1 dB is the smallest level change most listeners "
+               "notice")

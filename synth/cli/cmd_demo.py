@@ -1,6 +1,6 @@
 """``barwright demo``: the whole job on the bundled demo instrument.
 
-The demo instrument (presets/instruments/tarrow-37.toml) is invented: a
+The demo instrument (presets/instruments/lantern-street-bars.toml) is invented: a
 three-octave F3-F6 instrument of 6061-T6 bars built by an invented shop for an
 invented client.  The demo writes only into its output folder (default
 ``renders/demo/``) and replaces the files it wrote there on an earlier run.
@@ -29,7 +29,7 @@ from synth.cli.common import (
 )
 from synth.config import presets_dir
 
-DEMO_PRESET = "tarrow-37.toml"
+DEMO_PRESET = "lantern-street-bars.toml"
 
 DEMO_WAVS = ("strike-A4.wav", "strike-A4-bare.wav", "strike-F3-motor.wav", "strike-C5-hard.wav",
              "chord-F3-A4-C5-E6.wav", "harbour-waltz.wav")
@@ -49,7 +49,8 @@ def demo_outputs(out: Path) -> list[tuple[Path, str]]:
         files += [(out / name, "WAV"), (io.sidecar_path(out / name), "settings sidecar")]
     files += [(out / "sustain.csv", "table"), (out / "sustain.png", "plot"),
               (out / "chord-decay.png", "plot")]
-    files += [(p, "comparison file") for p in planned_files(out / "compare", DEMO_TRIALS)]
+    files += [(p, "comparison file") for p in planned_files(out / "compare", DEMO_TRIALS,
+                                                            page=True)]
     files += [(out / "prototype-A4.wav", "recording"),
               (out / "calibration-A4.toml", "calibration file")]
     return files
@@ -200,10 +201,10 @@ def demo_command(
     # 6. For the client: the same passage in another alloy, loudness-matched, blind trials
     from synth.cli.cmd_compare import compare_command
 
-    option = presets_dir() / "instruments" / "tarrow-37-7075.toml"
+    option = presets_dir() / "instruments" / "lantern-street-bars-7075.toml"
     typer.echo("6. for the client: 6061-T6 (A) against 7075-T6 (B), loudness-matched")
     compare_command(design_a=path, design_b=option, out=out / "compare", blind=DEMO_TRIALS,
-                    seed=37, force=True)
+                    seed=37, force=True, page=True)
     typer.echo("")
 
     # 7. Back from the shop: measure a prototype bar and pull the loss model onto it

@@ -29,10 +29,18 @@ MAX_T60_S = 600.0
 def sustain_command(
     preset: Annotated[Path, typer.Argument(help="Instrument preset with solved [bars].",
                                            show_default=False)],
+    target: Annotated[str, typer.Option(
+        metavar="trend|even",
+        help="trend: T60 falling smoothly with pitch, fitted to the range's own notes (a "
+             "polynomial in log T60 over note number), flagging notes that break from their "
+             "neighbours; even: the median T60 for every note, so chords fade evenly.")
+    ] = "trend",
+    trend_order: Annotated[int, typer.Option(
+        min=0, max=3, help="Order of the trend fit (0 is the same as even, about the "
+                           "geometric mean).")] = 2,
     target_t60: Annotated[float | None, typer.Option(
         min=0.01, max=MAX_T60_S, metavar="seconds",
-        help="One T60 target for every note, s (default: the median of the range, "
-             "which keeps chords fading evenly).")] = None,
+        help="One T60 target for every note, s (overrides --target).")] = None,
     target_curve: Annotated[str | None, typer.Option(
         help='T60 targets through given notes, e.g. "F3:40,C5:20,F6:8" (log-interpolated).')
     ] = None,
@@ -48,6 +56,13 @@ def sustain_command(
         min=0.0, max=30.0, metavar="dB",
         help="Keep the tube's gain above this (dB over the bare bar) when suggesting a "
              "tube offset.")] = 3.0,
+    max_offset_cents: Annotated[float, typer.Option(
+        min=1.0, max=1200.0, metavar="cents",
+        help="Largest tube offset above its bar a suggestion may ask for.")] = 100.0,
+    out_preset: Annotated[Path | None, typer.Option(
+        help="Write a copy of the preset with the suggested tube lengths cut in "
+             "([bars.NOTE] tube = {length_m}), ready for render or sustain.",
+        show_default=False)] = None,
     no_tubes: Annotated[bool, typer.Option("--no-tubes", help="Bare bars.")] = False,
     motor_rate: Annotated[float | None, typer.Option(
         min=0.0, max=50.0, metavar="rev/s",
@@ -63,20 +78,27 @@ def sustain_command(
     """Sustain across the range: T60 per note and partial, mismatch against the target.
 
     Q and T60 come from the loss budget (tube and discs included); the
-    fundamental's T60 is also measured on a rendered strike. Flagged notes get a
-    tube offset that would bring them inside the target.
+    fundamental's T60 is also measured on the model's own render of a strike.
+    By default the target follows the range's own trend. Flagged tubed notes get
+    a tube offset solved with the same voice (motor included) and checked by
+    re-solving before it is printed; --out-preset writes those tube lengths.
     """
     from synth import io
     from synth.errors import ConfigError
     from synth.physics.instrument import load_instrument
     from synth.reports.sustain import (
+        TARGETS,
         parse_target_curve,
+        preset_with_tubes,
         sustain_csv,
         sustain_png,
         sustain_report,
     )
     from synth.voicing import Voicer
 
+    if target not in TARGETS:
+        raise ConfigError(f"= {target!r}: must be one of " + ", ".join(TARGETS),
+                          source="--target")
     if target_t60 is not None and target_curve is not None:
         raise ConfigError("give --target-t60 or --target-curve, not both", source="--target-curve")
     if target_curve is not None:
@@ -85,23 +107,40 @@ def sustain_command(
     notes = [inst.check_note(n) for n in note] if note else list(inst.notes)
     folder = out or default_output(preset, "")
     csv_path, png_path = folder / "sustain.csv", folder / "sustain.png"
-    plan_outputs([(csv_path, "table"), (png_path, "plot")], force=force)
+    planned = [(csv_path, "table"), (png_path, "plot")]
+    if out_preset is not None:
+        planned.append((out_preset, "preset"))
+    plan_outputs(planned, force=force)
     v = Voicer(inst, sample_rate=48000.0, tubes=not no_tubes, motor_rate_rev_per_s=motor_rate,
                channels=1)
     curve = parse_target_curve(target_curve, notes) if target_curve else None
     with Progress(len(notes), "sustain") as step:
         rep = sustain_report(v, notes, target_t60_s=target_t60, target_curve=curve,
+                             target=target, trend_order=trend_order,
                              tolerance_percent=tolerance, at_time_s=at_time,
-                             min_gain_db=min_gain, progress=lambda n: step(1, n))
+                             min_gain_db=min_gain, max_offset_cents=max_offset_cents,
+                             progress=lambda n: step(1, n))
+    lengths = {r.note: r.suggested_length_m for r in rep.rows
+               if r.suggested_length_m is not None}
+    preset_data = preset_with_tubes(inst, lengths) if out_preset is not None else None
     io.write_bytes(csv_path, sustain_csv(rep).encode("utf-8"), force=force)
-    io.write_bytes(png_path, sustain_png(rep, f"{inst.name}: sustain of the fundamental"),
-                   force=force)
+    io.write_bytes(png_path, sustain_png(rep, f"{inst.name}: sustain"), force=force)
+    if preset_data is not None:
+        import tomli_w
+
+        head = (f"# {preset.name} with the tube lengths `barwright sustain` suggested for "
+                f"{', '.join(lengths) or 'no note'}\n# (target: {rep.target_label}; tolerance "
+                f"+-{tolerance:g} %).\n")
+        io.write_bytes(out_preset, (head + tomli_w.dumps(preset_data)).encode("utf-8"),
+                       force=force)
     commit_outputs()
     if json_out:
         print_json({
             "target": rep.target_label, "tolerance_percent": rep.tolerance_percent,
             "tubes": rep.tubes, "motor_rate_rev_per_s": rep.motor_rate_rev_per_s,
             "csv": str(csv_path), "png": str(png_path),
+            "max_offset_cents": rep.max_offset_cents,
+            "preset": None if out_preset is None else str(out_preset),
             "notes": [{"note": r.note, "frequency_hz": r.frequency_hz, "cents": r.cents,
                        "q": list(r.q), "t60_s": r.t60_s[0], "t60_partials_s": list(r.t60_s),
                        "t60_rendered_s": r.t60_rendered_s, "target_t60_s": r.target_t60_s,
@@ -109,6 +148,8 @@ def sustain_command(
                        "level_difference_db": r.level_difference_db, "flagged": r.flagged,
                        "suggestion": r.suggestion,
                        "suggested_offset_cents": r.suggested_offset_cents,
+                       "suggested_tube_length_m": r.suggested_length_m,
+                       "suggested_t60_s": r.suggested_t60_s,
                        "warnings": list(r.warnings)} for r in rep.rows]})
         return
     rows = [[r.note, f"{r.frequency_hz:.2f}", f"{r.cents + 0.0:+.2f}",
@@ -123,7 +164,9 @@ def sustain_command(
     typer.echo(f"target: {rep.target_label}; {n_out} of {len(rep.rows)} notes outside "
                f"+-{tolerance:g} %; tubes {'on' if rep.tubes else 'off'}, motor "
                f"{rep.motor_rate_rev_per_s:g} rev/s")
-    typer.echo(f"wrote {csv_path} and {png_path}")
+    typer.echo(f"wrote {csv_path} and {png_path}"
+               + (f"; preset with {len(lengths)} suggested tube length(s): {out_preset}"
+                  if out_preset is not None else ""))
 
 
 def check_target_curve(text: str) -> None:
@@ -180,7 +223,8 @@ class ChordDecayCheck:
         """
         res, png = self.result, self.png
         if json_out:
-            print_json({"render": render, "spread_db_per_s": res.spread_db_per_s, "times_s": list(res.times_s),
+            print_json({"render": render, "spread_db_per_s": res.spread_db_per_s,
+                        "times_s": list(res.times_s),
                         "png": str(png),
                         "notes": [{"note": n.note, "frequency_hz": n.frequency_hz,
                                    "decay_db_per_s": n.decay_db_per_s, "t60_s": n.t60_s,

@@ -124,11 +124,21 @@ OCTAVE_CENTRES_HZ: Final[tuple[float, ...]] = tuple(1000.0 * OCTAVE_RATIO ** k
                                                     for k in range(-4, 5))
 """Exact mid-band frequencies ``1000 G^k`` Hz, k = -4..4 (IEC 61260-1:2014)."""
 
-BAND_RANGE_DB: Final[float] = 60.0
-"""A band more than this far below the loudest band of its window in both
-designs gets no difference (window leakage and rounding dominate there; the
-Hann window's side lobes fall to about -60 dB within a few octaves, Harris
-1978)."""
+BAND_RANGE_DB: Final[float] = 30.0
+"""Default: a band more than this far below the loudest band of its window in
+both designs gets no difference.  So far down a band adds nothing a listener
+weighs against the main band (a difference there is masked by the loud band and
+only seen when the sound is played much louder) [common practice, no source];
+``compare --band-range`` sets it."""
+
+JND_LEVEL_DB: Final[float] = 1.0
+"""Reference step drawn on the balance plot: about the smallest change in level
+of a broadband sound a listener notices, dB [common practice, no source; the
+figure of about 1 dB from memory]."""
+
+MATCH_MODES: Final[tuple[str, str]] = ("loudness", "gain")
+"""How B is levelled: to A's loudness, or one common gain for both (so a louder
+design stays louder, e.g. tubes against none)."""
 
 LOUDNESS_TOLERANCE_LU: Final[float] = 0.1
 """Residual loudness difference after matching above which a warning is given,
@@ -303,8 +313,9 @@ class NoteDifference:
     partial_cents : (float, float)
         Partials 2 and 3, B relative to A, cents.
     t60_s : (float, float)
-        T60 of the sounding fundamental of A and B from the loss budget
-        (coupled pair when tubed), s.
+        T60 of the sounding fundamental of A and B as each is rendered: the
+        loss budget, the coupled pair when tubed, and the steady decay under
+        the discs when that design's motor runs, s.
     coupled : (bool, bool)
         Whether each fundamental is a bar-tube pair.
     """
@@ -324,12 +335,9 @@ class NoteDifference:
 
 
 def _fundamental(voicer: Voicer, note: str) -> tuple[float, float, bool]:
-    model = voicer.model(note)
-    if model.coupling is not None:
-        m = model.coupling.pair.modes()
-        return float(m.frequency_hz[0]), float(m.t60_s[0]), True
-    f = model.fundamental
-    return float(f.frequency_hz), float(f.t60_s), False
+    # The voice as rendered: with the discs turning, the steady decay under them.
+    freq, _, t60 = voicer.fundamental(note)
+    return float(freq), float(t60), voicer.model(note).coupling is not None
 
 
 def _vertical_hz(voicer: Voicer, note: str, order: int) -> float:
@@ -402,8 +410,13 @@ def _db(x: float) -> float:
 
 
 def match_levels(a: np.ndarray, b: np.ndarray, sample_rate: float, *,
-                 ceiling_dbtp: float = CEILING_DBTP) -> tuple[np.ndarray, np.ndarray, LevelPlan]:
+                 ceiling_dbtp: float = CEILING_DBTP,
+                 match: str = "loudness") -> tuple[np.ndarray, np.ndarray, LevelPlan]:
     """Level two renders of one passage: equal BS.1770-4 loudness, peaks under the ceiling.
+
+    With ``match="gain"`` step 2 is left out: both keep one common gain, so
+    the louder design stays louder by its own loudness difference (a tube
+    against none, say).
 
     Parameters
     ----------
@@ -414,6 +427,8 @@ def match_levels(a: np.ndarray, b: np.ndarray, sample_rate: float, *,
         Hz.
     ceiling_dbtp : float
         Highest true peak of either output, dBTP (< 0).
+    match : {"loudness", "gain"}
+        Match B to A's loudness, or give both one gain.
 
     Returns
     -------
@@ -443,6 +458,9 @@ def match_levels(a: np.ndarray, b: np.ndarray, sample_rate: float, *,
     if a.shape != b.shape:
         raise AudioError(f"renders of A and B differ in shape ({a.shape} vs {b.shape}); a "
                          "comparison needs equal lengths and channels")
+    if match not in MATCH_MODES:
+        raise ConfigError(f"= {match!r}: must be one of " + ", ".join(MATCH_MODES),
+                          source="--match")
     if not ceiling_dbtp < 0:
         raise ConfigError(f"= {ceiling_dbtp}: the ceiling must be below 0 dBTP",
                           source="ceiling_dbtp")
@@ -460,10 +478,10 @@ def match_levels(a: np.ndarray, b: np.ndarray, sample_rate: float, *,
     # Step 2: B to A's loudness.
     m = match_loudness(a1, b1, sample_rate)
     warnings = [w for w in m.warnings if "dBTP" not in w]  # the ceiling is handled in step 3
-    gain_b = m.gain_db
+    gain_b = m.gain_db if match == "loudness" else 0.0
     tp_a1 = tp_a0 + common_db
     tp_b1 = tp_b0 + common_db
-    tp_b_matched = m.matched_true_peak_dbtp
+    tp_b_matched = m.matched_true_peak_dbtp if match == "loudness" else tp_b1
     # Step 3: both together, louder matched true peak at the ceiling.
     final_db = ceiling_dbtp - max(tp_a1, tp_b_matched)
     g_a = 10.0 ** (final_db / 20.0)
@@ -474,7 +492,7 @@ def match_levels(a: np.ndarray, b: np.ndarray, sample_rate: float, *,
     lb = integrated_loudness(b_out, sample_rate).integrated_lufs
     tp_a = true_peak(a_out, sample_rate).true_peak_dbtp
     tp_b = true_peak(b_out, sample_rate).true_peak_dbtp
-    if abs(lb - la) > LOUDNESS_TOLERANCE_LU:
+    if match == "loudness" and abs(lb - la) > LOUDNESS_TOLERANCE_LU:
         warnings.append(f"after matching A reads {la:.2f} LUFS and B {lb:.2f} LUFS: more than "
                         f"{LOUDNESS_TOLERANCE_LU} LU apart (gating moved); a preference test "
                         "would hear the level")
@@ -520,13 +538,16 @@ class BandBalance:
         rate are left out).
     difference_db : tuple of float
         B minus A per band, dB; NaN where both designs lie more than
-        :data:`BAND_RANGE_DB` below the window's loudest band.
+        ``range_db`` below the window's loudest band.
+    range_db : float
+        The range below the loudest band inside which differences are given.
     """
 
     window_s: tuple[float, float]
     level_a_db: tuple[float, ...]
     level_b_db: tuple[float, ...]
     difference_db: tuple[float, ...]
+    range_db: float = BAND_RANGE_DB
 
 
 def octave_bands(sample_rate: float) -> tuple[tuple[str, float, float, float], ...]:
@@ -601,8 +622,14 @@ def balance_windows(length_s: float) -> tuple[tuple[float, float], ...]:
 
 
 def spectral_balance(a: np.ndarray, b: np.ndarray, sample_rate: float,
-                     windows: Sequence[tuple[float, float]]) -> tuple[BandBalance, ...]:
-    """Octave-band levels of A and B and their difference in each window."""
+                     windows: Sequence[tuple[float, float]], *,
+                     range_db: float = BAND_RANGE_DB) -> tuple[BandBalance, ...]:
+    """Octave-band levels of A and B and their difference in each window.
+
+    A band gets a difference only where A or B lies within ``range_db`` of the
+    window's loudest band (of either design).
+    """
+    range_db = check_band_range(range_db)
     out = []
     for t0, t1 in windows:
         la = band_levels(a, sample_rate, t0, t1)
@@ -610,13 +637,21 @@ def spectral_balance(a: np.ndarray, b: np.ndarray, sample_rate: float,
         top = max(float(np.max(la)), float(np.max(lb)))
         diff = []
         for x, y in zip(la, lb, strict=True):
-            if max(x, y) < top - BAND_RANGE_DB or not (math.isfinite(x) and math.isfinite(y)):
+            if max(x, y) < top - range_db or not (math.isfinite(x) and math.isfinite(y)):
                 diff.append(math.nan)
             else:
                 diff.append(float(y - x))
         out.append(BandBalance((float(t0), float(t1)), tuple(map(float, la)),
-                               tuple(map(float, lb)), tuple(diff)))
+                               tuple(map(float, lb)), tuple(diff), range_db))
     return tuple(out)
+
+
+def check_band_range(range_db: float) -> float:
+    """Return ``range_db`` if it is a usable band range (3-120 dB), else ConfigError."""
+    if not (isinstance(range_db, int | float) and math.isfinite(range_db)
+            and 3.0 <= range_db <= 120.0):
+        raise ConfigError(f"= {range_db}: must be between 3 and 120 dB", source="--band-range")
+    return float(range_db)
 
 
 # --------------------------------------------------------------------------- the comparison
@@ -641,6 +676,11 @@ class Comparison:
     render_wall_s : float
         Wall time of planning, rendering and measuring, s.
     warnings : tuple of str
+    designs : (dict, dict)
+        What each design was rendered with (:func:`design_settings`), plus the
+        gain its render got (dB re 1 / Pa).
+    match : str
+        "loudness" (B matched to A) or "gain" (one gain for both).
     """
 
     a: np.ndarray
@@ -653,6 +693,8 @@ class Comparison:
     bands: tuple[tuple[str, float, float, float], ...]
     render_wall_s: float
     warnings: tuple[str, ...]
+    designs: tuple[dict[str, Any], dict[str, Any]] = ({}, {})
+    match: str = "loudness"
 
     @property
     def length_s(self) -> float:
@@ -676,9 +718,35 @@ def _check_notes(voicer: Voicer, score: Score, design: str) -> None:
                               f"({inst.source})", source=score.source or "passage") from None
 
 
+def design_settings(voicer: Voicer, mallet: str | None = None) -> dict[str, Any]:
+    """Return what one design renders with: its own tubes, motor, mallet and calibration.
+
+    Parameters
+    ----------
+    voicer : Voicer
+        The design as it is heard (tube and motor overrides applied).
+    mallet : str, optional
+        The mallet given for strikes that name none (default: the preset's).
+
+    Returns
+    -------
+    dict
+        ``name``, ``tubes`` (fitted and on), ``motor_rate_rev_per_s`` (0 =
+        stopped), ``motor_resting``, ``mallet``, ``calibration`` (factor per
+        loss mechanism).
+    """
+    cal = voicer.calibration
+    factors = getattr(cal, "factors", None)
+    return {"name": voicer.instrument.name, "tubes": voicer.tubes_active,
+            "motor_rate_rev_per_s": float(voicer.motor.rate_rev_per_s),
+            "motor_resting": voicer.motor.resting, "mallet": mallet or voicer.sound.mallet,
+            "calibration": dict(factors) if factors else {}}
+
+
 def compare_designs(voicer_a: Voicer, voicer_b: Voicer, passage: Passage, *,
                     mallet: str | None = None,
                     ceiling_dbtp: float = CEILING_DBTP,
+                    match: str = "loudness", band_range_db: float = BAND_RANGE_DB,
                     progress: Callable[[int, int], None] | None = None) -> Comparison:
     """Render ``passage`` with both designs, level-match them and list the differences.
 
@@ -695,6 +763,10 @@ def compare_designs(voicer_a: Voicer, voicer_b: Voicer, passage: Passage, *,
         ``[sound]`` mallet).
     ceiling_dbtp : float
         True-peak ceiling of the matched pair, dBTP.
+    match : {"loudness", "gain"}
+        Level B to A's loudness, or give both one gain (:func:`match_levels`).
+    band_range_db : float
+        Spectral differences only within this many dB of the loudest band.
     progress : callable, optional
         ``progress(done, total)`` over the five stages.
 
@@ -711,6 +783,7 @@ def compare_designs(voicer_a: Voicer, voicer_b: Voicer, passage: Passage, *,
         A silent render.
     """
     t0 = time.perf_counter()
+    check_band_range(band_range_db)
     fs = voicer_a.sample_rate
     if voicer_b.sample_rate != fs or voicer_b.channels != voicer_a.channels:
         raise ConfigError("designs A and B must render at one sample rate and channel count",
@@ -733,14 +806,18 @@ def compare_designs(voicer_a: Voicer, voicer_b: Voicer, passage: Passage, *,
         x = render(voices, n, sample_rate=fs, channels=voicer.channels)
         renders.append(fade_out(x, fs))
         step(len(renders) * 2)
-    a, b, plan = match_levels(renders[0], renders[1], fs, ceiling_dbtp=ceiling_dbtp)
+    a, b, plan = match_levels(renders[0], renders[1], fs, ceiling_dbtp=ceiling_dbtp,
+                              match=match)
     notes = tuple(note_difference(voicer_a, voicer_b, nt) for nt in passage.notes)
     windows = balance_windows(passage.length_s)
-    balance = spectral_balance(a, b, fs, windows)
+    balance = spectral_balance(a, b, fs, windows, range_db=band_range_db)
     step(5)
+    designs = tuple({**design_settings(v, mallet), "output_gain_db_re_1_per_pa": g}
+                    for v, g in zip((voicer_a, voicer_b), plan.output_gain_db, strict=True))
     return Comparison(a=a, b=b, sample_rate=int(fs), passage=passage, levels=plan, notes=notes,
                       balance=balance, bands=octave_bands(fs),
-                      render_wall_s=time.perf_counter() - t0, warnings=plan.warnings)
+                      render_wall_s=time.perf_counter() - t0, warnings=plan.warnings,
+                      designs=designs, match=match)
 
 
 def comparison_record(comp: Comparison, *, names: tuple[str, str],
@@ -748,8 +825,10 @@ def comparison_record(comp: Comparison, *, names: tuple[str, str],
     """Return the report as plain data (for JSON): passage, levels, notes, balance."""
     lv = comp.levels
     return {
-        "designs": {d: {"name": nm, "file": f}
-                    for d, nm, f in zip(DESIGNS, names, files, strict=True)},
+        "designs": {d: {**settings, "name": nm, "file": f}
+                    for d, nm, f, settings in zip(DESIGNS, names, files, comp.designs,
+                                                  strict=True)},
+        "levelling": comp.match,
         "passage": comp.passage.label,
         "render_length_s": comp.length_s,
         "render_length_note": ("integrated loudness of ringing notes depends on the render "
@@ -789,10 +868,11 @@ def comparison_record(comp: Comparison, *, names: tuple[str, str],
         "spectral_balance": {
             "bands_hz": [{"label": lab, "mid_hz": fm, "lower_hz": lo, "upper_hz": hi}
                          for lab, fm, lo, hi in comp.bands],
-            "note": ("octave-band mean-square level of the matched renders, channels summed, "
+            "note": ("octave-band mean-square level of the written renders, channels summed, "
                      "dB re full scale; windows in s from the start of the render; difference "
-                     f"left out where both lie more than {BAND_RANGE_DB:g} dB below the "
+                     f"left out where both lie more than {_band_range(comp):g} dB below the "
                      "window's loudest band"),
+            "range_db": _band_range(comp),
             "windows": [{"start_s": w.window_s[0], "end_s": w.window_s[1],
                          "level_a_db": list(w.level_a_db), "level_b_db": list(w.level_b_db),
                          "difference_db": list(w.difference_db)} for w in comp.balance],
@@ -800,6 +880,10 @@ def comparison_record(comp: Comparison, *, names: tuple[str, str],
         "warnings": list(comp.warnings),
         "render_wall_s": comp.render_wall_s,
     }
+
+
+def _band_range(comp: Comparison) -> float:
+    return comp.balance[0].range_db if comp.balance else BAND_RANGE_DB
 
 
 def _plain(obj: Any) -> Any:
@@ -858,9 +942,9 @@ def abx_key(n_trials: int, seed: int) -> tuple[str, ...]:
 
 
 def trial_name(k: int, n_trials: int) -> str:
-    """File name of trial ``k`` (1-based): ``trial-01.wav`` (three digits from 100 trials)."""
+    """File name of blind trial ``k`` (1-based): ``blind-01.wav`` (three digits from 100)."""
     width = max(2, len(str(n_trials)))
-    return f"trial-{k:0{width}d}.wav"
+    return f"blind-{k:0{width}d}.wav"
 
 
 LISTENING_FILES: Final[tuple[str, ...]] = ("A.wav", "B.wav", "AB.wav")
@@ -869,11 +953,15 @@ LISTENING_FILES: Final[tuple[str, ...]] = ("A.wav", "B.wav", "AB.wav")
 REPORT_FILES: Final[tuple[str, ...]] = ("differences.json", "differences.png")
 """The report of differences, written beside the listening files."""
 
-KEY_FILE: Final[str] = "key.toml"
+KEY_FILE: Final[str] = "blind-key.toml"
 """Answer key of the blind trials."""
 
+PAGE_FILE: Final[str] = "listen.html"
+"""The listening page (``compare --page``), beside the files it plays."""
 
-def planned_files(directory: str | Path, n_trials: int | None) -> list[Path]:
+
+def planned_files(directory: str | Path, n_trials: int | None, *,
+                  page: bool = False) -> list[Path]:
     """Every file a comparison with ``n_trials`` blind trials writes into ``directory``."""
     d = Path(directory)
     names = list(LISTENING_FILES)
@@ -884,6 +972,8 @@ def planned_files(directory: str | Path, n_trials: int | None) -> list[Path]:
     paths += [d / nm for nm in REPORT_FILES]
     if n_trials:
         paths.append(d / KEY_FILE)
+    if page:
+        paths.append(d / PAGE_FILE)
     return paths
 
 
@@ -903,12 +993,13 @@ def write_listening_files(comp: Comparison, directory: str | Path, *, gap_s: flo
     lv = comp.levels
     common = {"passage": comp.passage.label, "render_length_s": comp.length_s,
               "ceiling_dbtp": lv.ceiling_dbtp, "gain_b_db": lv.gain_b_db,
-              "loudness_standard": "ITU-R BS.1770-4"}
+              "levelling": comp.match, "loudness_standard": "ITU-R BS.1770-4"}
     out = []
     for i, (name, x) in enumerate((("A.wav", comp.a), ("B.wav", comp.b))):
         path = io.write_wav(d / name, x, sample_rate=comp.sample_rate,
                             sample_format=sample_format, force=force)
-        io.write_sidecar(path, {**base, **common, "file": name, "design": DESIGNS[i],
+        io.write_sidecar(path, {**base, **common, **comp.designs[i], "file": name,
+                                "design": DESIGNS[i],
                                 "loudness_lufs": lv.loudness_after_lufs[i],
                                 "true_peak_dbtp": lv.true_peak_after_dbtp[i],
                                 "output_gain_db_re_1_per_pa": lv.output_gain_db[i],
@@ -918,13 +1009,18 @@ def write_listening_files(comp: Comparison, directory: str | Path, *, gap_s: flo
     ab = alternate(comp.a, comp.b, gap)
     path = io.write_wav(d / "AB.wav", ab, sample_rate=comp.sample_rate,
                         sample_format=sample_format, force=force)
-    io.write_sidecar(path, {**base, **common, "file": "AB.wav",
+    io.write_sidecar(path, {**base, **common, "designs": design_table(comp), "file": "AB.wav",
                             "layout": "A, gap, B, gap, A, gap, B", "gap_s": gap / comp.sample_rate,
                             "part_samples": int(comp.a.shape[0]), "gap_samples": gap,
                             "sample_format": sample_format, "samples": int(ab.shape[0])},
                      force=force)
     out.append(path)
     return out
+
+
+def design_table(comp: Comparison) -> dict[str, dict[str, Any]]:
+    """Each design's render settings by its letter (for the shared files' sidecars)."""
+    return dict(zip(DESIGNS, comp.designs, strict=True))
 
 
 def gap_samples(gap_s: float, sample_rate: float) -> int:
@@ -945,6 +1041,7 @@ class BlindKey:
     files: tuple[str, ...]
     gap_s: float
     source: str = ""
+    run: str = ""
 
     @property
     def trials(self) -> int:
@@ -958,11 +1055,14 @@ def key_toml(key: BlindKey) -> str:
         return json.dumps(v)  # a JSON string is a valid TOML basic string
 
     lines = [
-        "# Answer key of an ABX listening test written by `barwright compare --blind`.",
-        "# Keep this file away from the listener until every answer is written down.",
-        "# Each trial plays A, gap, B, gap, X; x below says which design X is.",
-        "# Score with: barwright compare --score key.toml --answers \"A,B,...\"",
-        "# The number of trials was fixed before listening; score all of them.",
+        "# Answer key of the blind trials written by `barwright compare --blind`.",
+        "# Keep this file from the listener until every answer is in.",
+        "# Each trial file plays A, a pause, B, a pause, then the unknown X;",
+        "# x below says which design the unknown is in each trial.",
+        f"# Score: barwright compare --score {KEY_FILE} --answers \"A,B,...\"",
+        "#    or: barwright compare --score KEY --answers-file FILE (saved by the page)",
+        "# The number of trials was fixed before listening; score every one of them.",
+        f"run = {s(key.run)}",
         f"design_a = {s(key.design_a)}",
         f"design_b = {s(key.design_b)}",
         f"trials = {key.trials}",
@@ -978,7 +1078,7 @@ def read_key(path: str | Path) -> BlindKey:
     """Read and check a key file written by :func:`write_blind_trials`."""
     src = str(path)
     sec = Section(load_toml(path), src)
-    sec.check_keys({"design_a", "design_b", "trials", "seed", "gap_s", "files", "x"})
+    sec.check_keys({"run", "design_a", "design_b", "trials", "seed", "gap_s", "files", "x"})
     n = sec.integer("trials", ge=1)
     raw = sec.data.get("x")
     if not isinstance(raw, list) or not all(isinstance(v, str) for v in raw):
@@ -994,11 +1094,12 @@ def read_key(path: str | Path) -> BlindKey:
         raise sec.error("files", "must be a list of file names")
     return BlindKey(x=x, seed=sec.integer("seed", 0, ge=0), design_a=sec.string("design_a", ""),
                     design_b=sec.string("design_b", ""), files=tuple(files),
-                    gap_s=sec.number("gap_s", DEFAULT_GAP_S, gt=0.0), source=src)
+                    gap_s=sec.number("gap_s", DEFAULT_GAP_S, gt=0.0), source=src,
+                    run=sec.string("run", ""))
 
 
 def write_blind_trials(comp: Comparison, directory: str | Path, n_trials: int, *, seed: int,
-                       gap_s: float, designs: tuple[str, str],
+                       gap_s: float, designs: tuple[str, str], run: str = "",
                        sample_format: str = io.DEFAULT_SAMPLE_FORMAT, force: bool = False,
                        settings: Mapping[str, Any] | None = None) -> tuple[list[Path], Path]:
     """Write ``n_trials`` ABX trials and their key.
@@ -1022,7 +1123,8 @@ def write_blind_trials(comp: Comparison, directory: str | Path, n_trials: int, *
         sig = abx_trial(comp.a, comp.b, xk, gap)
         path = io.write_wav(d / name, sig, sample_rate=comp.sample_rate,
                             sample_format=sample_format, force=force)
-        io.write_sidecar(path, {**base, "file": name, "trial": k, "trials": n_trials,
+        io.write_sidecar(path, {**base, "designs": design_table(comp), "file": name,
+                                "trial": k, "trials": n_trials, "run": run,
                                 "layout": "A, gap, B, gap, X (X is A or B; see the key)",
                                 "gap_s": gap / comp.sample_rate,
                                 "part_samples": int(comp.a.shape[0]),
@@ -1030,7 +1132,7 @@ def write_blind_trials(comp: Comparison, directory: str | Path, n_trials: int, *
                          force=force)
         paths.append(path)
     key = BlindKey(x=x, seed=int(seed), design_a=designs[0], design_b=designs[1],
-                   files=tuple(p.name for p in paths), gap_s=gap / comp.sample_rate)
+                   files=tuple(p.name for p in paths), gap_s=gap / comp.sample_rate, run=run)
     key_path = io.write_bytes(d / KEY_FILE, key_toml(key).encode("utf-8"), force=force)
     return paths, key_path
 
@@ -1090,6 +1192,66 @@ def parse_answers(text: str) -> tuple[str, ...]:
     return out
 
 
+ANSWERS_FORMAT: Final[str] = "barwright blind answers"
+"""The ``format`` value of an answers file saved by the listening page."""
+
+MAX_ANSWERS_BYTES: Final[int] = 1 << 20
+"""Largest answers file read, bytes (one answer per trial needs far less)."""
+
+
+def read_answers_file(path: str | Path, key: BlindKey) -> tuple[str, ...]:
+    """Read the answers a listening page saved and check them against ``key``.
+
+    The file is JSON: ``{"format": "barwright blind answers", "version": 1,
+    "run": "...", "trials": n, "answers": ["A", "B", null, ...]}`` (null: not
+    answered).  Its ``run`` must be the key's (when the key has one), it must
+    hold one answer per trial, and every trial must be answered.
+
+    Raises
+    ------
+    ConfigError
+        Naming ``--answers-file``: unreadable, not such a file, another run's
+        answers, the wrong count, or unanswered trials.
+    """
+    src = str(path)
+    p = Path(path)
+    try:
+        if p.stat().st_size > MAX_ANSWERS_BYTES:
+            raise ConfigError(f"{src}: larger than {MAX_ANSWERS_BYTES} bytes; not an answers "
+                              "file", source="--answers-file")
+        data = json.loads(p.read_text(encoding="utf-8"))
+    except FileNotFoundError:
+        raise ConfigError(f"{src}: no such file", source="--answers-file") from None
+    except (OSError, UnicodeDecodeError, ValueError) as exc:
+        raise ConfigError(f"{src}: not a readable answers file ({exc})",
+                          source="--answers-file") from None
+    if not isinstance(data, dict) or data.get("format") != ANSWERS_FORMAT:
+        raise ConfigError(f"{src}: not an answers file saved by the listening page (no "
+                          f"\"format\": \"{ANSWERS_FORMAT}\")", source="--answers-file")
+    run = data.get("run")
+    if key.run and run != key.run:
+        raise ConfigError(f"{src}: answers of run {run!r}, but the key is of run {key.run!r}; "
+                          "give the key written with these trials", source="--answers-file")
+    raw = data.get("answers")
+    if not isinstance(raw, list):
+        raise ConfigError(f"{src}: \"answers\" must be a list", source="--answers-file")
+    if len(raw) != key.trials:
+        raise ConfigError(f"{src}: holds {len(raw)} answers; the key holds {key.trials} "
+                          "trials", source="--answers-file")
+    missing = [k for k, a in enumerate(raw, start=1) if a is None]
+    if missing:
+        raise ConfigError(f"{src}: trial {missing[0]} is not answered ({len(missing)} of "
+                          f"{key.trials} open); answer every trial before scoring",
+                          source="--answers-file")
+    out = []
+    for k, a in enumerate(raw, start=1):
+        if not isinstance(a, str) or a.strip().upper() not in DESIGNS:
+            raise ConfigError(f"{src}: answer {k} = {a!r}: each answer must be A or B",
+                              source="--answers-file")
+        out.append(a.strip().upper())
+    return tuple(out)
+
+
 def score_answers(key: Sequence[str], answers: Sequence[str]) -> BlindScore:
     """Count the right answers and the one-sided binomial p against guessing.
 
@@ -1115,36 +1277,68 @@ def score_answers(key: Sequence[str], answers: Sequence[str]) -> BlindScore:
 
 # --------------------------------------------------------------------------- figure
 def comparison_png(comp: Comparison, *, names: tuple[str, str]) -> bytes:
-    """Octave-band balance B - A per window (left) and fundamental T60 per note (right)."""
+    """Band levels (left), balance B - A with a 1 dB reference (middle), T60 per note (right).
+
+    The difference axis spans at least +-3 dB whatever the data, so a fraction
+    of a dB never fills the plot; the shaded band is +-:data:`JND_LEVEL_DB`.
+    """
     from synth.reports.plots import figure_png, pyplot
 
     plt = pyplot()
-    fig, (ax0, ax1) = plt.subplots(1, 2, figsize=(11, 4.2))
+    fig, (axl, ax0, ax1) = plt.subplots(1, 3, figsize=(14, 4.6))
     centres = [fm for _, fm, _, _ in comp.bands]
-    for w in comp.balance:
+    labels = [lab for lab, _, _, _ in comp.bands]
+    colours = plt.rcParams["axes.prop_cycle"].by_key()["color"]
+    for k, w in enumerate(comp.balance):
+        c = colours[k % len(colours)]
+        span = f"{w.window_s[0]:g}-{w.window_s[1]:g} s"
+        axl.semilogx(centres, w.level_a_db, marker="o", lw=1.2, color=c, label=f"A {span}")
+        axl.semilogx(centres, w.level_b_db, marker="s", lw=1.0, ls="--", color=c,
+                     label=f"B {span}")
+    axl.set_ylabel("octave-band level, dB re full scale")
+    axl.set_title("band levels as written (both designs)", fontsize=9, loc="left")
+    range_db = _band_range(comp)
+    diffs = [abs(v) for w in comp.balance for v in w.difference_db if math.isfinite(v)]
+    lim = max(3.0, (max(diffs) if diffs else 0.0) + 0.5)
+    ax0.axhspan(-JND_LEVEL_DB, JND_LEVEL_DB, color="0.88",
+                label=f"+-{JND_LEVEL_DB:g} dB: about the smallest change heard")
+    for k, w in enumerate(comp.balance):
         ax0.semilogx(centres, w.difference_db, marker="o", lw=1.3,
+                     color=colours[k % len(colours)],
                      label=f"{w.window_s[0]:g}-{w.window_s[1]:g} s")
     ax0.axhline(0.0, color="0.5", lw=0.8)
-    ax0.set_xticks(centres)
-    ax0.set_xticklabels([lab for lab, _, _, _ in comp.bands], fontsize=8)
-    ax0.minorticks_off()
-    ax0.set_xlabel("octave band, Hz")
-    ax0.set_ylabel("level B - A, dB (after loudness matching)")
-    ax0.set_title("spectral balance over time (above zero: B stronger)", fontsize=9, loc="left")
-    ax0.grid(alpha=0.3)
-    ax0.legend(fontsize=8, title="window from start", title_fontsize=8)
+    ax0.set_ylim(-lim, lim)
+    ax0.set_ylabel("level B - A, dB")
+    ax0.set_title(f"B - A, bands within {range_db:g} dB of the loudest (above zero: B "
+                  "stronger)", fontsize=9, loc="left")
+    for ax in (axl, ax0):
+        ax.set_xticks(centres)
+        ax.set_xticklabels(labels, fontsize=8)
+        ax.minorticks_off()
+        ax.set_xlabel("octave band, mid-band frequency in Hz")
+        ax.grid(alpha=0.3)
+    axl.legend(fontsize=7, ncol=2)
+    ax0.legend(fontsize=7, title="window from start", title_fontsize=7)
     xs = np.arange(len(comp.notes))
     ax1.semilogy(xs - 0.08, [d.t60_s[0] for d in comp.notes], "o", label=f"A: {names[0]}")
     ax1.semilogy(xs + 0.08, [d.t60_s[1] for d in comp.notes], "s", label=f"B: {names[1]}")
     ax1.set_xticks(xs)
     ax1.set_xticklabels([d.note for d in comp.notes], fontsize=8)
-    ax1.set_ylabel("T60 of the fundamental, s (loss budget)")
-    ax1.set_title("sustain per note", fontsize=9, loc="left")
+    ax1.set_xlabel("note")
+    ax1.set_ylabel("T60 of the fundamental, s (model; log scale)")
+    ax1.set_title("sustain per note, each with its own tubes and motor", fontsize=9, loc="left")
+    from matplotlib.ticker import FormatStrFormatter
+
+    ax1.yaxis.set_major_formatter(FormatStrFormatter("%g"))
+    ax1.yaxis.set_minor_formatter(FormatStrFormatter("%g"))
+    ax1.tick_params(axis="y", which="minor", labelsize=7)
     ax1.grid(alpha=0.3, which="both")
     ax1.legend(fontsize=8)
     lv = comp.levels
+    how = (f"B levelled by {lv.gain_b_db:+.2f} dB to A's loudness" if comp.match == "loudness"
+           else "one gain on both (loudness difference kept)")
     fig.suptitle(f"A vs B, {comp.passage.label}; {comp.length_s:.2f} s each; B "
-                 f"{lv.loudness_difference_before_lu:+.2f} LU before matching, gain "
-                 f"{lv.gain_b_db:+.2f} dB", fontsize=9)
+                 f"{lv.loudness_difference_before_lu:+.2f} LU before levelling; {how}",
+                 fontsize=9)
     fig.tight_layout()
     return figure_png(fig)

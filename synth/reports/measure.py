@@ -89,7 +89,7 @@ through ``calibration_file`` in its own ``[damping]`` table, a path relative to
 the preset; anything the preset's ``[damping]`` sets itself wins over the file::
 
     [damping]
-    calibration_file = "tarrow-37-calibration.toml"
+    calibration_file = "lantern-street-bars-calibration.toml"
 
 .. note:: ``factors.tube`` is applied by the loss budget (``barwright partials``
    shows it); the voice plan that renders strikes takes the tube's effect from

@@ -16,7 +16,7 @@ from synth.pitch import nearest_note
 
 
 def pyplot():
-    """matplotlib.pyplot on the Agg backend (no screen needed)."""
+    """Return matplotlib.pyplot on the Agg backend (no screen needed)."""
     import matplotlib
 
     matplotlib.use("Agg", force=True)
@@ -26,11 +26,35 @@ def pyplot():
 
 
 def figure_png(fig) -> bytes:
-    """The figure as PNG bytes; the figure is closed."""
+    """Return the figure as PNG bytes and close it."""
     buf = _bytes_io.BytesIO()
     fig.savefig(buf, format="png", dpi=130, bbox_inches="tight")
     pyplot().close(fig)
     return buf.getvalue()
+
+
+def exaggeration(ax) -> float:
+    """Return how many times the vertical scale of ``ax`` is stretched against the horizontal.
+
+    1 means true proportions; a bar drawn 10 times taller than it is reads 10.
+    Call after the layout is final (``tight_layout``), with both axes in one unit.
+    """
+    box = ax.get_window_extent()
+    x0, x1 = ax.get_xlim()
+    y0, y1 = ax.get_ylim()
+    if box.width <= 0 or x1 == x0 or y1 == y0:
+        return 1.0
+    return float((box.height / abs(y1 - y0)) / (box.width / abs(x1 - x0)))
+
+
+def note_exaggeration(ax, *, where: str = "upper right") -> None:
+    """Write "thickness drawn N x" in a corner of a profile drawn out of proportion."""
+    k = exaggeration(ax)
+    if k > 1.5:
+        x, ha = (0.995, "right") if where.endswith("right") else (0.005, "left")
+        ax.text(x, 0.97, f"thickness drawn {k:.0f} x the length scale", fontsize=7,
+                transform=ax.transAxes, ha=ha, va="top", color="0.2",
+                bbox={"fc": "white", "ec": "none", "alpha": 0.85, "pad": 1.5})
 
 
 def draw_profile(ax, geometry: BarGeometry, *, cord_holes_m=(), label: str | None = None,
@@ -61,7 +85,7 @@ def grind_map_png(gm: GrindMap, geometry: BarGeometry, *, title: str = "",
     fig, (ax0, ax1) = plt.subplots(2, 1, figsize=(8, 6), sharex=True,
                                    gridspec_kw={"height_ratios": [1, 2.2]})
     draw_profile(ax0, geometry, cord_holes_m=cord_holes_m)
-    ax0.set_ylabel("thickness mm")
+    ax0.set_ylabel("thickness, mm")
     ax0.set_title(title or "grind map", fontsize=10)
     for j, (kind, order) in enumerate(gm.modes):
         ax1.plot(gm.x_m * 1e3, gm.cents[:, j], marker=".", lw=1.4,
@@ -73,12 +97,14 @@ def grind_map_png(gm: GrindMap, geometry: BarGeometry, *, title: str = "",
                   fontsize=8, loc="left")
     ax1.legend(fontsize=8)
     ax1.grid(alpha=0.3)
+    fig.tight_layout()
+    note_exaggeration(ax0)
     return figure_png(fig)
 
 
 def profile_sheet_png(bars: list[tuple[str, BarGeometry, tuple[float, ...]]], *,
                       title: str = "", columns: int = 4) -> bytes:
-    """A sheet of bar side views (note, geometry, cord holes) drawn to one length scale."""
+    """Draw a sheet of bar side views (note, geometry, cord holes) to one length scale."""
     plt = pyplot()
     n = len(bars)
     rows = max(1, int(np.ceil(n / columns)))
@@ -92,12 +118,18 @@ def profile_sheet_png(bars: list[tuple[str, BarGeometry, tuple[float, ...]]], *,
                            f"{geo.thinnest_m() * 1e3:.2f} mm")
         ax.set_xlim(-2, longest + 2)
         ax.set_ylim(-1, thickest + 1)
-        ax.tick_params(labelsize=6)
+        ax.tick_params(labelsize=7)
     for ax in axes.ravel()[n:]:
         ax.axis("off")
-    if title:
-        fig.suptitle(title, fontsize=10)
-    fig.tight_layout()
+    for ax in axes[-1, :]:
+        ax.set_xlabel("length, mm", fontsize=7)
+    for ax in axes[:, 0]:
+        ax.set_ylabel("thickness, mm", fontsize=7)
+    fig.tight_layout(rect=(0, 0, 1, 0.97) if title else None)
+    k = exaggeration(axes[0, 0])
+    note = (f" (thickness drawn {k:.0f} x the length scale; open circles: cord holes)"
+            if k > 1.5 else " (open circles: cord holes)")
+    fig.suptitle((title or "bar profiles") + note, fontsize=10)
     return figure_png(fig)
 
 
@@ -121,7 +153,7 @@ def mode_shapes_png(result: BarModes, *, title: str = "", reference_hz: float = 
                              sharex=True, gridspec_kw={"height_ratios": heights})
     holes = result.vertical[0].nodes_m if result.vertical else ()
     draw_profile(axes[0], geometry, cord_holes_m=holes)
-    axes[0].set_ylabel("thickness mm")
+    axes[0].set_ylabel("thickness, mm")
     axes[0].set_title(title or "mode shapes", fontsize=10)
     x = np.unique(np.concatenate([np.linspace(0.0, geometry.length_m, 400),
                                   geometry.breakpoints()]))
@@ -150,5 +182,9 @@ def mode_shapes_png(result: BarModes, *, title: str = "", reference_hz: float = 
     if others:
         axes[2].set_title("torsion (twist, solid) and lateral bending (sideways, dashed)",
                           fontsize=8, loc="left")
-    axes[-1].set_xlabel("mm from left end")
+    for ax in axes[1:]:
+        ax.set_ylabel("deflection\n(peak 1)", fontsize=8)
+    axes[-1].set_xlabel("distance from the left end, mm")
+    fig.tight_layout()
+    note_exaggeration(axes[0])
     return figure_png(fig)

@@ -7,9 +7,9 @@ from typer.testing import CliRunner
 from synth.cli import app
 from synth.config import presets_dir
 
-DEMO = presets_dir() / "instruments" / "tarrow-37.toml"
+DEMO = presets_dir() / "instruments" / "lantern-street-bars.toml"
 """The demo instrument (invented scenario)."""
-DEMO_7075 = presets_dir() / "instruments" / "tarrow-37-7075.toml"
+DEMO_7075 = presets_dir() / "instruments" / "lantern-street-bars-7075.toml"
 BAR = presets_dir() / "bars" / "parabolic-example.toml"
 
 

@@ -15,8 +15,8 @@ from synth.cli import app
 from synth.config import presets_dir
 from synth.io import TEMP_MARK
 
-PRESET = presets_dir() / "instruments" / "tarrow-37.toml"
-OPTION = presets_dir() / "instruments" / "tarrow-37-7075.toml"
+PRESET = presets_dir() / "instruments" / "lantern-street-bars.toml"
+OPTION = presets_dir() / "instruments" / "lantern-street-bars-7075.toml"
 BAR = presets_dir() / "bars" / "parabolic-example.toml"
 
 EVENTS = """\
@@ -74,9 +74,9 @@ COMMANDS: dict[str, tuple] = {
                               "--out", d / "cal.toml"], ["cal.toml"]),
     "compare": (lambda d, i: ["compare", PRESET, OPTION, "--notes", "A4", "--tail", "0.5",
                               "--blind", "2", "--out", d],
-                ["A.wav", "A.json", "B.wav", "B.json", "AB.wav", "AB.json", "trial-01.wav",
-                 "trial-01.json", "trial-02.wav", "trial-02.json", "differences.json",
-                 "differences.png", "key.toml"]),
+                ["A.wav", "A.json", "B.wav", "B.json", "AB.wav", "AB.json", "blind-01.wav",
+                 "blind-01.json", "blind-02.wav", "blind-02.json", "differences.json",
+                 "differences.png", "blind-key.toml"]),
     "demo": (lambda d, i: ["demo", "--out", d], ["cutlist.csv", "profiles.png", "sustain.csv",
                                                   "strike-A4.wav", "calibration-A4.toml"]),
 }

@@ -14,7 +14,7 @@ from typer.testing import CliRunner
 from synth.cli import app
 from synth.config import presets_dir
 
-DEMO = presets_dir() / "instruments" / "tarrow-37.toml"
+DEMO = presets_dir() / "instruments" / "lantern-street-bars.toml"
 
 
 def run(*args):

@@ -144,7 +144,7 @@ def test_lateral_and_torsional_modes_settle_on_the_mesh_of_the_partials() -> Non
     from synth.physics.instrument import load_instrument
 
     worst = 0.0
-    for name in ("tarrow-37", "tarrow-37-7075"):
+    for name in ("lantern-street-bars", "lantern-street-bars-7075"):
         inst = load_instrument(presets_dir() / "instruments" / f"{name}.toml")
         for bar in inst.bars.values():
             auto = solve_bar(bar, inst.material, n_vertical=5, n_lateral=2, n_torsional=2)

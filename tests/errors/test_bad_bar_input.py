@@ -153,7 +153,7 @@ length_m = 0.45
 def test_tune_reports_unreachable_targets_and_exits_3() -> None:
     from synth.config import presets_dir
 
-    demo = presets_dir() / "instruments" / "tarrow-37.toml"
+    demo = presets_dir() / "instruments" / "lantern-street-bars.toml"
     r = run("tune", demo, "--note", "A4", "--ratios", "1:2:3", "--family", "parabolic")
     assert r.exit_code == 3, r.output  # ran, but missed what was asked
     assert r.stderr.startswith("barwright: 1 of 1 bars missed their targets")

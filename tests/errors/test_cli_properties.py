@@ -23,9 +23,9 @@ CASES = settings(max_examples=60, deadline=None, derandomize=True, database=None
                                         HealthCheck.filter_too_much])
 
 _DIR = Path(tempfile.mkdtemp(prefix="cli-props-"))
-PRESET_FILE = mutate.PRESETS / "instruments" / "tarrow-37.toml"
+PRESET_FILE = mutate.PRESETS / "instruments" / "lantern-street-bars.toml"
 BAR = mutate.load("bars/parabolic-example.toml")
-PRESET = mutate.load("instruments/tarrow-37.toml")
+PRESET = mutate.load("instruments/lantern-street-bars.toml")
 EVENTS = mutate.load("events/harbour-waltz.toml")
 
 

@@ -24,7 +24,7 @@ from synth.physics.materials import load_material
 from synth.voicing import Voicer
 
 ROOT = Path(__file__).resolve().parents[2]
-DEMO = ROOT / "presets" / "instruments" / "tarrow-37.toml"
+DEMO = ROOT / "presets" / "instruments" / "lantern-street-bars.toml"
 BAR = """
 material = "aluminium-6061-t6"
 length_m = 0.320
@@ -263,7 +263,7 @@ def test_a_note_outside_the_instrument_names_the_event_file() -> None:
     voicer = Voicer(load_design(DEMO), channels=1)
     score = Score((Strike(0.0, "C9", velocity=0.5, key="strike[0]"),), source="tune.toml")
     refused(lambda: voicer.score_voices(score),
-            "tune.toml: strike[0].note = 'C9': not in the range of tarrow-37.toml; allowed: "
+            "tune.toml: strike[0].note = 'C9': not in the range of lantern-street-bars.toml; allowed: "
             "F3 to F6")
 
 

@@ -34,7 +34,7 @@ _DIR = Path(tempfile.mkdtemp(prefix="reader-props-"))
 
 BAR = mutate.load("bars/parabolic-example.toml")
 STATIONS = mutate.load("bars/calipers-example.toml")
-PRESET = mutate.load("instruments/tarrow-37.toml")
+PRESET = mutate.load("instruments/lantern-street-bars.toml")
 MATERIAL = mutate.load("materials/aluminium-6061-t6.toml")
 MALLET = mutate.load("mallets/medium.toml")
 EVENTS = mutate.load("events/harbour-waltz.toml")

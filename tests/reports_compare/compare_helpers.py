@@ -12,8 +12,8 @@ from typer.testing import CliRunner
 from synth.cli import app
 from synth.config import presets_dir
 
-DESIGN_A = presets_dir() / "instruments" / "tarrow-37.toml"
-DESIGN_B = presets_dir() / "instruments" / "tarrow-37-7075.toml"
+DESIGN_A = presets_dir() / "instruments" / "lantern-street-bars.toml"
+DESIGN_B = presets_dir() / "instruments" / "lantern-street-bars-7075.toml"
 RATE = 48000
 GAP_S = 0.5
 TRIALS = 4

@@ -30,6 +30,6 @@ def written(tmp_path_factory) -> Written:
     r = run("compare", DESIGN_A, far_b, "--notes", "A4 C5", "--tail", "1.0",
             "--gap", GAP_S, "--blind", TRIALS, "--seed", 11, "--out", folder)
     assert r.exit_code == 0, r.output + r.stderr
-    with open(folder / "key.toml", "rb") as f:
+    with open(folder / "blind-key.toml", "rb") as f:
         key = tomllib.load(f)
     return Written(folder, r.stdout, r.stderr, key)

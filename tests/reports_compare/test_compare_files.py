@@ -96,7 +96,7 @@ def test_trials_hold_the_keyed_design(written) -> None:
     assert key["trials"] == TRIALS and len(key["x"]) == TRIALS
     assert set(key["x"]) <= {"A", "B"}
     for k, (name, x) in enumerate(zip(key["files"], key["x"], strict=True), start=1):
-        assert name == f"trial-{k:02d}.wav"
+        assert name == f"blind-{k:02d}.wav"
         t = written.wav(name)
         assert t.shape[0] == 3 * n + 2 * GAP
         np.testing.assert_array_equal(t[:n], a)

@@ -68,7 +68,7 @@ def test_answer_forms() -> None:
 def test_key_round_trip(tmp_path) -> None:
     """A key written as TOML reads back the same."""
     key = BlindKey(x=KEY_16, seed=5, design_a='dir "x"/a.toml', design_b="b.toml",
-                   files=tuple(f"trial-{k:02d}.wav" for k in range(1, 17)), gap_s=0.5)
+                   files=tuple(f"blind-{k:02d}.wav" for k in range(1, 17)), gap_s=0.5)
     p = tmp_path / "key.toml"
     p.write_text(key_toml(key), encoding="utf-8")
     back = read_key(p)
@@ -88,20 +88,61 @@ def test_key_draws_are_fair_and_seeded() -> None:
 
 
 def test_cli_scores_12_of_16(tmp_path) -> None:
-    """The command prints the count, p = 0.03841 and the fixed-trial-count reminder."""
+    """The command prints the count, the chance 3.8 % (p = 0.03841) and the reminder."""
     key = tmp_path / "key.toml"
     key.write_text(key_toml(BlindKey(x=KEY_16, seed=1, design_a="a.toml", design_b="b.toml",
                                      files=(), gap_s=0.5)), encoding="utf-8")
     answers = ",".join(_answers_with(12))
     r = run("compare", "--score", key, "--answers", answers)
     assert r.exit_code == 0, r.stdout + r.stderr
-    assert "12 of 16 correct" in r.stdout
-    assert "p = 0.03841" in r.stdout
+    assert ("trials answered correctly: 12 of 16; chance of doing this well by guessing: "
+            "3.8 %") in r.stdout
     assert "Fix the number of trials before listening" in r.stdout
     r = run("compare", "--score", key, "--answers", answers, "--json")
     data = json.loads(r.stdout)
     assert data["correct"] == 12 and data["trials"] == 16
-    assert data["p_value_one_sided"] == pytest.approx(0.03841, abs=5e-6)
+    assert data["chance_by_guessing"] == pytest.approx(0.03841, abs=5e-6)
+
+
+def _answers_file(path, answers, run="r1", fmt="barwright blind answers"):
+    path.write_text(json.dumps({"format": fmt, "version": 1, "run": run,
+                                "trials": len(answers), "answers": list(answers)}))
+    return path
+
+
+def test_cli_scores_an_answers_file(tmp_path) -> None:
+    """The listening page's file scores like --answers: 12 of 16, chance 3.8 % (p 0.03841)."""
+    key = tmp_path / "blind-key.toml"
+    key.write_text(key_toml(BlindKey(x=KEY_16, seed=1, design_a="a.toml", design_b="b.toml",
+                                     files=(), gap_s=0.5, run="r1")), encoding="utf-8")
+    f = _answers_file(tmp_path / "answers.json", _answers_with(12))
+    r = run("compare", "--score", key, "--answers-file", f, "--json")
+    assert r.exit_code == 0, r.stdout + r.stderr
+    data = json.loads(r.stdout)
+    assert data["correct"] == 12
+    assert data["chance_by_guessing"] == pytest.approx(0.03841, abs=5e-6)
+
+
+def test_cli_refuses_bad_answers_files(tmp_path) -> None:
+    """Another run, an open trial, a foreign file, both answer forms: exit 2, one line."""
+    key = tmp_path / "blind-key.toml"
+    key.write_text(key_toml(BlindKey(x=KEY_16, seed=1, design_a="a.toml", design_b="b.toml",
+                                     files=(), gap_s=0.5, run="r1")), encoding="utf-8")
+    full = _answers_with(12)
+    cases = [
+        (_answers_file(tmp_path / "other.json", full, run="r2"), "run 'r2'"),
+        (_answers_file(tmp_path / "open.json", [None] + list(full[1:])), "trial 1 is not"),
+        (_answers_file(tmp_path / "short.json", full[:15]), "15 answers"),
+        (_answers_file(tmp_path / "foreign.json", full, fmt="x"), "not an answers file"),
+    ]
+    for path, needle in cases:
+        r = run("compare", "--score", key, "--answers-file", path)
+        assert_one_line_error(r, "--answers-file", needle)
+    (tmp_path / "junk.json").write_text("{not json")
+    r = run("compare", "--score", key, "--answers-file", tmp_path / "junk.json")
+    assert_one_line_error(r, "--answers-file", "junk.json")
+    r = run("compare", "--score", key, "--answers", "A", "--answers-file", cases[0][0])
+    assert_one_line_error(r, "not both")
 
 
 def test_cli_wrong_answer_count(tmp_path) -> None:

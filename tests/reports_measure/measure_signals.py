@@ -25,7 +25,7 @@ from synth.physics.losses import Calibration
 from synth.voicing import Voicer
 
 FS = 48000
-PRESET = presets_dir() / "instruments" / "tarrow-37.toml"
+PRESET = presets_dir() / "instruments" / "lantern-street-bars.toml"
 HIDDEN = {"internal": 1.6, "cords": 0.7, "radiation": 1.3}
 """The hidden calibration of the recovery tests (the issue's example)."""
 

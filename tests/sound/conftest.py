@@ -12,7 +12,7 @@ from synth.physics.instrument import load_instrument
 @pytest.fixture(scope="session")
 def demo():
     """The demo instrument (its bars are solved and committed in the preset)."""
-    return load_instrument(presets_dir() / "instruments" / "tarrow-37.toml")
+    return load_instrument(presets_dir() / "instruments" / "lantern-street-bars.toml")
 
 
 def heterodyne_fit(x: np.ndarray, fs: float, f0: float, t0: float, t1: float,
