@@ -6,7 +6,7 @@ resident memory is read from the operating system when the process ends
 a long job is its own repeat, and memory hardly varies between runs.
 
 The passage is one strike per second for an hour (3600 strikes, one minute
-with ``--quick``) across the demo range (tarrow-37), notes seven semitones
+with ``--quick``) across the demo range (lantern-street-bars), notes seven semitones
 apart in turn, strengths 0.3-0.84, dampers lifted throughout so every note rings
 its full decay (the most voices sounding at once), rendered at the defaults
 (48 kHz stereo, 24-bit, normalised).  The recording is ten minutes (90 s with
@@ -59,7 +59,7 @@ _PARTIALS = ((440.0, 3.0, 0.3), (1760.0, 0.8, 0.2), (4435.0, 0.3, 0.1))
 
 
 def _preset() -> Path:
-    return presets_dir() / "instruments" / "tarrow-37.toml"
+    return presets_dir() / "instruments" / "lantern-street-bars.toml"
 
 
 def _passage(path: Path, strikes: int) -> None:

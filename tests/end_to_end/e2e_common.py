@@ -13,8 +13,8 @@ from typer.testing import CliRunner
 from synth.cli import app
 from synth.config import presets_dir
 
-DEMO = presets_dir() / "instruments" / "tarrow-37.toml"
-DEMO_7075 = presets_dir() / "instruments" / "tarrow-37-7075.toml"
+DEMO = presets_dir() / "instruments" / "lantern-street-bars.toml"
+DEMO_7075 = presets_dir() / "instruments" / "lantern-street-bars-7075.toml"
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
 
 

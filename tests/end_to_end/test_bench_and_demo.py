@@ -101,6 +101,17 @@ def _check_file(path: Path) -> None:
         tomllib.loads(path.read_text(encoding="utf-8"))
     elif suffix == ".csv":
         assert read_csv(path), path
+    elif suffix == ".html":  # the listening page: one document with its players
+        from html.parser import HTMLParser
+
+        tags = []
+
+        class Collect(HTMLParser):
+            def handle_starttag(self, tag, attrs):
+                tags.append(tag)
+
+        Collect().feed(path.read_text(encoding="utf-8"))
+        assert tags[:1] == ["html"] and tags.count("audio") >= 3, (path, tags[:5])
     else:
         raise AssertionError(f"unexpected file {path}")
 

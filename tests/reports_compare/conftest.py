@@ -23,7 +23,7 @@ def written(tmp_path_factory) -> Written:
     base = tmp_path_factory.mktemp("compare")
     text = DESIGN_B.read_text(encoding="utf-8")
     assert "listening_distance_m = 1.0" in text
-    far_b = base / "tarrow-37-7075-far.toml"
+    far_b = base / "lantern-street-bars-7075-far.toml"
     far_b.write_text(text.replace("listening_distance_m = 1.0",
                                   f"listening_distance_m = {FAR_DISTANCE_M}"), encoding="utf-8")
     folder = base / "out"

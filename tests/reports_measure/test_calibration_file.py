@@ -45,7 +45,7 @@ def fitted(tmp_path_factory):
 
 def preset_with(folder, damping: str):
     """Copy the demo preset into ``folder`` with a [damping] table appended."""
-    p = folder / "tarrow-calibrated.toml"
+    p = folder / "lantern-street-calibrated.toml"
     p.write_text(PRESET.read_text(encoding="utf-8") + "\n[damping]\n" + damping + "\n",
                  encoding="utf-8")
     return p
