@@ -1,0 +1,147 @@
+"""``solid``: a bar's partials from the 3-D solid model beside those of the 1-D model."""
+
+from __future__ import annotations
+
+import math
+from pathlib import Path
+from typing import Annotated
+
+import typer
+
+from synth.cli import app
+from synth.cli.common import (
+    EXIT_MISSED,
+    Progress,
+    format_table,
+    handle_errors,
+    missed,
+    print_json,
+)
+from synth.errors import ConfigError
+
+ACCURACY_DEFAULT_PCT = 0.05
+"""Default wanted error of the 3-D partials, percent."""
+
+LevelOption = Annotated[int | None, typer.Option(
+    min=2, max=8, help="Finest mesh level of the 3-D model (level m: about m quadratic "
+                       "elements through the thickness); the two levels below it give the "
+                       "error estimate. Exclusive with --accuracy.")]
+AccuracyOption = Annotated[float | None, typer.Option(
+    min=0.001, max=10.0, metavar="%",
+    help="Refine the 3-D mesh level by level until the estimated error of vertical "
+         "partials 1-3, lateral 1 and torsional 1-2 is below this, percent (default "
+         f"{ACCURACY_DEFAULT_PCT:g}; at most level 8).")]
+WorkersOption = Annotated[int | None, typer.Option(
+    min=1, max=256, help="Local worker processes for independent 3-D solves (default: "
+                         "every core).")]
+SchedulerOption = Annotated[str | None, typer.Option(
+    metavar="ADDRESS", help="Run the 3-D solves on a Dask cluster, e.g. tcp://host:8786 "
+                            "(default: the BARWRIGHT_SCHEDULER environment variable, else "
+                            "local processes).")]
+CacheOption = Annotated[bool, typer.Option(
+    help="Reuse finished 3-D solves from the cache folder (BARWRIGHT_CACHE, else "
+         "XDG_CACHE_HOME/barwright or ~/.cache/barwright) and store new ones there.")]
+
+
+def check_level_accuracy(level: int | None, accuracy: float | None) -> float | None:
+    """Return the wanted relative accuracy (None with --level); refuse both at once."""
+    if level is not None and accuracy is not None:
+        raise ConfigError(f"= {accuracy:g}: give --level or --accuracy, not both",
+                          source="--accuracy")
+    if level is not None:
+        return None
+    return (ACCURACY_DEFAULT_PCT if accuracy is None else accuracy) / 100.0
+
+
+@app.command("solid")
+@handle_errors
+def solid_command(
+    file: Annotated[Path, typer.Argument(help="A single-bar file or an instrument preset "
+                                              "(TOML).", show_default=False)],
+    note: Annotated[str | None, typer.Option(
+        help="Note of the bar to solve when FILE is an instrument preset (e.g. F3, Bb5).")
+    ] = None,
+    level: LevelOption = None,
+    accuracy: AccuracyOption = None,
+    modes: Annotated[int, typer.Option(
+        min=3, max=30, help="Modes solved in each symmetry family (vertical with "
+                            "longitudinal; lateral with torsional).")] = 8,
+    cache: CacheOption = True,
+    json_out: Annotated[bool, typer.Option("--json", help="Print JSON on stdout.")] = False,
+) -> None:
+    """Solve a bar as a 3-D elastic solid and set its partials beside the 1-D model's.
+
+    Quadratic hexahedra on the carved bar (flat top, the undercut below), solved on
+    two or three mesh levels; each mode's estimated error is the grid-convergence
+    index of the finest level (Roache 1994). Modes are named by the motion of the
+    bar's sections: vertical, lateral, torsional, longitudinal, or other (plate-like
+    across the width). The last column is 1-D minus 3-D in cents. A run that cannot
+    reach --accuracy by level 8 says so first and exits with code 3.
+    """
+    from synth.cli.cmd_bar import resolve_bar
+    from synth.physics.bar_fe import solve_bar
+    from synth.physics.instrument import load_design
+    from synth.physics.solid import (
+        MAX_LEVEL,
+        cached_solver,
+        solve_levels,
+        watched_error,
+    )
+
+    wanted = check_level_accuracy(level, accuracy)
+    design = load_design(file)
+    label, geometry, material, _ = resolve_bar(design, note)
+    total = 3 if level is not None and level > 2 else 2 if level is not None else MAX_LEVEL
+    with Progress(total, "3-D levels") as step:
+        result = solve_levels(geometry, material, level=level, accuracy=wanted,
+                              n_modes=modes, solver=cached_solver if cache else None,
+                              progress=lambda lv: step(1, f"level {lv.level}"))
+    one_d = solve_bar(geometry, material, n_vertical=5, n_lateral=2, n_torsional=3)
+    rows = []
+    for p in result.partials:
+        try:
+            f1 = one_d.mode(p.kind, p.order).frequency_hz
+        except (LookupError, ValueError, IndexError):
+            f1 = None
+        rows.append({
+            "kind": p.kind, "order": p.order, "frequency_hz": p.frequency_hz,
+            "extrapolated_hz": p.extrapolated_hz, "error": p.error,
+            "error_cents": p.error_cents, "observed_order": p.observed_order,
+            "one_d_hz": f1,
+            "cents_1d_minus_3d": None if f1 is None else 1200 * math.log2(f1 / p.frequency_hz),
+            "nodes_m": list(p.nodes_m),
+        })
+    worst = watched_error(result)
+    short = wanted is not None and worst > wanted
+    if short:
+        missed(f"{label}: the 3-D estimate reached {worst * 100:.3f} % at mesh level "
+               f"{result.finest.level}, not the {wanted * 100:g} % asked (level "
+               f"{MAX_LEVEL} is the finest)")
+    levels = [{"level": lv.level, "elements": lv.n_elements, "dof": lv.n_dof,
+               "seconds": lv.seconds, "mass_kg": lv.mass_kg} for lv in result.levels]
+    if json_out:
+        print_json({"bar": label, "material": material.name, "levels": levels,
+                    "estimated_error": worst, "partials": rows})
+    else:
+        typer.echo(f"{label}: {material.name}, {geometry.length_m * 1e3:.1f} x "
+                   f"{geometry.width_m * 1e3:.1f} x {geometry.thickness_m * 1e3:.2f} mm, "
+                   + (geometry.undercut.describe() if geometry.undercut else "no undercut"))
+        table = [(r["kind"], r["order"], f"{r['frequency_hz']:.2f}",
+                  f"{r['extrapolated_hz']:.2f}", f"{r['error'] * 100:.3f}",
+                  "-" if r["one_d_hz"] is None else f"{r['one_d_hz']:.2f}",
+                  "-" if r["one_d_hz"] is None else f"{r['cents_1d_minus_3d']:+.1f}")
+                 for r in rows]
+        typer.echo(format_table(["kind", "order", "3-D Hz", "extrap. Hz", "est. err %",
+                                 "1-D Hz", "1-D - 3-D c"], table, align="lrrrrrr"))
+        fin = result.finest
+        typer.echo(f"mesh levels {', '.join(str(lv.level) for lv in result.levels)}: finest "
+                   f"{fin.n_elements} quadratic hexahedra, {fin.n_dof} unknowns, "
+                   f"{sum(lv.seconds for lv in result.levels):.1f} s of solving")
+        try:
+            nodes = result.partial("vertical", 1).nodes_m
+            typer.echo("vertical 1 nodes on the top face: "
+                       + ", ".join(f"{x * 1e3:.1f}" for x in nodes) + " mm from the left end")
+        except LookupError:
+            pass
+    if short:
+        raise typer.Exit(code=EXIT_MISSED)
