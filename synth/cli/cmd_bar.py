@@ -9,6 +9,17 @@ import numpy as np
 import typer
 
 from synth.cli import app
+from synth.cli.cmd_solid import (
+    AccuracyOption,
+    CacheOption,
+    LevelOption,
+    SchedulerOption,
+    WorkersOption,
+    check_level_accuracy,
+    solid_record,
+    solid_summary,
+    tune_against_solid,
+)
 from synth.cli.common import (
     EXIT_MISSED,
     commit_outputs,
@@ -189,7 +200,7 @@ def _parse_ratios(text: str | None) -> tuple[float, ...] | None:
     fields = text.replace(",", ":").split(":")
     vals = tuple(parse_field(f, option="--ratios", value=text, lo=1.0, hi=MAX_RATIO,
                              example="1:4:10") for f in fields)
-    if abs(vals[0] - 1) > 1e-12 or any(b <= a for a, b in zip(vals, vals[1:])):
+    if abs(vals[0] - 1) > 1e-12 or any(b <= a for a, b in zip(vals, vals[1:], strict=False)):
         raise ConfigError(f"= {text!r}: must start at 1 and increase, e.g. 1:4:10",
                           source="--ratios")
     if len(vals) > 5:
@@ -224,6 +235,16 @@ def tune_command(
     keep_best: Annotated[bool, typer.Option(
         "--keep-best", help="When a bar misses its targets, still write --out with the best "
                             "design found (the exit code is 3 either way).")] = False,
+    solid: Annotated[bool, typer.Option(
+        "--solid", help="Correct each bar against the 3-D solid model: solve the tuned bar "
+                        "in 3-D, re-tune the 1-D model to target / (3-D / 1-D), repeat until "
+                        "the 3-D partials are within tolerance (at most 3 solves per bar).")
+    ] = False,
+    level: LevelOption = None,
+    accuracy: AccuracyOption = None,
+    workers: WorkersOption = None,
+    scheduler: SchedulerOption = None,
+    cache: CacheOption = True,
     json_out: Annotated[bool, typer.Option("--json", help="Print JSON on stdout.")] = False,
 ) -> None:
     """Solve every bar's length and undercut so partials 1-3 land on the target ratios.
@@ -233,7 +254,9 @@ def tune_command(
     residuals shown are from that re-solve. Targets: +-1 cent for the fundamental,
     +-3 cents above. A bar that cannot reach its targets is reported with the
     constraint that binds; the command then says so first and exits with code 3,
-    and writes --out only with --keep-best.
+    and writes --out only with --keep-best. With --solid the residuals are those of
+    the 3-D model (Richardson-extrapolated over its mesh levels); --level, --accuracy,
+    --workers, --scheduler and --cache apply to it only.
     """
     import time
 
@@ -249,8 +272,16 @@ def tune_command(
     if out is not None:
         plan_outputs([(out, "tuned preset")], force=force)
     t0 = time.perf_counter()
-    with Progress(len(notes), "tuning") as step:
-        results = tune_instrument(inst, notes, ratios=target, progress=lambda n: step(1, n))
+    wanted = check_level_accuracy(level, accuracy)
+    solid_runs = {}
+    if solid:
+        results, solid_runs = tune_against_solid(
+            inst, notes, ratios=target, level=level, accuracy=wanted, workers=workers,
+            scheduler=scheduler, cache=cache)
+    else:
+        with Progress(len(notes), "tuning") as step:
+            results = tune_instrument(inst, notes, ratios=target,
+                                      progress=lambda n: step(1, n))
     elapsed = time.perf_counter() - t0
     shop = {}
     mat = inst.material.at_temperature(inst.temperature_c)
@@ -291,6 +322,8 @@ def tune_command(
             "seconds": r.seconds, "drift_cents_per_k": drift[r.spec.note],
             **({"shop_reading_cents": [float(c) for c in shop[r.spec.note]]}
                if r.spec.note in shop else {}),
+            **({"solid": solid_record(solid_runs[r.spec.note])}
+               if r.spec.note in solid_runs else {}),
         })
     if json_out:
         print_json({"bars": records, "seconds": elapsed, "out": str(out) if write else None,
@@ -332,6 +365,8 @@ def tune_command(
     if shop:
         typer.echo(f"'at {shop_c:g} C': what partial 1 reads in the shop when the bar is in tune "
                    f"at {inst.temperature_c:g} C.")
+    if solid:
+        typer.echo(solid_summary(solid_runs))
     if write:
         typer.echo(f"wrote {out}")
     _exit_if_missed(worst)

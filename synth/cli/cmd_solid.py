@@ -6,6 +6,7 @@ import math
 from pathlib import Path
 from typing import Annotated
 
+import numpy as np
 import typer
 
 from synth.cli import app
@@ -145,3 +146,62 @@ def solid_command(
             pass
     if short:
         raise typer.Exit(code=EXIT_MISSED)
+
+
+# --------------------------------------------------------------------------------------
+# tune --solid
+# --------------------------------------------------------------------------------------
+
+
+def tune_against_solid(inst, notes: list[str], *, ratios, level: int | None,
+                       accuracy: float | None, workers: int | None, scheduler: str | None,
+                       cache: bool) -> tuple[list, dict]:
+    """Tune ``notes`` with the 3-D defect correction, one job per bar.
+
+    Returns the TuneResults (3-D residuals, original specs) in the order of ``notes``
+    and, per note, the :class:`SolidTuneResult` (absent for a bar whose job failed: that
+    bar is tuned in 1-D here and reported as missing its 3-D check, with the reason).
+    """
+    from dataclasses import replace
+
+    from synth.cli.common import warn
+    from synth.executor import Job, run_jobs
+    from synth.physics.solid_tuning import solid_tune_job
+    from synth.physics.tuning import instrument_spec, tune_bar
+
+    specs = [instrument_spec(inst, n, ratios) for n in notes]
+    jobs = [Job(s.note, solid_tune_job, (s, level, accuracy, cache)) for s in specs]
+    with Progress(len(jobs), "3-D tuning") as step:
+        done = run_jobs(jobs, workers=workers, scheduler=scheduler,
+                        progress=lambda r: step(1, str(r.key)))
+    results, solid = [], {}
+    for spec, job in zip(specs, done, strict=True):
+        if job.ok:
+            results.append(job.value.tune)
+            solid[spec.note] = job.value
+            continue
+        warn(f"{spec.note}: the 3-D job failed: {job.error}")
+        plain = tune_bar(spec)
+        results.append(replace(plain, reachable=False,
+                               message=f"3-D check failed: {job.error}"))
+    return results, solid
+
+
+def solid_record(run) -> dict:
+    """JSON record of one bar's 3-D correction."""
+    return {"factors": list(run.factors), "solves_3d": run.passes,
+            "estimated_error": run.estimated_error, "mesh_level": run.level}
+
+
+def solid_summary(runs: dict) -> str:
+    """One line on the 3-D correction of a range: factors and error estimates."""
+    if not runs:
+        return "3-D correction: no bar finished its 3-D solves"
+    c = np.array([r.factors for r in runs.values()])
+    cents = 1200.0 * np.log2(c)
+    err = max(r.estimated_error for r in runs.values())
+    spans = ", ".join(f"p{i + 1} {cents[:, i].min():+.1f} to {cents[:, i].max():+.1f}"
+                      for i in range(c.shape[1]))
+    return (f"3-D correction (3-D minus 1-D, cents): {spans}; "
+            f"{sum(r.passes for r in runs.values())} 3-D solves, estimated 3-D error at most "
+            f"{err * 100:.3f} %")
