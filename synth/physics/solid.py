@@ -96,7 +96,7 @@ CACHE_ENV = "BARWRIGHT_CACHE"
 """Environment variable naming the folder of finished 3-D solves (default
 ``$XDG_CACHE_HOME/barwright`` or ``~/.cache/barwright``)."""
 
-MODEL_VERSION = 2
+MODEL_VERSION = 3
 """Part of every cache key: raise it when a change to this module changes results."""
 
 
@@ -109,8 +109,8 @@ def mesh_counts(geometry: BarGeometry, level: int) -> tuple[int, int, int]:
     """Element counts (along x, across the whole width, through the thickness) of a level.
 
     Level m puts m quadratic elements through the blank thickness h0 and keeps elements
-    about 2 h0 / m long (8 m along the bar at least) and h0 / m wide, so the counts grow in proportion to m in every
-    direction and the mesh size h of the error estimate scales as 1/m.
+    about 2 h0 / m long (8 m along the bar at least) and 2 h0 / m wide: every count is m
+    times that of level 1, so the mesh size of the error estimate scales as 1/m.
 
     Parameters
     ----------
@@ -127,10 +127,11 @@ def mesh_counts(geometry: BarGeometry, level: int) -> tuple[int, int, int]:
     if not MIN_LEVEL <= level <= MAX_LEVEL:
         raise ModelError(f"mesh level {level}: must be {MIN_LEVEL} to {MAX_LEVEL}")
     h0 = geometry.thickness_m
-    # at least 8 elements per level along the bar: vertical partial 3 of a short bar has
-    # four half-waves, each wants two or more quadratic elements on the coarsest level
-    nx = max(8 * level, math.ceil(level * geometry.length_m / (2.0 * h0) - 1e-9))
-    half = max(1, math.ceil(level * geometry.width_m / (2.0 * h0) * 0.5 - 1e-9))
+    # level 1 has elements about 2 h0 long (at least 8 along the bar: vertical partial 3
+    # of a short bar has four half-waves) and 2 h0 wide; level m divides each by m, so
+    # that the mesh size of the error estimate scales exactly as 1/m
+    nx = level * max(8, math.ceil(geometry.length_m / (2.0 * h0) - 1e-9))
+    half = level * max(1, round(geometry.width_m / (4.0 * h0)))
     return nx, 2 * half, level
 
 
