@@ -37,7 +37,7 @@ def cache_folder(tmp_path_factory):
 
 @pytest.fixture(scope="module")
 def tuned():
-    """tune --solid on the lowest, a middle and the top bar of the demo, level 3."""
+    """Run tune --solid on the lowest, a middle and the top bar of the demo, level 3."""
     result = run("tune", DEMO, "--solid", "--note", "F3", "--note", "C5", "--note", "F6",
                  "--level", "3", "--workers", "2", "--json")
     assert result.exit_code == 0, result.stderr
@@ -45,8 +45,11 @@ def tuned():
 
 
 def test_tune_solid_is_in_tune_on_a_finer_3d_mesh(tuned) -> None:
-    """Each bar re-solved in 3-D at level 4 (levels 2-4, Richardson-extrapolated):
-    partials 1-3 within 3 cents of target (common practice, no source)."""
+    """Bars tuned with --solid are within 3 cents of target on a finer 3-D mesh.
+
+    Each bar is re-solved at level 4 (levels 2-4, Richardson-extrapolated); partials
+    1-3 must be within 3 cents of target (common practice, no source).
+    """
     inst = load_instrument(DEMO)
     mat = inst.material.at_temperature(inst.temperature_c)
     for rec in tuned["bars"]:
@@ -63,18 +66,22 @@ def test_tune_solid_is_in_tune_on_a_finer_3d_mesh(tuned) -> None:
 
 
 def test_tune_solid_factors_have_the_known_sign(tuned) -> None:
-    """The 1-D model reads low against the solid for the fundamental across the range,
-    most at the top, where the bars are shortest for their thickness (the comparison
-    in tests/reference/test_bar_vs_solid3d.py, computed here; measured 3-D minus 1-D
-    +12 cents at F3 to +31 cents at F6)."""
+    """The 1-D model reads low against the solid for the fundamental, most at the top.
+
+    The top bars are the shortest for their thickness (the comparison in
+    tests/reference/test_bar_vs_solid3d.py, computed here; measured 3-D minus 1-D
+    +12 cents at F3 to +31 cents at F6).
+    """
     c1 = [rec["solid"]["factors"][0] for rec in tuned["bars"]]
     assert all(c > 1.0 for c in c1)
     assert c1[-1] == max(c1)
 
 
 def test_solid_command_json_and_option_clash() -> None:
-    """`solid --json` gives the partials with an error estimate; --level with --accuracy
-    is one line and exit 2."""
+    """`solid --json` gives partials with an error estimate; a clash of options is refused.
+
+    --level with --accuracy is one line on stderr and exit 2.
+    """
     result = run("solid", DEMO, "--note", "A4", "--level", "2", "--json")
     assert result.exit_code == 0, result.stderr
     data = json.loads(result.stdout)
@@ -92,7 +99,7 @@ def _freqs(bar: BarGeometry, mat) -> list[float]:
 
 @pytest.fixture(scope="module")
 def cluster():
-    """A real Dask LocalCluster with two worker processes."""
+    """Start a real Dask LocalCluster with two worker processes."""
     distributed = pytest.importorskip("distributed")
     with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
                                   dashboard_address=None) as lc:

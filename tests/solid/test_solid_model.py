@@ -54,13 +54,13 @@ def astm_e1876(length, width, thickness, mat) -> tuple[float, float]:
 
 @pytest.fixture(scope="module")
 def slender():
-    """A slender uniform bar, L/t = 20, b/t = 3 (inside E1876's range), levels 2-4."""
+    """Solve a slender uniform bar, L/t = 20, b/t = 3 (inside E1876's range), levels 2-4."""
     return solve_levels(BarGeometry(0.2, 0.03, 0.01), AL6061, level=4)
 
 
 @pytest.fixture(scope="module")
 def thick():
-    """The thick example bar of physics.md section 2: 0.3 x 0.05 x 0.02 m, levels 2-4."""
+    """Solve the thick bar of physics.md section 2: 0.3 x 0.05 x 0.02 m, levels 2-4."""
     return solve_levels(BarGeometry(0.3, 0.05, 0.02), AL6061, level=4)
 
 
@@ -82,7 +82,9 @@ def test_torsional_fundamental_matches_astm_e1876(slender) -> None:
 
 
 def test_thick_bar_against_timoshenko(thick) -> None:
-    """physics.md section 2 (Timoshenko, Cowper k, computed by shooting): 1135.706,
+    """The thick bar lies within a tenth of Timoshenko's shear lowering of its values.
+
+    physics.md section 2 (Timoshenko, Cowper k, computed by shooting): 1135.706,
     3043.597, 5744.167 Hz. Measured 3-D minus Timoshenko: +0.107, +0.33, +0.58 %.
 
     Timoshenko's beam is itself an approximation of the solid: it captures the shear
@@ -120,8 +122,11 @@ def test_convergence_order_on_a_smooth_arch() -> None:
 
 
 def test_error_estimate_bounds_the_change_to_a_finer_level() -> None:
-    """Roache 1994: the GCI of a level bounds its distance to the converged value, so
-    it bounds (within its own margin) the change to the next finer level."""
+    """The error estimate of a level bounds its change to the next finer level.
+
+    Roache 1994: the GCI of a level bounds its distance to the converged value, so it
+    bounds (within its own margin) the change to the next finer level.
+    """
     bar = BarGeometry(0.2, 0.04, 0.012, ArchUndercut(0.006, 0.1, 4.0, center_m=0.09))
     coarse = solve_levels(bar, AL6061, level=3)
     finer = solve_level(bar, AL6061, 4)
@@ -132,16 +137,22 @@ def test_error_estimate_bounds_the_change_to_a_finer_level() -> None:
 
 
 def test_modes_are_named_by_their_motion(thick) -> None:
-    """Uniform bar: lateral 1 is the Timoshenko lateral value of physics.md section 2
+    """Lateral and torsional modes are found where beam theory puts them.
+
+    Uniform bar: lateral 1 is the Timoshenko lateral value of physics.md section 2
     (2638.55 Hz; the 3-D model has no shear coefficient, measured +0.08 %) and
-    torsional 1 the St Venant value 3316.46 Hz (+0.2 %, warping stiffens it)."""
+    torsional 1 the St Venant value 3316.46 Hz (+0.2 %, warping stiffens it).
+    """
     assert thick.partial("lateral", 1).extrapolated_hz == pytest.approx(2638.55, rel=3e-3)
     assert thick.partial("torsional", 1).extrapolated_hz == pytest.approx(3316.46, rel=5e-3)
 
 
 def test_a_ground_band_step_is_meshed() -> None:
-    """A ground band (steps in the profile) gets extra element layers: the mass is
-    exact (volume of the stepped bar times the density) and the modes come out."""
+    """A ground band (steps in the profile) gets extra element layers.
+
+    The mass is exact (volume of the stepped bar times the density) and the modes
+    come out.
+    """
     band = GroundUndercut(None, ((0.15, 0.04, 0.004),))
     bar = BarGeometry(0.3, 0.05, 0.02, band)
     lv = solve_level(bar, AL6061, 1)
@@ -160,6 +171,7 @@ def test_grid_convergence_recovers_a_known_series() -> None:
 
 
 def test_bad_levels_are_refused() -> None:
+    """Levels outside 1-8, or a level with an accuracy, raise ModelError."""
     bar = BarGeometry(0.3, 0.05, 0.02)
     with pytest.raises(ModelError):
         mesh_counts(bar, 0)
