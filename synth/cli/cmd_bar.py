@@ -15,7 +15,9 @@ from synth.cli.cmd_solid import (
     LevelOption,
     SchedulerOption,
     WorkersOption,
+    build_correction_table,
     check_level_accuracy,
+    corrected_rows,
     solid_record,
     solid_summary,
     tune_against_solid,
@@ -34,6 +36,7 @@ from synth.cli.common import (
 from synth.errors import ConfigError
 from synth.physics.bar_fe import BarModes, solve_bar
 from synth.physics.instrument import BarFile, Instrument, load_design
+from synth.physics.solid_correction import correction_of
 from synth.pitch import nearest_note
 from synth.voicing import design_budget
 
@@ -134,6 +137,7 @@ def partials_command(
                                             reference_hz=ref), force=force)
         commit_outputs()
     rows = partial_rows(result, ref)
+    corrected = corrected_rows(rows, design, label, ref)
     if json_out and losses:
         budget, _ = design_budget(design, label, result)
         by_mode = {(b.kind, b.order): b for b in budget}
@@ -149,6 +153,7 @@ def partials_command(
             "mesh_elements": result.n_elements,
             "mesh_change": result.change,
             "partials": rows,
+            "solid_correction": corrected,
             **({"plot": str(png)} if png is not None else {}),
         })
         return
@@ -170,6 +175,8 @@ def partials_command(
     moved = "by less than 0.0001 %" if change < 1e-4 else f"by {change:.4f} %"
     typer.echo(f"A4 = {ref:g} Hz; mesh {result.n_elements} elements of degree {degree}, last "
                f"refinement moved the vertical partials {moved}")
+    if corrected:
+        typer.echo(_sentence(corrected))
     if losses:
         budget, note_txt = design_budget(design, label, result)
         typer.echo("")
@@ -240,6 +247,15 @@ def tune_command(
                         "in 3-D, re-tune the 1-D model to target / (3-D / 1-D), repeat until "
                         "the 3-D partials are within tolerance (at most 3 solves per bar).")
     ] = False,
+    correction_table: Annotated[bool, typer.Option(
+        "--correction-table", help="Build the preset's 3-D correction table: solve anchor "
+                                   "bars in 3-D, interpolate f_3D / f_1D along the range, "
+                                   "re-tune every bar through it, and store it in --out "
+                                   "as [solid_correction]. Tunes the whole range.")
+    ] = False,
+    anchor_step: Annotated[int, typer.Option(
+        min=1, max=24, metavar="SEMITONES",
+        help="Anchor spacing of --correction-table (both ends are always anchors).")] = 6,
     level: LevelOption = None,
     accuracy: AccuracyOption = None,
     workers: WorkersOption = None,
@@ -256,7 +272,10 @@ def tune_command(
     constraint that binds; the command then says so first and exits with code 3,
     and writes --out only with --keep-best. With --solid the residuals are those of
     the 3-D model (Richardson-extrapolated over its mesh levels); --level, --accuracy,
-    --workers, --scheduler and --cache apply to it only.
+    --workers, --scheduler and --cache apply to the 3-D solves of --solid and
+    --correction-table. A preset with a [solid_correction] table is tuned through it
+    (1-D targets divided by the interpolated 3-D/1-D factors), and the residuals are
+    the table's predictions; the command says so.
     """
     import time
 
@@ -274,7 +293,24 @@ def tune_command(
     t0 = time.perf_counter()
     wanted = check_level_accuracy(level, accuracy)
     solid_runs = {}
-    if solid:
+    table, anchor_miss = correction_of(inst), None
+    if solid and correction_table:
+        raise ConfigError("= true: give --solid or --correction-table, not both",
+                          source="--correction-table")
+    if correction_table and note:
+        raise ConfigError("= true: builds the table from the whole range; drop --note",
+                          source="--correction-table")
+    if correction_table:
+        results, table, anchor_miss = build_correction_table(
+            inst, ratios=target, step=anchor_step, level=level, accuracy=wanted,
+            workers=workers, scheduler=scheduler, cache=cache)
+    elif table is not None and not solid:
+        from synth.physics.solid_tuning import tune_with_table
+
+        with Progress(len(notes), "tuning") as step:
+            results = tune_with_table(inst, notes, table, ratios=target,
+                                      progress=lambda n: step(1, n))
+    elif solid:
         results, solid_runs = tune_against_solid(
             inst, notes, ratios=target, level=level, accuracy=wanted, workers=workers,
             scheduler=scheduler, cache=cache)
@@ -307,7 +343,10 @@ def tune_command(
 
         header = (f"# {inst.name}: tuned by barwright from {preset.name}\n"
                   f"# every [bars.*] table below is a solved bar; sizes in metres\n")
-        text = header + tomli_w.dumps(tuned_preset(inst, results))
+        tuned = tuned_preset(inst, results)
+        if table is not None and not solid:
+            tuned["solid_correction"] = table.to_table()
+        text = header + tomli_w.dumps(tuned)
         io.write_bytes(out, text.encode("utf-8"), force=force)
         commit_outputs()
     records = []
@@ -327,7 +366,11 @@ def tune_command(
         })
     if json_out:
         print_json({"bars": records, "seconds": elapsed, "out": str(out) if write else None,
-                    "missed": n_missed})
+                    "missed": n_missed,
+                    **({"solid_correction": table.to_table()}
+                       if table is not None and not solid else {}),
+                    **({"anchor_residual_cents": {a: list(v) for a, v in anchor_miss.items()}}
+                       if anchor_miss else {})})
         _exit_if_missed(worst)
         return
     n_p = max(len(r.spec.ratios) for r in results)
@@ -367,6 +410,11 @@ def tune_command(
                    f"at {inst.temperature_c:g} C.")
     if solid:
         typer.echo(solid_summary(solid_runs))
+    elif table is not None:
+        typer.echo(_sentence(table.describe()))
+        if anchor_miss:
+            typer.echo("anchors in 3-D, cents off target: " + "; ".join(
+                f"{a} " + " ".join(f"{c:+.1f}" for c in v) for a, v in anchor_miss.items()))
     if write:
         typer.echo(f"wrote {out}")
     _exit_if_missed(worst)
@@ -505,6 +553,8 @@ def cutlist_command(
             "-" if r.tube_length_m is None else f"{r.tube_length_m * 1e3:.1f}",
         ])
     typer.echo(format_table(heads, table))
+    if correction_of(inst) is not None:
+        typer.echo(_sentence(correction_of(inst).describe()))
     typer.echo(f"wrote {csv_path} and {png_path}")
     if any(r.tube_length_m is not None for r in rows):
         typer.echo(f"tube lengths: closed end to mouth rim, for the [tubes] offset at "
@@ -541,3 +591,7 @@ def _override(inst, family: str | None, venue_c: float | None):
         raw["temperature_c"] = venue_c
         inst = replace(inst, temperature_c=venue_c)
     return replace(inst, raw=raw)
+
+
+def _sentence(text: str) -> str:
+    return text[:1].upper() + text[1:] + "."

@@ -29,9 +29,10 @@ LevelOption = Annotated[int | None, typer.Option(
                        "error estimate. Exclusive with --accuracy.")]
 AccuracyOption = Annotated[float | None, typer.Option(
     min=0.001, max=10.0, metavar="%",
-    help="Refine the 3-D mesh level by level until the estimated error of vertical "
-         "partials 1-3, lateral 1 and torsional 1-2 is below this, percent (default "
-         f"{ACCURACY_DEFAULT_PCT:g}; at most level 8).")]
+    help="Refine the 3-D mesh level by level until the estimated error is below this, "
+         "percent (default "
+         f"{ACCURACY_DEFAULT_PCT:g}; at most level 8): of vertical partials 1-3, lateral 1 "
+         "and torsional 1-2 in `solid`, of the tuned partials in `tune --solid`.")]
 WorkersOption = Annotated[int | None, typer.Option(
     min=1, max=256, help="Local worker processes for independent 3-D solves (default: "
                          "every core).")]
@@ -205,3 +206,108 @@ def solid_summary(runs: dict) -> str:
     return (f"3-D correction (3-D minus 1-D, cents): {spans}; "
             f"{sum(r.passes for r in runs.values())} 3-D solves, estimated 3-D error at most "
             f"{err * 100:.3f} %")
+
+
+# --------------------------------------------------------------------------------------
+# tune --correction-table, and the table applied by tune, partials and cutlist
+# --------------------------------------------------------------------------------------
+
+TABLE_PASSES = 3
+"""Rounds of (1-D tune of the range, 3-D solves of the anchors) at most."""
+
+
+def build_correction_table(inst, *, ratios, step: int, level: int | None,
+                           accuracy: float | None, workers: int | None,
+                           scheduler: str | None, cache: bool) -> tuple[list, object, dict]:
+    """Tune the whole range through a correction table made from 3-D anchor solves.
+
+    Round 1 tunes in 1-D (through the preset's own table when it has one), solves the
+    anchor bars in 3-D and builds a table from them; the next round re-tunes through
+    that table, and so on until every anchor's 3-D partials are within tolerance.
+
+    Returns the results (table-predicted frequencies), the final table and, per anchor,
+    its 3-D residuals in cents.
+    """
+    from synth.executor import Job, run_jobs
+    from synth.physics.solid_correction import anchor_notes, correction_of
+    from synth.physics.solid_tuning import anchor_job, table_from_anchors, tune_with_table
+    from synth.physics.tuning import tune_instrument
+    from synth.pitch import cents
+
+    notes = list(inst.notes)
+    anchors = anchor_notes(notes, step)
+    table = correction_of(inst)
+    mat = inst.material.at_temperature(inst.temperature_c)
+    target_ratios = np.asarray(ratios or inst.target_ratios)
+    residuals: dict = {}
+    for round_no in range(1, TABLE_PASSES + 1):
+        with Progress(len(notes), f"tuning, round {round_no}") as step_bar:
+            tick = lambda n: step_bar(1, n)  # noqa: E731
+            results = (tune_instrument(inst, notes, ratios=ratios, progress=tick)
+                       if table is None else
+                       tune_with_table(inst, notes, table, ratios=ratios, progress=tick))
+        by_note = {r.spec.note: r for r in results}
+        jobs = [Job(a, anchor_job, (by_note[a].geometry, mat, level, accuracy, cache))
+                for a in anchors]
+        with Progress(len(jobs), f"3-D anchors, round {round_no}") as step_bar:
+            done = run_jobs(jobs, workers=workers, scheduler=scheduler,
+                            progress=lambda r: step_bar(1, str(r.key)))
+        failed = [j for j in done if not j.ok]
+        if failed:
+            from synth.errors import ModelError
+
+            raise ModelError(f"3-D solve of anchor {failed[0].key} failed: {failed[0].error}"
+                             + (f" (and {len(failed) - 1} more)" if len(failed) > 1 else ""))
+        solved = [j.value for j in done]
+        residuals = {}
+        for a, s in zip(anchors, solved, strict=True):
+            n = len(target_ratios)
+            f3 = np.array([s[f"vertical_{k}"][1] for k in range(1, n + 1)])
+            residuals[a] = cents(f3, inst.target_hz(a) * target_ratios)
+        table = table_from_anchors(anchors, solved)
+        tol = by_note[anchors[0]].spec.tolerances_cents
+        if all(np.all(np.abs(r) <= tol) for r in residuals.values()):
+            break
+    return [_predict(r, table) for r in results], table, residuals
+
+
+def _predict(result, table):
+    """Re-state a result's predicted 3-D frequencies with ``table``'s factors."""
+    from dataclasses import replace
+
+    from synth.physics.bar_fe import solve_bar
+    from synth.pitch import cents
+
+    spec = result.spec
+    one_d = solve_bar(result.geometry, spec.material, n_vertical=len(spec.ratios),
+                      n_lateral=0, n_torsional=0)
+    f1 = np.array([m.frequency_hz for m in one_d.vertical[:len(spec.ratios)]])
+    predicted = f1 * np.asarray(table.vertical(spec.note, len(f1)))
+    miss = cents(predicted, spec.targets_hz)
+    ok = bool(np.all(np.abs(miss) <= spec.tolerances_cents))
+    msg = ("on target (3-D table)" if ok else "off target after the 3-D table"
+           ) if result.reachable or ok else result.message
+    return replace(result, frequencies_hz=predicted, residual_cents=miss,
+                   reachable=ok, message=msg)
+
+
+def corrected_rows(rows: list[dict], design, label: str, reference_hz: float) -> str | None:
+    """Apply an instrument's correction table to `partials` rows; return what was done."""
+    from synth.physics.instrument import Instrument
+    from synth.physics.solid_correction import correction_of
+    from synth.pitch import nearest_note
+
+    if not isinstance(design, Instrument):
+        return None
+    table = correction_of(design)
+    if table is None:
+        return None
+    for r in rows:
+        r["frequency_hz"] *= table.factor(label, r["kind"], r["order"])
+        r["note"], r["cents"] = nearest_note(r["frequency_hz"], reference_hz)
+    f1 = next((r["frequency_hz"] for r in rows if r["kind"] == "vertical" and r["order"] == 1),
+              None)
+    for r in rows:
+        r["ratio"] = r["frequency_hz"] / f1 if f1 else None
+    rows.sort(key=lambda r: r["frequency_hz"])
+    return table.describe()

@@ -876,7 +876,8 @@ def cached_solver(geometry: BarGeometry, material: Material, level: int,
 
 def solve_bar_3d(geometry: BarGeometry, material: Material, *, level: int | None = None,
                  accuracy: float | None = None, n_modes: int = 8,
+                 watched: tuple[tuple[str, int], ...] = WATCHED,
                  cache: bool = True) -> SolidResult:
     """:func:`solve_levels` with the disk cache; a picklable job for the executor."""
     return solve_levels(geometry, material, level=level, accuracy=accuracy, n_modes=n_modes,
-                        solver=cached_solver if cache else None)
+                        watched=watched, solver=cached_solver if cache else None)

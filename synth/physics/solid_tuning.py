@@ -85,7 +85,8 @@ def tune_bar_solid(spec: TuneSpec, *, level: int | None = None, accuracy: float 
     spec : TuneSpec
         What the bar must do.
     level, accuracy
-        Mesh level or wanted error of the 3-D solves (:func:`solve_bar_3d`).
+        Mesh level or wanted error of the 3-D solves (:func:`solve_bar_3d`); the
+        accuracy applies to the tuned partials.
     max_passes : int
         3-D solves at most (1 to 6).
     cache : bool
@@ -103,6 +104,7 @@ def tune_bar_solid(spec: TuneSpec, *, level: int | None = None, accuracy: float 
     if not 1 <= max_passes <= 6:
         raise ModelError(f"max_passes = {max_passes}: must be 1 to 6")
     n_t = len(spec.ratios)
+    watched = tuple(("vertical", k) for k in range(1, n_t + 1))
     aim = spec if factors is None else corrected_spec(spec, np.asarray(factors))
     r = tune_bar(aim, start)
     solves, seconds = r.n_solves, r.seconds
@@ -111,7 +113,7 @@ def tune_bar_solid(spec: TuneSpec, *, level: int | None = None, accuracy: float 
                                tuple(factors or (1.0,) * n_t), 0, float("nan"), 0)
     for done in range(1, max_passes + 1):
         solid = solve_bar_3d(r.geometry, spec.material, level=level, accuracy=accuracy,
-                             cache=cache)
+                             watched=watched, cache=cache)
         f3, err = solid_partials(solid, n_t)
         c = f3 / np.asarray(r.frequencies_hz)
         miss = cents(f3, spec.targets_hz)
@@ -138,3 +140,75 @@ def solid_tune_job(spec: TuneSpec, level: int | None, accuracy: float | None,
                    cache: bool) -> SolidTuneResult:
     """:func:`tune_bar_solid` as a picklable job for :func:`synth.executor.run_jobs`."""
     return tune_bar_solid(spec, level=level, accuracy=accuracy, cache=cache)
+
+
+# --------------------------------------------------------------------------------------
+# A range through an instrument's correction table
+# --------------------------------------------------------------------------------------
+
+
+def tune_with_table(instrument, notes: list[str], table, *, ratios=None,
+                    progress=None) -> list[TuneResult]:
+    """Tune ``notes`` in 1-D to target / (the table's interpolated factors).
+
+    The results carry the original specs; ``frequencies_hz`` are the table's predicted
+    3-D frequencies (1-D times factor), ``residual_cents`` and ``reachable`` refer to them.
+    """
+    from synth.physics.tuning import tune_instrument
+
+    def aim(spec: TuneSpec) -> TuneSpec:
+        return corrected_spec(spec, np.asarray(table.vertical(spec.note, len(spec.ratios))))
+
+    raw = tune_instrument(instrument, notes, ratios=ratios, progress=progress, aim=aim)
+    out = []
+    for r in raw:
+        original = replace(r.spec, fundamental_hz=instrument.target_hz(r.spec.note),
+                           ratios=tuple(ratios or instrument.target_ratios))
+        predicted = np.asarray(r.frequencies_hz) * np.asarray(
+            table.vertical(r.spec.note, len(r.frequencies_hz)))
+        miss = cents(predicted, original.targets_hz)
+        ok = bool(np.all(np.abs(miss) <= original.tolerances_cents))
+        msg = (r.message if not r.reachable else
+               "on target (3-D table)" if ok else "off target after the 3-D table")
+        out.append(replace(r, spec=original, frequencies_hz=predicted, residual_cents=miss,
+                           reachable=r.reachable and ok, message=msg))
+    return out
+
+
+def anchor_job(geometry, material, level: int | None, accuracy: float | None,
+               cache: bool) -> dict[str, tuple[float, float, float]]:
+    """3-D and 1-D solves of one anchor bar: ``mode_key -> (factor, f_3D, error)``.
+
+    f_3D is the Richardson-extrapolated frequency; modes the 3-D model did not find on
+    its two finest levels are left out.
+    """
+    from synth.physics.bar_fe import solve_bar
+    from synth.physics.solid_correction import CORRECTED, mode_key
+
+    solid = solve_bar_3d(geometry, material, level=level, accuracy=accuracy,
+                         watched=CORRECTED[:3], cache=cache)
+    one_d = solve_bar(geometry, material, n_vertical=3, n_lateral=1, n_torsional=2)
+    out = {}
+    for kind, order in CORRECTED:
+        try:
+            p = solid.partial(kind, order)
+        except LookupError:
+            continue
+        f1 = one_d.mode(kind, order).frequency_hz
+        out[mode_key(kind, order)] = (p.extrapolated_hz / f1, p.extrapolated_hz, p.error)
+    out["_level"] = (float(solid.finest.level), 0.0, 0.0)
+    return out
+
+
+def table_from_anchors(anchors: list[str], solved: list[dict]):
+    """Build a :class:`CorrectionTable` from the :func:`anchor_job` results."""
+    from synth.physics.solid_correction import CORRECTED, CorrectionTable, mode_key
+
+    factors = {}
+    for kind, order in CORRECTED:
+        key = mode_key(kind, order)
+        if all(key in s for s in solved):
+            factors[key] = tuple(float(s[key][0]) for s in solved)
+    error = max(s[mode_key(*m)][2] for s in solved for m in CORRECTED[:3])
+    level = int(max(s["_level"][0] for s in solved))
+    return CorrectionTable(tuple(anchors), level, float(error), factors)
