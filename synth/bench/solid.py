@@ -12,11 +12,12 @@ solid.peak_mb
 solid.level
     The finest mesh level that solve needed.
 solid.anchors_1_worker_s, solid.anchors_2_workers_s
-    The 3-D solves of the demo's anchor notes (both ends and every 6 semitones, level
-    3; with ``--quick`` three notes at level 2), no cache, on one and on two local
-    worker processes (synth.executor.run_jobs).
+    The 3-D solves of the demo's anchor notes (both ends and every 6 semitones, one
+    solve each at level 4; with ``--quick`` three notes at level 2), no cache, on one
+    and on two local worker processes (synth.executor.run_jobs).
 solid.anchors_speedup
-    Their ratio (2 at best on two free cores).
+    Their ratio: 2 at best on two free cores; each worker first imports scipy and
+    scikit-fem (about a second), and other work on the machine takes its share.
 """
 
 from __future__ import annotations
@@ -65,7 +66,7 @@ def run(quick: bool = False) -> dict[str, float]:
     anchors = [notes[0], notes[len(notes) // 2], notes[-1]] if quick else notes[::6]
     if anchors[-1] != notes[-1]:
         anchors.append(notes[-1])
-    mesh = 2 if quick else 3
+    mesh = 2 if quick else 4
     jobs = [Job(n, _anchor, (n, mesh)) for n in anchors]
     timings = {}
     for workers in (1, 2):

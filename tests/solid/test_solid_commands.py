@@ -11,28 +11,16 @@ frequencies, with margin for the start vector's rounding).
 from __future__ import annotations
 
 import json
-import sys
-from pathlib import Path
 
 import numpy as np
 import pytest
+from cli_helpers import DEMO, assert_one_line_error, run
 
-sys.path.insert(0, str(Path(__file__).resolve().parent.parent / "cli"))
-from cli_helpers import DEMO, assert_one_line_error, run  # noqa: E402
-
-from synth.executor import Job, run_jobs  # noqa: E402
-from synth.physics.geometry import ArchUndercut, BarGeometry  # noqa: E402
-from synth.physics.instrument import load_instrument  # noqa: E402
-from synth.physics.solid import SolidMode, solve_level, solve_levels  # noqa: E402
-from synth.pitch import cents  # noqa: E402
-
-
-@pytest.fixture(scope="module", autouse=True)
-def cache_folder(tmp_path_factory):
-    """Point the cache of finished 3-D solves at a fresh folder for this module."""
-    with pytest.MonkeyPatch.context() as mp:
-        mp.setenv("BARWRIGHT_CACHE", str(tmp_path_factory.mktemp("solid-cache")))
-        yield
+from synth.executor import Job, run_jobs
+from synth.physics.geometry import ArchUndercut, BarGeometry
+from synth.physics.instrument import load_instrument
+from synth.physics.solid import SolidMode, solve_level, solve_levels
+from synth.pitch import cents
 
 
 @pytest.fixture(scope="module")

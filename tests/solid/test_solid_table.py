@@ -8,29 +8,18 @@ trade's tolerance for partials 2-3; common practice, no source).
 from __future__ import annotations
 
 import json
-import sys
 from pathlib import Path
 
 import numpy as np
 import pytest
 import tomli_w
+from cli_helpers import DEMO, assert_one_line_error, run
 
-sys.path.insert(0, str(Path(__file__).resolve().parent.parent / "cli"))
-from cli_helpers import DEMO, assert_one_line_error, run  # noqa: E402
-
-from synth.config import load_toml  # noqa: E402
-from synth.physics.instrument import load_instrument  # noqa: E402
-from synth.physics.solid import solve_levels  # noqa: E402
-from synth.physics.solid_correction import anchor_notes, correction_of  # noqa: E402
-from synth.pitch import cents  # noqa: E402
-
-
-@pytest.fixture(scope="module", autouse=True)
-def cache_folder(tmp_path_factory):
-    """Point the cache of finished 3-D solves at a fresh folder for this module."""
-    with pytest.MonkeyPatch.context() as mp:
-        mp.setenv("BARWRIGHT_CACHE", str(tmp_path_factory.mktemp("solid-cache")))
-        yield
+from synth.config import load_toml
+from synth.physics.instrument import load_instrument
+from synth.physics.solid import solve_levels
+from synth.physics.solid_correction import anchor_notes, correction_of
+from synth.pitch import cents
 
 
 @pytest.fixture(scope="module")
