@@ -18,6 +18,7 @@ from synth.cli.cmd_solid import (
     build_correction_table,
     check_level_accuracy,
     corrected_rows,
+    report_failed_jobs,
     solid_record,
     solid_summary,
     tune_against_solid,
@@ -338,6 +339,8 @@ def tune_command(
                 else "; nothing written (use --keep-best to write the best found)")
         missed(f"{n_missed} of {len(results)} bars missed their targets (worst: partial "
                f"{worst[1]} {worst[2]:+.0f} cents at {worst[0]}){what}")
+    if solid:
+        report_failed_jobs(results, solid_runs)
     if write:
         import tomli_w
 

@@ -161,11 +161,11 @@ def tune_against_solid(inst, notes: list[str], *, ratios, level: int | None,
 
     Returns the TuneResults (3-D residuals, original specs) in the order of ``notes``
     and, per note, the :class:`SolidTuneResult` (absent for a bar whose job failed: that
-    bar is tuned in 1-D here and reported as missing its 3-D check, with the reason).
+    bar is tuned in 1-D here and reported as missing its 3-D check, with the reason;
+    :func:`report_failed_jobs` says so on stderr).
     """
     from dataclasses import replace
 
-    from synth.cli.common import warn
     from synth.executor import Job, run_jobs
     from synth.physics.solid_tuning import solid_tune_job
     from synth.physics.tuning import instrument_spec, tune_bar
@@ -181,7 +181,6 @@ def tune_against_solid(inst, notes: list[str], *, ratios, level: int | None,
             results.append(job.value.tune)
             solid[spec.note] = job.value
             continue
-        warn(f"{spec.note}: the 3-D job failed: {job.error}")
         plain = tune_bar(spec)
         results.append(replace(plain, reachable=False,
                                message=f"3-D check failed: {job.error}"))
@@ -311,3 +310,13 @@ def corrected_rows(rows: list[dict], design, label: str, reference_hz: float) ->
         r["ratio"] = r["frequency_hz"] / f1 if f1 else None
     rows.sort(key=lambda r: r["frequency_hz"])
     return table.describe()
+
+
+def report_failed_jobs(results: list, runs: dict) -> None:
+    """Name on stderr each bar whose 3-D job failed, with the reason."""
+    from synth.cli.common import warn
+
+    for r in results:
+        if r.spec.note not in runs:
+            warn(f"{r.spec.note}: the 3-D job failed: "
+                 f"{r.message.removeprefix('3-D check failed: ')}")

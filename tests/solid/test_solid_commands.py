@@ -114,3 +114,47 @@ def test_level_solves_round_trip_through_the_cache_format() -> None:
                      n_modes=3)
     back = LevelSolve.from_dict(json.loads(json.dumps(lv.to_dict())))
     assert back == lv and isinstance(back.modes[0], SolidMode)
+
+
+def test_a_failing_bar_is_named_and_the_others_finish(monkeypatch) -> None:
+    """A bar whose 3-D job fails is named with the reason; the other bar finishes.
+
+    The run exits 3 (missed) and says so first; the other bar is tuned in 3-D.
+    """
+    import synth.physics.solid_tuning as st
+
+    real = st.solid_tune_job
+
+    def flaky(spec, level, accuracy, cache):
+        if spec.note == "A4":
+            raise RuntimeError("mesh generator refused the bar")
+        return real(spec, level, accuracy, cache)
+
+    monkeypatch.setattr(st, "solid_tune_job", flaky)
+    result = run("tune", DEMO, "--solid", "--note", "A4", "--note", "F6", "--level", "2",
+                 "--workers", "1", "--json")
+    assert result.exit_code == 3, result.stderr
+    lines = [ln for ln in result.stderr.splitlines() if ln.strip()]
+    assert "missed" in lines[0]
+    assert any("A4: the 3-D job failed: RuntimeError: mesh generator refused the bar" in ln
+               for ln in lines)
+    bars = {b["note"]: b for b in json.loads(result.stdout)["bars"]}
+    assert not bars["A4"]["reachable"] and "3-D check failed" in bars["A4"]["message"]
+    assert bars["F6"]["reachable"] and "solid" in bars["F6"]
+
+
+def test_finished_solves_are_read_from_the_cache(monkeypatch) -> None:
+    """A level solved once is read back from the cache folder, not solved again."""
+    import synth.physics.solid as solid
+
+    bar = BarGeometry(0.2, 0.03, 0.01)
+    mat = load_instrument(DEMO).material
+    first = solid.cached_level(bar, mat, 1, 4)
+
+    def no_solving(*args, **kwargs):
+        raise AssertionError("solved again")
+
+    monkeypatch.setattr(solid, "solve_level", no_solving)
+    assert solid.cached_level(bar, mat, 1, 4) == first
+    with pytest.raises(AssertionError):
+        solid.cached_level(bar, mat, 2, 4)  # another level is another key
