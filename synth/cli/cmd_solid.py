@@ -78,7 +78,8 @@ def solid_command(
     index of the finest level (Roache 1994). Modes are named by the motion of the
     bar's sections: vertical, lateral, torsional, longitudinal, or other (plate-like
     across the width). The last column is 1-D minus 3-D in cents. A run that cannot
-    reach --accuracy by level 8 says so first and exits with code 3.
+    reach --accuracy on the finest level the bar allows (at most 8, and 100,000
+    unknowns) says so first and exits with code 3.
     """
     from synth.cli.cmd_bar import resolve_bar
     from synth.physics.bar_fe import solve_bar
@@ -86,6 +87,7 @@ def solid_command(
     from synth.physics.solid import (
         MAX_LEVEL,
         cached_solver,
+        finest_level,
         solve_levels,
         watched_error,
     )
@@ -118,7 +120,7 @@ def solid_command(
     if short:
         missed(f"{label}: the 3-D estimate reached {worst * 100:.3f} % at mesh level "
                f"{result.finest.level}, not the {wanted * 100:g} % asked (level "
-               f"{MAX_LEVEL} is the finest)")
+               f"{finest_level(geometry)} is the finest this bar may be solved on)")
     levels = [{"level": lv.level, "elements": lv.n_elements, "dof": lv.n_dof,
                "seconds": lv.seconds, "mass_kg": lv.mass_kg} for lv in result.levels]
     if json_out:

@@ -742,6 +742,24 @@ WATCHED: tuple[tuple[str, int], ...] = (("vertical", 1), ("vertical", 2), ("vert
 lateral and torsional modes nearest them)."""
 
 
+MAX_UNKNOWNS = 100_000
+"""Largest eigenproblem solved (unknowns of one symmetry family): the sparse LU of the
+demo's A4 at level 6, 61,000 unknowns, peaked at 1.4 GB; fill-in grows faster than
+the unknowns, so this bound keeps a solve within a few GB."""
+
+
+def unknowns(geometry: BarGeometry, level: int) -> int:
+    """Return about how many unknowns one symmetry family of a level has."""
+    nx, ny, nz = mesh_counts(geometry, level)
+    return 3 * (2 * nx + 1) * (ny + 1) * (2 * nz + 1)
+
+
+def finest_level(geometry: BarGeometry) -> int:
+    """Return the finest mesh level this bar may be solved on (:data:`MAX_UNKNOWNS`)."""
+    return max([lv for lv in range(MIN_LEVEL, MAX_LEVEL + 1)
+                if unknowns(geometry, lv) <= MAX_UNKNOWNS], default=MIN_LEVEL)
+
+
 def _watched_error(result: SolidResult, watched) -> float:
     errs = []
     for kind, order in watched:
@@ -768,8 +786,8 @@ def solve_levels(geometry: BarGeometry, material: Material, *, level: int | None
         error estimate. Exclusive with ``accuracy``.
     accuracy : float, optional
         Wanted relative error of the watched modes (0.0005 = 0.05 %): levels 1, 2, 3, ...
-        are solved until the estimate is below it (at most :data:`MAX_LEVEL`). Default
-        when neither is given: 0.0005.
+        are solved until the estimate is below it (at most :data:`MAX_LEVEL`, and no
+        level over :data:`MAX_UNKNOWNS`). Default when neither is given: 0.0005.
     n_modes : int
         Modes per symmetry family.
     watched : tuple of (kind, order)
@@ -799,6 +817,10 @@ def solve_levels(geometry: BarGeometry, material: Material, *, level: int | None
     if level is not None:
         if not MIN_LEVEL + 1 <= level <= MAX_LEVEL:
             raise ModelError(f"mesh level {level}: must be {MIN_LEVEL + 1} to {MAX_LEVEL}")
+        if unknowns(geometry, level) > MAX_UNKNOWNS:
+            raise ModelError(f"mesh level {level} would need about "
+                             f"{unknowns(geometry, level):,} unknowns for this bar; at most "
+                             f"{MAX_UNKNOWNS:,} are solved (a few GB of memory)")
         for lv in range(max(MIN_LEVEL, level - 2), level + 1):
             one(lv)
         return combine(tuple(done))
@@ -808,7 +830,8 @@ def solve_levels(geometry: BarGeometry, material: Material, *, level: int | None
     one(MIN_LEVEL)
     one(MIN_LEVEL + 1)
     result = combine(tuple(done))
-    while _watched_error(result, watched) > target and done[-1].level < MAX_LEVEL:
+    while (_watched_error(result, watched) > target and done[-1].level < MAX_LEVEL
+           and unknowns(geometry, done[-1].level + 1) <= MAX_UNKNOWNS):
         one(done[-1].level + 1)
         result = combine(tuple(done))
     return result

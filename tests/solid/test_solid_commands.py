@@ -158,3 +158,9 @@ def test_finished_solves_are_read_from_the_cache(monkeypatch) -> None:
     assert solid.cached_level(bar, mat, 1, 4) == first
     with pytest.raises(AssertionError):
         solid.cached_level(bar, mat, 2, 4)  # another level is another key
+
+
+def test_a_level_too_large_for_the_bar_is_refused() -> None:
+    """F3 at level 8 would need about 220,000 unknowns: one line, exit 2, no solving."""
+    assert_one_line_error(run("solid", DEMO, "--note", "F3", "--level", "8"),
+                          "mesh level 8", "unknowns")
