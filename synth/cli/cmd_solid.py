@@ -30,9 +30,9 @@ LevelOption = Annotated[int | None, typer.Option(
 AccuracyOption = Annotated[float | None, typer.Option(
     min=0.001, max=10.0, metavar="%",
     help="Refine the 3-D mesh level by level until the estimated error is below this, "
-         "percent (default "
-         f"{ACCURACY_DEFAULT_PCT:g}; at most level 8): of vertical partials 1-3, lateral 1 "
-         "and torsional 1-2 in `solid`, of the tuned partials in `tune --solid`.")]
+         f"percent (default {ACCURACY_DEFAULT_PCT:g}; at most level 8 and 100,000 "
+         "unknowns): of vertical partials 1-3, lateral 1 and torsional 1-2 in `solid`, of "
+         "the tuned partials in `tune --solid`.")]
 WorkersOption = Annotated[int | None, typer.Option(
     min=1, max=256, help="Local worker processes for independent 3-D solves (default: "
                          "every core).")]
