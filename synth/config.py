@@ -158,6 +158,13 @@ LIMITS: Final[dict[str, Limit]] = {
     "motor.block_fraction": Limit(0.0, 1.0, hi_open=True),
     "motor.angle_deg": Limit(-360.0, 360.0, "degrees"),
     "motor.spin_up_s": Limit(0.0, 60.0, "s"),
+    # -- [solid_correction]: 3-D over 1-D frequency of a mode. The 1-D model misses
+    # tuned partials by tens of cents and untuned lateral and torsional modes of wide
+    # bars by up to a few semitones (measured here: lateral 1 of the demo's F6 -220
+    # cents); a factor of 2 either way is far outside any sound 1-D model
+    "solid.factor": Limit(0.5, 2.0),
+    "solid.mesh_level": Limit(1, 8),
+    "solid.estimated_error": Limit(0.0, 0.1),
     # -- event lists: a passage of at most MAX_SCORE_S
     "score.time_s": Limit(0.0, MAX_SCORE_S, "s"),
     "score.beat": Limit(0.0, 1e6, "beats"),

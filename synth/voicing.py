@@ -69,6 +69,7 @@ from synth.physics.motor import (
     parse_motor,
     steady_bar_decay_per_s,
 )
+from synth.physics.solid_correction import corrected_modes, correction_of
 from synth.physics.tube import (
     TubeSettings,  # noqa: F401 (re-exported)
     TubeSpec,
@@ -165,6 +166,7 @@ class Voicer:
         self.motor = motor
         self.temperature_c = inst.temperature_c
         self.material = inst.material.at_temperature(inst.temperature_c)
+        self.correction = correction_of(inst)  # [solid_correction]: 3-D / 1-D factors
         if self.channels not in (1, 2):
             raise ConfigError(f"= {self.channels}: must be 1 or 2", source="--channels")
 
@@ -181,7 +183,8 @@ class Voicer:
         if note in self._cache:
             return self._cache[note]
         geo = self.instrument.bar(note)
-        modes = solve_bar(geo, self.material, n_vertical=5, n_lateral=0, n_torsional=2)
+        modes = corrected_modes(solve_bar(geo, self.material, n_vertical=5, n_lateral=0,
+                                          n_torsional=2), self.correction, note)
         budget = tuple(loss_budget(modes, supports=self.supports, calibration=self.calibration,
                                    temperature_c=self.temperature_c, note=note))
         frac = self.instrument.note_fraction(note)
@@ -208,7 +211,9 @@ class Voicer:
         length = self.instrument.tube_lengths.get(note)   # [bars.NOTE] tube, read at load
         if length is None:
             if modes is None:
-                modes = solve_bar(geo, self.material, n_vertical=1, n_lateral=0, n_torsional=0)
+                modes = corrected_modes(solve_bar(geo, self.material, n_vertical=1,
+                                                  n_lateral=0, n_torsional=0),
+                                        self.correction, note)
             length = tube_length_for_bar(modes.fundamental_hz, template,
                                          offset_cents=ts.offset_cents,
                                          temperature_c=self.temperature_c)

@@ -9,6 +9,20 @@ import numpy as np
 import typer
 
 from synth.cli import app
+from synth.cli.cmd_solid import (
+    AccuracyOption,
+    CacheOption,
+    LevelOption,
+    SchedulerOption,
+    WorkersOption,
+    build_correction_table,
+    check_level_accuracy,
+    corrected_rows,
+    report_failed_jobs,
+    solid_record,
+    solid_summary,
+    tune_against_solid,
+)
 from synth.cli.common import (
     EXIT_MISSED,
     commit_outputs,
@@ -23,6 +37,7 @@ from synth.cli.common import (
 from synth.errors import ConfigError
 from synth.physics.bar_fe import BarModes, solve_bar
 from synth.physics.instrument import BarFile, Instrument, load_design
+from synth.physics.solid_correction import correction_of
 from synth.pitch import nearest_note
 from synth.voicing import design_budget
 
@@ -123,6 +138,7 @@ def partials_command(
                                             reference_hz=ref), force=force)
         commit_outputs()
     rows = partial_rows(result, ref)
+    corrected = corrected_rows(rows, design, label, ref)
     if json_out and losses:
         budget, _ = design_budget(design, label, result)
         by_mode = {(b.kind, b.order): b for b in budget}
@@ -138,6 +154,7 @@ def partials_command(
             "mesh_elements": result.n_elements,
             "mesh_change": result.change,
             "partials": rows,
+            "solid_correction": corrected,
             **({"plot": str(png)} if png is not None else {}),
         })
         return
@@ -159,6 +176,8 @@ def partials_command(
     moved = "by less than 0.0001 %" if change < 1e-4 else f"by {change:.4f} %"
     typer.echo(f"A4 = {ref:g} Hz; mesh {result.n_elements} elements of degree {degree}, last "
                f"refinement moved the vertical partials {moved}")
+    if corrected:
+        typer.echo(_sentence(corrected))
     if losses:
         budget, note_txt = design_budget(design, label, result)
         typer.echo("")
@@ -189,7 +208,7 @@ def _parse_ratios(text: str | None) -> tuple[float, ...] | None:
     fields = text.replace(",", ":").split(":")
     vals = tuple(parse_field(f, option="--ratios", value=text, lo=1.0, hi=MAX_RATIO,
                              example="1:4:10") for f in fields)
-    if abs(vals[0] - 1) > 1e-12 or any(b <= a for a, b in zip(vals, vals[1:])):
+    if abs(vals[0] - 1) > 1e-12 or any(b <= a for a, b in zip(vals, vals[1:], strict=False)):
         raise ConfigError(f"= {text!r}: must start at 1 and increase, e.g. 1:4:10",
                           source="--ratios")
     if len(vals) > 5:
@@ -224,6 +243,25 @@ def tune_command(
     keep_best: Annotated[bool, typer.Option(
         "--keep-best", help="When a bar misses its targets, still write --out with the best "
                             "design found (the exit code is 3 either way).")] = False,
+    solid: Annotated[bool, typer.Option(
+        "--solid", help="Correct each bar against the 3-D solid model: solve the tuned bar "
+                        "in 3-D, re-tune the 1-D model to target / (3-D / 1-D), repeat until "
+                        "the 3-D partials are within tolerance (at most 3 solves per bar).")
+    ] = False,
+    correction_table: Annotated[bool, typer.Option(
+        "--correction-table", help="Build the preset's 3-D correction table: solve anchor "
+                                   "bars in 3-D, interpolate f_3D / f_1D along the range, "
+                                   "re-tune every bar through it, and store it in --out "
+                                   "as [solid_correction]. Tunes the whole range.")
+    ] = False,
+    anchor_step: Annotated[int, typer.Option(
+        min=1, max=24, metavar="SEMITONES",
+        help="Anchor spacing of --correction-table (both ends are always anchors).")] = 6,
+    level: LevelOption = None,
+    accuracy: AccuracyOption = None,
+    workers: WorkersOption = None,
+    scheduler: SchedulerOption = None,
+    cache: CacheOption = True,
     json_out: Annotated[bool, typer.Option("--json", help="Print JSON on stdout.")] = False,
 ) -> None:
     """Solve every bar's length and undercut so partials 1-3 land on the target ratios.
@@ -233,7 +271,12 @@ def tune_command(
     residuals shown are from that re-solve. Targets: +-1 cent for the fundamental,
     +-3 cents above. A bar that cannot reach its targets is reported with the
     constraint that binds; the command then says so first and exits with code 3,
-    and writes --out only with --keep-best.
+    and writes --out only with --keep-best. With --solid the residuals are those of
+    the 3-D model (Richardson-extrapolated over its mesh levels); --level, --accuracy,
+    --workers, --scheduler and --cache apply to the 3-D solves of --solid and
+    --correction-table. A preset with a [solid_correction] table is tuned through it
+    (1-D targets divided by the interpolated 3-D/1-D factors), and the residuals are
+    the table's predictions; the command says so.
     """
     import time
 
@@ -249,8 +292,33 @@ def tune_command(
     if out is not None:
         plan_outputs([(out, "tuned preset")], force=force)
     t0 = time.perf_counter()
-    with Progress(len(notes), "tuning") as step:
-        results = tune_instrument(inst, notes, ratios=target, progress=lambda n: step(1, n))
+    wanted = check_level_accuracy(level, accuracy)
+    solid_runs = {}
+    table, anchor_miss = correction_of(inst), None
+    if solid and correction_table:
+        raise ConfigError("= true: give --solid or --correction-table, not both",
+                          source="--correction-table")
+    if correction_table and note:
+        raise ConfigError("= true: builds the table from the whole range; drop --note",
+                          source="--correction-table")
+    if correction_table:
+        results, table, anchor_miss = build_correction_table(
+            inst, ratios=target, step=anchor_step, level=level, accuracy=wanted,
+            workers=workers, scheduler=scheduler, cache=cache)
+    elif table is not None and not solid:
+        from synth.physics.solid_tuning import tune_with_table
+
+        with Progress(len(notes), "tuning") as step:
+            results = tune_with_table(inst, notes, table, ratios=target,
+                                      progress=lambda n: step(1, n))
+    elif solid:
+        results, solid_runs = tune_against_solid(
+            inst, notes, ratios=target, level=level, accuracy=wanted, workers=workers,
+            scheduler=scheduler, cache=cache)
+    else:
+        with Progress(len(notes), "tuning") as step:
+            results = tune_instrument(inst, notes, ratios=target,
+                                      progress=lambda n: step(1, n))
     elapsed = time.perf_counter() - t0
     shop = {}
     mat = inst.material.at_temperature(inst.temperature_c)
@@ -271,12 +339,17 @@ def tune_command(
                 else "; nothing written (use --keep-best to write the best found)")
         missed(f"{n_missed} of {len(results)} bars missed their targets (worst: partial "
                f"{worst[1]} {worst[2]:+.0f} cents at {worst[0]}){what}")
+    if solid:
+        report_failed_jobs(results, solid_runs)
     if write:
         import tomli_w
 
         header = (f"# {inst.name}: tuned by barwright from {preset.name}\n"
                   f"# every [bars.*] table below is a solved bar; sizes in metres\n")
-        text = header + tomli_w.dumps(tuned_preset(inst, results))
+        tuned = tuned_preset(inst, results)
+        if table is not None and not solid:
+            tuned["solid_correction"] = table.to_table()
+        text = header + tomli_w.dumps(tuned)
         io.write_bytes(out, text.encode("utf-8"), force=force)
         commit_outputs()
     records = []
@@ -291,10 +364,16 @@ def tune_command(
             "seconds": r.seconds, "drift_cents_per_k": drift[r.spec.note],
             **({"shop_reading_cents": [float(c) for c in shop[r.spec.note]]}
                if r.spec.note in shop else {}),
+            **({"solid": solid_record(solid_runs[r.spec.note])}
+               if r.spec.note in solid_runs else {}),
         })
     if json_out:
         print_json({"bars": records, "seconds": elapsed, "out": str(out) if write else None,
-                    "missed": n_missed})
+                    "missed": n_missed,
+                    **({"solid_correction": table.to_table()}
+                       if table is not None and not solid else {}),
+                    **({"anchor_residual_cents": {a: list(v) for a, v in anchor_miss.items()}}
+                       if anchor_miss else {})})
         _exit_if_missed(worst)
         return
     n_p = max(len(r.spec.ratios) for r in results)
@@ -332,6 +411,13 @@ def tune_command(
     if shop:
         typer.echo(f"'at {shop_c:g} C': what partial 1 reads in the shop when the bar is in tune "
                    f"at {inst.temperature_c:g} C.")
+    if solid:
+        typer.echo(solid_summary(solid_runs))
+    elif table is not None:
+        typer.echo(_sentence(table.describe()))
+        if anchor_miss:
+            typer.echo("anchors in 3-D, cents off target: " + "; ".join(
+                f"{a} " + " ".join(f"{c:+.1f}" for c in v) for a, v in anchor_miss.items()))
     if write:
         typer.echo(f"wrote {out}")
     _exit_if_missed(worst)
@@ -470,6 +556,8 @@ def cutlist_command(
             "-" if r.tube_length_m is None else f"{r.tube_length_m * 1e3:.1f}",
         ])
     typer.echo(format_table(heads, table))
+    if correction_of(inst) is not None:
+        typer.echo(_sentence(correction_of(inst).describe()))
     typer.echo(f"wrote {csv_path} and {png_path}")
     if any(r.tube_length_m is not None for r in rows):
         typer.echo(f"tube lengths: closed end to mouth rim, for the [tubes] offset at "
@@ -506,3 +594,7 @@ def _override(inst, family: str | None, venue_c: float | None):
         raw["temperature_c"] = venue_c
         inst = replace(inst, temperature_c=venue_c)
     return replace(inst, raw=raw)
+
+
+def _sentence(text: str) -> str:
+    return text[:1].upper() + text[1:] + "."

@@ -4,6 +4,7 @@ The order here is the order of ``barwright --help``.
 """
 
 from synth.cli import cmd_bar  # noqa: F401  partials, tune, cutlist
+from synth.cli import cmd_solid  # noqa: F401  solid
 from synth.cli import cmd_sound  # noqa: F401  strike, chord, render
 from synth.cli import cmd_reports  # noqa: F401  sustain
 from synth.cli import cmd_compare  # noqa: F401  compare

@@ -66,6 +66,7 @@ from synth.physics.losses import parse_calibration, parse_supports
 from synth.physics.mallet import parse_sound
 from synth.physics.materials import Material, load_material
 from synth.physics.motor import parse_motor
+from synth.physics.solid_correction import parse_correction
 from synth.physics.tube import parse_tube_override, parse_tubes
 from synth.pitch import DEFAULT_REFERENCE_HZ, canonical_note, note_range, note_to_hz, note_to_midi
 
@@ -80,7 +81,7 @@ BAR_FILE_KEYS = ("material", "length_m", "width_m", "thickness_m", "min_thicknes
                  "description", *EXTRA_SECTIONS)
 INSTRUMENT_KEYS = ("name", "description", "material", "reference_pitch_hz", "temperature_c",
                    "lowest_note", "highest_note", "target_ratios", "blank", "undercut", "bars",
-                   "workshop", "client", *EXTRA_SECTIONS)
+                   "workshop", "client", "solid_correction", *EXTRA_SECTIONS)
 
 
 @dataclass(frozen=True)
@@ -189,9 +190,10 @@ class BarFile:
     sections: dict[str, Section] = field(default_factory=dict, compare=False)
 
 
-def _extra_sections(sec: Section, notes: tuple[str, ...] | None) -> dict[str, Section]:
+def _extra_sections(sec: Section, notes: tuple[str, ...] | None,
+                    instrument: bool = False) -> dict[str, Section]:
     out = {}
-    for name in EXTRA_SECTIONS:
+    for name in (*EXTRA_SECTIONS, "solid_correction") if instrument else EXTRA_SECTIONS:
         s = sec.section(name, None)
         if s is not None:
             out[name] = s
@@ -201,6 +203,7 @@ def _extra_sections(sec: Section, notes: tuple[str, ...] | None) -> dict[str, Se
     parse_tubes(out.get("tubes"))
     parse_motor(out.get("motor"))
     parse_sound(out.get("sound"))
+    parse_correction(out.get("solid_correction"), notes)
     return out
 
 
@@ -336,7 +339,7 @@ def _instrument(sec: Section, data: dict) -> Instrument:
         blank=blank,
         undercut_family=family,
         bars=bars,
-        sections=_extra_sections(sec, tuple(notes)),
+        sections=_extra_sections(sec, tuple(notes), instrument=True),
         tube_lengths=tube_lengths,
         raw=data,
     )

@@ -541,11 +541,13 @@ def instrument_spec(instrument: Instrument, note: str,
 
 
 def tune_instrument(instrument: Instrument, notes: list[str] | None = None, *,
-                    ratios: tuple[float, ...] | None = None, progress=None) -> list[TuneResult]:
-    """Tune every note (or ``notes``) from the lowest up, warm-starting each bar
-    from its lower neighbour's solution.
+                    ratios: tuple[float, ...] | None = None, progress=None,
+                    aim=None) -> list[TuneResult]:
+    """Tune every note (or ``notes``) from the lowest up, warm-starting each bar.
 
-    ``progress(note)`` is called after each bar.
+    Each bar starts from its lower neighbour's solution.
+    ``progress(note)`` is called after each bar. ``aim(spec) -> spec``, when given,
+    turns each bar's spec into the one the 1-D model is tuned to (a 3-D correction).
     """
     notes = list(notes or instrument.notes)
     order = sorted(notes, key=instrument.note_fraction)
@@ -553,6 +555,8 @@ def tune_instrument(instrument: Instrument, notes: list[str] | None = None, *,
     previous: TuneResult | None = None
     for note in order:
         spec = instrument_spec(instrument, note, ratios)
+        if aim is not None:
+            spec = aim(spec)
         start = scale_start(previous, spec) if previous is not None else None
         res = tune_bar(spec, start)
         if not res.reachable and start is not None:

@@ -16,6 +16,7 @@ import numpy as np
 
 from synth.physics.bar_fe import solve_bar
 from synth.physics.instrument import Instrument
+from synth.physics.solid_correction import corrected_modes, correction_of
 
 STATION_FRACTIONS = tuple(i / 10 for i in range(11))
 
@@ -54,9 +55,11 @@ def cut_rows(instrument: Instrument, notes: list[str] | None = None, progress=No
     """Solve every bar of the preset and collect what the shop needs to cut it."""
     rows = []
     material = instrument.material.at_temperature(instrument.temperature_c)
+    table = correction_of(instrument)
     for note in notes or instrument.notes:
         geo = instrument.bar(note)
-        res = solve_bar(geo, material, n_vertical=3, n_lateral=0, n_torsional=0)
+        res = corrected_modes(solve_bar(geo, material, n_vertical=3, n_lateral=0,
+                                        n_torsional=0), table, note)
         stations = geo.thickness_at(np.array(STATION_FRACTIONS) * geo.length_m)
         rows.append(CutRow(
             note=note,

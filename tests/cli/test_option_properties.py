@@ -41,6 +41,7 @@ BASE = {
     "partials": ["missing.toml", "--note", "A4"],
     "tune": ["missing.toml"],
     "grind": ["missing.toml"],
+    "solid": ["missing.toml", "--note", "A4"],
     "strike": ["missing.toml", "A4"],
     "chord": ["missing.toml", "A4"],
     "render": ["missing.toml", "missing-events.toml"],
@@ -48,7 +49,7 @@ BASE = {
     "compare": ["missing-a.toml", "missing-b.toml", "--blind", "4"],
     "measure": ["missing.wav"],
 }
-GROUPS = {"bar": ("partials", "tune", "grind"), "sound": ("strike", "chord", "render"),
+GROUPS = {"bar": ("partials", "tune", "grind", "solid"), "sound": ("strike", "chord", "render"),
           "reports": ("sustain", "compare", "measure")}
 
 

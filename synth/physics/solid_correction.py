@@ -1,0 +1,161 @@
+"""An instrument's 3-D correction table: factors f_3D / f_1D at anchor notes, interpolated.
+
+Solving every bar of a range in 3-D takes minutes; the correction factors
+``c = f_3D / f_1D`` of the 1-D model change slowly and smoothly along a graded range, so
+a few anchor notes (both ends and every 5-7 semitones) carry them. The table holds one
+factor per anchor for vertical partials 1-3, lateral 1 and torsional 1-2, and is
+interpolated linearly in semitones between anchors (constant beyond the end anchors).
+
+A tuned preset stores it as::
+
+    [solid_correction]
+    anchors = ["F3", "B3", ...]
+    mesh_level = 4
+    estimated_error = 0.0004        # largest 3-D error estimate at the anchors (relative)
+    [solid_correction.factors]
+    vertical_1 = [1.0070, ...]      # one per anchor
+    ...
+
+and every command that predicts frequencies from the preset (partials, tune, cutlist,
+the voice plan) multiplies the 1-D frequencies by the interpolated factors and says so.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, replace
+
+import numpy as np
+
+from synth.config import Section
+from synth.errors import ConfigError
+from synth.physics.bar_fe import BarModes
+from synth.pitch import canonical_note, note_to_midi
+
+CORRECTED: tuple[tuple[str, int], ...] = (
+    ("vertical", 1), ("vertical", 2), ("vertical", 3),
+    ("lateral", 1), ("torsional", 1), ("torsional", 2))
+"""The modes a table corrects."""
+
+SECTION = "solid_correction"
+
+
+def mode_key(kind: str, order: int) -> str:
+    """Return the table key of a mode: ``vertical_1``."""
+    return f"{kind}_{order}"
+
+
+@dataclass(frozen=True)
+class CorrectionTable:
+    """Correction factors at anchor notes.
+
+    Attributes
+    ----------
+    anchors : tuple of str
+        Anchor notes, increasing in pitch (at least two).
+    mesh_level : int
+        Finest 3-D mesh level of the anchor solves.
+    estimated_error : float
+        Largest 3-D error estimate of the corrected modes at the anchors (relative).
+    factors : dict
+        ``mode_key -> tuple`` of one factor ``f_3D / f_1D`` per anchor; a mode may be
+        absent (it is then not corrected).
+    """
+
+    anchors: tuple[str, ...]
+    mesh_level: int
+    estimated_error: float
+    factors: dict[str, tuple[float, ...]]
+
+    def factor(self, note: str, kind: str, order: int) -> float:
+        """Return the interpolated factor of one mode at ``note`` (1 when not tabled)."""
+        values = self.factors.get(mode_key(kind, order))
+        if values is None:
+            return 1.0
+        x = [note_to_midi(a) for a in self.anchors]
+        return float(np.interp(note_to_midi(note), x, values))
+
+    def vertical(self, note: str, n: int) -> tuple[float, ...]:
+        """Return the factors of vertical partials 1..n at ``note``."""
+        return tuple(self.factor(note, "vertical", k) for k in range(1, n + 1))
+
+    def describe(self) -> str:
+        """Say in a line what the table is."""
+        return (f"frequencies corrected by the preset's [{SECTION}] table (3-D solves at "
+                f"{', '.join(self.anchors)}, mesh level {self.mesh_level}, estimated error "
+                f"{self.estimated_error * 100:.3f} %)")
+
+    def to_table(self) -> dict:
+        """Return the TOML table."""
+        return {"anchors": list(self.anchors), "mesh_level": int(self.mesh_level),
+                "estimated_error": float(self.estimated_error),
+                "factors": {k: [round(float(v), 9) for v in vals]
+                            for k, vals in self.factors.items()}}
+
+
+def parse_correction(sec: Section | None,
+                     notes: tuple[str, ...] | None) -> CorrectionTable | None:
+    """Read a preset's ``[solid_correction]`` table (None without one).
+
+    Anchors must be notes of the instrument's range (when known), strictly increasing;
+    every factor list holds one value per anchor, each in ``solid.factor``.
+    """
+    if sec is None:
+        return None
+    sec.check_keys({"anchors", "mesh_level", "estimated_error", "factors"})
+    raw = sec.data.get("anchors")
+    if not isinstance(raw, list) or len(raw) < 2 or not all(isinstance(a, str) for a in raw):
+        raise sec.error("anchors", "must be a list of at least two notes, e.g. "
+                                   "[\"F3\", \"F6\"]")
+    try:
+        anchors = tuple(canonical_note(a) for a in raw)
+    except ConfigError as exc:
+        raise sec.error("anchors", str(exc)) from None
+    if notes is not None:
+        outside = [a for a in anchors if a not in notes]
+        if outside:
+            raise sec.error("anchors", f"{outside[0]} is not a note of the instrument's "
+                                       f"range {notes[0]}..{notes[-1]}")
+    midi = [note_to_midi(a) for a in anchors]
+    if any(b <= a for a, b in zip(midi, midi[1:], strict=False)):
+        raise sec.error("anchors", "must rise in pitch, each note once")
+    level = sec.integer("mesh_level", limit="solid.mesh_level")
+    error = sec.number("estimated_error", limit="solid.estimated_error")
+    fsec = sec.section("factors")
+    allowed = [mode_key(k, o) for k, o in CORRECTED]
+    fsec.check_keys(allowed)
+    factors = {key: tuple(fsec.numbers(key, limit="solid.factor", length=len(anchors)))
+               for key in allowed if key in fsec}
+    if not factors:
+        raise sec.error("factors", "holds no factors; allowed keys: " + ", ".join(allowed))
+    return CorrectionTable(anchors, level, error, factors)
+
+
+def correction_of(instrument) -> CorrectionTable | None:
+    """Return the correction table of an instrument preset (None without one)."""
+    section = getattr(instrument, "section", None)
+    if section is None:
+        return None
+    return parse_correction(section(SECTION), tuple(instrument.notes))
+
+
+def corrected_modes(modes: BarModes, table: CorrectionTable | None, note: str) -> BarModes:
+    """Return ``modes`` with each tabled mode's frequency multiplied by its factor."""
+    if table is None:
+        return modes
+    out = tuple(replace(m, frequency_hz=m.frequency_hz * table.factor(note, m.kind, m.order))
+                for m in modes.modes)
+    return replace(modes, modes=out)
+
+
+def anchor_notes(notes: tuple[str, ...] | list[str], step: int = 6) -> list[str]:
+    """Pick anchors: the first note, every ``step`` semitones, and the last note."""
+    if step < 1:
+        raise ConfigError(f"= {step}: must be 1 or more semitones", source="--anchor-step")
+    notes = list(notes)
+    picked = notes[::step]
+    if picked[-1] != notes[-1]:
+        if note_to_midi(notes[-1]) - note_to_midi(picked[-1]) < step / 2 and len(picked) > 1:
+            picked[-1] = notes[-1]  # a short last interval: move the last anchor to the end
+        else:
+            picked.append(notes[-1])
+    return picked
