@@ -772,7 +772,7 @@ def calibrate(measurement: Measurement, instrument: Instrument, note: str, *,
     raw = voicer(Calibration()).model(note)
     coupled = raw.coupling is not None
     as_preset = voicer(None)
-    preset_cal = as_preset.calibration
+    preset_cal = as_preset.loss_calibration
     preset_rate = parse_motor_rate(instrument)
     if preset_rate > 0:
         warnings.append(f"the preset's motor runs at {preset_rate:g} rev/s: the fit assumes a "
