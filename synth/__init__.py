@@ -17,6 +17,8 @@ find_partials, integrated_loudness
     Analyse a recording: array in, partials (or BS.1770-4 loudness) out.
 sustain_report
     Sustain of the fundamental across the range against a target.
+run_sweep, parse_vary
+    Design sweeps: variants of a preset over a grid of settings, one result each.
 SynthError, ConfigError, ModelError, AudioError
     The exceptions raised by the library.
 """
@@ -39,6 +41,8 @@ _LAZY = {
     "find_partials": "synth.analysis",
     "integrated_loudness": "synth.analysis",
     "sustain_report": "synth.reports.sustain",
+    "run_sweep": "synth.reports.sweep",
+    "parse_vary": "synth.reports.sweep",
     "SynthError": "synth.errors",
     "ConfigError": "synth.errors",
     "ModelError": "synth.errors",

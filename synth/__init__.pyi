@@ -12,6 +12,8 @@ from synth.io import read_audio as read_audio
 from synth.physics.instrument import load_design as load_design
 from synth.physics.instrument import load_instrument as load_instrument
 from synth.reports.sustain import sustain_report as sustain_report
+from synth.reports.sweep import parse_vary as parse_vary
+from synth.reports.sweep import run_sweep as run_sweep
 from synth.voicing import Voicer as Voicer
 
 __version__: str

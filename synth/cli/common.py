@@ -216,7 +216,12 @@ def file_label(label: str) -> str:
 
 def print_json(obj: Any) -> None:
     """Write ``obj`` as indented JSON on stdout (NaN becomes null)."""
-    typer.echo(json.dumps(_clean(obj), indent=2))
+    typer.echo(json_text(obj))
+
+
+def json_text(obj: Any) -> str:
+    """Return ``obj`` as indented JSON text (NaN and infinities become null)."""
+    return json.dumps(_clean(obj), indent=2)
 
 
 def _clean(obj: Any) -> Any:
