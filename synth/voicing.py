@@ -42,8 +42,9 @@ from pathlib import Path
 
 import numpy as np
 
+from synth.constants import LN_1000
 from synth.engine.score import Score, Strike
-from synth.engine.voice import CoupledPair, ModeBank, Voice, constant_power_pan, seconds_to_sample
+from synth.engine.voice import ModeBank, ModePair, Voice, constant_power_pan, seconds_to_sample
 from synth.errors import ConfigError
 from synth.physics.bar_fe import BarModes, solve_bar
 from synth.physics.coupling import BarMode, BarTubeCoupling, couple, pressure_weight
@@ -81,9 +82,6 @@ from synth.physics.tube import (
     speed_of_sound,
     tube_length_for_bar,
 )
-
-LN_1000 = math.log(1000.0)
-
 
 # --------------------------------------------------------------------------------------
 # Preset sections
@@ -400,7 +398,7 @@ class Voicer:
                      damping=self._damping(start, release_s, pedal), pairs=tuple(pairs),
                      label=model.note)
 
-    def _pair(self, model: NoteModel, energy_root: float, phase: float) -> CoupledPair:
+    def _pair(self, model: NoteModel, energy_root: float, phase: float) -> ModePair:
         pair = model.coupling.pair
         form = pair.engine_form(strike_energy_j=1.0,
                                 reference_distance_m=self.sound.listening_distance_m)
@@ -412,7 +410,7 @@ class Voicer:
             # the engine needs a lower bound of the tube's decay curve
             decays = (decays[0], mod.tube_wall_decay_per_s
                       + mod.tube_radiation_decay_per_s * mod.floor)
-        return CoupledPair(frequency_hz=form.frequency_hz, decay_per_s=decays,
+        return ModePair(frequency_hz=form.frequency_hz, decay_per_s=decays,
                            amplitude=(float(energy_root), 0.0), phase_rad=(float(phase), 0.0),
                            coupling_rad_s=coupling, weight_1=form.weight_bar,
                            weight_2=weight2, damped=(True, True), decay_2_curve=decay_curve)

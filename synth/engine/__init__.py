@@ -21,8 +21,8 @@ from synth.engine.render import (
     ring_out_sample,
 )
 from synth.engine.voice import (
-    CoupledPair,
     ModeBank,
+    ModePair,
     Voice,
     constant_power_pan,
     seconds_to_sample,
@@ -32,7 +32,7 @@ __all__ = [
     "ANCHOR_EVERY",
     "DEFAULT_BLOCK_SIZE",
     "DEFAULT_SILENCE_DB",
-    "CoupledPair",
+    "ModePair",
     "GainPlan",
     "ModeBank",
     "Voice",

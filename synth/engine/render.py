@@ -69,7 +69,7 @@ from typing import Final
 import numpy as np
 
 from synth.engine import kernels
-from synth.engine.voice import CoupledPair, Voice
+from synth.engine.voice import ModePair, Voice
 from synth.errors import ConfigError, ModelError
 
 DEFAULT_BLOCK_SIZE: Final[int] = 16384
@@ -141,7 +141,7 @@ class _Segments:
 
 
 class _PairState:
-    def __init__(self, pair: CoupledPair, sample_rate: float, where: str,
+    def __init__(self, pair: ModePair, sample_rate: float, where: str,
                  extra_rates_per_s: np.ndarray):
         self.pair = pair
         self.omega = np.array([2 * math.pi * f for f in pair.frequency_hz])

@@ -40,7 +40,7 @@ set the rate it starts with.  Rates are >= 0: a damper, a pedal, a release.
 
 Coupled pair
 ------------
-A :class:`CoupledPair` is two complex modes in rotating-wave form
+A :class:`ModePair` is two complex modes in rotating-wave form
 
     d/dt [a1, a2] = [[s1, i mu(t)], [i mu(t), s2]] [a1, a2],   s_j = i 2 pi f_j - g_j,
 
@@ -153,7 +153,7 @@ class ModeBank:
 
 
 @dataclass(frozen=True)
-class CoupledPair:
+class ModePair:
     """Two complex modes coupled in rotating-wave form (see the module docstring).
 
     Parameters
@@ -253,7 +253,7 @@ class Voice:
         The engine assumes it never exceeds its largest value by more than the
         silence threshold allows (a curve that rises by 140 dB late in a voice
         could be cut off; see :func:`synth.engine.render.render_blocks`).
-    pairs : sequence of CoupledPair, optional
+    pairs : sequence of ModePair, optional
         Coupled oscillator pairs sounding with the modes.
     label : str, optional
         Free text used in error messages (the voice plan puts the note here).
@@ -265,7 +265,7 @@ class Voice:
     stop_sample: int | None = None
     damping: tuple[tuple[int, float], ...] = ()
     gain_curve: Curve | None = None
-    pairs: tuple[CoupledPair, ...] = field(default=())
+    pairs: tuple[ModePair, ...] = field(default=())
     label: str = ""
 
     def __post_init__(self) -> None:
@@ -313,8 +313,8 @@ class Voice:
         if self.gain_curve is not None and not callable(self.gain_curve):
             raise ModelError(f"{where}: gain_curve must be a callable (first_sample, n) -> array")
         pairs = tuple(self.pairs)
-        if not all(isinstance(p, CoupledPair) for p in pairs):
-            raise ModelError(f"{where}: pairs must be CoupledPair objects")
+        if not all(isinstance(p, ModePair) for p in pairs):
+            raise ModelError(f"{where}: pairs must be ModePair objects")
         object.__setattr__(self, "pairs", pairs)
 
     @property

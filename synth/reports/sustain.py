@@ -16,7 +16,6 @@ would bring it inside while keeping the tube's gain above a floor is suggested
 
 from __future__ import annotations
 
-import math
 import statistics
 import time
 from dataclasses import dataclass
@@ -29,8 +28,6 @@ from synth.errors import ConfigError, ModelError
 from synth.physics.coupling import suggest_tube_offset
 from synth.pitch import cents, note_to_midi
 from synth.voicing import Voicer
-
-LN_1000 = math.log(1000.0)
 
 
 @dataclass(frozen=True)
