@@ -61,17 +61,7 @@ def sweep_command(
     integrated loudness of a short phrase. A variant that fails is reported and
     the others complete (exit code 3).
     """
-    from synth import io
-    from synth.reports.sweep import (
-        failure_lines,
-        parse_vary,
-        run_sweep,
-        sweep_csv,
-        sweep_png,
-        sweep_record,
-        sweep_rows,
-        variant_tables,
-    )
+    from synth.reports.sweep import failure_lines, parse_vary, run_sweep, variant_tables
 
     varies = [parse_vary(v) for v in vary]
     count = len(variant_tables(preset, varies))  # every variant read before any work
@@ -83,6 +73,23 @@ def sweep_command(
     with Progress(count, "sweep") as step:
         report = run_sweep(preset, varies, workers=workers, scheduler=scheduler,
                            progress=lambda r: step(1, f"variant {r.key + 1}"))
+    record = _write(report, paths, preset, force)
+    failures = failure_lines(report)
+    if failures:
+        exit_missed = missed(f"{len(failures)} of {count} variants failed; the others are "
+                             "reported")
+        for line in failures:
+            warn(line)
+    _print(report, record, paths, json_out)
+    if failures:
+        raise exit_missed
+
+
+def _write(report, paths: dict[str, Path], preset: Path, force: bool) -> dict:
+    """Write the CSV, JSON and plot of a sweep; return the JSON record."""
+    from synth import io
+    from synth.reports.sweep import sweep_csv, sweep_png, sweep_record
+
     record = sweep_record(report)
     record.update({key: str(p) for key, p in paths.items()})
     io.write_bytes(paths["csv"], sweep_csv(report).encode("utf-8"), force=force)
@@ -90,19 +97,16 @@ def sweep_command(
     io.write_bytes(paths["png"], sweep_png(report, f"{Path(preset).name}: design sweep"),
                    force=force)
     commit_outputs()
-    failures = failure_lines(report)
-    if failures:
-        exit_missed = missed(f"{len(failures)} of {count} variants failed; the others are "
-                             "reported")
-        for line in failures:
-            warn(line)
+    return record
+
+
+def _print(report, record: dict, paths: dict[str, Path], json_out: bool) -> None:
+    from synth.reports.sweep import sweep_rows
+
     if json_out:
         print_json(record)
-    else:
-        headers, rows = sweep_rows(report)
-        typer.echo(format_table(headers, rows, align="r" * len(headers)))
-        typer.echo(f"{count} variants on {report.engine}; wrote {paths['csv']}, "
-                   f"{paths['json']} and {paths['png']}")
-    if failures:
-        raise exit_missed
-
+        return
+    headers, rows = sweep_rows(report)
+    typer.echo(format_table(headers, rows, align="r" * len(headers)))
+    typer.echo(f"{len(rows)} variants on {report.engine}; wrote {paths['csv']}, "
+               f"{paths['json']} and {paths['png']}")
