@@ -61,18 +61,19 @@ def sweep_command(
     integrated loudness of a short phrase. A variant that fails is reported and
     the others complete (exit code 3).
     """
-    from synth.reports.sweep import failure_lines, parse_vary, run_sweep, variant_tables
+    from synth.reports.sweep import failure_lines, parse_vary, run_variants, variant_tables
 
     varies = [parse_vary(v) for v in vary]
-    count = len(variant_tables(preset, varies))  # every variant read before any work
+    tables = variant_tables(preset, varies)  # every variant read before any work
+    count = len(tables)
     folder = out or default_output(preset, "")
     paths = {"csv": folder / "sweep.csv", "json": folder / "sweep.json",
              "png": folder / "sweep.png"}
     plan_outputs([(paths["csv"], "table"), (paths["json"], "report"), (paths["png"], "plot")],
                  force=force)
     with Progress(count, "sweep") as step:
-        report = run_sweep(preset, varies, workers=workers, scheduler=scheduler,
-                           progress=lambda r: step(1, f"variant {r.key + 1}"))
+        report = run_variants(preset, varies, tables, workers=workers, scheduler=scheduler,
+                              progress=lambda r: step(1, f"variant {r.key + 1}"))
     record = _write(report, paths, preset, force)
     failures = failure_lines(report)
     if failures:

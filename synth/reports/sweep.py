@@ -306,15 +306,22 @@ def run_sweep(preset: str | Path, varies: Sequence[Vary | str], *, workers: int 
         One result per variant in grid order; a failed variant has its error
         instead, and the others complete.
     """
+    varies = tuple(v if isinstance(v, Vary) else parse_vary(v) for v in varies)
+    return run_variants(preset, varies, variant_tables(preset, varies), workers=workers,
+                        scheduler=scheduler, progress=progress)
+
+
+def run_variants(preset: str | Path, varies: Sequence[Vary], tables: list[tuple[tuple, dict]],
+                 *, workers: int | None = None, scheduler: str | None = None,
+                 progress: Callable[[JobResult], None] | None = None) -> SweepReport:
+    """Run variants already built by :func:`variant_tables` (see :func:`run_sweep`)."""
     from synth.executor import describe
 
-    varies = tuple(v if isinstance(v, Vary) else parse_vary(v) for v in varies)
-    tables = variant_tables(preset, varies)
     jobs = [Job(i, evaluate_variant, (settings, data, str(preset)))
             for i, (settings, data) in enumerate(tables)]
     results = run_jobs(jobs, workers=workers, scheduler=scheduler, progress=progress)
     return SweepReport(
-        preset=str(preset), varies=varies, variants=tuple(s for s, _ in tables),
+        preset=str(preset), varies=tuple(varies), variants=tuple(s for s, _ in tables),
         results=tuple(r.value if r.ok else None for r in results),
         errors=tuple(r.error for r in results),
         engine=describe(workers, scheduler))
