@@ -113,3 +113,43 @@ def test_bad_plan_is_one_clear_error() -> None:
         synth.render_strike(
             synth.load_instrument(ROOT / "presets" / "instruments" / "tarrow-37.toml"),
             "A4", seconds=-1.0)
+
+
+UNIFORM_BAR = """\
+material = "aluminium-6061-t6"
+length_m = 0.400
+width_m = 0.040
+thickness_m = 0.006
+"""
+
+
+def test_solve_partials_of_a_uniform_bar_against_euler_bernoulli(tmp_path) -> None:
+    """Solve a slender uniform bar from a file; compare with the free-free beam roots.
+
+    Source: R. D. Blevins, Formulas for Natural Frequency and Mode Shape (1979),
+    free-free beam, lambda_1 = 4.73004, lambda_2 = 7.85320;
+    f = lambda^2 / (2 pi L^2) sqrt(E I / (rho A)).  The 1-D model includes shear
+    and rotary inertia, which lower the modes of this bar (thickness/length 0.015)
+    by about 0.1 % (mode 1) and 0.25 % (mode 2, measured here): tolerances 0.3 %
+    and 0.6 %, and the model must lie below the thin-beam value.
+    """
+    import synth
+
+    path = tmp_path / "uniform.toml"
+    path.write_text(UNIFORM_BAR, encoding="utf-8")
+    design = synth.load_design(path)
+    modes = synth.solve_partials(design, n_lateral=0, n_torsional=0)
+    mat = design.material.at_temperature(design.temperature_c)
+    length, width, thick = 0.400, 0.040, 0.006
+    ei = mat.youngs_modulus_pa * width * thick**3 / 12.0
+    rho_a = mat.density_kg_m3 * width * thick
+    expected = [lam**2 / (2 * math.pi * length**2) * math.sqrt(ei / rho_a)
+                for lam in (4.73004, 7.85320)]
+    got = [m.frequency_hz for m in modes.vertical[:2]]
+    assert got[0] == pytest.approx(expected[0], rel=0.003) and got[0] < expected[0]
+    assert got[1] == pytest.approx(expected[1], rel=0.006) and got[1] < expected[1]
+    with pytest.raises(synth.ConfigError, match="note"):
+        synth.solve_partials(design, "A4")
+    demo = synth.load_instrument(ROOT / "presets" / "instruments" / "tarrow-37.toml")
+    with pytest.raises(synth.ConfigError, match="name the bar"):
+        synth.solve_partials(demo)
