@@ -320,7 +320,7 @@ class Voicer:
             Strength 0..1 (mapped to a mallet speed by the [sound] table).
         speed_m_s : float, optional
             Mallet head speed at impact (instead of velocity; default 1 m/s).
-        mallet : name, Mallet, or None (the preset's default)
+        mallet : name, Mallet, or None (the plan's ``mallet``, else the preset's)
         position : float, optional
             Strike point along the bar, 0..1 of the length (default [sound].position).
         across : float, optional

@@ -16,13 +16,13 @@ from __future__ import annotations
 
 import time
 
-from synth.config import presets_dir
+from synth.reports.demo import demo_preset_path
 from synth.reports.sweep import parse_vary, run_sweep
 
 
 def run(quick: bool = False) -> dict[str, float]:
     """Run the suite."""
-    preset = presets_dir() / "instruments" / "tarrow-37.toml"
+    preset = demo_preset_path()
     run_sweep(preset, [parse_vary("tubes.offset_cents=25")], workers=1)   # warm-up
     offsets = (0, 30) if quick else (0, 20, 40, 60)
     vary = [parse_vary("tubes.offset_cents=" + ",".join(str(c) for c in offsets))]

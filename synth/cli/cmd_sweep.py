@@ -41,7 +41,8 @@ def sweep_command(
         help="Instrument preset with solved [bars], [blank] and [undercut].",
         show_default=False)],
     vary: Annotated[list[str], typer.Option(
-        help="KEY=V1,V2,...: a preset key by its dotted name and the values to try, e.g. "
+        metavar="KEY=V1,V2,...",
+        help="A preset key by its dotted name and the values to try, e.g. "
              "tubes.offset_cents=0,20,40 or sound.mallet=soft,hard; a list value as "
              "0.013:0.011. Repeat for a grid of every combination.",
         show_default=False)],

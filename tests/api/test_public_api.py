@@ -23,6 +23,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+from synth.reports.demo import demo_preset_path
+
 ROOT = Path(__file__).resolve().parents[2]
 
 
@@ -90,7 +92,7 @@ def test_render_score_is_the_sum_of_its_strikes(tmp_path) -> None:
     import synth
     from synth.engine.score import Score, Strike
 
-    demo = synth.load_instrument(ROOT / "presets" / "instruments" / "tarrow-37.toml")
+    demo = synth.load_instrument(demo_preset_path())
     plan = synth.Voicer(demo, channels=1, tubes=False)
     score = Score(strikes=(Strike(time_s=0.0, note="A4", velocity=0.5),
                            Strike(time_s=0.25, note="C5", velocity=0.8)), pedal=())
@@ -108,10 +110,10 @@ def test_bad_plan_is_one_clear_error() -> None:
     import synth
 
     with pytest.raises(synth.ConfigError, match="plan"):
-        synth.render_strike("presets/instruments/tarrow-37.toml", "A4")
+        synth.render_strike(str(demo_preset_path()), "A4")
     with pytest.raises(synth.ConfigError, match="seconds"):
         synth.render_strike(
-            synth.load_instrument(ROOT / "presets" / "instruments" / "tarrow-37.toml"),
+            synth.load_instrument(demo_preset_path()),
             "A4", seconds=-1.0)
 
 
@@ -150,6 +152,6 @@ def test_solve_partials_of_a_uniform_bar_against_euler_bernoulli(tmp_path) -> No
     assert got[1] == pytest.approx(expected[1], rel=0.006) and got[1] < expected[1]
     with pytest.raises(synth.ConfigError, match="note"):
         synth.solve_partials(design, "A4")
-    demo = synth.load_instrument(ROOT / "presets" / "instruments" / "tarrow-37.toml")
+    demo = synth.load_instrument(demo_preset_path())
     with pytest.raises(synth.ConfigError, match="name the bar"):
         synth.solve_partials(demo)

@@ -17,15 +17,15 @@ Sources
 from __future__ import annotations
 
 import dataclasses
-from pathlib import Path
 
 import numpy as np
 import pytest
 
 from synth.physics.instrument import load_instrument
+from synth.reports.demo import demo_preset_path
 from synth.voicing import Voicer
 
-DEMO = Path(__file__).resolve().parents[2] / "presets" / "instruments" / "tarrow-37.toml"
+DEMO = demo_preset_path()
 FS = 48000.0
 
 

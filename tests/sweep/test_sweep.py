@@ -27,14 +27,14 @@ import pytest
 from typer.testing import CliRunner
 
 from synth.cli import app
-from synth.config import presets_dir
 from synth.errors import ConfigError
 from synth.physics.instrument import load_instrument
 from synth.reports import sweep
+from synth.reports.demo import demo_preset_path
 from synth.reports.sustain import sustain_report
 from synth.voicing import Voicer
 
-PRESET = presets_dir() / "instruments" / "tarrow-37.toml"
+PRESET = demo_preset_path()
 OFFSETS = (0, 20, 40, 60)
 
 
