@@ -36,14 +36,15 @@ hold): it rings while the dampers are lifted and stops when they come down.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
-from functools import lru_cache
+from dataclasses import dataclass, field, replace
+from functools import cached_property, lru_cache
 from pathlib import Path
 
 import numpy as np
 
+from synth.constants import LN_1000
 from synth.engine.score import Score, Strike
-from synth.engine.voice import CoupledPair, ModeBank, Voice, constant_power_pan, seconds_to_sample
+from synth.engine.voice import ModeBank, ModePair, Voice, constant_power_pan, seconds_to_sample
 from synth.errors import ConfigError
 from synth.physics.bar_fe import BarModes, solve_bar
 from synth.physics.coupling import BarMode, BarTubeCoupling, couple, pressure_weight
@@ -58,20 +59,22 @@ from synth.physics.losses import (
 )
 from synth.physics.mallet import (
     Mallet,
-    SoundSettings,  # noqa: F401 (re-exported)
+    SoundSettings,
     load_mallet,
     parse_sound,
     simulate_contact,
 )
+from synth.physics.materials import Material
 from synth.physics.motor import (
     DiscModulation,
+    MotorSpec,
     disc_modulation,
     parse_motor,
     steady_bar_decay_per_s,
 )
 from synth.physics.solid_correction import corrected_modes, correction_of
 from synth.physics.tube import (
-    TubeSettings,  # noqa: F401 (re-exported)
+    TubeSettings,
     TubeSpec,
     air_density,
     bar_area_over_mouth,
@@ -80,9 +83,6 @@ from synth.physics.tube import (
     speed_of_sound,
     tube_length_for_bar,
 )
-
-LN_1000 = math.log(1000.0)
-
 
 # --------------------------------------------------------------------------------------
 # Preset sections
@@ -126,21 +126,43 @@ class NoteModel:
         return max(0.0, 1.0 / m.q[0] - self.fundamental.eta)
 
 
-@dataclass
+@lru_cache(maxsize=512)
+def _solve_sounding(geometry, material) -> BarModes:
+    """Solve the modes a strike from above excites (pure, frozen inputs).
+
+    Shared by every plan of the same bar in the same alloy (a sweep's tube, motor
+    or mallet variants solve each bar once per process).
+    """
+    return solve_bar(geometry, material, n_vertical=5, n_lateral=0, n_torsional=2)
+
+
+@dataclass(frozen=True)
 class Voicer:
-    """Builds engine voices for the notes of one instrument.
+    """Plans engine voices for the notes of one instrument (frozen settings).
+
+    Derive variants with :func:`dataclasses.replace`; each instance keeps its own
+    cache of what it has planned, keyed by the note and strike, and a replaced
+    instance starts with an empty one (the cache is not an ``__init__`` field), so a
+    variant never reuses a plan of other settings.  Bar solves are shared between
+    instances through a cache keyed by the frozen geometry and material.
 
     Parameters
     ----------
     instrument : Instrument
+        The preset, as read by :func:`synth.physics.instrument.load_instrument`.
     sample_rate : float
+        Hz.
     tubes : bool
         Use the preset's ``[tubes]`` (False: bare bars).
     motor_rate_rev_per_s : float, optional
-        Override the preset's motor rate (0 stops it).
-    channels : 1 or 2
+        Override the preset's motor rate, rev/s (0 stops it).
+    channels : {1, 2}
+        Output channels (2: bars panned by their place on the keyboard).
     calibration : Calibration, optional
         Loss calibration (default: the preset's ``[damping]`` table).
+    mallet : str, optional
+        Mallet preset name for strikes that name none (default: the preset's
+        ``[sound]`` mallet).
     """
 
     instrument: Instrument
@@ -149,26 +171,70 @@ class Voicer:
     motor_rate_rev_per_s: float | None = None
     channels: int = 2
     calibration: Calibration | None = None
-    _cache: dict = field(default_factory=dict, repr=False)
+    mallet: str | None = None
+    _cache: dict = field(default_factory=dict, init=False, repr=False, compare=False)
 
     def __post_init__(self):
-        inst = self.instrument
-        self.sound = parse_sound(inst.section("sound"))
-        self.supports: Supports = parse_supports(inst.section("supports"))
-        if self.calibration is None:
-            self.calibration = parse_calibration(inst.section("damping"))
-        self.tube_settings = parse_tubes(inst.section("tubes"))
-        motor, self.phase_step_deg = parse_motor(inst.section("motor"))
-        if self.motor_rate_rev_per_s is not None:
-            from dataclasses import replace
-
-            motor = replace(motor, rate_rev_per_s=float(self.motor_rate_rev_per_s))
-        self.motor = motor
-        self.temperature_c = inst.temperature_c
-        self.material = inst.material.at_temperature(inst.temperature_c)
-        self.correction = correction_of(inst)  # [solid_correction]: 3-D / 1-D factors
         if self.channels not in (1, 2):
             raise ConfigError(f"= {self.channels}: must be 1 or 2", source="--channels")
+        if not (isinstance(self.sample_rate, (int, float)) and self.sample_rate > 0):
+            raise ConfigError(f"= {self.sample_rate!r}: must be > 0 Hz", source="sample_rate")
+
+    # -- settings derived from the preset (computed once per instance) -------------
+    @cached_property
+    def sound(self) -> SoundSettings:
+        """The preset's ``[sound]`` table, with this plan's default mallet."""
+        sound = parse_sound(self.instrument.section("sound"))
+        return sound if self.mallet is None else replace(sound, mallet=self.mallet)
+
+    @cached_property
+    def supports(self) -> Supports:
+        """The preset's ``[supports]`` table."""
+        return parse_supports(self.instrument.section("supports"))
+
+    @cached_property
+    def loss_calibration(self) -> Calibration:
+        """The calibration in use: the override, else the preset's ``[damping]``."""
+        if self.calibration is not None:
+            return self.calibration
+        return parse_calibration(self.instrument.section("damping"))
+
+    @cached_property
+    def tube_settings(self) -> TubeSettings | None:
+        """The preset's ``[tubes]`` table (None: no tubes)."""
+        return parse_tubes(self.instrument.section("tubes"))
+
+    @cached_property
+    def _motor_table(self) -> tuple[MotorSpec, float]:
+        return parse_motor(self.instrument.section("motor"))
+
+    @cached_property
+    def motor(self) -> MotorSpec:
+        """The preset's motor, with this plan's rate override."""
+        motor = self._motor_table[0]
+        if self.motor_rate_rev_per_s is None:
+            return motor
+        return replace(motor, rate_rev_per_s=float(self.motor_rate_rev_per_s))
+
+    @property
+    def phase_step_deg(self) -> float:
+        """Disc angle step between neighbouring bars, degrees."""
+        return self._motor_table[1]
+
+    @property
+    def temperature_c(self) -> float:
+        """Design temperature of the preset, degrees C."""
+        return self.instrument.temperature_c
+
+    @cached_property
+    def correction(self):
+        """The preset's ``[solid_correction]`` table: 3-D / 1-D factors (None: none)."""
+        return correction_of(self.instrument)
+
+    @cached_property
+    def material(self) -> Material:
+        """The preset's alloy at its design temperature."""
+        return self.instrument.material.at_temperature(self.instrument.temperature_c)
 
     @property
     def tubes_active(self) -> bool:
@@ -178,14 +244,15 @@ class Voicer:
 
     # -- per note ------------------------------------------------------------------
     def model(self, note: str) -> NoteModel:
-        """The cached per-note model."""
+        """Return the per-note model (cached per plan)."""
         note = self.instrument.check_note(note, option="note")
-        if note in self._cache:
-            return self._cache[note]
+        key = ("model", note, self.tubes_active, self.channels)
+        if key in self._cache:
+            return self._cache[key]
         geo = self.instrument.bar(note)
-        modes = corrected_modes(solve_bar(geo, self.material, n_vertical=5, n_lateral=0,
-                                          n_torsional=2), self.correction, note)
-        budget = tuple(loss_budget(modes, supports=self.supports, calibration=self.calibration,
+        modes = corrected_modes(_solve_sounding(geo, self.material), self.correction, note)
+        budget = tuple(loss_budget(modes, supports=self.supports,
+                                   calibration=self.loss_calibration,
                                    temperature_c=self.temperature_c, note=note))
         frac = self.instrument.note_fraction(note)
         pan = (frac - 0.5) * 2.0 * self.sound.pan_width if self.channels == 2 else 0.0
@@ -193,11 +260,11 @@ class Voicer:
         if self.tubes_active:
             tube, coupling = self._couple(note, modes, budget[0], frac)
         model = NoteModel(note, modes, budget, tube, coupling, pan)
-        self._cache[note] = model
+        self._cache[key] = model
         return model
 
     def tube_spec(self, note: str, modes: BarModes | None = None) -> TubeSpec | None:
-        """The note's tube as cut (length from [bars.NOTE.tube] or solved from the offset)."""
+        """Return the note's tube as cut ([bars.NOTE.tube] length, or solved from the offset)."""
         ts = self.tube_settings
         if ts is None:
             return None
@@ -217,8 +284,6 @@ class Voicer:
             length = tube_length_for_bar(modes.fundamental_hz, template,
                                          offset_cents=ts.offset_cents,
                                          temperature_c=self.temperature_c)
-        from dataclasses import replace
-
         return replace(template, length_m=length)
 
     def _couple(self, note: str, modes: BarModes, fund: ModeLoss, frac: float):
@@ -240,7 +305,7 @@ class Voicer:
         return tube, coupling
 
     def disc_phase_deg(self, note: str) -> float:
-        """This bar's disc angle on the shaft."""
+        """Return the disc angle of this note's bar on the shaft, degrees."""
         from synth.pitch import note_to_midi
 
         return self.phase_step_deg * (note_to_midi(note) - note_to_midi(self.instrument.notes[0]))
@@ -263,7 +328,7 @@ class Voicer:
             Strength 0..1 (mapped to a mallet speed by the [sound] table).
         speed_m_s : float, optional
             Mallet head speed at impact (instead of velocity; default 1 m/s).
-        mallet : name, Mallet, or None (the preset's default)
+        mallet : name, Mallet, or None (the plan's ``mallet``, else the preset's)
         position : float, optional
             Strike point along the bar, 0..1 of the length (default [sound].position).
         across : float, optional
@@ -323,7 +388,7 @@ class Voicer:
         sound = model.sounding()
         freq, decay, amp, ph = [], [], [], []
         pairs = []
-        for j, (i, b) in enumerate(sound):
+        for j, (_i, b) in enumerate(sound):
             if b.frequency_hz >= 0.45 * fs or b.frequency_hz >= nyquist:
                 continue
             if model.coupling is not None and b.kind == "vertical" and b.order == 1:
@@ -341,7 +406,7 @@ class Voicer:
                      damping=self._damping(start, release_s, pedal), pairs=tuple(pairs),
                      label=model.note)
 
-    def _pair(self, model: NoteModel, energy_root: float, phase: float) -> CoupledPair:
+    def _pair(self, model: NoteModel, energy_root: float, phase: float) -> ModePair:
         pair = model.coupling.pair
         form = pair.engine_form(strike_energy_j=1.0,
                                 reference_distance_m=self.sound.listening_distance_m)
@@ -353,13 +418,13 @@ class Voicer:
             # the engine needs a lower bound of the tube's decay curve
             decays = (decays[0], mod.tube_wall_decay_per_s
                       + mod.tube_radiation_decay_per_s * mod.floor)
-        return CoupledPair(frequency_hz=form.frequency_hz, decay_per_s=decays,
+        return ModePair(frequency_hz=form.frequency_hz, decay_per_s=decays,
                            amplitude=(float(energy_root), 0.0), phase_rad=(float(phase), 0.0),
                            coupling_rad_s=coupling, weight_1=form.weight_bar,
                            weight_2=weight2, damped=(True, True), decay_2_curve=decay_curve)
 
     def modulation(self, model: NoteModel) -> DiscModulation | None:
-        """The discs' per-sample streams for a note's tube (None: mouth always open)."""
+        """Return the discs' per-sample streams for a note's tube (None: mouth always open)."""
         if model.coupling is None:
             return None
         if self.motor.rate_rev_per_s <= 0 and self.motor.resting == "open":
@@ -476,7 +541,7 @@ def design_budget(design: Instrument | BarFile, label: str,
         extra = {}
         if model.coupling is not None:
             extra[("vertical", 1)] = model.tube_loss_factor()
-        budget = loss_budget(result, supports=v.supports, calibration=v.calibration,
+        budget = loss_budget(result, supports=v.supports, calibration=v.loss_calibration,
                              temperature_c=design.temperature_c, note=label, tube_eta=extra)
         tube = (f"tube {model.tube.length_m * 1e3:.1f} mm long, radius "
                 f"{model.tube.inner_radius_m * 1e3:.1f} mm, tuned "

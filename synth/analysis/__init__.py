@@ -47,7 +47,7 @@ from synth.analysis.loudness import (
     match_loudness,
     true_peak,
 )
-from synth.analysis.onset import Onsets, Strike, detect_onsets, find_strike
+from synth.analysis.onset import Onsets, StrikeOnset, detect_onsets, find_strike
 from synth.analysis.partials import Partial, PartialsResult, find_partials
 from synth.analysis.subspace import Pole, SubspaceFit, esprit, matrix_pencil, select_order
 
@@ -62,7 +62,7 @@ __all__ = [
     "Pole",
     "SchroederDecay",
     "SignalReport",
-    "Strike",
+    "StrikeOnset",
     "SubspaceFit",
     "TruePeak",
     "band_envelope",

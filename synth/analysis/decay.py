@@ -47,10 +47,8 @@ import numpy as np
 from synth.analysis._bands import band_signal, moving_average, segment_spectrum, taps_for
 from synth.analysis.checks import prepare
 from synth.analysis.onset import strike_in
+from synth.constants import LN_1000
 from synth.errors import AudioError, ConfigError
-
-LN_1000: Final[float] = math.log(1000.0)
-"""T60 / tau = ln 1000 = 6.907755 (physics note, section 6)."""
 
 NP_TO_DB: Final[float] = 20.0 / math.log(10.0)
 """dB per neper of amplitude, 8.685890."""
@@ -629,7 +627,7 @@ def schroeder_decay(
         Full band width, Hz; default as in :func:`fit_decay`.
     start_s : float, optional
         Where the curve starts (its 0 dB), s.  Default: the top of the attack
-        (``Strike.peak_s`` of :func:`synth.analysis.find_strike`).
+        (``StrikeOnset.peak_s`` of :func:`synth.analysis.find_strike`).
     end_s : float, optional
         Where the signal ends for the integral, s.  Default: the end of the
         file, or just before a second onset.

@@ -82,7 +82,7 @@ class Onsets:
 
 
 @dataclass(frozen=True)
-class Strike:
+class StrikeOnset:
     """The strike in a recording of one struck bar (from :func:`find_strike`).
 
     Attributes
@@ -308,7 +308,7 @@ def detect_onsets(
                   tuple(warnings))
 
 
-def strike_in(x: np.ndarray, fs: float, *, attack_margin_s: float = 0.01) -> Strike:
+def strike_in(x: np.ndarray, fs: float, *, attack_margin_s: float = 0.01) -> StrikeOnset:
     """Find the strike in a prepared mono signal (see :func:`find_strike`)."""
     times, _, levels = _detect(
         x, fs, frame_s=0.02, hop_s=0.005, threshold_db=3.0, min_rise_db=3.0, min_gap_s=0.05,
@@ -378,7 +378,7 @@ def strike_in(x: np.ndarray, fs: float, *, attack_margin_s: float = 0.01) -> Str
     seg = x[n0 : n0 + max(1, int(0.02 * fs))]
     level = _db_power(float(np.mean(seg * seg)))
     peak_s = peak_n / fs
-    return Strike(
+    return StrikeOnset(
         found=found,
         onset_s=n0 / fs,
         peak_s=peak_s,
@@ -390,7 +390,7 @@ def strike_in(x: np.ndarray, fs: float, *, attack_margin_s: float = 0.01) -> Str
     )
 
 
-def find_strike(signal, sample_rate: float, *, attack_margin_s: float = 0.01) -> Strike:
+def find_strike(signal, sample_rate: float, *, attack_margin_s: float = 0.01) -> StrikeOnset:
     """Locate the strike in a recording of one struck bar and the end of its attack.
 
     Parameters
@@ -406,7 +406,7 @@ def find_strike(signal, sample_rate: float, *, attack_margin_s: float = 0.01) ->
 
     Returns
     -------
-    Strike
+    StrikeOnset
         The loudest onset (by the level of the 20 ms after it), the end of its
         attack, the next onset after it, and warnings: none found, several
         strikes, a file that starts at full level.
@@ -420,4 +420,4 @@ def find_strike(signal, sample_rate: float, *, attack_margin_s: float = 0.01) ->
         raise ConfigError(f"attack_margin_s = {attack_margin_s!r}: must be >= 0 s")
     prep = prepare(signal, sample_rate, what="strike detection")
     strike = strike_in(prep.samples, prep.sample_rate, attack_margin_s=attack_margin_s)
-    return Strike(**{**strike.__dict__, "warnings": prep.warnings + strike.warnings})
+    return StrikeOnset(**{**strike.__dict__, "warnings": prep.warnings + strike.warnings})

@@ -54,6 +54,7 @@ from typing import Final
 import numpy as np
 import scipy.linalg as sl
 
+from synth.constants import LN_1000
 from synth.errors import AudioError, ConfigError
 
 _THREADS = None
@@ -71,9 +72,6 @@ def one_blas_thread():
 
         _THREADS = ThreadpoolController()
     return _THREADS.limit(limits=1, user_api="blas")
-
-LN_1000: Final[float] = math.log(1000.0)
-"""T60 / tau = ln 1000 = 6.907755: 60 dB of amplitude decay (physics note, section 6)."""
 
 NOISE_EDGE_FACTOR: Final[float] = 2.0
 """Safety factor on the largest singular value expected from noise alone in the

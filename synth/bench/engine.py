@@ -43,7 +43,7 @@ import numpy as np
 from threadpoolctl import threadpool_limits
 
 from synth.bench import median_time
-from synth.engine import CoupledPair, ModeBank, Voice, kernels, render_blocks
+from synth.engine import ModeBank, ModePair, Voice, kernels, render_blocks
 from synth.engine.render import _series_coefficients
 
 FS = 48000.0
@@ -158,11 +158,11 @@ def run(quick: bool = False) -> dict[str, float]:
         mu = _table_curve(5.0 * (1.0 + 0.5 * np.sin(2 * np.pi * 6.0 * (steps + 0.5) / FS)))
         g2 = _table_curve(26.0 + 8.0 * np.sin(2 * np.pi * 6.0 * (steps + 0.5) / FS))
         w2 = _table_curve(2.0 + np.cos(2 * np.pi * 6.0 * steps / FS))
-        pair = CoupledPair((440.0, 441.5), (0.46, 18.0), (1.0, 0.0), coupling_rad_s=mu)
+        pair = ModePair((440.0, 441.5), (0.46, 18.0), (1.0, 0.0), coupling_rad_s=mu)
         pair_v = [Voice(0, ModeBank.empty(), pairs=(pair,))]
         _drain(pair_v, 1024)
         figures["engine.pair_steps_per_s"] = n / median_time(lambda: _drain(pair_v, n), repeats)
-        pair_g = CoupledPair((440.0, 441.5), (0.46, 18.0), (1.0, 0.0), coupling_rad_s=mu,
+        pair_g = ModePair((440.0, 441.5), (0.46, 18.0), (1.0, 0.0), coupling_rad_s=mu,
                              decay_2_curve=g2)
         pair_gv = [Voice(0, ModeBank.empty(), pairs=(pair_g,))]
         _drain(pair_gv, 1024)
@@ -192,7 +192,7 @@ def run(quick: bool = False) -> dict[str, float]:
         t_bare = median_time(lambda: _drain(bare, n), repeats)
         for name, extra in (("pair_note_vs_bank_ratio", {}),
                             ("pair_decay_note_vs_bank_ratio", {"decay_2_curve": g2})):
-            full_pair = CoupledPair((440.0, 441.5), (0.46, 18.0), (1.0, 0.0),
+            full_pair = ModePair((440.0, 441.5), (0.46, 18.0), (1.0, 0.0),
                                     coupling_rad_s=mu, weight_2=w2, **extra)
             full = [Voice(0, note_bank, gain_curve=curve, pairs=(full_pair,))]
             _drain(full, 1024)

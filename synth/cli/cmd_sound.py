@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import math
 import re
 from collections.abc import Callable
 from pathlib import Path
@@ -24,48 +23,72 @@ from synth.cli.common import (
     warn,
     wav_targets,
 )
+from synth.cli.options import (  # noqa: F401  (cmd_compare reads the aliases from here)
+    FormatOpt,
+    MalletOpt,
+    MotorOpt,
+    PresetArg,
+    RateOpt,
+    RenderOptions,
+    TubesOpt,
+    render_options,
+)
 from synth.errors import ConfigError
 
-PresetArg = Annotated[Path, typer.Argument(help="Instrument preset (TOML) with solved [bars].",
-                                           show_default=False)]
-OutOpt = Annotated[Path | None, typer.Option(
-    help="WAV file to write (default renders/<preset>/<what>.wav); a .json sidecar goes "
-         "beside it.")]
-ForceOpt = Annotated[bool, typer.Option(help="Overwrite the WAV and its sidecar if they exist.")]
-RateOpt = Annotated[int, typer.Option("--sample-rate", min=44100, max=96000, metavar="Hz",
-                                      help="44100, 48000 or 96000 Hz.")]
-FormatOpt = Annotated[str, typer.Option(
-    "--format", help="Sample format: pcm24 (24-bit PCM), float32 or pcm16.")]
-ChannelsOpt = Annotated[int, typer.Option(
-    min=1, max=2, help="1 = mono, 2 = stereo (bars panned by their place on the keyboard).")]
-GainOpt = Annotated[float | None, typer.Option(
-    min=-100.0, max=100.0, metavar="dB",
-    help="Keep this fixed gain in dB instead of normalising the peak to -1 dBFS; lowered "
-         "(with a warning) if it would clip.")]
-MalletOpt = Annotated[str | None, typer.Option(
-    help="Mallet preset from presets/mallets (default: the preset's [sound] mallet).")]
-TubesOpt = Annotated[bool, typer.Option("--no-tubes", help="Leave the tubes out (bare bars).")]
-MotorOpt = Annotated[float | None, typer.Option(
-    min=0.0, max=50.0, metavar="rev/s",
-    help="Motor rate in rev/s, overriding the preset (0 stops it). The "
-         "tube mouths pulse at twice this rate.")]
-PlayOpt = Annotated[bool, typer.Option(help="Play the WAV after writing it (needs the play "
-                                            "extra and an output device).")]
-JsonOpt = Annotated[bool, typer.Option("--json", help="Print the render's report as JSON.")]
+VelocityOpt = Annotated[float | None, typer.Option(
+    min=0.0, max=1.0, help="Strength 0..1, mapped to a mallet speed by the preset's [sound] "
+                           "table (default: a 1 m/s strike).")]
+SpeedOpt = Annotated[float | None, typer.Option(
+    min=0.01, max=20.0, metavar="m/s", help="Mallet head speed at impact, m/s (instead of "
+                                            "--velocity).")]
+PositionOpt = Annotated[float | None, typer.Option(
+    min=0.0, max=1.0, help="Strike point along the bar, 0..1 of its length (0.5 = centre, "
+                           "which leaves partial 2 silent).")]
+AcrossOpt = Annotated[float | None, typer.Option(
+    min=-0.5, max=0.5, help="Strike point off the centreline, -0.5..0.5 of the width "
+                            "(off-centre strikes excite torsion).")]
+HoldOpt = Annotated[float | None, typer.Option(
+    min=0.0, max=600.0, metavar="seconds",
+    help="Key released after this many seconds; the dampers then act as --pedal allows "
+         "(default: held for the whole render).")]
+StrikePedalOpt = Annotated[float, typer.Option(
+    min=0.0, max=1.0, help="Damper pedal: 1 = dampers lifted (the note rings), 0 = dampers on "
+                           "the bar, in between = half pedal.")]
+RollOpt = Annotated[float, typer.Option(
+    min=0.0, max=2000.0, metavar="ms",
+    help="Spread the notes from the lowest up over this many ms (0 = struck together).")]
+ChordVelocityOpt = Annotated[float, typer.Option(min=0.0, max=1.0,
+                                                 help="Strength of notes given without one.")]
+CheckDecayOpt = Annotated[bool, typer.Option(
+    help="Also track each note's level in its own band and report the decay per note, their "
+         "spread and the balance over time (and a PNG).")]
+EventsArg = Annotated[Path, typer.Argument(
+    help="Event file: our TOML event list (see the README) or a standard MIDI file (.mid): "
+         "notes and the sustain pedal (controller 64).", show_default=False)]
+ScorePedalOpt = Annotated[float, typer.Option(
+    min=0.0, max=1.0, help="Pedal before the file's first pedal event: 1 = dampers lifted, "
+                           "0 = dampers on.")]
+TailOpt = Annotated[float | None, typer.Option(
+    min=0.0, max=600.0, metavar="seconds",
+    help="Seconds after the last event (default: until the slowest note has fallen 60 dB, at "
+         "most 30 s).")]
 
 
-def _voicer(preset: Path, *, sample_rate: int, channels: int, no_tubes: bool,
-            motor_rate: float | None):
+DurationOpt = Annotated[float, typer.Option(min=0.05, max=600.0, metavar="seconds",
+                                            help="Length of the WAV, seconds.")]
+
+
+def _voicer(preset: Path, opts: RenderOptions):
     from synth.io import SAMPLE_RATES_HZ
     from synth.physics.instrument import load_instrument
     from synth.voicing import Voicer
 
-    if sample_rate not in SAMPLE_RATES_HZ:
-        raise ConfigError(f"= {sample_rate}: must be one of "
+    if opts.sample_rate not in SAMPLE_RATES_HZ:
+        raise ConfigError(f"= {opts.sample_rate}: must be one of "
                           + ", ".join(str(r) for r in SAMPLE_RATES_HZ), source="--sample-rate")
-    inst = load_instrument(preset)
-    return Voicer(inst, sample_rate=float(sample_rate), tubes=not no_tubes,
-                  motor_rate_rev_per_s=motor_rate, channels=channels)
+    return Voicer(load_instrument(preset), sample_rate=float(opts.sample_rate),
+                  tubes=not opts.no_tubes, motor_rate_rev_per_s=opts.motor_rate,
+                  channels=opts.channels)
 
 
 def _check_format(fmt: str) -> None:
@@ -76,23 +99,11 @@ def _check_format(fmt: str) -> None:
                           source="--format")
 
 
-def _finish(preset: Path, name: str, out: Path | None, voices, seconds: float, *,
-            voicer, sample_rate: int, channels: int, fmt: str, gain_db: float | None,
-            force: bool, play: bool, json_out: bool, settings: dict,
-            also_write: Callable[[], None] | None = None, report: bool = True) -> dict:
-    """Render to the WAV (planned with its sidecar), run ``also_write``, commit, report.
+def _render(path: Path, voices, seconds: float, voicer, opts: RenderOptions, settings: dict):
+    """Render to the planned WAV with a progress bar; return the render's report."""
+    from synth.output import render_to_wav
 
-    Returns the report as a dict; ``report=False`` prints nothing, for a command that
-    prints one JSON document of its own.
-    """
-    from synth import io
-    from synth.output import HEARING_CAUTION, render_to_wav
-
-    _check_format(fmt)
-    path = out or default_output(preset, f"{name}.wav")
-    plan_outputs(wav_targets(path), force=force)
-    n = int(round(seconds * sample_rate))
-    settings = {"preset": str(preset), "tubes": voicer.tubes_active,
+    settings = {"tubes": voicer.tubes_active,
                 "motor_rate_rev_per_s": voicer.motor.rate_rev_per_s, **settings}
     with Progress(100, "rendering") as step:
         last = [0]
@@ -103,92 +114,100 @@ def _finish(preset: Path, name: str, out: Path | None, voices, seconds: float, *
                 step(pct - last[0])
                 last[0] = pct
 
-        rep = render_to_wav(path, voices, n, sample_rate=sample_rate, channels=channels,
-                            sample_format=fmt, gain_db=gain_db, force=force, settings=settings,
-                            progress=progress)
-    if also_write is not None:
-        also_write()
-    commit_outputs()
+        return render_to_wav(path, voices, int(round(seconds * opts.sample_rate)),
+                             sample_rate=opts.sample_rate, channels=opts.channels,
+                             sample_format=opts.fmt, gain_db=opts.gain_db, force=opts.force,
+                             settings=settings, progress=progress)
+
+
+def _say(rep, opts: RenderOptions) -> dict:
+    """Warn about a lowered gain and print the render's line; return its record."""
     plan = rep.plan
     if plan.would_clip:
         warn(f"--gain-db {plan.requested_gain_db:g} would clip (peak "
              f"{plan.peak_dbfs + plan.requested_gain_db - plan.gain_db:+.1f} dBFS); "
              f"lowered to {plan.gain_db:+.1f} dB so nothing clips")
-    record = {"wav": str(rep.path), "sidecar": str(rep.sidecar), "seconds": rep.seconds,
-              "sample_rate_hz": sample_rate, "channels": channels,
-              "peak_dbfs": plan.peak_dbfs, "gain_db": plan.gain_db, "mode": plan.mode,
-              "render_wall_s": rep.wall_s}
-    if json_out and report:
+    return {"wav": str(rep.path), "sidecar": str(rep.sidecar), "seconds": rep.seconds,
+            "sample_rate_hz": opts.sample_rate, "channels": opts.channels,
+            "peak_dbfs": plan.peak_dbfs, "gain_db": plan.gain_db, "mode": plan.mode,
+            "render_wall_s": rep.wall_s}
+
+
+def _print(record: dict, rep, opts: RenderOptions) -> None:
+    plan = rep.plan
+    if opts.json_out:
         print_json(record)
-    elif report:
-        how = ("normalised to -1 dBFS peak" if plan.mode == "normalise"
-               else f"fixed gain {plan.gain_db:+.1f} dB")
-        typer.echo(f"wrote {rep.path} ({rep.seconds:.2f} s, {sample_rate} Hz, "
-                   f"{'stereo' if channels == 2 else 'mono'}, {fmt}); peak "
-                   f"{plan.peak_dbfs:.1f} dBFS, gain {plan.gain_db:+.1f} dB ({how})")
-        typer.echo(f"settings: {rep.sidecar}")
-    if play:
-        info(HEARING_CAUTION)
-        try:
-            samples, fs = io.read_audio(rep.path)
-            io.play(samples, fs)
-        except Exception as exc:  # playback is optional: the WAV is written either way
-            warn(f"cannot play ({exc}); the WAV is written")
+        return
+    how = ("normalised to -1 dBFS peak" if plan.mode == "normalise"
+           else f"fixed gain {plan.gain_db:+.1f} dB")
+    typer.echo(f"wrote {rep.path} ({rep.seconds:.2f} s, {opts.sample_rate} Hz, "
+               f"{'stereo' if opts.channels == 2 else 'mono'}, {opts.fmt}); peak "
+               f"{plan.peak_dbfs:.1f} dBFS, gain {plan.gain_db:+.1f} dB ({how})")
+    typer.echo(f"settings: {rep.sidecar}")
+
+
+def _play(path: Path) -> None:
+    from synth import io
+    from synth.output import HEARING_CAUTION
+
+    info(HEARING_CAUTION)
+    try:
+        samples, fs = io.read_audio(path)
+        io.play(samples, fs)
+    except Exception as exc:  # playback is optional: the WAV is written either way
+        warn(f"cannot play ({exc}); the WAV is written")
+
+
+def _finish(preset: Path, name: str, voices, seconds: float, *, voicer, opts: RenderOptions,
+            settings: dict, wav: Path | None = None,
+            also_write: Callable[[], None] | None = None, report: bool = True) -> dict:
+    """Render to the WAV (planned with its sidecar), run ``also_write``, commit, report.
+
+    Returns the report as a dict; ``report=False`` prints nothing, for a command that
+    prints one JSON document of its own.
+    """
+    _check_format(opts.fmt)
+    path = wav or opts.out or default_output(preset, f"{name}.wav")
+    plan_outputs(wav_targets(path), force=opts.force)
+    rep = _render(path, voices, seconds, voicer, opts, {"preset": str(preset), **settings})
+    if also_write is not None:
+        also_write()
+    commit_outputs()
+    record = _say(rep, opts)
+    if report:
+        _print(record, rep, opts)
+    if opts.play:
+        _play(rep.path)
     return record
 
 
 @app.command("strike")
 @handle_errors
+@render_options
 def strike_command(
     preset: PresetArg,
     note: Annotated[str, typer.Argument(help="Note to strike, e.g. F3, F#4, Bb5.",
                                         show_default=False)],
     mallet: MalletOpt = None,
-    velocity: Annotated[float | None, typer.Option(
-        min=0.0, max=1.0, help="Strength 0..1, mapped to a mallet speed by the preset's "
-                               "[sound] table (default: a 1 m/s strike).")] = None,
-    speed: Annotated[float | None, typer.Option(
-        min=0.01, max=20.0, metavar="m/s",
-        help="Mallet head speed at impact, m/s (instead of --velocity).")
-    ] = None,
-    position: Annotated[float | None, typer.Option(
-        min=0.0, max=1.0, help="Strike point along the bar, 0..1 of its length (0.5 = centre, "
-                               "which leaves partial 2 silent).")] = None,
-    across: Annotated[float | None, typer.Option(
-        min=-0.5, max=0.5, help="Strike point off the centreline, -0.5..0.5 of the width "
-                                "(off-centre strikes excite torsion).")] = None,
-    duration: Annotated[float, typer.Option(min=0.05, max=600.0, metavar="seconds",
-                                            help="Length of the WAV, seconds.")] = 5.0,
-    pedal: Annotated[float, typer.Option(
-        min=0.0, max=1.0, help="Damper pedal: 1 = dampers lifted (the note rings), 0 = "
-                               "dampers on the bar, in between = half pedal.")] = 1.0,
-    hold: Annotated[float | None, typer.Option(
-        min=0.0, max=600.0, metavar="seconds",
-        help="Key released after this many seconds; the dampers then act as "
-             "--pedal allows (default: held for the whole render).")] = None,
-    no_tubes: TubesOpt = False,
-    motor_rate: MotorOpt = None,
-    out: OutOpt = None,
-    force: ForceOpt = False,
-    sample_rate: RateOpt = 48000,
-    fmt: FormatOpt = "pcm24",
-    channels: ChannelsOpt = 2,
-    gain_db: GainOpt = None,
-    play: PlayOpt = False,
-    json_out: JsonOpt = False,
+    velocity: VelocityOpt = None,
+    speed: SpeedOpt = None,
+    position: PositionOpt = None,
+    across: AcrossOpt = None,
+    duration: DurationOpt = 5.0,
+    pedal: StrikePedalOpt = 1.0,
+    hold: HoldOpt = None,
+    *,
+    render: RenderOptions,
 ) -> None:
     """Render one struck bar to WAV: its computed partials, losses, tube and motor."""
     if velocity is not None and speed is not None:
         raise ConfigError("give --velocity or --speed, not both", source="--speed")
-    v = _voicer(preset, sample_rate=sample_rate, channels=channels, no_tubes=no_tubes,
-                motor_rate=motor_rate)
+    v = _voicer(preset, render)
     name = v.instrument.check_note(note)
     voice = v.strike_voice(name, velocity=velocity, speed_m_s=speed, mallet=mallet,
                            position=position, across=across, release_s=hold,
                            pedal=((0.0, pedal),))
-    _finish(preset, f"strike-{file_label(name)}", out, [voice], duration, voicer=v,
-            sample_rate=sample_rate, channels=channels, fmt=fmt, gain_db=gain_db, force=force,
-            play=play, json_out=json_out,
+    _finish(preset, f"strike-{file_label(name)}", [voice], duration, voicer=v, opts=render,
             settings={"command": "strike", "note": name, "mallet": mallet or v.sound.mallet,
                       "velocity": velocity, "speed_m_s": speed, "position": position,
                       "across": across, "pedal": pedal, "hold_s": hold})
@@ -216,38 +235,47 @@ def parse_chord(text: str, option: str = "NOTES") -> list[tuple[str, float | Non
 
 @app.command("chord")
 @handle_errors
+@render_options
 def chord_command(
     preset: PresetArg,
     notes: Annotated[str, typer.Argument(
         help='Notes, e.g. "F3 A4 C5"; a strength per note as "A4:0.8".', show_default=False)],
     mallet: MalletOpt = None,
-    velocity: Annotated[float, typer.Option(min=0.0, max=1.0,
-                                            help="Strength of notes given without one.")] = 0.6,
-    roll_ms: Annotated[float, typer.Option(
-        min=0.0, max=2000.0, metavar="ms",
-        help="Spread the notes from the lowest up over this many ms "
-             "(0 = struck together).")] = 0.0,
-    duration: Annotated[float, typer.Option(min=0.05, max=600.0, metavar="seconds",
-                                            help="Length of the WAV, seconds.")] = 6.0,
-    check_decay: Annotated[bool, typer.Option(
-        help="Also track each note's level in its own band and report the decay per note, "
-             "their spread and the balance over time (and a PNG).")] = False,
-    no_tubes: TubesOpt = False,
-    motor_rate: MotorOpt = None,
-    out: OutOpt = None,
-    force: ForceOpt = False,
-    sample_rate: RateOpt = 48000,
-    fmt: FormatOpt = "pcm24",
-    channels: ChannelsOpt = 2,
-    gain_db: GainOpt = None,
-    play: PlayOpt = False,
-    json_out: JsonOpt = False,
+    velocity: ChordVelocityOpt = 0.6,
+    roll_ms: RollOpt = 0.0,
+    duration: DurationOpt = 6.0,
+    check_decay: CheckDecayOpt = False,
+    *,
+    render: RenderOptions,
 ) -> None:
     """Render a chord (struck together or rolled) to WAV."""
     chord = parse_chord(notes)  # before any file is read: a typo costs nothing
-    v = _voicer(preset, sample_rate=sample_rate, channels=channels, no_tubes=no_tubes,
-                motor_rate=motor_rate)
+    v = _voicer(preset, render)
     items = [(v.instrument.check_note(n, option="NOTES"), vel) for n, vel in chord]
+    voices = _chord_voices(v, items, velocity, roll_ms, mallet)
+    label = "-".join(file_label(n) for n, _ in items)
+    wav = render.out or default_output(preset, f"chord-{label}.wav")
+    decay = None
+    if check_decay:
+        from synth.cli.cmd_reports import chord_decay_check, decay_png_path
+
+        png = decay_png_path(wav)
+        _check_format(render.fmt)
+        plan_outputs([*wav_targets(wav), (png, "decay plot")], force=render.force)
+        decay = chord_decay_check(v, items, velocity, mallet, roll_ms, duration, png)
+    record = _finish(
+        preset, f"chord-{label}", voices, duration, voicer=v, opts=render, wav=wav,
+        report=not (render.json_out and check_decay),
+        settings={"command": "chord", "notes": [n for n, _ in items],
+                  "strengths": [velocity if vel is None else vel for _, vel in items],
+                  "roll_ms": roll_ms, "mallet": mallet or v.sound.mallet},
+        also_write=None if decay is None else decay.write)
+    if decay is not None:
+        decay.report(json_out=render.json_out, render=record)
+
+
+def _chord_voices(v, items, velocity: float, roll_ms: float, mallet: str | None) -> list:
+    """Strike the notes from the lowest up, ``roll_ms`` spread over them."""
     order = sorted(range(len(items)), key=lambda i: v.instrument.note_fraction(items[i][0]))
     step = roll_ms / 1000.0 / max(len(items) - 1, 1) if roll_ms > 0 else 0.0
     voices = []
@@ -255,62 +283,28 @@ def chord_command(
         name, vel = items[i]
         voices.append(v.strike_voice(name, time_s=rank * step,
                                      velocity=velocity if vel is None else vel, mallet=mallet))
-    label = "-".join(file_label(n) for n, _ in items)
-    wav = out or default_output(preset, f"chord-{label}.wav")
-    decay = None
-    if check_decay:
-        from synth.cli.cmd_reports import chord_decay_check, decay_png_path
-
-        png = decay_png_path(wav)
-        _check_format(fmt)
-        plan_outputs([*wav_targets(wav), (png, "decay plot")], force=force)
-        decay = chord_decay_check(v, items, velocity, mallet, roll_ms, duration, png)
-    record = _finish(
-            preset, f"chord-{label}", wav, voices, duration, voicer=v, sample_rate=sample_rate,
-            channels=channels, fmt=fmt, gain_db=gain_db, force=force, play=play,
-            json_out=json_out, report=not (json_out and check_decay),
-            settings={"command": "chord", "notes": [n for n, _ in items],
-                      "strengths": [velocity if vel is None else vel for _, vel in items],
-                      "roll_ms": roll_ms, "mallet": mallet or v.sound.mallet},
-            also_write=None if decay is None else decay.write)
-    if decay is not None:
-        decay.report(json_out=json_out, render=record)
+    return voices
 
 
 @app.command("render")
 @handle_errors
+@render_options
 def render_command(
     preset: PresetArg,
-    events: Annotated[Path, typer.Argument(
-        help="Event file: our TOML event list (see the README) or a standard MIDI file "
-             "(.mid): notes and the sustain pedal (controller 64).", show_default=False)],
+    events: EventsArg,
     mallet: MalletOpt = None,
-    pedal: Annotated[float, typer.Option(
-        min=0.0, max=1.0, help="Pedal before the file's first pedal event: 1 = dampers "
-                               "lifted, 0 = dampers on.")] = 0.0,
-    tail: Annotated[float | None, typer.Option(
-        min=0.0, max=600.0, metavar="seconds",
-        help="Seconds after the last event (default: until the "
-             "slowest note has fallen 60 dB, at most 30 s).")] = None,
-    no_tubes: TubesOpt = False,
-    motor_rate: MotorOpt = None,
-    out: OutOpt = None,
-    force: ForceOpt = False,
-    sample_rate: RateOpt = 48000,
-    fmt: FormatOpt = "pcm24",
-    channels: ChannelsOpt = 2,
-    gain_db: GainOpt = None,
-    play: PlayOpt = False,
-    json_out: JsonOpt = False,
+    pedal: ScorePedalOpt = 0.0,
+    tail: TailOpt = None,
+    *,
+    render: RenderOptions,
 ) -> None:
     """Render a passage from an event file (TOML events or MIDI) to WAV."""
     from dataclasses import replace
 
-    from synth.engine.render import ring_out_sample
+    from synth.api import score_length_s
     from synth.engine.score import read_events
 
-    v = _voicer(preset, sample_rate=sample_rate, channels=channels, no_tubes=no_tubes,
-                motor_rate=motor_rate)
+    v = _voicer(preset, render)
     score = read_events(events)
     for k, st in enumerate(score.strikes):
         try:
@@ -323,18 +317,10 @@ def render_command(
                                              for s in score.strikes))
     with Progress(len(score.strikes), "planning") as step:
         voices = v.score_voices(score, default_pedal=pedal, progress=lambda k, n: step(1))
-    if score.length_s is not None:
-        seconds = score.length_s
-    elif tail is not None:
+    if score.length_s is None and tail is not None:
         seconds = score.last_event_s + tail
     else:
-        if not voices:
-            raise ConfigError("has no strikes to render", source=str(events))
-        ring = ring_out_sample(voices, sample_rate=sample_rate, level_db=-60.0)
-        ring_s = math.inf if ring is None else ring / sample_rate
-        seconds = min(ring_s, score.last_event_s + 30.0)
-    _finish(preset, events.stem, out, voices, seconds, voicer=v, sample_rate=sample_rate,
-            channels=channels, fmt=fmt, gain_db=gain_db, force=force, play=play,
-            json_out=json_out,
+        seconds = score_length_s(v, replace(score, source=str(events)), voices)
+    _finish(preset, events.stem, voices, seconds, voicer=v, opts=render,
             settings={"command": "render", "events": str(events), "strikes": len(voices),
                       "default_pedal": pedal, "mallet": mallet})

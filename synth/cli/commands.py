@@ -7,6 +7,7 @@ from synth.cli import cmd_bar  # noqa: F401  partials, tune, cutlist
 from synth.cli import cmd_solid  # noqa: F401  solid
 from synth.cli import cmd_sound  # noqa: F401  strike, chord, render
 from synth.cli import cmd_reports  # noqa: F401  sustain
+from synth.cli import cmd_sweep  # noqa: F401  sweep
 from synth.cli import cmd_compare  # noqa: F401  compare
 from synth.cli import cmd_measure  # noqa: F401  measure
 from synth.cli import cmd_bench  # noqa: F401  bench

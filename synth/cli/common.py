@@ -12,7 +12,7 @@ import math
 import signal
 import sys
 import threading
-from collections.abc import Callable, Iterable, Sequence
+from collections.abc import Callable, Iterable
 from pathlib import Path
 from typing import Any
 
@@ -20,6 +20,7 @@ import typer
 
 from synth.cli.usage import EXIT_BAD_INPUT, EXIT_INTERRUPTED, EXIT_MISSED, EXIT_TERMINATED
 from synth.errors import ConfigError, SynthError
+from synth.reports.tables import format_table  # noqa: F401  (commands import it from here)
 
 
 def fail(message: str) -> typer.Exit:
@@ -216,7 +217,12 @@ def file_label(label: str) -> str:
 
 def print_json(obj: Any) -> None:
     """Write ``obj`` as indented JSON on stdout (NaN becomes null)."""
-    typer.echo(json.dumps(_clean(obj), indent=2))
+    typer.echo(json_text(obj))
+
+
+def json_text(obj: Any) -> str:
+    """Return ``obj`` as indented JSON text (NaN and infinities become null)."""
+    return json.dumps(_clean(obj), indent=2)
 
 
 def _clean(obj: Any) -> Any:
@@ -229,45 +235,6 @@ def _clean(obj: Any) -> Any:
     if hasattr(obj, "tolist"):
         return _clean(obj.tolist())
     return obj
-
-
-def format_table(headers: Sequence[str], rows: Iterable[Sequence[Any]],
-                 align: str | None = None, title: str | None = None) -> str:
-    """Lay out rows as a plain-text table.
-
-    Parameters
-    ----------
-    headers : sequence of str
-        Column titles (units in the title, e.g. ``"freq Hz"``).
-    rows : iterable of sequences
-        Cells, already formatted as strings or numbers.
-    align : str, optional
-        One letter per column, ``l`` or ``r``; numbers default to right.
-    title : str, optional
-        A line printed above the table.
-    """
-    rows = [["" if c is None else str(c) for c in r] for r in rows]
-    n = len(headers)
-    widths = [len(h) for h in headers]
-    for r in rows:
-        for i, c in enumerate(r[:n]):
-            widths[i] = max(widths[i], len(c))
-    if align is None:
-        align = "l" + "r" * (n - 1)
-
-    def line(cells):
-        out = []
-        for i, c in enumerate(cells):
-            out.append(c.ljust(widths[i]) if align[i] == "l" else c.rjust(widths[i]))
-        return "  ".join(out).rstrip()
-
-    parts = []
-    if title:
-        parts.append(title)
-    parts.append(line(list(headers)))
-    parts.append("  ".join("-" * w for w in widths))
-    parts.extend(line(r + [""] * (n - len(r))) for r in rows)
-    return "\n".join(parts)
 
 
 class Progress:

@@ -23,8 +23,8 @@ from synth.engine.render import (
     ring_out_sample,
 )
 from synth.engine.voice import (
-    CoupledPair,
     ModeBank,
+    ModePair,
     Voice,
     constant_power_pan,
     seconds_to_sample,
@@ -35,7 +35,7 @@ __all__ = [
     "DEFAULT_BLOCK_SIZE",
     "DEFAULT_RETIRE_DB",
     "RETIRE_EVERY",
-    "CoupledPair",
+    "ModePair",
     "GainPlan",
     "ModeBank",
     "Voice",

@@ -98,7 +98,7 @@ from typing import Final
 import numpy as np
 
 from synth.engine import kernels
-from synth.engine.voice import CoupledPair, Voice
+from synth.engine.voice import ModePair, Voice
 from synth.errors import ConfigError, ModelError
 
 DEFAULT_BLOCK_SIZE: Final[int] = 16384
@@ -177,7 +177,7 @@ class _Segments:
 
 
 class _PairState:
-    def __init__(self, pair: CoupledPair, sample_rate: float, where: str,
+    def __init__(self, pair: ModePair, sample_rate: float, where: str,
                  extra_rates_per_s: np.ndarray):
         self.pair = pair
         self.omega = np.array([2 * math.pi * f for f in pair.frequency_hz])
@@ -222,7 +222,7 @@ class _PairState:
         self.cosh_coef, self.sinh_coef = _series_coefficients(z_bound, where)
         self.modal = self._modal_form(pair, extra_rates_per_s)
 
-    def _modal_form(self, pair: CoupledPair, extra_rates_per_s: np.ndarray):
+    def _modal_form(self, pair: ModePair, extra_rates_per_s: np.ndarray):
         """Eigenvectors of a pair with constant coefficients, for its output bound.
 
         With ``mu``, ``weight_2`` and ``g2`` constant and the damping acting on

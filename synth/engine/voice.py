@@ -40,7 +40,7 @@ set the rate it starts with.  Rates are >= 0: a damper, a pedal, a release.
 
 Coupled pair
 ------------
-A :class:`CoupledPair` is two complex modes in rotating-wave form
+A :class:`ModePair` is two complex modes in rotating-wave form
 
     d/dt [a1, a2] = [[s1, i mu(t)], [i mu(t), s2]] [a1, a2],   s_j = i 2 pi f_j - g_j,
 
@@ -153,7 +153,7 @@ class ModeBank:
 
 
 @dataclass(frozen=True)
-class CoupledPair:
+class ModePair:
     """Two complex modes coupled in rotating-wave form (see the module docstring).
 
     Parameters
@@ -259,7 +259,7 @@ class Voice:
         rates >= 0 (see the module docstring).
     gain_curve : curve, optional
         Per-sample gain applied to the whole voice, ``curve(first_sample, n)``.
-    pairs : sequence of CoupledPair, optional
+    pairs : sequence of ModePair, optional
         Coupled oscillator pairs sounding with the modes.
     label : str, optional
         Free text used in error messages (the voice plan puts the note here).
@@ -278,7 +278,7 @@ class Voice:
     stop_sample: int | None = None
     damping: tuple[tuple[int, float], ...] = ()
     gain_curve: Curve | None = None
-    pairs: tuple[CoupledPair, ...] = field(default=())
+    pairs: tuple[ModePair, ...] = field(default=())
     label: str = ""
     gain_curve_max: float | None = None
 
@@ -329,8 +329,8 @@ class Voice:
         object.__setattr__(self, "gain_curve_max",
                            _bound_or_none(self.gain_curve_max, "gain_curve_max", where))
         pairs = tuple(self.pairs)
-        if not all(isinstance(p, CoupledPair) for p in pairs):
-            raise ModelError(f"{where}: pairs must be CoupledPair objects")
+        if not all(isinstance(p, ModePair) for p in pairs):
+            raise ModelError(f"{where}: pairs must be ModePair objects")
         object.__setattr__(self, "pairs", pairs)
 
     @property

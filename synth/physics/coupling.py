@@ -102,6 +102,7 @@ from synth.physics.tube import (
     tube_length_for_bar,
     tube_mode,
 )
+from synth.pitch import cents_to_ratio
 
 _Z0_20C = AIR_DENSITY_20C_KG_M3 * speed_of_sound(20.0)
 """Characteristic impedance of air at 20 C, rho c in Pa s/m (about 413.3)."""
@@ -381,7 +382,7 @@ class CoupledPair:
         The tube keeps its Q (decay rates scale with its frequency) and ``mu`` is
         unchanged, as in the physics.md section 8 example.
         """
-        ratio = 2.0 ** (float(offset_cents) / 1200.0)
+        ratio = float(cents_to_ratio(float(offset_cents)))
         f2 = self.bar_frequency_hz * ratio
         scale = f2 / self.tube_frequency_hz
         return replace(self, tube_frequency_hz=f2,

@@ -209,8 +209,12 @@ def _extra_sections(sec: Section, notes: tuple[str, ...] | None,
 
 def load_design(path: str | Path) -> Instrument | BarFile:
     """Read a bar file or an instrument preset, deciding by its keys."""
-    data = load_toml(path)
-    sec = Section(data, str(path))
+    return design_from_table(load_toml(path), str(path))
+
+
+def design_from_table(data: dict, source: str) -> Instrument | BarFile:
+    """Check a parsed TOML table as :func:`load_design` does (``source`` names it)."""
+    sec = Section(data, source)
     if "lowest_note" in data or "bars" in data or "blank" in data:
         return _instrument(sec, data)
     return _bar_file(sec)

@@ -58,6 +58,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from synth.config import Section
+from synth.constants import LN_1000
 from synth.errors import ConfigError
 from synth.physics.bar_fe import BarModes, Mode
 from synth.physics.tube import air_density, dynamic_viscosity, speed_of_sound
@@ -67,7 +68,6 @@ TERMS = ("internal", "thermoelastic", "radiation", "cords", "air", "tube")
 
 MAX_OVERRIDES = 1000
 """Most ``[[damping.override]]`` tables in one file (a few per note of a full range)."""
-LN_1000 = math.log(1000.0)
 
 DEFAULT_CORD_LOSS_N_S_M = 0.3
 """Dashpot of one cord at its hole, N s/m.  An estimate (from memory) that gives

@@ -100,6 +100,7 @@ from synth.constants import (
 )
 from synth.errors import ConfigError, ModelError
 from synth.numerics import bracketed_root
+from synth.pitch import cents_to_ratio
 
 KA_CORRECTION_LIMIT = 0.5
 """Largest ka for which the (ka)^2 end-correction fit is used without a warning [3]."""
@@ -686,7 +687,7 @@ def offset_ratio(*, offset_cents: float | None = None,
     c = 0.0 if offset_cents is None else float(offset_cents)
     if not math.isfinite(c):
         raise ConfigError(f"= {offset_cents!r}: must be finite", key="offset_cents")
-    return 2.0 ** (c / 1200.0)
+    return float(cents_to_ratio(c))
 
 
 def tube_length_for_bar(bar_frequency_hz: float, template: TubeSpec, *,

@@ -735,7 +735,7 @@ def design_settings(voicer: Voicer, mallet: str | None = None) -> dict[str, Any]
         stopped), ``motor_resting``, ``mallet``, ``calibration`` (factor per
         loss mechanism).
     """
-    cal = voicer.calibration
+    cal = voicer.loss_calibration
     factors = getattr(cal, "factors", None)
     return {"name": voicer.instrument.name, "tubes": voicer.tubes_active,
             "motor_rate_rev_per_s": float(voicer.motor.rate_rev_per_s),

@@ -118,6 +118,7 @@ import numpy as np
 
 from synth.analysis import find_partials, find_strike
 from synth.analysis.checks import CLIP_LEVEL, CLIP_MIN_RUN
+from synth.constants import LN_1000
 from synth.errors import AudioError, ConfigError, ModelError
 from synth.physics.instrument import Instrument
 from synth.physics.losses import TERMS, Calibration
@@ -826,7 +827,7 @@ def calibrate(measurement: Measurement, instrument: Instrument, note: str, *,
     raw = voicer(Calibration()).model(note)
     coupled = raw.coupling is not None
     as_preset = voicer(None)
-    preset_cal = as_preset.calibration
+    preset_cal = as_preset.loss_calibration
     preset_rate = parse_motor_rate(instrument)
     if preset_rate > 0:
         warnings.append(f"the preset's motor runs at {preset_rate:g} rev/s: the fit assumes a "
@@ -1056,7 +1057,7 @@ def _coupling_hint(after, after_cal: Calibration, warnings: list[str]) -> float 
     b = after.fundamental
     target_eta = b.eta + after_cal.factor("tube") * after.tube_loss_factor()
     f = after.coupling.pair.bar_frequency_hz
-    t60 = math.log(1000.0) / (math.pi * f * target_eta)
+    t60 = LN_1000 / (math.pi * f * target_eta)
     try:
         c = calibrate_coupling(after.coupling.bar, after.tube, bar_t60_with_tube_s=t60,
                                temperature_c=after.coupling.temperature_c)

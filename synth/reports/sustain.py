@@ -37,6 +37,7 @@ from typing import Final
 import numpy as np
 
 from synth.analysis import band_envelope, fit_envelope_decay
+from synth.constants import LN_1000
 from synth.engine.render import render
 from synth.errors import ConfigError
 from synth.numerics import bracketed_root
@@ -45,8 +46,6 @@ from synth.physics.motor import disc_modulation, steady_bar_decay_per_s
 from synth.physics.tube import tube_length_for_bar
 from synth.pitch import cents, note_to_midi
 from synth.voicing import Voicer
-
-LN_1000 = math.log(1000.0)
 
 TARGETS: Final[tuple[str, str]] = ("trend", "even")
 """Default targets: the range's own trend, or one T60 (the median) for every note."""
@@ -332,7 +331,7 @@ def verify_suggestions(voicer: Voicer, rows: list[SustainRow],
     check = Voicer(dc_replace(inst, tube_lengths={**inst.tube_lengths, **lengths}),
                    sample_rate=voicer.sample_rate, tubes=voicer.tubes,
                    motor_rate_rev_per_s=voicer.motor.rate_rev_per_s, channels=voicer.channels,
-                   calibration=voicer.calibration)
+                   calibration=voicer.loss_calibration)
     out = []
     for r in rows:
         if r.suggested_length_m is None:

@@ -77,6 +77,8 @@ COMMANDS: dict[str, tuple] = {
                 ["A.wav", "A.json", "B.wav", "B.json", "AB.wav", "AB.json", "blind-01.wav",
                  "blind-01.json", "blind-02.wav", "blind-02.json", "differences.json",
                  "differences.png", "blind-key.toml"]),
+    "sweep": (lambda d, i: ["sweep", PRESET, "--vary", "tubes.offset_cents=0,30", "--workers",
+                            "1", "--out", d], ["sweep.csv", "sweep.json", "sweep.png"]),
     "demo": (lambda d, i: ["demo", "--out", d], ["cutlist.csv", "profiles.png", "sustain.csv",
                                                   "strike-A4.wav", "calibration-A4.toml"]),
 }

@@ -48,9 +48,10 @@ BASE = {
     "sustain": ["missing.toml"],
     "compare": ["missing-a.toml", "missing-b.toml", "--blind", "4"],
     "measure": ["missing.wav"],
+    "sweep": ["missing.toml", "--vary", "tubes.offset_cents=0"],
 }
 GROUPS = {"bar": ("partials", "tune", "grind", "solid"), "sound": ("strike", "chord", "render"),
-          "reports": ("sustain", "compare", "measure")}
+          "reports": ("sustain", "compare", "measure", "sweep")}
 
 
 def numeric_options() -> dict[str, list[tuple[str, str, str, float, float]]]:

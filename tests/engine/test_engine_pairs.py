@@ -14,7 +14,7 @@ import scipy.linalg
 from engine_fits import prony_one_mode
 from scipy.integrate import solve_ivp
 
-from synth.engine import CoupledPair, ModeBank, Voice, render
+from synth.engine import ModePair, ModeBank, Voice, render
 from synth.errors import ModelError
 from synth.pitch import cents
 
@@ -25,7 +25,7 @@ def pair_outputs(pair_kwargs, n, fs=FS, block_size=8192):
     """Render Im(a1) and Im(a2) separately (weights (1, 0) and (0, 1))."""
     out = []
     for w1, w2 in ((1.0, 0.0), (0.0, 1.0)):
-        p = CoupledPair(weight_1=w1, weight_2=w2, **pair_kwargs)
+        p = ModePair(weight_1=w1, weight_2=w2, **pair_kwargs)
         out.append(render([Voice(0, ModeBank.empty(), pairs=(p,))], n, sample_rate=fs,
                           retire_db=None, block_size=block_size)[:, 0])
     return out
@@ -137,7 +137,7 @@ def test_time_varying_coupling_matches_ode_solver(vary_decay):
 
 def test_decay_curve_below_its_bound_is_refused():
     """decay_per_s[1] must bound the decay curve from below (it decides the drop)."""
-    pair = CoupledPair((440.0, 441.0), (0.5, 20.0), (1.0, 0.0), coupling_rad_s=5.0,
+    pair = ModePair((440.0, 441.0), (0.5, 20.0), (1.0, 0.0), coupling_rad_s=5.0,
                        decay_2_curve=lambda first, n: np.full(n, 10.0))
     with pytest.raises(ModelError, match=r"decay curve = 10 /s at sample 0 is below"):
         render([Voice(0, ModeBank.empty(), pairs=(pair,))], 100, sample_rate=FS)

@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 
 from synth.engine import (
-    CoupledPair,
+    ModePair,
     ModeBank,
     Voice,
     constant_power_pan,
@@ -41,7 +41,7 @@ def mixed_voices(rng):
     """
     bank = ModeBank(rng.uniform(100, 9000, 12), rng.uniform(0.5, 30, 12),
                     rng.uniform(-0.3, 0.3, 12), rng.uniform(-3, 3, 12))
-    pair = CoupledPair((440.0, 442.0), (0.5, 26.0), (0.4, 0.0), coupling_rad_s=_mu_curve,
+    pair = ModePair((440.0, 442.0), (0.5, 26.0), (0.4, 0.0), coupling_rad_s=_mu_curve,
                        weight_2=lambda first, n: np.full(n, 2.0), damped=(True, False),
                        decay_2_curve=lambda first, n: 26.0 + _gain_curve(first, n))
     return [
@@ -227,7 +227,7 @@ def test_bad_voices_are_refused():
         Voice(1.5, bank)
     with pytest.raises(ModelError, match="has 2 channel gains, the render has 1"):
         render([Voice(0, bank, channel_gains=(0.5, 0.5))], 10, sample_rate=FS, channels=1)
-    too_fast = CoupledPair((440.0, 440.0), (1.0, 1.0), (1.0, 0.0), coupling_rad_s=1000.0)
+    too_fast = ModePair((440.0, 440.0), (1.0, 1.0), (1.0, 0.0), coupling_rad_s=1000.0)
     with pytest.raises(ModelError, match="coupling 1000 rad/s exceeds"):
         render([Voice(0, ModeBank.empty(), pairs=(too_fast,))], 10, sample_rate=FS)
     with pytest.raises(ConfigError, match="block_size"):

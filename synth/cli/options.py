@@ -1,0 +1,89 @@
+"""Options shared by the sound commands (``strike``, ``chord``, ``render``), defined once.
+
+:func:`render_options` adds the ten options every render takes (tubes, motor,
+output file, sample rate and format, channels, gain, playback, JSON) to a
+command's signature and hands them to the command as one frozen
+:class:`RenderOptions`, so each option is written in one place and the command
+functions stay short.
+"""
+
+from __future__ import annotations
+
+import functools
+import inspect
+from collections.abc import Callable
+from dataclasses import dataclass, fields
+from pathlib import Path
+from typing import Annotated
+
+import typer
+
+PresetArg = Annotated[Path, typer.Argument(help="Instrument preset (TOML) with solved [bars].",
+                                           show_default=False)]
+OutOpt = Annotated[Path | None, typer.Option(
+    help="WAV file to write (default renders/<preset>/<what>.wav); a .json sidecar goes "
+         "beside it.")]
+ForceOpt = Annotated[bool, typer.Option(help="Overwrite the WAV and its sidecar if they exist.")]
+RateOpt = Annotated[int, typer.Option("--sample-rate", min=44100, max=96000, metavar="Hz",
+                                      help="44100, 48000 or 96000 Hz.")]
+FormatOpt = Annotated[str, typer.Option(
+    "--format", help="Sample format: pcm24 (24-bit PCM), float32 or pcm16.")]
+ChannelsOpt = Annotated[int, typer.Option(
+    min=1, max=2, help="1 = mono, 2 = stereo (bars panned by their place on the keyboard).")]
+GainOpt = Annotated[float | None, typer.Option(
+    min=-100.0, max=100.0, metavar="dB",
+    help="Keep this fixed gain in dB instead of normalising the peak to -1 dBFS; lowered "
+         "(with a warning) if it would clip.")]
+MalletOpt = Annotated[str | None, typer.Option(
+    help="Mallet preset from presets/mallets (default: the preset's [sound] mallet).")]
+TubesOpt = Annotated[bool, typer.Option("--no-tubes", help="Leave the tubes out (bare bars).")]
+MotorOpt = Annotated[float | None, typer.Option(
+    min=0.0, max=50.0, metavar="rev/s",
+    help="Motor rate in rev/s, overriding the preset (0 stops it). The "
+         "tube mouths pulse at twice this rate.")]
+PlayOpt = Annotated[bool, typer.Option(help="Play the WAV after writing it (needs the play "
+                                            "extra and an output device).")]
+JsonOpt = Annotated[bool, typer.Option("--json", help="Print the render's report as JSON.")]
+
+
+@dataclass(frozen=True)
+class RenderOptions:
+    """The options every sound command takes (see the aliases above for their ranges)."""
+
+    no_tubes: bool = False
+    motor_rate: float | None = None
+    out: Path | None = None
+    force: bool = False
+    sample_rate: int = 48000
+    fmt: str = "pcm24"
+    channels: int = 2
+    gain_db: float | None = None
+    play: bool = False
+    json_out: bool = False
+
+
+_ALIASES = {"no_tubes": TubesOpt, "motor_rate": MotorOpt, "out": OutOpt, "force": ForceOpt,
+            "sample_rate": RateOpt, "fmt": FormatOpt, "channels": ChannelsOpt,
+            "gain_db": GainOpt, "play": PlayOpt, "json_out": JsonOpt}
+_SHARED = [inspect.Parameter(f.name, inspect.Parameter.KEYWORD_ONLY, default=f.default,
+                             annotation=_ALIASES[f.name]) for f in fields(RenderOptions)]
+
+
+def render_options(command: Callable) -> Callable:
+    """Add the shared render options to ``command``, which takes them as ``render``.
+
+    The command's own parameters come first in ``--help``; the shared ones follow
+    in the order of :class:`RenderOptions`.
+    """
+    own = inspect.signature(command, eval_str=True)
+    params = [p for p in own.parameters.values() if p.name != "render"]
+    names = [p.name for p in _SHARED]
+
+    @functools.wraps(command)
+    def wrapper(*args, **kwargs):
+        shared = RenderOptions(**{n: kwargs.pop(n) for n in names if n in kwargs})
+        return command(*args, render=shared, **kwargs)
+
+    wrapper.__signature__ = own.replace(parameters=params + _SHARED)
+    wrapper.__annotations__ = {p.name: p.annotation for p in params + _SHARED}
+    return wrapper
