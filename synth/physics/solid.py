@@ -480,7 +480,7 @@ def _assemble(mesh2, material: Material):
 # ---------------------------------------------------------------------------------------
 
 
-class _Sections:
+class _SolidSections:
     """Section measures on the node lattice of a half-width mesh."""
 
     def __init__(self, geometry: BarGeometry, ref: np.ndarray, xyz: np.ndarray,
@@ -621,7 +621,7 @@ def solve_level(geometry: BarGeometry, material: Material, level: int, *,
     mesh2, ref, n_half = _build_mesh(geometry, counts)
     K, M, lumped, xyz = _assemble(mesh2, material)
     n = xyz.shape[1]
-    sections = _Sections(geometry, ref, xyz, lumped)
+    sections = _SolidSections(geometry, ref, xyz, lumped)
     on_plane = np.nonzero(np.abs(xyz[1] - geometry.width_m / 2) < 1e-9 * geometry.length_m)[0]
     om_scale = _omega_scale(geometry, material)
     found = []
