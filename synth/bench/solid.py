@@ -11,6 +11,8 @@ solid.peak_mb
     the imported libraries, about 150 MB).
 solid.level
     The finest mesh level that solve needed.
+solid.anchors
+    How many anchor notes the range solves below use.
 solid.anchors_1_worker_s, solid.anchors_2_workers_s
     The 3-D solves of the demo's anchor notes (both ends and every 6 semitones, one
     solve each at level 4; with ``--quick`` three notes at level 2), no cache, on one

@@ -2,10 +2,16 @@
 
 Figures
 -------
+sweep.variants
+    Variants timed (tube offsets; two with ``--quick``, four without).
 sweep.variant_s
     Wall time per variant run in this process (``workers=1``), after one warm-up
     variant (numba's kernels loaded, bar solves not shared: each variant moves the
     tubes, so every plan is new).  Target < 5 s per variant.
+sweep.pool_s
+    Wall time of the same variants on a local pool of two processes, start-up included.
+sweep.failed
+    Variants that failed in either run (0 when the timed work did its job).
 sweep.pool_speedup
     Wall time in this process over wall time on a local pool of two processes,
     same variants, pool start-up included: about 2 on two free cores; less when

@@ -70,6 +70,7 @@ def test_bench_timed_work_did_its_job(bench) -> None:
     assert bench["tuning.on_target"] == bench["tuning.bars"] > 0
     assert bench["tuning.worst_residual_cents"] <= 3.0
     assert bench["sustain.notes"] > 0 and bench["fe.mesh_elements"] >= 1
+    assert bench["sweep.failed"] == 0 and bench["sweep.variants"] >= 2
     for name in ("engine.numpy_ratio", "fe.dense_over_solve", "sustain.analysis_over_render"):
         assert bench[name] > 0, name
 
