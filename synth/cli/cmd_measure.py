@@ -40,16 +40,17 @@ def _partials_table(m) -> str:
     headers = ["freq Hz", "note", "cents"]
     if named:
         headers += ["ratio", f"cents re {m.note}"]
-    headers += ["Q", "T60 s", "level dB", "decay from"]
+    headers += ["Q", "Q +-%", "T60 s", "level dB", "decay from"]
     rows = []
     for p in m.partials:
         row = [f"{p.frequency_hz:.2f}", p.note, f"{p.cents:+.1f}"]
         if named:
             row += [_num(p.ratio, ".4f"), _num(p.cents_from_note, "+.1f")]
-        row += [_num(p.q, ".0f"), _num(p.t60_s, ".2f"), f"{p.level_db:.1f}",
+        se = "-" if not math.isfinite(p.q_rel_se) else f"{100 * p.q_rel_se:.1f}"
+        row += [_num(p.q, ".0f"), se, _num(p.t60_s, ".2f"), f"{p.level_db:.1f}",
                 p.decay_method + (", beats" if p.beating else "")]
         rows.append(row)
-    align = "rlr" + ("rr" if named else "") + "rrrl"
+    align = "rlr" + ("rr" if named else "") + "rrrrl"
     return format_table(headers, rows, align=align)
 
 
@@ -98,8 +99,12 @@ def measure_command(
              "fundamental and its interval above the note in cents.")] = None,
     reference_hz: Annotated[float | None, typer.Option(
         min=380.0, max=480.0, metavar="Hz",
-        help="A4 for note names (default 440 Hz per ISO 16; with "
-             "--calibrate the preset's reference_pitch_hz).")] = None,
+        help="A4 for note names (default: the reference_pitch_hz of --preset or "
+             "--calibrate, else 440 Hz per ISO 16; the header says which).")] = None,
+    preset: Annotated[Path | None, typer.Option(
+        "--preset", help="Instrument preset the bar belongs to: its reference pitch names "
+                         "the notes (and --note is checked against its range).",
+        show_default=False)] = None,
     max_partials: Annotated[int, typer.Option(
         min=1, max=64, help="Report at most this many partials, the strongest.")] = 12,
     channel: Annotated[int | None, typer.Option(
@@ -159,11 +164,26 @@ def measure_command(
         raise ConfigError("is only used with --calibrate PRESET",
                           source="--terms" if terms is not None else
                           "--no-tubes" if no_tubes else "--keep-overrides")
-    ref = reference_hz or (instrument.reference_pitch_hz if instrument else 440.0)
+    if preset is not None:
+        if calibrate is not None:
+            raise ConfigError("names the preset already given by --calibrate; give one of "
+                              "them", source="--preset")
+        from synth.physics.instrument import load_instrument
+
+        instrument = load_instrument(preset)
+        if note is not None:
+            note = instrument.check_note(note)
+    from synth.pitch import DEFAULT_REFERENCE_HZ
+
+    ref = reference_hz or (instrument.reference_pitch_hz if instrument else
+                           DEFAULT_REFERENCE_HZ)
+    ref_from = ("--reference-hz" if reference_hz else
+                f"{(preset or calibrate).name}" if instrument else
+                "default, ISO 16; --preset or --reference-hz to change")
     measurement = measure_file(recording, note=note, reference_hz=ref,
                                max_partials=max_partials, channel=channel)
     fit = path = rel = None
-    if instrument is not None:
+    if calibrate is not None:
         wanted = None
         if terms is not None:
             wanted = tuple(t.strip() for t in terms.split(",") if t.strip())
@@ -187,6 +207,7 @@ def measure_command(
         warn(w)
     if json_out:
         doc = measurement.to_dict()
+        doc["reference_pitch_from"] = ref_from
         if fit is not None:
             doc["calibration"] = {**fit.to_dict(), "file": path and str(path),
                                   "calibration_file": rel}
@@ -198,7 +219,7 @@ def measure_command(
           else f"{measurement.n_channels} channels (mean)")
     typer.echo(f"{measurement.recording}: {measurement.sample_rate_hz:g} Hz, {ch}, "
                f"{measurement.duration_s:.2f} s; strike at {measurement.onset_s:.3f} s; "
-               f"A4 = {ref:g} Hz")
+               f"A4 = {ref:g} Hz ({ref_from})")
     typer.echo(_partials_table(measurement))
     if note is not None:
         if measurement.fundamental_hz is not None:

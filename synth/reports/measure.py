@@ -2,8 +2,8 @@
 
 Command
 -------
-``barwright measure RECORDING [--note N] [--reference-hz F] [--max-partials K]
-[--channel C] [--json]``
+``barwright measure RECORDING [--note N] [--preset PRESET] [--reference-hz F]
+[--max-partials K] [--channel C] [--json]``
 
 Reads a recording of one struck bar (WAV, FLAC, AIFF, ... anything libsndfile
 reads; several channels are averaged, with a warning, unless ``--channel``
@@ -14,7 +14,13 @@ scale).  With ``--note`` the partial nearest the note (within 100 cents) is
 taken as the fundamental, and each partial also gets its ratio to that
 fundamental and its interval above the named note in cents (``cents_from_note``:
 2400 is two octaves, 3996 the ratio 10.08).  ``--reference-hz`` is A4 (default:
-440 Hz, ISO 16; with ``--calibrate`` the preset's ``reference_pitch_hz``).
+the ``reference_pitch_hz`` of ``--preset`` or ``--calibrate``, else 440 Hz, ISO
+16; the header names the source).  A partial that is not beating and decays
+slowly is measured by complex demodulation (:func:`demodulated_decay`), which
+works when the file holds only a few dB of its decay and gives Q's standard
+error (``q_rel_se``).  A tremolo (:func:`find_tremolo`: the motor's discs
+pulsing the tube mouths) stops the measurement with its rate and depth: the
+modulated decay would give false partials and Qs.
 ``--json`` prints ``{"partials": [{"frequency_hz", "q", "t60_s", "level_db",
 "note", "cents", "ratio", "cents_from_note", ...}], "warnings": [...]}``.
 
@@ -190,6 +196,9 @@ class MeasuredPartial:
         ``tau ln 1000``, s.
     decay_per_s : float
         ``1/tau``, 1/s.
+    q_rel_se : float
+        Standard error of Q relative to Q (equal to that of the decay rate),
+        from the demodulated fit's residuals; NaN for the other methods.
     level_db : float
         Amplitude at the strike onset, dB re full scale.
     note : str
@@ -204,6 +213,9 @@ class MeasuredPartial:
     snr_db : float
         Band signal-to-noise ratio at the start of the analysis, dB.
     decay_method : str
+        ``"demodulated"`` (:func:`demodulated_decay`, for a partial not
+        beating that decays slowly, :data:`DEMOD_SETTLE_DB`, or whose envelope
+        fit was unusable, when fitted within :data:`DEMOD_MAX_SE`), else
         ``"envelope"`` or ``"subspace"`` (see :class:`synth.analysis.Partial`).
     beating : bool
         The partial beats against a neighbour or is one of a split pair.
@@ -213,6 +225,7 @@ class MeasuredPartial:
     q: float
     t60_s: float
     decay_per_s: float
+    q_rel_se: float
     level_db: float
     note: str
     cents: float
@@ -368,6 +381,15 @@ def measure_signal(signal, sample_rate: float, *, recording: str = "signal",
                 f"{10 * math.log10(max(p_mix, 1e-300) / p_ch):.0f} dB below the channels "
                 "(opposite polarity or spaced microphones cancelling), so its partials would "
                 "be noise; analyse one channel (--channel 1)")
+    mono = np.asarray(signal, dtype=float)
+    mono = mono if mono.ndim == 1 else mono.mean(axis=1)
+    tremolo = find_tremolo(mono, fs)
+    if tremolo is not None:
+        raise AudioError(
+            f"{recording}: tremolo found at {tremolo.rate_hz:.2f} Hz, depth "
+            f"{100 * tremolo.depth:.0f} % (discs turning at {tremolo.motor_rev_per_s:.2f} rev/s, "
+            "the mouths pulse twice per turn): the motor modulates the decay, so partials "
+            "and Q would be false; stop the motor and record again")
     try:
         strike = find_strike(signal, fs)
         if note_hz is not None and note_hz >= 0.45 * fs:
@@ -411,14 +433,37 @@ def measure_signal(signal, sample_rate: float, *, recording: str = "signal",
                 f"{float(cents(best[1].frequency_hz, note_hz)):+.0f} cents): ratios are not "
                 "given; check the note, the reference pitch and the file's sample rate")
     partials = []
+    freqs = [p.frequency_hz for p in res.partials]
     for p in res.partials:
-        name, off = nearest_note(p.frequency_hz, reference_hz)
+        f, decay, q, t60, how, q_se = (p.frequency_hz, p.decay_per_s, p.q, p.t60_s,
+                                       p.decay_method, math.nan)
+        slow = None
+        if not p.beating and math.isfinite(res.analysis_end_s):
+            gap = min([abs(g - f) for g in freqs if g != f] or [math.inf])
+            band = min(DEMOD_HALF_BAND_HZ, gap / 4)
+            slow = demodulated_decay(mono, fs, f, res.analysis_start_s, res.analysis_end_s,
+                                     half_band_hz=band)
+            # slow enough that the filter's settling (3/band s, dropped) costs
+            # little of the decay: else the envelope fit covers more of it
+            if slow is not None and slow.decay_per_s * 3.0 / band * 20 / math.log(10) > \
+                    DEMOD_SETTLE_DB and p.decay_method == "envelope":
+                slow = None
+        if slow is not None and slow.decay_per_s > 0 and \
+                slow.decay_se_per_s < DEMOD_MAX_SE * slow.decay_per_s:
+            f, decay, how = slow.frequency_hz, slow.decay_per_s, "demodulated"
+            q, t60 = math.pi * f / decay, math.log(1000.0) / decay
+            q_se = slow.decay_se_per_s / decay
+        name, off = nearest_note(f, reference_hz)
         partials.append(MeasuredPartial(
-            frequency_hz=p.frequency_hz, q=p.q, t60_s=p.t60_s, decay_per_s=p.decay_per_s,
+            frequency_hz=f, q=q, t60_s=t60, decay_per_s=decay, q_rel_se=q_se,
             level_db=p.level_db, note=name, cents=off,
-            ratio=p.frequency_hz / fundamental if fundamental else None,
-            cents_from_note=float(cents(p.frequency_hz, note_hz)) if note_hz else None,
-            snr_db=p.snr_db, decay_method=p.decay_method, beating=p.beating))
+            ratio=f / fundamental if fundamental else None,
+            cents_from_note=float(cents(f, note_hz)) if note_hz else None,
+            snr_db=p.snr_db, decay_method=how, beating=p.beating))
+    if fundamental is not None:  # refer ratios to the refined frequency
+        f1 = min(partials, key=lambda q: abs(q.frequency_hz - fundamental)).frequency_hz
+        partials = [replace(q, ratio=q.frequency_hz / f1) for q in partials]
+        fundamental = f1
     return Measurement(
         recording=recording, sample_rate_hz=fs, n_channels=n_ch, channel=channel,
         duration_s=x.shape[0] / fs,
@@ -474,6 +519,246 @@ def _window_start(path, frames: int, rate: int, window: int) -> int:
     loud = float(env.max())
     strike = int(np.flatnonzero(env >= loud * 10 ** (-STRIKE_WITHIN_DB / 20))[0]) * hop
     return int(min(max(0, strike - int(round(LEAD_S * rate))), frames - window))
+
+
+# --------------------------------------------------------------------------------------
+# Slow decays and tremolo
+# --------------------------------------------------------------------------------------
+
+DEMOD_HALF_BAND_HZ = 4.0
+"""Half-width of the low-pass after complex demodulation, Hz: far wider than a
+bar partial's own bandwidth (f/Q, hundredths of a hertz) and than the error of
+the subspace frequency it starts from, far narrower than the spacing of bar
+partials, so each block average holds one partial and little noise."""
+
+DEMOD_SETTLE_DB = 6.0
+"""A partial that falls less than this within the demodulation filter's
+settling time is measured by :func:`demodulated_decay` (which also gives Q's
+standard error); a faster one keeps the envelope fit, which then spans a wide
+range of its decay."""
+
+DEMOD_MAX_SE = 0.1
+"""The demodulated fit is used only when the standard error of its decay rate
+is below this fraction of the rate."""
+
+TREMOLO_MIN_DEPTH = 0.1
+"""Amplitude-modulation depth ``(A_max - A_min)/(A_max + A_min)`` from which a
+periodic envelope counts as tremolo (10 %: discs in the tube mouths give tens of
+per cent, physics.md section 9; the demo's renders without the motor show at
+most 1 % in the tremolo band, a weak partial beating a few per cent)."""
+
+TREMOLO_BAND_HZ = (0.5, 15.0)
+"""Envelope-spectrum band searched for tremolo, Hz (modulation ~1-12 Hz,
+physics.md section 9, with margin; faster envelope ripple is beating between
+partials, not the discs)."""
+
+
+@dataclass(frozen=True)
+class SlowDecay:
+    """Frequency and decay of one partial by complex demodulation.
+
+    Attributes
+    ----------
+    frequency_hz, frequency_se_hz : float
+        Frequency and its standard error, Hz.
+    decay_per_s, decay_se_per_s : float
+        Amplitude decay rate ``1/tau`` and its standard error, 1/s.
+    span_s : float
+        Stretch fitted, s.
+    range_db : float
+        Level fallen over the stretch, dB.
+    """
+
+    frequency_hz: float
+    frequency_se_hz: float
+    decay_per_s: float
+    decay_se_per_s: float
+    span_s: float
+    range_db: float
+
+
+def demodulated_decay(x: np.ndarray, fs: float, f0_hz: float, start_s: float, end_s: float,
+                      *, half_band_hz: float = DEMOD_HALF_BAND_HZ,
+                      min_snr_db: float = 10.0) -> SlowDecay | None:
+    """Fit one partial's frequency and decay by complex demodulation.
+
+    The signal is shifted down by ``f0_hz`` (``x exp(-2 pi i f0 t)``), low-passed
+    (4th-order Butterworth, zero phase, cut-off ``half_band_hz``) and sampled
+    once per ``1/(2 half_band_hz)``, so successive samples carry nearly
+    independent noise.  Its log magnitude is a line of slope ``-1/tau`` and its
+    unwrapped phase a line of slope ``2 pi (f - f0)``; both lines are fitted by
+    least squares weighted by the squared magnitude (the variance of ``ln|z|``
+    and of the phase is ``sigma^2/(2|z|^2)`` for white noise), over the stretch
+    where the magnitude stands ``min_snr_db`` above the noise.  Standard errors
+    come from the fit's residuals.  This measures a decay that falls only a few
+    dB within the file, where an envelope fit over a decibel range cannot.
+
+    Parameters
+    ----------
+    x : ndarray
+        Mono samples.
+    fs : float
+        Sample rate, Hz.
+    f0_hz : float
+        Starting frequency (within ``half_band_hz / 2`` of the partial), Hz.
+    start_s, end_s : float
+        Stretch to use, s from the first sample.
+    half_band_hz : float
+        Low-pass cut-off, Hz.
+    min_snr_db : float
+        Keep samples whose magnitude is this far above the noise magnitude.
+
+    Returns
+    -------
+    SlowDecay or None
+        None when fewer than 8 samples stand above the noise.
+
+    References
+    ----------
+    .. [1] Bingham, C., Godfrey, M. D. and Tukey, J. W., "Modern techniques of
+       power spectrum estimation", IEEE Trans. Audio Electroacoust. 15(2),
+       56-66, 1967 (complex demodulation; from memory).
+    """
+    import scipy.signal as ss
+
+    n0, n1 = int(round(start_s * fs)), int(round(end_s * fs))
+    seg = np.asarray(x[n0:n1], dtype=float)
+    if seg.size < fs / half_band_hz * 6:
+        return None
+    t = np.arange(seg.size) / fs
+    z = seg * np.exp(-2j * np.pi * f0_hz * t)
+    sos = ss.butter(4, half_band_hz, fs=fs, output="sos")
+    z = ss.sosfiltfilt(sos, z.real) + 1j * ss.sosfiltfilt(sos, z.imag)
+    step = max(1, int(fs / (2.0 * half_band_hz)))
+    # filter transients: the stretch starts at full level (a step into the
+    # filter), so more is dropped at the start than at the end
+    idx = np.arange(int(3.0 * fs / half_band_hz), seg.size - int(1.5 * fs / half_band_hz), step)
+    if idx.size < 8:
+        return None
+    zs = z[idx]
+    ts = t[idx]
+    mag = np.abs(zs)
+    # noise magnitude of the band, from the residual about a first line fit
+    phase = np.unwrap(np.angle(zs))
+    keep = mag > 0
+    for _ in range(2):
+        w = mag[keep] ** 2
+        a_ln = np.polyfit(ts[keep], np.log(mag[keep]), 1, w=np.sqrt(w))
+        model = np.exp(np.polyval(a_ln, ts))
+        a_ph = np.polyfit(ts[keep], phase[keep], 1, w=np.sqrt(w))
+        resid = zs - model * np.exp(1j * np.polyval(a_ph, ts))
+        # successive samples carry independent noise; a slow misfit (beating)
+        # cancels in their difference, whose squared magnitude is exponential
+        # with mean 4 sigma^2 (median 4 sigma^2 ln 2, robust to a stray sample)
+        sigma = float(np.sqrt(np.median(np.abs(np.diff(resid[keep])) ** 2)
+                              / (4.0 * math.log(2.0))))
+        keep = mag > sigma * 10 ** (min_snr_db / 20.0)
+        if keep.sum() < 8:
+            return None
+    tk, mk, w = ts[keep], mag[keep], mag[keep] ** 2
+    # weighted least squares: var(ln|z|) = var(phase) = sigma^2 / (2 |z|^2)
+    W = w / w.sum()
+    tbar = float(np.sum(W * tk))
+    sxx = float(np.sum(w * (tk - tbar) ** 2))
+    r_ln = np.log(mk) - np.polyval(a_ln, tk)
+    r_ph = phase[keep] - np.polyval(a_ph, tk)
+    dof = max(1, tk.size - 2)
+    s2_ln = float(np.sum(w * r_ln**2)) / dof
+    s2_ph = float(np.sum(w * r_ph**2)) / dof
+    decay = -float(a_ln[0])
+    return SlowDecay(
+        frequency_hz=float(f0_hz + a_ph[0] / (2 * np.pi)),
+        frequency_se_hz=float(math.sqrt(s2_ph / sxx) / (2 * np.pi)),
+        decay_per_s=decay, decay_se_per_s=float(math.sqrt(s2_ln / sxx)),
+        span_s=float(tk[-1] - tk[0]), range_db=float(decay * (tk[-1] - tk[0]) * 20 / math.log(10)))
+
+
+@dataclass(frozen=True)
+class Tremolo:
+    """A periodic amplitude modulation of the strike (a motor running).
+
+    Attributes
+    ----------
+    rate_hz : float
+        Modulation rate (envelope-spectrum peak), Hz.
+    depth : float
+        ``(A_max - A_min)/(A_max + A_min)`` of the modulation, 0..1.
+    """
+
+    rate_hz: float
+    depth: float
+
+    @property
+    def motor_rev_per_s(self) -> float:
+        """Disc rate that gives this modulation: ``f_mod = 2 f_rot`` (physics.md section 9)."""
+        return self.rate_hz / 2.0
+
+
+def find_tremolo(x: np.ndarray, fs: float, *, min_depth: float = TREMOLO_MIN_DEPTH
+                 ) -> Tremolo | None:
+    """Look for tremolo in a strike: the peak of the envelope's spectrum.
+
+    The envelope is the rms of 5 ms frames from the loudest frame on, up to
+    the last frame standing 12 dB above the quietest tenth of the frames (the
+    noise; the whole file when that leaves less than a second).  Its log is
+    detrended by a quadratic (the decay, possibly bent by beating), and the
+    remainder's spectrum (Hann window, zero-padded) is searched in
+    :data:`TREMOLO_BAND_HZ`.  For ``A (1 + m cos(2 pi f t))`` the log envelope
+    swings by ``m`` nepers to first order, so the spectral peak's amplitude
+    gives the depth; the depth is then taken exactly from the swing of the log
+    envelope averaged over the modulation's phase (``(e^d - 1)/(e^d + 1)`` for
+    a peak-to-trough swing of ``d`` nepers).  Needs three periods.
+
+    Returns
+    -------
+    Tremolo or None
+        None when no modulation of at least ``min_depth`` is present.
+
+    References
+    ----------
+    .. [1] physics.md section 9: depth ``(A_max - A_min)/(A_max + A_min)`` on the
+       envelope, rate at the envelope-spectrum peak, ``f_mod = 2 f_rot``.
+    """
+    hop = max(1, int(round(0.005 * fs)))
+    n = x.size // hop
+    if n < 40:
+        return None
+    env = np.sqrt(np.mean(x[: n * hop].reshape(n, hop) ** 2, axis=1)) + 1e-300
+    k0 = int(np.argmax(env)) + 4  # past the attack
+    noise = float(np.quantile(env, 0.1))  # the noise when the file decays into it
+    above = np.flatnonzero(env[k0:] > noise * 4.0)
+    k1 = k0 + int(above[-1]) + 1 if above.size else env.size
+    if (k1 - k0) * hop < fs:  # no noise tail (a render, a short file): use it all
+        k1 = env.size
+    e = np.log(env[k0:k1])
+    t = np.arange(e.size) * hop / fs
+    lo, hi = TREMOLO_BAND_HZ
+    if t.size < 8 or t[-1] < 3.0 / hi:
+        return None
+    r = e - np.polyval(np.polyfit(t, e, 2), t)
+    n_fft = 1 << int(math.ceil(math.log2(max(8 * r.size, 4096))))
+    win = np.hanning(r.size)
+    spec = np.abs(np.fft.rfft(r * win, n_fft)) * 2 / win.sum()
+    freqs = np.fft.rfftfreq(n_fft, hop / fs)
+    band = (freqs >= max(lo, 3.0 / t[-1])) & (freqs <= hi)
+    if not band.any():
+        return None
+    i = int(np.flatnonzero(band)[np.argmax(spec[band])])
+    rate = float(freqs[i])
+    if 0 < i < spec.size - 1:  # parabolic interpolation of the peak
+        a, b, c = spec[i - 1], spec[i], spec[i + 1]
+        den = a - 2 * b + c
+        if den < 0:
+            rate += float(0.5 * (a - c) / den) * float(freqs[1])
+    # depth from the phase-averaged cycle of the log envelope
+    phase = (t * rate) % 1.0
+    bins = np.minimum((phase * 16).astype(int), 15)
+    cycle = np.array([r[bins == b].mean() for b in range(16) if np.any(bins == b)])
+    d = float(cycle.max() - cycle.min())
+    depth = (math.exp(d) - 1.0) / (math.exp(d) + 1.0)
+    if depth < min_depth or spec[i] < 0.5 * min_depth:
+        return None
+    return Tremolo(rate_hz=rate, depth=depth)
 
 
 # --------------------------------------------------------------------------------------
