@@ -312,8 +312,9 @@ def _steady_decay(x: np.ndarray, n_parts: int = 8, min_drop_db: float = 1.0) -> 
     """Tell whether the level falls part by part through the file: a slow decay, not a tone.
 
     A bar of T60 50 s loses about 5 dB between the start and the last fifth of
-    a 5 s file, less than the 6 dB the drop test asks; its level still falls in every eighth of the file, which a steady
-    tone or noise does not (their parts differ by chance, both up and down).
+    a 5 s file, less than the 6 dB the drop test asks; its level still falls in
+    every eighth of the file, which a steady tone or noise does not (their parts
+    differ by chance, both up and down).
     """
     parts = np.array_split(x, n_parts)
     db = np.array([_db_power(float(np.mean(p * p))) for p in parts if p.size])
