@@ -3,10 +3,11 @@
 The order here is the order of ``barwright --help``.
 """
 
-from synth.cli import cmd_bar  # noqa: F401  partials, tune, cutlist
+from synth.cli import cmd_bar  # noqa: F401, I001  partials, tune, cutlist
 from synth.cli import cmd_sound  # noqa: F401  strike, chord, render
 from synth.cli import cmd_reports  # noqa: F401  sustain
 from synth.cli import cmd_compare  # noqa: F401  compare
 from synth.cli import cmd_measure  # noqa: F401  measure
+from synth.cli import cmd_offcut  # noqa: F401  offcut
 from synth.cli import cmd_bench  # noqa: F401  bench
 from synth.cli import cmd_demo  # noqa: F401  demo
