@@ -10,5 +10,6 @@ from synth.cli import cmd_compare  # noqa: F401  compare
 from synth.cli import cmd_measure  # noqa: F401  measure
 from synth.cli import cmd_offcut  # noqa: F401  offcut
 from synth.cli import cmd_retune  # noqa: F401  retune
+from synth.cli import cmd_tubecal  # noqa: F401  tubecal
 from synth.cli import cmd_bench  # noqa: F401  bench
 from synth.cli import cmd_demo  # noqa: F401  demo

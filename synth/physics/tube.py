@@ -463,6 +463,50 @@ def resonance_frequency(spec: TubeSpec, *, temperature_c: float = 20.0, mode: in
     return f
 
 
+def calibrate_gap(spec: TubeSpec, measured_hz: float, *, temperature_c: float = 20.0,
+                  ka_correction: bool = False, upper: float = 100.0) -> float:
+    """Return the ``gap_calibration`` that gives a tube's pitch measured with its bar in place.
+
+    Solves ``resonance_frequency(spec with C_gap) = measured_hz`` for ``C_gap`` by
+    Brent's method on ``[0, upper]`` (the frequency falls monotonically as the gap
+    term grows).
+
+    Parameters
+    ----------
+    spec : TubeSpec
+        The tube as cut, with its bar's gap and cover fraction.
+    measured_hz : float
+        Its first resonance measured with the bar over the mouth, Hz.
+    temperature_c : float
+        Air temperature during the measurement, C.
+    ka_correction : bool
+        Use the (ka)^2 end correction.
+    upper : float
+        Largest factor searched (``tubes.calibration`` allows up to 100).
+
+    Raises
+    ------
+    ModelError
+        When no factor in ``[0, upper]`` reaches the measured pitch: the tube is
+        higher than the free tube (length, radius or temperature wrong) or lower
+        than the largest factor gives.
+    """
+    if spec.gap_to_bar_m is None:
+        raise ModelError("the tube has no bar over it (gap_to_bar_m is None): nothing to fit")
+
+    def at(c: float) -> float:
+        return resonance_frequency(replace(spec, gap_calibration=c),
+                                   temperature_c=temperature_c, ka_correction=ka_correction)
+
+    f_free, f_low = at(0.0), at(upper)
+    if not f_low <= measured_hz <= f_free:
+        raise ModelError(
+            f"tube pitch {measured_hz:.2f} Hz with the bar in place lies outside what the gap "
+            f"model gives ({f_low:.2f} Hz at gap_calibration {upper:g} to {f_free:.2f} Hz with "
+            "no bar effect): check the tube's length and radius, the gap and the temperature")
+    return bracketed_root(lambda c: at(c) - measured_hz, 0.0, upper, xtol=1e-10, rtol=1e-12)
+
+
 def resonance_frequencies(spec: TubeSpec, n_modes: int, *, temperature_c: float = 20.0,
                           ka_correction: bool = False) -> np.ndarray:
     """Return the first ``n_modes`` tube frequencies in Hz, shape ``(n_modes,)``."""

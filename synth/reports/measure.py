@@ -1357,3 +1357,135 @@ def write_calibration(path, fit: CalibrationFit, *, force: bool = False) -> Path
     from synth.io import write_bytes
 
     return write_bytes(path, fit.to_toml().encode("utf-8"), force=force)
+
+
+# --------------------------------------------------------------------------------------
+# Tube calibration
+# --------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class TubeCalibration:
+    """Gap correction and coupling strength of one note's tube, from measurements.
+
+    Attributes
+    ----------
+    note : str
+    tube_length_m : float
+        The tube as cut (from the preset).
+    tube_model_hz : float
+        The uncalibrated model's tube pitch with the bar in place, Hz.
+    tube_measured_hz : float
+        Measured, Hz.
+    gap_calibration : float
+        ``[tubes] gap_calibration`` reproducing the measured tube pitch.
+    tube_q : float
+        The tube's Q in the calibrated model (wall and radiation losses).
+    bar_hz : float
+        Bar fundamental measured without the tube, Hz.
+    bar_t60_bare_s, bar_t60_with_tube_s : float
+        Measured T60 of the fundamental without and with the tube, s.
+    coupling_calibration : float
+        ``[tubes] coupling_calibration`` reproducing the T60 with tube.
+    model_t60_with_tube_s : float
+        The uncalibrated model's T60 with tube (for the measured bare T60), s.
+    warnings : tuple of str
+    """
+
+    note: str
+    tube_length_m: float
+    tube_model_hz: float
+    tube_measured_hz: float
+    gap_calibration: float
+    tube_q: float
+    bar_hz: float
+    bar_t60_bare_s: float
+    bar_t60_with_tube_s: float
+    coupling_calibration: float
+    model_t60_with_tube_s: float
+    warnings: tuple[str, ...] = ()
+
+    def to_dict(self) -> dict:
+        """Plain values for JSON."""
+        return {**self.__dict__, "warnings": list(self.warnings)}
+
+    def to_toml(self, preset: str, sources: tuple[str, ...]) -> str:
+        """Return the ``[tubes]`` values to copy into the preset, with a header saying how."""
+        when = _dt.datetime.now(_dt.UTC).isoformat(timespec="seconds")
+        return "\n".join([
+            f"# Tube calibration of {preset}, note {self.note}, {when}",
+            "# from " + ", ".join(sources),
+            f"# tube with bar in place: measured {self.tube_measured_hz:.3f} Hz, uncalibrated "
+            f"model {self.tube_model_hz:.3f} Hz "
+            f"({float(cents(self.tube_measured_hz, self.tube_model_hz)):+.1f} cents)",
+            f"# bar fundamental {self.bar_hz:.3f} Hz: T60 {self.bar_t60_bare_s:.2f} s bare, "
+            f"{self.bar_t60_with_tube_s:.2f} s with its tube (uncalibrated model "
+            f"{self.model_t60_with_tube_s:.2f} s)",
+            "# copy these keys into the preset's [tubes] table",
+            "[tubes]",
+            f"gap_calibration = {_sig6(self.gap_calibration)!r}",
+            f"coupling_calibration = {_sig6(self.coupling_calibration)!r}",
+            "",
+        ])
+
+
+def _fundamental(m: Measurement, near_hz: float, what: str):
+    """Return the measured partial within 6 % of ``near_hz`` with a finite T60."""
+    cands = [p for p in m.partials if abs(p.frequency_hz / near_hz - 1) <= 0.06
+             and math.isfinite(p.t60_s)]
+    if not cands:
+        raise AudioError(f"{m.recording}: no partial with a measurable decay within 6 % of "
+                         f"the {what} ({near_hz:.1f} Hz): wrong note or file")
+    return min(cands, key=lambda p: abs(p.frequency_hz / near_hz - 1))
+
+
+def calibrate_tube(instrument: Instrument, note: str, *, tube_hz: float, bare: Measurement,
+                   with_tube: Measurement) -> TubeCalibration:
+    """Fit a note's tube gap correction and coupling strength to measurements.
+
+    ``tube_hz`` is the tube's first resonance measured with its bar in place
+    (bar damped, tube excited: a tap on the tube or a sweep); it fixes
+    ``gap_calibration`` (:func:`synth.physics.tube.calibrate_gap`).  With that
+    tube, the coupling rate that shortens the bar's measured bare T60 to the
+    measured T60 with tube (exact eigenvalues of the coupled pair,
+    :func:`synth.physics.coupling.coupling_rate_from_t60`, physics.md section 8)
+    over the model's uncalibrated rate is ``coupling_calibration``.  Record with
+    the motor stopped.
+    """
+    from synth.physics.coupling import couple, coupling_rate_from_t60
+    from synth.physics.tube import calibrate_gap, tube_mode
+    from synth.voicing import Voicer
+
+    note = instrument.check_note(note)
+    v = Voicer(instrument, tubes=True, channels=1, calibration=None, motor_rate_rev_per_s=0.0)
+    model = v.model(note)
+    if model.coupling is None:
+        raise ConfigError("has no [tubes] table (or tubes are off): nothing to calibrate",
+                          source=instrument.source)
+    temp = model.coupling.temperature_c
+    spec = replace(model.tube, gap_calibration=1.0)
+    f_model = tube_mode(spec, temperature_c=temp).frequency_hz
+    gap = calibrate_gap(spec, tube_hz, temperature_c=temp)
+    fitted = replace(spec, gap_calibration=gap)
+    tm = tube_mode(fitted, temperature_c=temp)
+    bar_model = model.coupling.bar
+    p_bare = _fundamental(bare, bar_model.frequency_hz, f"{note} fundamental (bare bar)")
+    p_tube = _fundamental(with_tube, bar_model.frequency_hz, f"{note} fundamental (with tube)")
+    warnings = []
+    for p, m in ((p_bare, bare), (p_tube, with_tube)):
+        if p.beating:
+            warnings.append(f"{m.recording}: the fundamental beats; its T60 is an average")
+    mu = coupling_rate_from_t60(bar_frequency_hz=p_bare.frequency_hz,
+                                bar_t60_bare_s=p_bare.t60_s,
+                                bar_t60_with_tube_s=p_tube.t60_s,
+                                tube_frequency_hz=tm.frequency_hz, tube_q=tm.q)
+    bar = replace(bar_model, frequency_hz=p_bare.frequency_hz,
+                  q=math.pi * p_bare.frequency_hz * p_bare.t60_s / math.log(1000.0))
+    unc = couple(bar, spec, temperature_c=temp)
+    cal = couple(bar, fitted, temperature_c=temp)
+    return TubeCalibration(
+        note=note, tube_length_m=spec.length_m, tube_model_hz=f_model, tube_measured_hz=tube_hz,
+        gap_calibration=gap, tube_q=tm.q, bar_hz=p_bare.frequency_hz,
+        bar_t60_bare_s=p_bare.t60_s, bar_t60_with_tube_s=p_tube.t60_s,
+        coupling_calibration=mu / cal.coupling_rate_rad_s,
+        model_t60_with_tube_s=unc.pair.modes().t60_s[0], warnings=tuple(warnings))
