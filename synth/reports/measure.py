@@ -1489,3 +1489,130 @@ def calibrate_tube(instrument: Instrument, note: str, *, tube_hz: float, bare: M
         bar_t60_bare_s=p_bare.t60_s, bar_t60_with_tube_s=p_tube.t60_s,
         coupling_calibration=mu / cal.coupling_rate_rad_s,
         model_t60_with_tube_s=unc.pair.modes().t60_s[0], warnings=tuple(warnings))
+
+
+# --------------------------------------------------------------------------------------
+# A folder of recordings across the range
+# --------------------------------------------------------------------------------------
+
+AUDIO_SUFFIXES = (".wav", ".flac", ".aif", ".aiff", ".ogg")
+"""File name endings read as recordings in a folder (case-insensitive)."""
+
+_NOTE_IN_NAME = None
+
+
+def note_from_name(name: str) -> str | None:
+    """Return the note named in a file name (``A4``, ``F#3``, ``Bb5``, ``c#6``), or None.
+
+    The last note-like token wins (``bar-07-A4.wav`` is A4); a token must not sit
+    inside a longer word of letters (``take4`` names no note).
+    """
+    import re
+
+    global _NOTE_IN_NAME
+    if _NOTE_IN_NAME is None:
+        _NOTE_IN_NAME = re.compile(
+            r"(?<![A-Za-z])([A-Ga-g])(sharp|flat|#|b|s)?(-?[0-9])(?![0-9])")
+    found = _NOTE_IN_NAME.findall(Path(name).stem)
+    if not found:
+        return None
+    letter, accidental, octave = found[-1]
+    acc = {"#": "#", "s": "#", "sharp": "#", "b": "b", "flat": "b"}.get(accidental, "")
+    return f"{letter.upper()}{acc}{octave}"
+
+
+@dataclass(frozen=True)
+class RangeRow:
+    """One recording of a folder: its note and the measurement (or why it failed)."""
+
+    path: str
+    note: str
+    measurement: Measurement | None
+    error: str | None
+
+    def partial(self, ratio: float):
+        """Return the partial nearest ``ratio`` times the fundamental (within 3 %), or None."""
+        m = self.measurement
+        if m is None or m.fundamental_hz is None:
+            return None
+        want = ratio * m.fundamental_hz
+        near = [p for p in m.partials if abs(p.frequency_hz / want - 1) <= 0.03]
+        return min(near, key=lambda p: abs(p.frequency_hz / want - 1)) if near else None
+
+    def to_dict(self, ratios) -> dict:
+        """Plain values for JSON: note, file, fundamental and the partials near the ratios."""
+        out = {"note": self.note, "file": self.path, "error": self.error}
+        if self.measurement is not None:
+            m = self.measurement
+            out["fundamental_hz"] = m.fundamental_hz
+            out["cents"] = (float(cents(m.fundamental_hz, m.note_hz)) if m.fundamental_hz
+                            else None)
+            out["partials"] = [None if (p := self.partial(r)) is None else p.to_dict()
+                               for r in ratios]
+            out["warnings"] = list(m.warnings)
+        return out
+
+
+def measure_folder(folder, *, reference_hz: float, ratios=(1.0, 4.0, 10.08),
+                   max_partials: int = 12, channel: int | None = None
+                   ) -> tuple[list[RangeRow], list[str]]:
+    """Measure every recording in a folder, the note of each taken from its file name.
+
+    Returns the rows sorted by pitch and a list of files skipped (no note in the
+    name).  A file that cannot be measured gets a row with its error; the others
+    go on.
+    """
+    from synth.pitch import note_to_midi
+
+    folder = Path(folder)
+    files = sorted(p for p in folder.iterdir()
+                   if p.is_file() and p.suffix.lower() in AUDIO_SUFFIXES)
+    rows, skipped = [], []
+    for f in files:
+        note = note_from_name(f.name)
+        if note is None:
+            skipped.append(f"{f.name}: no note in the file name (name it e.g. A4.wav)")
+            continue
+        try:
+            note_to_midi(note)
+        except ConfigError:
+            skipped.append(f"{f.name}: {note} is not a note")
+            continue
+        try:
+            m = measure_file(f, note=note, reference_hz=reference_hz,
+                             max_partials=max_partials, channel=channel)
+            rows.append(RangeRow(str(f), note, m, None))
+        except (AudioError, ConfigError) as exc:
+            rows.append(RangeRow(str(f), note, None, str(exc)))
+    rows.sort(key=lambda r: (note_to_midi(r.note), r.path))
+    return rows, skipped
+
+
+def range_png(rows: list[RangeRow], ratios, *, title: str = "") -> bytes:
+    """Two panels across the range: cents of each partial off its target, and T60."""
+    from synth.pitch import note_to_midi
+    from synth.reports.plots import figure_png, pyplot
+
+    plt = pyplot()
+    fig, (ax0, ax1) = plt.subplots(2, 1, figsize=(9, 6), sharex=True)
+    for k, r in enumerate(ratios):
+        xs, cs, ts = [], [], []
+        for row in rows:
+            p = row.partial(r)
+            if p is None:
+                continue
+            m = row.measurement
+            xs.append(note_to_midi(row.note))
+            cs.append(float(cents(p.frequency_hz, r * m.note_hz)))
+            ts.append(p.t60_s if math.isfinite(p.t60_s) else np.nan)
+        ax0.plot(xs, cs, "o-", label=f"partial {k + 1} (x{r:g})")
+        ax1.semilogy(xs, ts, "o-", label=f"partial {k + 1}")
+    ax0.axhline(0.0, color="0.5", lw=0.8)
+    ax0.set_ylabel("cents off target")
+    ax1.set_ylabel("T60 s")
+    ax1.set_xlabel("note")
+    notes = [(note_to_midi(r.note), r.note) for r in rows]
+    ax1.set_xticks([n for n, _ in notes], [s for _, s in notes], rotation=90, fontsize=7)
+    ax0.legend(fontsize=8)
+    ax0.set_title(title)
+    return figure_png(fig)

@@ -16,8 +16,8 @@ Sources
   (physics.md section 8) relate them to the coupling rate.
 
 Tolerance: 5 %, the issue's; measured 0.80002 for 0.8 (the renders' T60s, 52.48
-and 22.72 s, measured within 3e-5 of the voice plan's).  The gap factor is an inversion of the same pitch
-formula (Brent to 1e-10): held to 1e-6.
+and 22.72 s, measured within 3e-5 of the voice plan's).  The gap factor is an
+inversion of the same pitch formula (Brent to 1e-10): held to 1e-6.
 """
 
 from __future__ import annotations
