@@ -211,7 +211,8 @@ class Voicer:
                 modes = solve_bar(geo, self.material, n_vertical=1, n_lateral=0, n_torsional=0)
             length = tube_length_for_bar(modes.fundamental_hz, template,
                                          offset_cents=ts.offset_cents,
-                                         temperature_c=self.temperature_c)
+                                         temperature_c=self.temperature_c,
+                                         ka_correction=ts.ka_correction)
         from dataclasses import replace
 
         return replace(template, length_m=length)
@@ -231,7 +232,8 @@ class Voicer:
             radiation_loss_factor=min(fund.terms["radiation"], fund.eta),
         )
         coupling = couple(bar, tube, temperature_c=self.temperature_c,
-                          coupling_calibration=self.tube_settings.coupling_calibration)
+                          coupling_calibration=self.tube_settings.coupling_calibration,
+                          ka_correction=self.tube_settings.ka_correction)
         return tube, coupling
 
     def disc_phase_deg(self, note: str) -> float:

@@ -110,7 +110,14 @@ KA_CORRECTION_LIMIT = 0.5
 
 @dataclass(frozen=True)
 class TubeSettings:
-    """The resonators under the bars (``[tubes]`` table)."""
+    """The resonators under the bars (``[tubes]`` table).
+
+    ``ka_correction`` (default on) makes the free end correction depend on
+    frequency, ``delta_0/a = 0.6133 - 0.1168 (ka)^2`` (Davies et al. [3]; the
+    low-ka limit 0.6133 is Levine & Schwinger's [1], the (ka)^2 coefficient is
+    from memory): at the top of a three-octave range (ka near 0.5) the
+    constant value puts a tube about 16 cents flat.
+    """
 
     inner_radius_m: tuple[float, float]
     gap_m: float
@@ -119,6 +126,19 @@ class TubeSettings:
     coupling_calibration: float = 1.0
     gap_calibration: float = 1.0
     enabled: bool = True
+    ka_correction: bool = True
+    given: frozenset = frozenset()
+    """Keys the preset's [tubes] table set itself (the calibrations among them)."""
+
+    def uncalibrated(self) -> tuple[str, ...]:
+        """Return the tube terms still at their derived, uncalibrated value.
+
+        ``gap_calibration`` (the bar over the mouth: every tube length and tube
+        pitch) and ``coupling_calibration`` (every tube T60 and gain) count as
+        calibrated once the preset sets them (``barwright tubecal`` fits them).
+        """
+        return tuple(k for k in ("gap_calibration", "coupling_calibration")
+                     if k not in self.given)
 
     def radius_at(self, fraction: float) -> float:
         """Inner radius at ``fraction`` of the range (geometric grading)."""
@@ -131,7 +151,7 @@ def parse_tubes(sec: Section | None) -> TubeSettings | None:
     if sec is None:
         return None
     sec.check_keys({"inner_radius_m", "gap_m", "offset_cents", "flanged",
-                    "coupling_calibration", "gap_calibration", "enabled"})
+                    "coupling_calibration", "gap_calibration", "enabled", "ka_correction"})
     raw = sec.data.get("inner_radius_m")
     if isinstance(raw, list):
         radii = tuple(sec.numbers("inner_radius_m", limit="tubes.inner_radius_m", length=2))
@@ -146,6 +166,8 @@ def parse_tubes(sec: Section | None) -> TubeSettings | None:
         coupling_calibration=sec.number("coupling_calibration", 1.0, limit="tubes.calibration"),
         gap_calibration=sec.number("gap_calibration", 1.0, limit="tubes.calibration"),
         enabled=sec.boolean("enabled", True),
+        ka_correction=sec.boolean("ka_correction", True),
+        given=frozenset(sec.data),
     )
 
 

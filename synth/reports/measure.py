@@ -1463,11 +1463,12 @@ def calibrate_tube(instrument: Instrument, note: str, *, tube_hz: float, bare: M
         raise ConfigError("has no [tubes] table (or tubes are off): nothing to calibrate",
                           source=instrument.source)
     temp = model.coupling.temperature_c
+    ka = v.tube_settings.ka_correction
     spec = replace(model.tube, gap_calibration=1.0)
-    f_model = tube_mode(spec, temperature_c=temp).frequency_hz
-    gap = calibrate_gap(spec, tube_hz, temperature_c=temp)
+    f_model = tube_mode(spec, temperature_c=temp, ka_correction=ka).frequency_hz
+    gap = calibrate_gap(spec, tube_hz, temperature_c=temp, ka_correction=ka)
     fitted = replace(spec, gap_calibration=gap)
-    tm = tube_mode(fitted, temperature_c=temp)
+    tm = tube_mode(fitted, temperature_c=temp, ka_correction=ka)
     bar_model = model.coupling.bar
     p_bare = _fundamental(bare, bar_model.frequency_hz, f"{note} fundamental (bare bar)")
     p_tube = _fundamental(with_tube, bar_model.frequency_hz, f"{note} fundamental (with tube)")
@@ -1481,8 +1482,8 @@ def calibrate_tube(instrument: Instrument, note: str, *, tube_hz: float, bare: M
                                 tube_frequency_hz=tm.frequency_hz, tube_q=tm.q)
     bar = replace(bar_model, frequency_hz=p_bare.frequency_hz,
                   q=math.pi * p_bare.frequency_hz * p_bare.t60_s / math.log(1000.0))
-    unc = couple(bar, spec, temperature_c=temp)
-    cal = couple(bar, fitted, temperature_c=temp)
+    unc = couple(bar, spec, temperature_c=temp, ka_correction=ka)
+    cal = couple(bar, fitted, temperature_c=temp, ka_correction=ka)
     return TubeCalibration(
         note=note, tube_length_m=spec.length_m, tube_model_hz=f_model, tube_measured_hz=tube_hz,
         gap_calibration=gap, tube_q=tm.q, bar_hz=p_bare.frequency_hz,

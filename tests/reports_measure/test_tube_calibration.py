@@ -47,7 +47,7 @@ def hidden_preset(tmp_path, note: str):
     path = tmp_path / "hidden.toml"
     path.write_text(text)
     tube_hz = resonance_frequency(replace(spec, gap_calibration=HIDDEN_GAP),
-                                  temperature_c=inst.temperature_c)
+                                  temperature_c=inst.temperature_c, ka_correction=True)
     return path, tube_hz
 
 
