@@ -553,6 +553,10 @@ physics.md section 9, with margin; faster envelope ripple is beating between
 partials, not the discs)."""
 
 
+TREMOLO_RANGE_DB = 40.0
+"""Envelope range searched for tremolo, dB below the loudest frame."""
+
+
 @dataclass(frozen=True)
 class SlowDecay:
     """Frequency and decay of one partial by complex demodulation.
@@ -699,8 +703,7 @@ def find_tremolo(x: np.ndarray, fs: float, *, min_depth: float = TREMOLO_MIN_DEP
     """Look for tremolo in a strike: the peak of the envelope's spectrum.
 
     The envelope is the rms of 5 ms frames from the loudest frame on, up to
-    the last frame standing 12 dB above the quietest tenth of the frames (the
-    noise; the whole file when that leaves less than a second).  Its log is
+    the last frame within :data:`TREMOLO_RANGE_DB` of the loudest.  Its log is
     detrended by a quadratic (the decay, possibly bent by beating), and the
     remainder's spectrum (Hann window, zero-padded) is searched in
     :data:`TREMOLO_BAND_HZ`.  For ``A (1 + m cos(2 pi f t))`` the log envelope
@@ -725,11 +728,10 @@ def find_tremolo(x: np.ndarray, fs: float, *, min_depth: float = TREMOLO_MIN_DEP
         return None
     env = np.sqrt(np.mean(x[: n * hop].reshape(n, hop) ** 2, axis=1)) + 1e-300
     k0 = int(np.argmax(env)) + 4  # past the attack
-    noise = float(np.quantile(env, 0.1))  # the noise when the file decays into it
-    above = np.flatnonzero(env[k0:] > noise * 4.0)
-    k1 = k0 + int(above[-1]) + 1 if above.size else env.size
-    if (k1 - k0) * hop < fs:  # no noise tail (a render, a short file): use it all
-        k1 = env.size
+    # the decay's first 40 dB: well above the noise of any usable recording, so the
+    # floor's flat tail cannot bend the detrended envelope into a slow "cycle"
+    above = np.flatnonzero(env[k0:] > env.max() * 10 ** (-TREMOLO_RANGE_DB / 20))
+    k1 = k0 + int(above[-1]) + 1 if above.size else k0
     e = np.log(env[k0:k1])
     t = np.arange(e.size) * hop / fs
     lo, hi = TREMOLO_BAND_HZ
@@ -1389,6 +1391,9 @@ class TubeCalibration:
         ``[tubes] coupling_calibration`` reproducing the T60 with tube.
     model_t60_with_tube_s : float
         The uncalibrated model's T60 with tube (for the measured bare T60), s.
+    tube_measured_q : float or None
+        The tube's Q measured from its own recording (None when its pitch was
+        typed in); compare with ``tube_q``, the model's wall and radiation Q.
     warnings : tuple of str
     """
 
@@ -1403,6 +1408,7 @@ class TubeCalibration:
     bar_t60_with_tube_s: float
     coupling_calibration: float
     model_t60_with_tube_s: float
+    tube_measured_q: float | None = None
     warnings: tuple[str, ...] = ()
 
     def to_dict(self) -> dict:
@@ -1439,13 +1445,45 @@ def _fundamental(m: Measurement, near_hz: float, what: str):
     return min(cands, key=lambda p: abs(p.frequency_hz / near_hz - 1))
 
 
+def tube_model_hz(instrument: Instrument, note: str) -> float:
+    """Return the uncalibrated model's pitch of a note's tube with its bar in place, Hz."""
+    from synth.physics.tube import tube_mode
+    from synth.voicing import Voicer
+
+    v = Voicer(instrument, tubes=True, channels=1, calibration=None, motor_rate_rev_per_s=0.0)
+    spec = v.tube_spec(instrument.check_note(note))
+    if spec is None:
+        raise ConfigError("has no [tubes] table: nothing to calibrate", source=instrument.source)
+    return tube_mode(replace(spec, gap_calibration=1.0), temperature_c=v.temperature_c,
+                     ka_correction=v.tube_settings.ka_correction).frequency_hz
+
+
+def tube_resonance(m: Measurement, model_hz: float) -> tuple[float, float]:
+    """Return the frequency (Hz) and Q of the tube in a recording of it, bar in place.
+
+    The partial nearest the model's pitch within 10 % (the bar-over-mouth
+    correction is worth tens of cents, the model's tube pitch a few per cent at
+    worst).
+    """
+    near = [p for p in m.partials if abs(p.frequency_hz / model_hz - 1) <= 0.10]
+    if not near:
+        raise AudioError(f"{m.recording}: no partial within 10 % of the tube's model pitch "
+                         f"{model_hz:.1f} Hz (found "
+                         + ", ".join(f"{p.frequency_hz:.1f}" for p in m.partials)
+                         + " Hz): damp the bar and excite the tube (tap its side, clap over "
+                         "it), or give --tube-hz")
+    p = min(near, key=lambda p: abs(p.frequency_hz / model_hz - 1))
+    return p.frequency_hz, p.q
+
+
 def calibrate_tube(instrument: Instrument, note: str, *, tube_hz: float, bare: Measurement,
-                   with_tube: Measurement) -> TubeCalibration:
+                   with_tube: Measurement, tube_q: float | None = None) -> TubeCalibration:
     """Fit a note's tube gap correction and coupling strength to measurements.
 
     ``tube_hz`` is the tube's first resonance measured with its bar in place
-    (bar damped, tube excited: a tap on the tube or a sweep); it fixes
-    ``gap_calibration`` (:func:`synth.physics.tube.calibrate_gap`).  With that
+    (bar damped, tube excited: a tap on the tube or a sweep, see
+    :func:`tube_resonance`; ``tube_q`` its measured Q, reported beside the
+    model's); it fixes ``gap_calibration`` (:func:`synth.physics.tube.calibrate_gap`).  With that
     tube, the coupling rate that shortens the bar's measured bare T60 to the
     measured T60 with tube (exact eigenvalues of the coupled pair,
     :func:`synth.physics.coupling.coupling_rate_from_t60`, physics.md section 8)
@@ -1489,7 +1527,8 @@ def calibrate_tube(instrument: Instrument, note: str, *, tube_hz: float, bare: M
         gap_calibration=gap, tube_q=tm.q, bar_hz=p_bare.frequency_hz,
         bar_t60_bare_s=p_bare.t60_s, bar_t60_with_tube_s=p_tube.t60_s,
         coupling_calibration=mu / cal.coupling_rate_rad_s,
-        model_t60_with_tube_s=unc.pair.modes().t60_s[0], warnings=tuple(warnings))
+        model_t60_with_tube_s=unc.pair.modes().t60_s[0], tube_measured_q=tube_q,
+        warnings=tuple(warnings))
 
 
 # --------------------------------------------------------------------------------------
