@@ -78,6 +78,7 @@ from synth.physics.tube import (
     parse_tubes,
     speed_of_sound,
     tube_length_for_bar,
+    with_file_calibration,
 )
 
 LN_1000 = math.log(1000.0)
@@ -156,7 +157,8 @@ class Voicer:
         self.supports: Supports = parse_supports(inst.section("supports"))
         if self.calibration is None:
             self.calibration = parse_calibration(inst.section("damping"))
-        self.tube_settings = parse_tubes(inst.section("tubes"))
+        self.tube_settings = with_file_calibration(parse_tubes(inst.section("tubes")),
+                                                   self.calibration)
         motor, self.phase_step_deg = parse_motor(inst.section("motor"))
         if self.motor_rate_rev_per_s is not None:
             from dataclasses import replace

@@ -97,9 +97,7 @@ def sustain_command(
     io.write_bytes(png_path, sustain_png(rep, f"{inst.name}: sustain of the fundamental"),
                    force=force)
     commit_outputs()
-    from synth.physics.tube import parse_tubes
-
-    ts = parse_tubes(inst.section("tubes")) if rep.tubes else None
+    ts = v.tube_settings if rep.tubes else None  # with a calibration file's [tubes]
     open_terms = list(ts.uncalibrated()) if ts is not None else []
     if json_out:
         print_json({

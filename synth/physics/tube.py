@@ -171,6 +171,20 @@ def parse_tubes(sec: Section | None) -> TubeSettings | None:
     )
 
 
+def with_file_calibration(settings: TubeSettings | None, calibration) -> TubeSettings | None:
+    """Return the tube settings with a calibration file's ``[tubes]`` values merged in.
+
+    ``calibration`` is a :class:`synth.physics.losses.Calibration` (its ``tubes``
+    dict); a key the preset's own ``[tubes]`` table sets wins.  The merged keys
+    count as given (calibrated).
+    """
+    extra = {k: v for k, v in (getattr(calibration, "tubes", None) or {}).items()
+             if settings is not None and k not in settings.given}
+    if not extra:
+        return settings
+    return replace(settings, **extra, given=settings.given | frozenset(extra))
+
+
 def parse_tube_override(sec: Section) -> float:
     """Read a bar's own ``tube = { length_m = ... }`` table: the cut length, m."""
     sec.check_keys({"length_m"})

@@ -1427,7 +1427,8 @@ class TubeCalibration:
             f"# bar fundamental {self.bar_hz:.3f} Hz: T60 {self.bar_t60_bare_s:.2f} s bare, "
             f"{self.bar_t60_with_tube_s:.2f} s with its tube (uncalibrated model "
             f"{self.model_t60_with_tube_s:.2f} s)",
-            "# copy these keys into the preset's [tubes] table",
+            "# name this file in the preset's [damping] table (calibration_file = ...), or",
+            "# copy these keys into the preset's [tubes] table (the preset's own keys win)",
             "[tubes]",
             f"gap_calibration = {_sig6(self.gap_calibration)!r}",
             f"coupling_calibration = {_sig6(self.coupling_calibration)!r}",
