@@ -35,6 +35,20 @@ clipping that reaches past the attack into the decay being fitted, channels
 that cancel in their mean (more than 20 dB below the channels: pick one with
 ``--channel``), a named note above what the sample rate carries (0.45 x rate).
 
+A folder
+--------
+``barwright measure FOLDER [--preset PRESET] [--plot PNG]`` measures every
+recording in the folder, the note of each from its file name
+(:func:`note_from_name`), and gives one table and one plot across the range
+(:func:`measure_folder`, :func:`range_png`).
+
+Tubes
+-----
+``barwright tubecal`` (:func:`calibrate_tube`) fits a note's tube terms: the
+tube's pitch with its bar in place gives ``gap_calibration``, the bar's T60
+without and with the tube gives ``coupling_calibration``; its file holds a
+``[tubes]`` table that a calibration file may carry.
+
 Calibration
 -----------
 ``barwright measure RECORDING --calibrate PRESET --note N --out FILE [--force]
