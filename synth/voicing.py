@@ -82,6 +82,7 @@ from synth.physics.tube import (
     parse_tubes,
     speed_of_sound,
     tube_length_for_bar,
+    with_file_calibration,
 )
 
 # --------------------------------------------------------------------------------------
@@ -201,8 +202,10 @@ class Voicer:
 
     @cached_property
     def tube_settings(self) -> TubeSettings | None:
-        """The preset's ``[tubes]`` table (None: no tubes)."""
-        return parse_tubes(self.instrument.section("tubes"))
+        """The preset's ``[tubes]`` table with any ``[tubes]`` of the calibration file
+        (None: no tubes)."""
+        return with_file_calibration(parse_tubes(self.instrument.section("tubes")),
+                                     self.loss_calibration)
 
     @cached_property
     def _motor_table(self) -> tuple[MotorSpec, float]:
@@ -283,7 +286,8 @@ class Voicer:
                                         self.correction, note)
             length = tube_length_for_bar(modes.fundamental_hz, template,
                                          offset_cents=ts.offset_cents,
-                                         temperature_c=self.temperature_c)
+                                         temperature_c=self.temperature_c,
+                                         ka_correction=ts.ka_correction)
         return replace(template, length_m=length)
 
     def _couple(self, note: str, modes: BarModes, fund: ModeLoss, frac: float):
@@ -301,7 +305,8 @@ class Voicer:
             radiation_loss_factor=min(fund.terms["radiation"], fund.eta),
         )
         coupling = couple(bar, tube, temperature_c=self.temperature_c,
-                          coupling_calibration=self.tube_settings.coupling_calibration)
+                          coupling_calibration=self.tube_settings.coupling_calibration,
+                          ka_correction=self.tube_settings.ka_correction)
         return tube, coupling
 
     def disc_phase_deg(self, note: str) -> float:

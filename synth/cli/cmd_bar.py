@@ -538,12 +538,20 @@ def cutlist_command(
         [(r.note, inst.bar(r.note), r.cord_holes_m) for r in rows],
         title=f"{inst.name}: bar profiles (circles: cord holes)"), force=force)
     commit_outputs()
+    from synth.physics.losses import parse_calibration
+    from synth.physics.tube import parse_tubes, with_file_calibration
+
+    ts = with_file_calibration(parse_tubes(inst.section("tubes")),
+                               parse_calibration(inst.section("damping")))
+    gap_open = ts is not None and "gap_calibration" in ts.uncalibrated()
     if json_out:
         print_json({"bars": [r.__dict__ for r in rows], "csv": str(csv_path),
-                    "png": str(png_path)})
+                    "png": str(png_path),
+                    "uncalibrated": {"tube_length_m": ["gap_calibration"] if gap_open else []}})
         return
     heads = ["note", "length mm", "w x t mm", "thinnest", "t@20%", "t@30%", "t@40%", "t@50%",
-             "cord holes mm from each end", "cord %L", "mass g", "tube mm"]
+             "cord holes mm from each end", "cord %L", "mass g",
+             "tube mm ~" if gap_open else "tube mm"]
     table = []
     for r in rows:
         st = r.station_thickness_m
@@ -562,6 +570,10 @@ def cutlist_command(
     if any(r.tube_length_m is not None for r in rows):
         typer.echo(f"tube lengths: closed end to mouth rim, for the [tubes] offset at "
                    f"{inst.temperature_c:g} C with the bar in place; cut long and trim to pitch.")
+        if gap_open:
+            typer.echo("~ uncalibrated: the bar-over-mouth correction is derived, not measured "
+                       "(tens of cents of tube pitch); fit gap_calibration with "
+                       "`barwright tubecal` before cutting the whole set")
     typer.echo(SAFETY)
 
 

@@ -40,16 +40,17 @@ def _partials_table(m) -> str:
     headers = ["freq Hz", "note", "cents"]
     if named:
         headers += ["ratio", f"cents re {m.note}"]
-    headers += ["Q", "T60 s", "level dB", "decay from"]
+    headers += ["Q", "Q +-%", "T60 s", "level dB", "decay from"]
     rows = []
     for p in m.partials:
         row = [f"{p.frequency_hz:.2f}", p.note, f"{p.cents:+.1f}"]
         if named:
             row += [_num(p.ratio, ".4f"), _num(p.cents_from_note, "+.1f")]
-        row += [_num(p.q, ".0f"), _num(p.t60_s, ".2f"), f"{p.level_db:.1f}",
+        se = "-" if not math.isfinite(p.q_rel_se) else f"{100 * p.q_rel_se:.1f}"
+        row += [_num(p.q, ".0f"), se, _num(p.t60_s, ".2f"), f"{p.level_db:.1f}",
                 p.decay_method + (", beats" if p.beating else "")]
         rows.append(row)
-    align = "rlr" + ("rr" if named else "") + "rrrl"
+    align = "rlr" + ("rr" if named else "") + "rrrrl"
     return format_table(headers, rows, align=align)
 
 
@@ -92,14 +93,19 @@ def _fit_tables(fit) -> str:
 def measure_command(
     recording: Annotated[Path, typer.Argument(
         help="Recording of one struck bar (WAV, FLAC, AIFF...); several channels are "
-             "averaged unless --channel picks one.", show_default=False)],
+             "averaged unless --channel picks one. A folder: every recording in it, the "
+             "note of each from its file name.", show_default=False)],
     note: Annotated[str | None, typer.Option(
         help="The note the bar is meant to be (e.g. A4): adds each partial's ratio to the "
              "fundamental and its interval above the note in cents.")] = None,
     reference_hz: Annotated[float | None, typer.Option(
         min=380.0, max=480.0, metavar="Hz",
-        help="A4 for note names (default 440 Hz per ISO 16; with "
-             "--calibrate the preset's reference_pitch_hz).")] = None,
+        help="A4 for note names (default: the reference_pitch_hz of --preset or "
+             "--calibrate, else 440 Hz per ISO 16; the header says which).")] = None,
+    preset: Annotated[Path | None, typer.Option(
+        "--preset", help="Instrument preset the bar belongs to: its reference pitch names "
+                         "the notes (and --note is checked against its range).",
+        show_default=False)] = None,
     max_partials: Annotated[int, typer.Option(
         min=1, max=64, help="Report at most this many partials, the strongest.")] = 12,
     channel: Annotated[int | None, typer.Option(
@@ -126,9 +132,16 @@ def measure_command(
     no_tubes: Annotated[bool, typer.Option(
         "--no-tubes", help="The recording was made with the bar alone (no tube under it).")
     ] = False,
+    plot: Annotated[Path | None, typer.Option(
+        help="With a folder: PNG of cents off target and T60 across the range (default "
+             "renders/<folder>/measure-range.png).", show_default=False)] = None,
     json_out: Annotated[bool, typer.Option("--json", help="Print JSON on stdout.")] = False,
 ) -> None:
     """Measure a recorded strike: partials with note, cents, Q, T60 and level.
+
+    RECORDING may be a folder of recordings, one per bar, each named by its note
+    (A4.wav, bar-12-F#4.flac): one table and one plot across the range
+    (--preset gives the reference pitch and the target ratios).
 
     With --calibrate PRESET --note N --out FILE it also fits the preset's loss
     factors so that the model's Q of vertical modes 1-3 and torsional mode 1
@@ -141,6 +154,16 @@ def measure_command(
     from synth.reports.measure import calibrate as fit_calibration
     from synth.reports.measure import measure_file, write_calibration
 
+    if recording.is_dir():
+        _measure_folder(recording, preset=preset, reference_hz=reference_hz,
+                        max_partials=max_partials, channel=channel, plot=plot, force=force,
+                        json_out=json_out,
+                        refused=[o for o, v in (("--note", note), ("--calibrate", calibrate),
+                                                ("--out", out), ("--terms", terms))
+                                 if v is not None])
+        return
+    if plot is not None:
+        raise ConfigError("is only used when RECORDING is a folder", source="--plot")
     instrument = None
     if note is not None:
         _check_keyboard_note(note)
@@ -159,11 +182,26 @@ def measure_command(
         raise ConfigError("is only used with --calibrate PRESET",
                           source="--terms" if terms is not None else
                           "--no-tubes" if no_tubes else "--keep-overrides")
-    ref = reference_hz or (instrument.reference_pitch_hz if instrument else 440.0)
+    if preset is not None:
+        if calibrate is not None:
+            raise ConfigError("names the preset already given by --calibrate; give one of "
+                              "them", source="--preset")
+        from synth.physics.instrument import load_instrument
+
+        instrument = load_instrument(preset)
+        if note is not None:
+            note = instrument.check_note(note)
+    from synth.pitch import DEFAULT_REFERENCE_HZ
+
+    ref = reference_hz or (instrument.reference_pitch_hz if instrument else
+                           DEFAULT_REFERENCE_HZ)
+    ref_from = ("--reference-hz" if reference_hz else
+                f"{(preset or calibrate).name}" if instrument else
+                "default, ISO 16; --preset or --reference-hz to change")
     measurement = measure_file(recording, note=note, reference_hz=ref,
                                max_partials=max_partials, channel=channel)
     fit = path = rel = None
-    if instrument is not None:
+    if calibrate is not None:
         wanted = None
         if terms is not None:
             wanted = tuple(t.strip() for t in terms.split(",") if t.strip())
@@ -187,6 +225,7 @@ def measure_command(
         warn(w)
     if json_out:
         doc = measurement.to_dict()
+        doc["reference_pitch_from"] = ref_from
         if fit is not None:
             doc["calibration"] = {**fit.to_dict(), "file": path and str(path),
                                   "calibration_file": rel}
@@ -198,7 +237,7 @@ def measure_command(
           else f"{measurement.n_channels} channels (mean)")
     typer.echo(f"{measurement.recording}: {measurement.sample_rate_hz:g} Hz, {ch}, "
                f"{measurement.duration_s:.2f} s; strike at {measurement.onset_s:.3f} s; "
-               f"A4 = {ref:g} Hz")
+               f"A4 = {ref:g} Hz ({ref_from})")
     typer.echo(_partials_table(measurement))
     if note is not None:
         if measurement.fundamental_hz is not None:
@@ -236,3 +275,76 @@ def _check_keyboard_note(note: str) -> None:
         note_to_midi(note)
     except ConfigError as exc:
         raise ConfigError(f"= {note!r}: {exc.detail}", source="--note") from None
+
+
+def _measure_folder(folder: Path, *, preset, reference_hz, max_partials, channel, plot, force,
+                    json_out, refused) -> None:
+    """One table and one plot across the range from a folder of recordings."""
+    from synth.cli.common import default_output
+    from synth.pitch import DEFAULT_REFERENCE_HZ, cents
+    from synth.reports.measure import measure_folder, range_png
+
+    if refused:
+        raise ConfigError("applies to one recording, not to a folder", source=refused[0])
+    ratios = (1.0, 4.0, 10.08)
+    ref = reference_hz or DEFAULT_REFERENCE_HZ
+    ref_from = "--reference-hz" if reference_hz else "default, ISO 16"
+    if preset is not None:
+        from synth.physics.instrument import load_instrument
+
+        inst = load_instrument(preset)
+        ratios = tuple(inst.target_ratios[:3])
+        if not reference_hz:
+            ref, ref_from = inst.reference_pitch_hz, preset.name
+    png = plot or default_output(folder, "measure-range.png")
+    plan_outputs([(png, "plot")], force=force)
+    rows, skipped = measure_folder(folder, reference_hz=ref, ratios=ratios,
+                                   max_partials=max_partials, channel=channel)
+    if not rows:
+        raise ConfigError(f"= {folder}: no recording named by its note in it"
+                          + (f" ({len(skipped)} skipped)" if skipped else ""),
+                          source="RECORDING")
+    failed = [r for r in rows if r.error is not None]
+    if failed:  # first line on stderr: the job ran but missed part of what was asked
+        missed(f"{len(failed)} of {len(rows)} recordings could not be measured: "
+               + "; ".join(f"{Path(r.path).name}: {r.error}" for r in failed))
+    for sk in skipped:
+        warn(f"skipped {sk}")
+    from synth import io
+
+    io.write_bytes(png, range_png(rows, ratios, title=f"{folder.name}: A4 = {ref:g} Hz"),
+                   force=force)
+    commit_outputs()
+    if json_out:
+        print_json({"folder": str(folder), "reference_pitch_hz": ref,
+                    "reference_pitch_from": ref_from, "ratios": list(ratios),
+                    "plot": str(png), "notes": [r.to_dict(ratios) for r in rows],
+                    "skipped": skipped})
+    else:
+        headers = ["note", "file", "f1 Hz", "cents"]
+        for k, r in enumerate(ratios[1:], start=2):
+            headers += [f"p{k} cents re x{r:g}"]
+        headers += [f"T60 p{k + 1} s" for k in range(len(ratios))]
+        trows = []
+        for r in rows:
+            m = r.measurement
+            if m is None or m.fundamental_hz is None:
+                why = r.error or "no fundamental near the note"
+                trows.append([r.note, Path(r.path).name, "-", "refused" if r.error else why]
+                             + ["-"] * (2 * len(ratios) - 1))
+                continue
+            row = [r.note, Path(r.path).name, f"{m.fundamental_hz:.2f}",
+                   f"{float(cents(m.fundamental_hz, m.note_hz)):+.1f}"]
+            parts = [r.partial(x) for x in ratios]
+            for x, p in zip(ratios[1:], parts[1:], strict=True):
+                row.append("-" if p is None else
+                           f"{float(cents(p.frequency_hz, x * m.fundamental_hz)):+.1f}")
+            row += ["-" if p is None else _num(p.t60_s, ".2f") for p in parts]
+            trows.append(row)
+        typer.echo(f"{folder}: {len(rows)} recordings; A4 = {ref:g} Hz ({ref_from})")
+        typer.echo(format_table(headers, trows, align="ll" + "r" * (len(headers) - 2)))
+        typer.echo("cents: fundamental off its note; pN cents: partial N off N's ratio times "
+                   "the measured fundamental")
+        typer.echo(f"wrote {png}")
+    if failed:
+        raise typer.Exit(code=EXIT_MISSED)

@@ -134,8 +134,11 @@ def sustain_command(
         io.write_bytes(out_preset, (head + tomli_w.dumps(preset_data)).encode("utf-8"),
                        force=force)
     commit_outputs()
+    ts = v.tube_settings if rep.tubes else None  # with a calibration file's [tubes]
+    open_terms = list(ts.uncalibrated()) if ts is not None else []
     if json_out:
         print_json({
+            "uncalibrated": {"t60_s": open_terms, "level_difference_db": open_terms},
             "target": rep.target_label, "tolerance_percent": rep.tolerance_percent,
             "tubes": rep.tubes, "motor_rate_rev_per_s": rep.motor_rate_rev_per_s,
             "csv": str(csv_path), "png": str(png_path),
@@ -157,13 +160,18 @@ def sustain_command(
              f"{r.mismatch_percent:+.0f}", f"{r.level_difference_db:+.1f}",
              "OUT" if r.flagged else "", r.suggestion] for r in rep.rows]
     typer.echo(format_table(
-        ["note", "f1 Hz", "cents", "T60 p1 s", "T60 p2 s", "T60 p3 s", "p1 rendered",
-         "mismatch %", f"dB at {at_time:g} s", "flag", "suggestion"],
+        ["note", "f1 Hz", "cents", "T60 p1 s" + (" ~" if open_terms else ""), "T60 p2 s",
+         "T60 p3 s", "p1 rendered", "mismatch %",
+         f"dB at {at_time:g} s" + (" ~" if open_terms else ""), "flag", "suggestion"],
         rows, align="lrrrrrrrrll"))
     n_out = sum(r.flagged for r in rep.rows)
     typer.echo(f"target: {rep.target_label}; {n_out} of {len(rep.rows)} notes outside "
                f"+-{tolerance:g} %; tubes {'on' if rep.tubes else 'off'}, motor "
                f"{rep.motor_rate_rev_per_s:g} rev/s")
+    if open_terms:
+        typer.echo("~ uncalibrated: the fundamental's T60 and level under its tube rest on "
+                   + " and ".join(open_terms) + " (derived, not measured); fit them with "
+                   "`barwright tubecal`")
     typer.echo(f"wrote {csv_path} and {png_path}"
                + (f"; preset with {len(lengths)} suggested tube length(s): {out_preset}"
                   if out_preset is not None else ""))

@@ -118,6 +118,10 @@ class Calibration:
     factors: dict[str, float] = field(default_factory=dict)
     overrides: dict[tuple[str, str, int], float] = field(default_factory=dict)
     source: str = ""
+    tubes: dict[str, float] = field(default_factory=dict)
+    """``gap_calibration`` / ``coupling_calibration`` from a calibration file's
+    ``[tubes]`` table (``barwright tubecal --out``); a preset's own ``[tubes]``
+    keys win (:func:`synth.physics.tube.with_file_calibration`)."""
 
     def factor(self, term: str) -> float:
         """The scale of one term (1 when not calibrated)."""
@@ -161,7 +165,7 @@ def parse_calibration(sec: Section | None, notes: tuple[str, ...] | None = None)
         return own
     base = _calibration_file(sec, name, notes)
     return Calibration({**base.factors, **own.factors}, {**base.overrides, **own.overrides},
-                       f"{sec.source} (with {base.source})")
+                       f"{sec.source} (with {base.source})", dict(base.tubes))
 
 
 def _calibration_file(sec: Section, name: str, notes: tuple[str, ...] | None) -> Calibration:
@@ -181,13 +185,24 @@ def _calibration_file(sec: Section, name: str, notes: tuple[str, ...] | None) ->
         raise sec.error("calibration_file", f"cannot be used: {exc} (the path is relative "
                         "to the preset)") from None
     top = Section(data, str(path))
-    top.check_keys({"damping"})
+    top.check_keys({"damping", "tubes"})
     table = top.section("damping", None)
+    tsec = top.section("tubes", None)
+    if table is None and tsec is None:
+        raise ConfigError("has no [damping] or [tubes] table; a calibration file holds "
+                          "[damping] with factors and [[damping.override]] tables, and/or "
+                          "[tubes] with gap_calibration and coupling_calibration",
+                          source=str(path))
+    tubes = {}
+    if tsec is not None:
+        tsec.check_keys({"gap_calibration", "coupling_calibration"})
+        for k in tsec.data:
+            tubes[k] = tsec.number(k, limit="tubes.calibration")
     if table is None:
-        raise ConfigError("has no [damping] table; a calibration file holds [damping] with "
-                          "factors and [[damping.override]] tables", source=str(path))
+        return Calibration(source=str(path), tubes=tubes)
     table.check_keys({"factors", "override"})
-    return _parse_damping(table, notes)
+    cal = _parse_damping(table, notes)
+    return Calibration(cal.factors, cal.overrides, cal.source, tubes)
 
 
 def _override_note(osec: Section, notes: tuple[str, ...] | None) -> str:

@@ -111,7 +111,14 @@ KA_CORRECTION_LIMIT = 0.5
 
 @dataclass(frozen=True)
 class TubeSettings:
-    """The resonators under the bars (``[tubes]`` table)."""
+    """The resonators under the bars (``[tubes]`` table).
+
+    ``ka_correction`` (default on) makes the free end correction depend on
+    frequency, ``delta_0/a = 0.6133 - 0.1168 (ka)^2`` (Davies et al. [3]; the
+    low-ka limit 0.6133 is Levine & Schwinger's [1], the (ka)^2 coefficient is
+    from memory): at the top of a three-octave range (ka near 0.5) the
+    constant value puts a tube about 16 cents flat.
+    """
 
     inner_radius_m: tuple[float, float]
     gap_m: float
@@ -120,6 +127,19 @@ class TubeSettings:
     coupling_calibration: float = 1.0
     gap_calibration: float = 1.0
     enabled: bool = True
+    ka_correction: bool = True
+    given: frozenset = frozenset()
+    """Keys the preset's [tubes] table set itself (the calibrations among them)."""
+
+    def uncalibrated(self) -> tuple[str, ...]:
+        """Return the tube terms still at their derived, uncalibrated value.
+
+        ``gap_calibration`` (the bar over the mouth: every tube length and tube
+        pitch) and ``coupling_calibration`` (every tube T60 and gain) count as
+        calibrated once the preset sets them (``barwright tubecal`` fits them).
+        """
+        return tuple(k for k in ("gap_calibration", "coupling_calibration")
+                     if k not in self.given)
 
     def radius_at(self, fraction: float) -> float:
         """Inner radius at ``fraction`` of the range (geometric grading)."""
@@ -132,7 +152,7 @@ def parse_tubes(sec: Section | None) -> TubeSettings | None:
     if sec is None:
         return None
     sec.check_keys({"inner_radius_m", "gap_m", "offset_cents", "flanged",
-                    "coupling_calibration", "gap_calibration", "enabled"})
+                    "coupling_calibration", "gap_calibration", "enabled", "ka_correction"})
     raw = sec.data.get("inner_radius_m")
     if isinstance(raw, list):
         radii = tuple(sec.numbers("inner_radius_m", limit="tubes.inner_radius_m", length=2))
@@ -147,7 +167,23 @@ def parse_tubes(sec: Section | None) -> TubeSettings | None:
         coupling_calibration=sec.number("coupling_calibration", 1.0, limit="tubes.calibration"),
         gap_calibration=sec.number("gap_calibration", 1.0, limit="tubes.calibration"),
         enabled=sec.boolean("enabled", True),
+        ka_correction=sec.boolean("ka_correction", True),
+        given=frozenset(sec.data),
     )
+
+
+def with_file_calibration(settings: TubeSettings | None, calibration) -> TubeSettings | None:
+    """Return the tube settings with a calibration file's ``[tubes]`` values merged in.
+
+    ``calibration`` is a :class:`synth.physics.losses.Calibration` (its ``tubes``
+    dict); a key the preset's own ``[tubes]`` table sets wins.  The merged keys
+    count as given (calibrated).
+    """
+    extra = {k: v for k, v in (getattr(calibration, "tubes", None) or {}).items()
+             if settings is not None and k not in settings.given}
+    if not extra:
+        return settings
+    return replace(settings, **extra, given=settings.given | frozenset(extra))
 
 
 def parse_tube_override(sec: Section) -> float:
@@ -462,6 +498,50 @@ def resonance_frequency(spec: TubeSpec, *, temperature_c: float = 20.0, mode: in
     free_end_correction(spec.inner_radius_m, flanged=spec.flanged,
                         wavenumber_per_m=2.0 * math.pi * f / c)   # warn once if ka too large
     return f
+
+
+def calibrate_gap(spec: TubeSpec, measured_hz: float, *, temperature_c: float = 20.0,
+                  ka_correction: bool = False, upper: float = 100.0) -> float:
+    """Return the ``gap_calibration`` that gives a tube's pitch measured with its bar in place.
+
+    Solves ``resonance_frequency(spec with C_gap) = measured_hz`` for ``C_gap`` by
+    Brent's method on ``[0, upper]`` (the frequency falls monotonically as the gap
+    term grows).
+
+    Parameters
+    ----------
+    spec : TubeSpec
+        The tube as cut, with its bar's gap and cover fraction.
+    measured_hz : float
+        Its first resonance measured with the bar over the mouth, Hz.
+    temperature_c : float
+        Air temperature during the measurement, C.
+    ka_correction : bool
+        Use the (ka)^2 end correction.
+    upper : float
+        Largest factor searched (``tubes.calibration`` allows up to 100).
+
+    Raises
+    ------
+    ModelError
+        When no factor in ``[0, upper]`` reaches the measured pitch: the tube is
+        higher than the free tube (length, radius or temperature wrong) or lower
+        than the largest factor gives.
+    """
+    if spec.gap_to_bar_m is None:
+        raise ModelError("the tube has no bar over it (gap_to_bar_m is None): nothing to fit")
+
+    def at(c: float) -> float:
+        return resonance_frequency(replace(spec, gap_calibration=c),
+                                   temperature_c=temperature_c, ka_correction=ka_correction)
+
+    f_free, f_low = at(0.0), at(upper)
+    if not f_low <= measured_hz <= f_free:
+        raise ModelError(
+            f"tube pitch {measured_hz:.2f} Hz with the bar in place lies outside what the gap "
+            f"model gives ({f_low:.2f} Hz at gap_calibration {upper:g} to {f_free:.2f} Hz with "
+            "no bar effect): check the tube's length and radius, the gap and the temperature")
+    return bracketed_root(lambda c: at(c) - measured_hz, 0.0, upper, xtol=1e-10, rtol=1e-12)
 
 
 def resonance_frequencies(spec: TubeSpec, n_modes: int, *, temperature_c: float = 20.0,

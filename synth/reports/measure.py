@@ -2,8 +2,8 @@
 
 Command
 -------
-``barwright measure RECORDING [--note N] [--reference-hz F] [--max-partials K]
-[--channel C] [--json]``
+``barwright measure RECORDING [--note N] [--preset PRESET] [--reference-hz F]
+[--max-partials K] [--channel C] [--json]``
 
 Reads a recording of one struck bar (WAV, FLAC, AIFF, ... anything libsndfile
 reads; several channels are averaged, with a warning, unless ``--channel``
@@ -14,7 +14,13 @@ scale).  With ``--note`` the partial nearest the note (within 100 cents) is
 taken as the fundamental, and each partial also gets its ratio to that
 fundamental and its interval above the named note in cents (``cents_from_note``:
 2400 is two octaves, 3996 the ratio 10.08).  ``--reference-hz`` is A4 (default:
-440 Hz, ISO 16; with ``--calibrate`` the preset's ``reference_pitch_hz``).
+the ``reference_pitch_hz`` of ``--preset`` or ``--calibrate``, else 440 Hz, ISO
+16; the header names the source).  A partial that is not beating and decays
+slowly is measured by complex demodulation (:func:`demodulated_decay`), which
+works when the file holds only a few dB of its decay and gives Q's standard
+error (``q_rel_se``).  A tremolo (:func:`find_tremolo`: the motor's discs
+pulsing the tube mouths) stops the measurement with its rate and depth: the
+modulated decay would give false partials and Qs.
 ``--json`` prints ``{"partials": [{"frequency_hz", "q", "t60_s", "level_db",
 "note", "cents", "ratio", "cents_from_note", ...}], "warnings": [...]}``.
 
@@ -28,6 +34,20 @@ file, silence, no strike (steady sound or noise), no partial above the noise,
 clipping that reaches past the attack into the decay being fitted, channels
 that cancel in their mean (more than 20 dB below the channels: pick one with
 ``--channel``), a named note above what the sample rate carries (0.45 x rate).
+
+A folder
+--------
+``barwright measure FOLDER [--preset PRESET] [--plot PNG]`` measures every
+recording in the folder, the note of each from its file name
+(:func:`note_from_name`), and gives one table and one plot across the range
+(:func:`measure_folder`, :func:`range_png`).
+
+Tubes
+-----
+``barwright tubecal`` (:func:`calibrate_tube`) fits a note's tube terms: the
+tube's pitch with its bar in place gives ``gap_calibration``, the bar's T60
+without and with the tube gives ``coupling_calibration``; its file holds a
+``[tubes]`` table that a calibration file may carry.
 
 Calibration
 -----------
@@ -191,6 +211,9 @@ class MeasuredPartial:
         ``tau ln 1000``, s.
     decay_per_s : float
         ``1/tau``, 1/s.
+    q_rel_se : float
+        Standard error of Q relative to Q (equal to that of the decay rate),
+        from the demodulated fit's residuals; NaN for the other methods.
     level_db : float
         Amplitude at the strike onset, dB re full scale.
     note : str
@@ -205,6 +228,9 @@ class MeasuredPartial:
     snr_db : float
         Band signal-to-noise ratio at the start of the analysis, dB.
     decay_method : str
+        ``"demodulated"`` (:func:`demodulated_decay`, for a partial not
+        beating that decays slowly, :data:`DEMOD_SETTLE_DB`, or whose envelope
+        fit was unusable, when fitted within :data:`DEMOD_MAX_SE`), else
         ``"envelope"`` or ``"subspace"`` (see :class:`synth.analysis.Partial`).
     beating : bool
         The partial beats against a neighbour or is one of a split pair.
@@ -214,6 +240,7 @@ class MeasuredPartial:
     q: float
     t60_s: float
     decay_per_s: float
+    q_rel_se: float
     level_db: float
     note: str
     cents: float
@@ -369,6 +396,15 @@ def measure_signal(signal, sample_rate: float, *, recording: str = "signal",
                 f"{10 * math.log10(max(p_mix, 1e-300) / p_ch):.0f} dB below the channels "
                 "(opposite polarity or spaced microphones cancelling), so its partials would "
                 "be noise; analyse one channel (--channel 1)")
+    mono = np.asarray(signal, dtype=float)
+    mono = mono if mono.ndim == 1 else mono.mean(axis=1)
+    tremolo = find_tremolo(mono, fs)
+    if tremolo is not None:
+        raise AudioError(
+            f"{recording}: tremolo found at {tremolo.rate_hz:.2f} Hz, depth "
+            f"{100 * tremolo.depth:.0f} % (discs turning at {tremolo.motor_rev_per_s:.2f} rev/s, "
+            "the mouths pulse twice per turn): the motor modulates the decay, so partials "
+            "and Q would be false; stop the motor and record again")
     try:
         strike = find_strike(signal, fs)
         if note_hz is not None and note_hz >= 0.45 * fs:
@@ -412,14 +448,37 @@ def measure_signal(signal, sample_rate: float, *, recording: str = "signal",
                 f"{float(cents(best[1].frequency_hz, note_hz)):+.0f} cents): ratios are not "
                 "given; check the note, the reference pitch and the file's sample rate")
     partials = []
+    freqs = [p.frequency_hz for p in res.partials]
     for p in res.partials:
-        name, off = nearest_note(p.frequency_hz, reference_hz)
+        f, decay, q, t60, how, q_se = (p.frequency_hz, p.decay_per_s, p.q, p.t60_s,
+                                       p.decay_method, math.nan)
+        slow = None
+        if not p.beating and math.isfinite(res.analysis_end_s):
+            gap = min([abs(g - f) for g in freqs if g != f] or [math.inf])
+            band = min(DEMOD_HALF_BAND_HZ, gap / 4)
+            slow = demodulated_decay(mono, fs, f, res.analysis_start_s, res.analysis_end_s,
+                                     half_band_hz=band)
+            # slow enough that the filter's settling (3/band s, dropped) costs
+            # little of the decay: else the envelope fit covers more of it
+            if slow is not None and slow.decay_per_s * 3.0 / band * 20 / math.log(10) > \
+                    DEMOD_SETTLE_DB and p.decay_method == "envelope":
+                slow = None
+        if slow is not None and slow.decay_per_s > 0 and \
+                slow.decay_se_per_s < DEMOD_MAX_SE * slow.decay_per_s:
+            f, decay, how = slow.frequency_hz, slow.decay_per_s, "demodulated"
+            q, t60 = math.pi * f / decay, math.log(1000.0) / decay
+            q_se = slow.decay_se_per_s / decay
+        name, off = nearest_note(f, reference_hz)
         partials.append(MeasuredPartial(
-            frequency_hz=p.frequency_hz, q=p.q, t60_s=p.t60_s, decay_per_s=p.decay_per_s,
+            frequency_hz=f, q=q, t60_s=t60, decay_per_s=decay, q_rel_se=q_se,
             level_db=p.level_db, note=name, cents=off,
-            ratio=p.frequency_hz / fundamental if fundamental else None,
-            cents_from_note=float(cents(p.frequency_hz, note_hz)) if note_hz else None,
-            snr_db=p.snr_db, decay_method=p.decay_method, beating=p.beating))
+            ratio=f / fundamental if fundamental else None,
+            cents_from_note=float(cents(f, note_hz)) if note_hz else None,
+            snr_db=p.snr_db, decay_method=how, beating=p.beating))
+    if fundamental is not None:  # refer ratios to the refined frequency
+        f1 = min(partials, key=lambda q: abs(q.frequency_hz - fundamental)).frequency_hz
+        partials = [replace(q, ratio=q.frequency_hz / f1) for q in partials]
+        fundamental = f1
     return Measurement(
         recording=recording, sample_rate_hz=fs, n_channels=n_ch, channel=channel,
         duration_s=x.shape[0] / fs,
@@ -475,6 +534,248 @@ def _window_start(path, frames: int, rate: int, window: int) -> int:
     loud = float(env.max())
     strike = int(np.flatnonzero(env >= loud * 10 ** (-STRIKE_WITHIN_DB / 20))[0]) * hop
     return int(min(max(0, strike - int(round(LEAD_S * rate))), frames - window))
+
+
+# --------------------------------------------------------------------------------------
+# Slow decays and tremolo
+# --------------------------------------------------------------------------------------
+
+DEMOD_HALF_BAND_HZ = 4.0
+"""Half-width of the low-pass after complex demodulation, Hz: far wider than a
+bar partial's own bandwidth (f/Q, hundredths of a hertz) and than the error of
+the subspace frequency it starts from, far narrower than the spacing of bar
+partials, so each block average holds one partial and little noise."""
+
+DEMOD_SETTLE_DB = 6.0
+"""A partial that falls less than this within the demodulation filter's
+settling time is measured by :func:`demodulated_decay` (which also gives Q's
+standard error); a faster one keeps the envelope fit, which then spans a wide
+range of its decay."""
+
+DEMOD_MAX_SE = 0.1
+"""The demodulated fit is used only when the standard error of its decay rate
+is below this fraction of the rate."""
+
+TREMOLO_MIN_DEPTH = 0.1
+"""Amplitude-modulation depth ``(A_max - A_min)/(A_max + A_min)`` from which a
+periodic envelope counts as tremolo (10 %: discs in the tube mouths give tens of
+per cent, physics.md section 9; the demo's renders without the motor show at
+most 1 % in the tremolo band, a weak partial beating a few per cent)."""
+
+TREMOLO_BAND_HZ = (0.5, 15.0)
+"""Envelope-spectrum band searched for tremolo, Hz (modulation ~1-12 Hz,
+physics.md section 9, with margin; faster envelope ripple is beating between
+partials, not the discs)."""
+
+
+TREMOLO_RANGE_DB = 40.0
+"""Envelope range searched for tremolo, dB below the loudest frame."""
+
+
+@dataclass(frozen=True)
+class SlowDecay:
+    """Frequency and decay of one partial by complex demodulation.
+
+    Attributes
+    ----------
+    frequency_hz, frequency_se_hz : float
+        Frequency and its standard error, Hz.
+    decay_per_s, decay_se_per_s : float
+        Amplitude decay rate ``1/tau`` and its standard error, 1/s.
+    span_s : float
+        Stretch fitted, s.
+    range_db : float
+        Level fallen over the stretch, dB.
+    """
+
+    frequency_hz: float
+    frequency_se_hz: float
+    decay_per_s: float
+    decay_se_per_s: float
+    span_s: float
+    range_db: float
+
+
+def demodulated_decay(x: np.ndarray, fs: float, f0_hz: float, start_s: float, end_s: float,
+                      *, half_band_hz: float = DEMOD_HALF_BAND_HZ,
+                      min_snr_db: float = 10.0) -> SlowDecay | None:
+    """Fit one partial's frequency and decay by complex demodulation.
+
+    The signal is shifted down by ``f0_hz`` (``x exp(-2 pi i f0 t)``), low-passed
+    (4th-order Butterworth, zero phase, cut-off ``half_band_hz``) and sampled
+    once per ``1/(2 half_band_hz)``, so successive samples carry nearly
+    independent noise.  Its log magnitude is a line of slope ``-1/tau`` and its
+    unwrapped phase a line of slope ``2 pi (f - f0)``; both lines are fitted by
+    least squares weighted by the squared magnitude (the variance of ``ln|z|``
+    and of the phase is ``sigma^2/(2|z|^2)`` for white noise), over the stretch
+    where the magnitude stands ``min_snr_db`` above the noise.  Standard errors
+    come from the fit's residuals.  This measures a decay that falls only a few
+    dB within the file, where an envelope fit over a decibel range cannot.
+
+    Parameters
+    ----------
+    x : ndarray
+        Mono samples.
+    fs : float
+        Sample rate, Hz.
+    f0_hz : float
+        Starting frequency (within ``half_band_hz / 2`` of the partial), Hz.
+    start_s, end_s : float
+        Stretch to use, s from the first sample.
+    half_band_hz : float
+        Low-pass cut-off, Hz.
+    min_snr_db : float
+        Keep samples whose magnitude is this far above the noise magnitude.
+
+    Returns
+    -------
+    SlowDecay or None
+        None when fewer than 8 samples stand above the noise.
+
+    References
+    ----------
+    .. [1] Bingham, C., Godfrey, M. D. and Tukey, J. W., "Modern techniques of
+       power spectrum estimation", IEEE Trans. Audio Electroacoust. 15(2),
+       56-66, 1967 (complex demodulation; from memory).
+    """
+    import scipy.signal as ss
+
+    n0, n1 = int(round(start_s * fs)), int(round(end_s * fs))
+    seg = np.asarray(x[n0:n1], dtype=float)
+    if seg.size < fs / half_band_hz * 6:
+        return None
+    t = np.arange(seg.size) / fs
+    z = seg * np.exp(-2j * np.pi * f0_hz * t)
+    sos = ss.butter(4, half_band_hz, fs=fs, output="sos")
+    z = ss.sosfiltfilt(sos, z.real) + 1j * ss.sosfiltfilt(sos, z.imag)
+    step = max(1, int(fs / (2.0 * half_band_hz)))
+    # filter transients: the stretch starts at full level (a step into the
+    # filter), so more is dropped at the start than at the end
+    idx = np.arange(int(3.0 * fs / half_band_hz), seg.size - int(1.5 * fs / half_band_hz), step)
+    if idx.size < 8:
+        return None
+    zs = z[idx]
+    ts = t[idx]
+    mag = np.abs(zs)
+    # noise magnitude of the band, from the residual about a first line fit
+    phase = np.unwrap(np.angle(zs))
+    keep = mag > 0
+    for _ in range(2):
+        w = mag[keep] ** 2
+        a_ln = np.polyfit(ts[keep], np.log(mag[keep]), 1, w=np.sqrt(w))
+        model = np.exp(np.polyval(a_ln, ts))
+        a_ph = np.polyfit(ts[keep], phase[keep], 1, w=np.sqrt(w))
+        resid = zs - model * np.exp(1j * np.polyval(a_ph, ts))
+        # successive samples carry independent noise; a slow misfit (beating)
+        # cancels in their difference, whose squared magnitude is exponential
+        # with mean 4 sigma^2 (median 4 sigma^2 ln 2, robust to a stray sample)
+        sigma = float(np.sqrt(np.median(np.abs(np.diff(resid[keep])) ** 2)
+                              / (4.0 * math.log(2.0))))
+        keep = mag > sigma * 10 ** (min_snr_db / 20.0)
+        if keep.sum() < 8:
+            return None
+    tk, mk, w = ts[keep], mag[keep], mag[keep] ** 2
+    # weighted least squares: var(ln|z|) = var(phase) = sigma^2 / (2 |z|^2)
+    W = w / w.sum()
+    tbar = float(np.sum(W * tk))
+    sxx = float(np.sum(w * (tk - tbar) ** 2))
+    r_ln = np.log(mk) - np.polyval(a_ln, tk)
+    r_ph = phase[keep] - np.polyval(a_ph, tk)
+    dof = max(1, tk.size - 2)
+    s2_ln = float(np.sum(w * r_ln**2)) / dof
+    s2_ph = float(np.sum(w * r_ph**2)) / dof
+    decay = -float(a_ln[0])
+    return SlowDecay(
+        frequency_hz=float(f0_hz + a_ph[0] / (2 * np.pi)),
+        frequency_se_hz=float(math.sqrt(s2_ph / sxx) / (2 * np.pi)),
+        decay_per_s=decay, decay_se_per_s=float(math.sqrt(s2_ln / sxx)),
+        span_s=float(tk[-1] - tk[0]), range_db=float(decay * (tk[-1] - tk[0]) * 20 / math.log(10)))
+
+
+@dataclass(frozen=True)
+class Tremolo:
+    """A periodic amplitude modulation of the strike (a motor running).
+
+    Attributes
+    ----------
+    rate_hz : float
+        Modulation rate (envelope-spectrum peak), Hz.
+    depth : float
+        ``(A_max - A_min)/(A_max + A_min)`` of the modulation, 0..1.
+    """
+
+    rate_hz: float
+    depth: float
+
+    @property
+    def motor_rev_per_s(self) -> float:
+        """Disc rate that gives this modulation: ``f_mod = 2 f_rot`` (physics.md section 9)."""
+        return self.rate_hz / 2.0
+
+
+def find_tremolo(x: np.ndarray, fs: float, *, min_depth: float = TREMOLO_MIN_DEPTH
+                 ) -> Tremolo | None:
+    """Look for tremolo in a strike: the peak of the envelope's spectrum.
+
+    The envelope is the rms of 5 ms frames from the loudest frame on, up to
+    the last frame within :data:`TREMOLO_RANGE_DB` of the loudest.  Its log is
+    detrended by a quadratic (the decay, possibly bent by beating), and the
+    remainder's spectrum (Hann window, zero-padded) is searched in
+    :data:`TREMOLO_BAND_HZ`.  For ``A (1 + m cos(2 pi f t))`` the log envelope
+    swings by ``m`` nepers to first order, so the spectral peak's amplitude
+    gives the depth; the depth is then taken exactly from the swing of the log
+    envelope averaged over the modulation's phase (``(e^d - 1)/(e^d + 1)`` for
+    a peak-to-trough swing of ``d`` nepers).  Needs three periods.
+
+    Returns
+    -------
+    Tremolo or None
+        None when no modulation of at least ``min_depth`` is present.
+
+    References
+    ----------
+    .. [1] physics.md section 9: depth ``(A_max - A_min)/(A_max + A_min)`` on the
+       envelope, rate at the envelope-spectrum peak, ``f_mod = 2 f_rot``.
+    """
+    hop = max(1, int(round(0.005 * fs)))
+    n = x.size // hop
+    if n < 40:
+        return None
+    env = np.sqrt(np.mean(x[: n * hop].reshape(n, hop) ** 2, axis=1)) + 1e-300
+    k0 = int(np.argmax(env)) + 4  # past the attack
+    # the decay's first 40 dB: well above the noise of any usable recording, so the
+    # floor's flat tail cannot bend the detrended envelope into a slow "cycle"
+    above = np.flatnonzero(env[k0:] > env.max() * 10 ** (-TREMOLO_RANGE_DB / 20))
+    k1 = k0 + int(above[-1]) + 1 if above.size else k0
+    e = np.log(env[k0:k1])
+    t = np.arange(e.size) * hop / fs
+    lo, hi = TREMOLO_BAND_HZ
+    if t.size < 8 or t[-1] < 3.0 / hi:
+        return None
+    r = e - np.polyval(np.polyfit(t, e, 2), t)
+    n_fft = 1 << int(math.ceil(math.log2(max(8 * r.size, 4096))))
+    win = np.hanning(r.size)
+    spec = np.abs(np.fft.rfft(r * win, n_fft)) * 2 / win.sum()
+    freqs = np.fft.rfftfreq(n_fft, hop / fs)
+    band = (freqs >= max(lo, 3.0 / t[-1])) & (freqs <= hi)
+    if not band.any():
+        return None
+    i = int(np.flatnonzero(band)[np.argmax(spec[band])])
+    rate = float(freqs[i])
+    if 0 < i < spec.size - 1:  # parabolic interpolation of the peak
+        a, b, c = spec[i - 1], spec[i], spec[i + 1]
+        den = a - 2 * b + c
+        if den < 0:
+            rate += float(0.5 * (a - c) / den) * float(freqs[1])
+    # depth from the phase-averaged cycle of the log envelope
+    phase = (t * rate) % 1.0
+    bins = np.minimum((phase * 16).astype(int), 15)
+    cycle = np.array([r[bins == b].mean() for b in range(16) if np.any(bins == b)])
+    d = float(cycle.max() - cycle.min())
+    depth = (math.exp(d) - 1.0) / (math.exp(d) + 1.0)
+    if depth < min_depth or spec[i] < 0.5 * min_depth:
+        return None
+    return Tremolo(rate_hz=rate, depth=depth)
 
 
 # --------------------------------------------------------------------------------------
@@ -1073,3 +1374,301 @@ def write_calibration(path, fit: CalibrationFit, *, force: bool = False) -> Path
     from synth.io import write_bytes
 
     return write_bytes(path, fit.to_toml().encode("utf-8"), force=force)
+
+
+# --------------------------------------------------------------------------------------
+# Tube calibration
+# --------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class TubeCalibration:
+    """Gap correction and coupling strength of one note's tube, from measurements.
+
+    Attributes
+    ----------
+    note : str
+    tube_length_m : float
+        The tube as cut (from the preset).
+    tube_model_hz : float
+        The uncalibrated model's tube pitch with the bar in place, Hz.
+    tube_measured_hz : float
+        Measured, Hz.
+    gap_calibration : float
+        ``[tubes] gap_calibration`` reproducing the measured tube pitch.
+    tube_q : float
+        The tube's Q in the calibrated model (wall and radiation losses).
+    bar_hz : float
+        Bar fundamental measured without the tube, Hz.
+    bar_t60_bare_s, bar_t60_with_tube_s : float
+        Measured T60 of the fundamental without and with the tube, s.
+    coupling_calibration : float
+        ``[tubes] coupling_calibration`` reproducing the T60 with tube.
+    model_t60_with_tube_s : float
+        The uncalibrated model's T60 with tube (for the measured bare T60), s.
+    tube_measured_q : float or None
+        The tube's Q measured from its own recording (None when its pitch was
+        typed in); compare with ``tube_q``, the model's wall and radiation Q.
+    warnings : tuple of str
+    """
+
+    note: str
+    tube_length_m: float
+    tube_model_hz: float
+    tube_measured_hz: float
+    gap_calibration: float
+    tube_q: float
+    bar_hz: float
+    bar_t60_bare_s: float
+    bar_t60_with_tube_s: float
+    coupling_calibration: float
+    model_t60_with_tube_s: float
+    tube_measured_q: float | None = None
+    warnings: tuple[str, ...] = ()
+
+    def to_dict(self) -> dict:
+        """Plain values for JSON."""
+        return {**self.__dict__, "warnings": list(self.warnings)}
+
+    def to_toml(self, preset: str, sources: tuple[str, ...]) -> str:
+        """Return the ``[tubes]`` values to copy into the preset, with a header saying how."""
+        when = _dt.datetime.now(_dt.UTC).isoformat(timespec="seconds")
+        return "\n".join([
+            f"# Tube calibration of {preset}, note {self.note}, {when}",
+            "# from " + ", ".join(sources),
+            f"# tube with bar in place: measured {self.tube_measured_hz:.3f} Hz, uncalibrated "
+            f"model {self.tube_model_hz:.3f} Hz "
+            f"({float(cents(self.tube_measured_hz, self.tube_model_hz)):+.1f} cents)",
+            f"# bar fundamental {self.bar_hz:.3f} Hz: T60 {self.bar_t60_bare_s:.2f} s bare, "
+            f"{self.bar_t60_with_tube_s:.2f} s with its tube (uncalibrated model "
+            f"{self.model_t60_with_tube_s:.2f} s)",
+            "# name this file in the preset's [damping] table (calibration_file = ...), or",
+            "# copy these keys into the preset's [tubes] table (the preset's own keys win)",
+            "[tubes]",
+            f"gap_calibration = {_sig6(self.gap_calibration)!r}",
+            f"coupling_calibration = {_sig6(self.coupling_calibration)!r}",
+            "",
+        ])
+
+
+def _fundamental(m: Measurement, near_hz: float, what: str):
+    """Return the measured partial within 6 % of ``near_hz`` with a finite T60."""
+    cands = [p for p in m.partials if abs(p.frequency_hz / near_hz - 1) <= 0.06
+             and math.isfinite(p.t60_s)]
+    if not cands:
+        raise AudioError(f"{m.recording}: no partial with a measurable decay within 6 % of "
+                         f"the {what} ({near_hz:.1f} Hz): wrong note or file")
+    return min(cands, key=lambda p: abs(p.frequency_hz / near_hz - 1))
+
+
+def tube_model_hz(instrument: Instrument, note: str) -> float:
+    """Return the uncalibrated model's pitch of a note's tube with its bar in place, Hz."""
+    from synth.physics.tube import tube_mode
+    from synth.voicing import Voicer
+
+    v = Voicer(instrument, tubes=True, channels=1, calibration=None, motor_rate_rev_per_s=0.0)
+    spec = v.tube_spec(instrument.check_note(note))
+    if spec is None:
+        raise ConfigError("has no [tubes] table: nothing to calibrate", source=instrument.source)
+    return tube_mode(replace(spec, gap_calibration=1.0), temperature_c=v.temperature_c,
+                     ka_correction=v.tube_settings.ka_correction).frequency_hz
+
+
+def tube_resonance(m: Measurement, model_hz: float) -> tuple[float, float]:
+    """Return the frequency (Hz) and Q of the tube in a recording of it, bar in place.
+
+    The partial nearest the model's pitch within 10 % (the bar-over-mouth
+    correction is worth tens of cents, the model's tube pitch a few per cent at
+    worst).
+    """
+    near = [p for p in m.partials if abs(p.frequency_hz / model_hz - 1) <= 0.10]
+    if not near:
+        raise AudioError(f"{m.recording}: no partial within 10 % of the tube's model pitch "
+                         f"{model_hz:.1f} Hz (found "
+                         + ", ".join(f"{p.frequency_hz:.1f}" for p in m.partials)
+                         + " Hz): damp the bar and excite the tube (tap its side, clap over "
+                         "it), or give --tube-hz")
+    p = min(near, key=lambda p: abs(p.frequency_hz / model_hz - 1))
+    return p.frequency_hz, p.q
+
+
+def calibrate_tube(instrument: Instrument, note: str, *, tube_hz: float, bare: Measurement,
+                   with_tube: Measurement, tube_q: float | None = None) -> TubeCalibration:
+    """Fit a note's tube gap correction and coupling strength to measurements.
+
+    ``tube_hz`` is the tube's first resonance measured with its bar in place
+    (bar damped, tube excited: a tap on the tube or a sweep, see
+    :func:`tube_resonance`; ``tube_q`` its measured Q, reported beside the
+    model's); it fixes ``gap_calibration`` (:func:`synth.physics.tube.calibrate_gap`).  With that
+    tube, the coupling rate that shortens the bar's measured bare T60 to the
+    measured T60 with tube (exact eigenvalues of the coupled pair,
+    :func:`synth.physics.coupling.coupling_rate_from_t60`, physics.md section 8)
+    over the model's uncalibrated rate is ``coupling_calibration``.  Record with
+    the motor stopped.
+    """
+    from synth.physics.coupling import couple, coupling_rate_from_t60
+    from synth.physics.tube import calibrate_gap, tube_mode
+    from synth.voicing import Voicer
+
+    note = instrument.check_note(note)
+    v = Voicer(instrument, tubes=True, channels=1, calibration=None, motor_rate_rev_per_s=0.0)
+    model = v.model(note)
+    if model.coupling is None:
+        raise ConfigError("has no [tubes] table (or tubes are off): nothing to calibrate",
+                          source=instrument.source)
+    temp = model.coupling.temperature_c
+    ka = v.tube_settings.ka_correction
+    spec = replace(model.tube, gap_calibration=1.0)
+    f_model = tube_mode(spec, temperature_c=temp, ka_correction=ka).frequency_hz
+    gap = calibrate_gap(spec, tube_hz, temperature_c=temp, ka_correction=ka)
+    fitted = replace(spec, gap_calibration=gap)
+    tm = tube_mode(fitted, temperature_c=temp, ka_correction=ka)
+    bar_model = model.coupling.bar
+    p_bare = _fundamental(bare, bar_model.frequency_hz, f"{note} fundamental (bare bar)")
+    p_tube = _fundamental(with_tube, bar_model.frequency_hz, f"{note} fundamental (with tube)")
+    warnings = []
+    for p, m in ((p_bare, bare), (p_tube, with_tube)):
+        if p.beating:
+            warnings.append(f"{m.recording}: the fundamental beats; its T60 is an average")
+    mu = coupling_rate_from_t60(bar_frequency_hz=p_bare.frequency_hz,
+                                bar_t60_bare_s=p_bare.t60_s,
+                                bar_t60_with_tube_s=p_tube.t60_s,
+                                tube_frequency_hz=tm.frequency_hz, tube_q=tm.q)
+    bar = replace(bar_model, frequency_hz=p_bare.frequency_hz,
+                  q=math.pi * p_bare.frequency_hz * p_bare.t60_s / math.log(1000.0))
+    unc = couple(bar, spec, temperature_c=temp, ka_correction=ka)
+    cal = couple(bar, fitted, temperature_c=temp, ka_correction=ka)
+    return TubeCalibration(
+        note=note, tube_length_m=spec.length_m, tube_model_hz=f_model, tube_measured_hz=tube_hz,
+        gap_calibration=gap, tube_q=tm.q, bar_hz=p_bare.frequency_hz,
+        bar_t60_bare_s=p_bare.t60_s, bar_t60_with_tube_s=p_tube.t60_s,
+        coupling_calibration=mu / cal.coupling_rate_rad_s,
+        model_t60_with_tube_s=unc.pair.modes().t60_s[0], tube_measured_q=tube_q,
+        warnings=tuple(warnings))
+
+
+# --------------------------------------------------------------------------------------
+# A folder of recordings across the range
+# --------------------------------------------------------------------------------------
+
+AUDIO_SUFFIXES = (".wav", ".flac", ".aif", ".aiff", ".ogg")
+"""File name endings read as recordings in a folder (case-insensitive)."""
+
+_NOTE_IN_NAME = None
+
+
+def note_from_name(name: str) -> str | None:
+    """Return the note named in a file name (``A4``, ``F#3``, ``Bb5``, ``c#6``), or None.
+
+    The last note-like token wins (``bar-07-A4.wav`` is A4); a token must not sit
+    inside a longer word of letters (``take4`` names no note).
+    """
+    import re
+
+    global _NOTE_IN_NAME
+    if _NOTE_IN_NAME is None:
+        _NOTE_IN_NAME = re.compile(
+            r"(?<![A-Za-z])([A-Ga-g])(sharp|flat|#|b|s)?(-?[0-9])(?![0-9])")
+    found = _NOTE_IN_NAME.findall(Path(name).stem)
+    if not found:
+        return None
+    letter, accidental, octave = found[-1]
+    acc = {"#": "#", "s": "#", "sharp": "#", "b": "b", "flat": "b"}.get(accidental, "")
+    return f"{letter.upper()}{acc}{octave}"
+
+
+@dataclass(frozen=True)
+class RangeRow:
+    """One recording of a folder: its note and the measurement (or why it failed)."""
+
+    path: str
+    note: str
+    measurement: Measurement | None
+    error: str | None
+
+    def partial(self, ratio: float):
+        """Return the partial nearest ``ratio`` times the fundamental (within 3 %), or None."""
+        m = self.measurement
+        if m is None or m.fundamental_hz is None:
+            return None
+        want = ratio * m.fundamental_hz
+        near = [p for p in m.partials if abs(p.frequency_hz / want - 1) <= 0.03]
+        return min(near, key=lambda p: abs(p.frequency_hz / want - 1)) if near else None
+
+    def to_dict(self, ratios) -> dict:
+        """Plain values for JSON: note, file, fundamental and the partials near the ratios."""
+        out = {"note": self.note, "file": self.path, "error": self.error}
+        if self.measurement is not None:
+            m = self.measurement
+            out["fundamental_hz"] = m.fundamental_hz
+            out["cents"] = (float(cents(m.fundamental_hz, m.note_hz)) if m.fundamental_hz
+                            else None)
+            out["partials"] = [None if (p := self.partial(r)) is None else p.to_dict()
+                               for r in ratios]
+            out["warnings"] = list(m.warnings)
+        return out
+
+
+def measure_folder(folder, *, reference_hz: float, ratios=(1.0, 4.0, 10.08),
+                   max_partials: int = 12, channel: int | None = None
+                   ) -> tuple[list[RangeRow], list[str]]:
+    """Measure every recording in a folder, the note of each taken from its file name.
+
+    Returns the rows sorted by pitch and a list of files skipped (no note in the
+    name).  A file that cannot be measured gets a row with its error; the others
+    go on.
+    """
+    from synth.pitch import note_to_midi
+
+    folder = Path(folder)
+    files = sorted(p for p in folder.iterdir()
+                   if p.is_file() and p.suffix.lower() in AUDIO_SUFFIXES)
+    rows, skipped = [], []
+    for f in files:
+        note = note_from_name(f.name)
+        if note is None:
+            skipped.append(f"{f.name}: no note in the file name (name it e.g. A4.wav)")
+            continue
+        try:
+            note_to_midi(note)
+        except ConfigError:
+            skipped.append(f"{f.name}: {note} is not a note")
+            continue
+        try:
+            m = measure_file(f, note=note, reference_hz=reference_hz,
+                             max_partials=max_partials, channel=channel)
+            rows.append(RangeRow(str(f), note, m, None))
+        except (AudioError, ConfigError) as exc:
+            rows.append(RangeRow(str(f), note, None, str(exc)))
+    rows.sort(key=lambda r: (note_to_midi(r.note), r.path))
+    return rows, skipped
+
+
+def range_png(rows: list[RangeRow], ratios, *, title: str = "") -> bytes:
+    """Two panels across the range: cents of each partial off its target, and T60."""
+    from synth.pitch import note_to_midi
+    from synth.reports.plots import figure_png, pyplot
+
+    plt = pyplot()
+    fig, (ax0, ax1) = plt.subplots(2, 1, figsize=(9, 6), sharex=True)
+    for k, r in enumerate(ratios):
+        xs, cs, ts = [], [], []
+        for row in rows:
+            p = row.partial(r)
+            if p is None:
+                continue
+            m = row.measurement
+            xs.append(note_to_midi(row.note))
+            cs.append(float(cents(p.frequency_hz, r * m.note_hz)))
+            ts.append(p.t60_s if math.isfinite(p.t60_s) else np.nan)
+        ax0.plot(xs, cs, "o-", label=f"partial {k + 1} (x{r:g})")
+        ax1.semilogy(xs, ts, "o-", label=f"partial {k + 1}")
+    ax0.axhline(0.0, color="0.5", lw=0.8)
+    ax0.set_ylabel("cents off target")
+    ax1.set_ylabel("T60 s")
+    ax1.set_xlabel("note")
+    notes = [(note_to_midi(r.note), r.note) for r in rows]
+    ax1.set_xticks([n for n, _ in notes], [s for _, s in notes], rotation=90, fontsize=7)
+    ax0.legend(fontsize=8)
+    ax0.set_title(title)
+    return figure_png(fig)

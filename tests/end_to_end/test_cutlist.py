@@ -13,7 +13,8 @@ not compute itself:
   evaluated here from the preset's numbers;
 - mass: the same arch integrated in closed form, rho b (h0 L - depth span p/(p+1));
 - tube cut lengths: the quarter-wave formula L = c / (4 f) - delta with c(T) =
-  331.3 sqrt(1 + T/273.15) m/s (physics.md section 7) and delta = 0.6133 a (Levine &
+  331.3 sqrt(1 + T/273.15) m/s (physics.md section 7) and delta = (0.6133 - 0.1168 (ka)^2) a
+  (Davies et al. 1980, the (ka)^2 coefficient from memory; low-ka limit Levine &
   Schwinger 1948, Phys. Rev. 73, 383: unflanged end, low-ka limit) + a^2 / (8 h) for
   the bar hanging at gap h over a mouth it fully covers (the image of the mouth's
   monopole in the bar's plane at 2h: radiation mass rho / (4 pi 2h), times S / rho).
@@ -194,7 +195,8 @@ def test_tube_cut_lengths_are_quarter_waves(sheet) -> None:
         assert RAW["bars"][note]["width_m"] >= 2 * a, note
         f_tube = records[note]["fundamental_hz"] * 2.0 ** (tubes["offset_cents"] / 1200.0)
         quarter = c / (4.0 * f_tube)
-        length = quarter - 0.6133 * a - a * a / (8.0 * gap)
+        ka = 2.0 * math.pi * f_tube / c * a  # frequency-dependent free end (on by default)
+        length = quarter - (0.6133 - 0.1168 * ka * ka) * a - a * a / (8.0 * gap)
         got = records[note]["tube_length_m"]
         assert got == pytest.approx(length, abs=1e-9 + 1e-4 * quarter), note
         assert float(rows[note]["tube_length_mm"]) == pytest.approx(got * 1e3, abs=0.005 + 1e-9)
