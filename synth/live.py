@@ -79,7 +79,7 @@ def nearest_layers(velocities: Sequence[int]) -> np.ndarray:
 
 
 def rotor_law(voicer: Voicer, note: str) -> RotorLaw | None:
-    """The disc law of a note's tube pair (``None`` without a tube).
+    """Return the disc law of a note's tube pair (``None`` without a tube).
 
     The same streams the offline voice plan uses (:func:`disc_modulation`), read
     as the generic law; taken with the motor running so that a controller can
@@ -102,7 +102,7 @@ def rotor_law(voicer: Voicer, note: str) -> RotorLaw | None:
 
 
 def rotor_of(voicer: Voicer) -> Rotor:
-    """The motor's shaft as the pool's rotor (it starts with the stream, as in a render)."""
+    """Return the motor's shaft as the pool's rotor (it starts with the stream, as in a render)."""
     m = voicer.motor
     return Rotor(resting_rad=m.resting_angle_rad, rate_rev_per_s=m.rate_rev_per_s,
                  spin_up_s=m.spin_up_s, law=m.spin_up_law)
@@ -276,7 +276,7 @@ class LiveSession:
         self.recording = []
 
     def status(self) -> dict:
-        """Notes sounding, pedal, motor, design and the pool's counters."""
+        """Return notes sounding, pedal, motor, design and the pool's counters."""
         p = self.pool
         return {"sounding": p.sounding, "pedal": p.lift_value, "motor_rev_per_s": p.rotor_target,
                 "design": DESIGNS[self.design], "steals": p.steals, "fault": p.fault,
@@ -300,7 +300,7 @@ is one sample, so the recording keeps every event's sample exactly."""
 
 
 def recorded_midi(events: Iterable[tuple[int, object]], sample_rate: float):
-    """A type-0 ``mido.MidiFile`` of ``(sample, message)`` events, one tick per sample."""
+    """Return a type-0 ``mido.MidiFile`` of ``(sample, message)`` events, one tick per sample."""
     import mido
 
     midi = mido.MidiFile(type=0, ticks_per_beat=ticks_per_beat(sample_rate))
