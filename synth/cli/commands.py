@@ -10,3 +10,4 @@ from synth.cli import cmd_compare  # noqa: F401  compare
 from synth.cli import cmd_measure  # noqa: F401  measure
 from synth.cli import cmd_bench  # noqa: F401  bench
 from synth.cli import cmd_demo  # noqa: F401  demo
+from synth.cli import cmd_play  # noqa: F401  play
