@@ -708,8 +708,8 @@ def _rt_pair(mix, j0, j1, v, p, q, v_flt, v_pair, p_pair, p_gain, theta_n, theta
 def _rt_block(out, n, ctl, fctl, ev_kind, ev_sample, ev_int, ev_int2, ev_val,
               v_int, v_flt, v_re, v_im, v_pair,
               p_nmodes, p_cyc, p_dec, p_amp, p_ph, p_gain, p_npairs, p_pair, p_w2max,
-              p_gmax, p_damp, mix, theta_n, theta_h, pole_re, pole_im, cosh_coef, sinh_coef,
-              anchor_every):
+              p_gmax, p_damp, mix, theta_n, theta_h, gain_row, pole_re, pole_im, cosh_coef,
+              sinh_coef, anchor_every):
     """Render the next ``n`` samples of the pool into ``out[:n, :]`` (overwritten).
 
     Events of the ring whose sample falls before the block's end are applied at
@@ -750,6 +750,7 @@ def _rt_block(out, n, ctl, fctl, ev_kind, ev_sample, ev_int, ev_int2, ev_val,
         for j in range(j0, j1):
             theta_n[j] = _rt_rotor_angle(fctl, (float(now + j) + 0.0) / fs)
             theta_h[j] = _rt_rotor_angle(fctl, (float(now + j) + 0.5) / fs)
+            gain_row[j] = fctl[_F_GAIN_TO]
         for v in range(n_v):
             if v_int[v, 0] == 0:
                 continue
@@ -792,7 +793,6 @@ def _rt_block(out, n, ctl, fctl, ev_kind, ev_sample, ev_int, ev_int2, ev_val,
         ctl[_C_NOW] = now + n
         return
     gain = fctl[_F_GAIN]
-    target = fctl[_F_GAIN_TO]
     step = fctl[_F_GAIN_STEP]
     lim = fctl[_F_LIMIT]
     ceiling = fctl[_F_CEILING]
@@ -800,6 +800,7 @@ def _rt_block(out, n, ctl, fctl, ev_kind, ev_sample, ev_int, ev_int2, ev_val,
     limited = False
     out_peak = 0.0
     for j in range(n):
+        target = gain_row[j]
         if gain < target:
             gain = min(target, gain + step)
         elif gain > target:

@@ -253,6 +253,7 @@ class VoicePool:
         self.mix = np.zeros((MAX_BLOCK, channels))
         self.theta_n = np.zeros(MAX_BLOCK)
         self.theta_h = np.zeros(MAX_BLOCK)
+        self.gain_row = np.zeros(MAX_BLOCK)
         self.pole_re = np.zeros(n_k)
         self.pole_im = np.zeros(n_k)
         cap = int(event_capacity)
@@ -444,8 +445,8 @@ class VoicePool:
             self.ev_int2, self.ev_val, self.v_int, self.v_flt, self.v_re, self.v_im,
             self.v_pair, self.p_nmodes, self.p_cyc, self.p_dec, self.p_amp, self.p_ph,
             self.p_gain, self.p_npairs, self.p_pair, self.p_w2max, self.p_gmax, self.p_damp,
-            self.mix, self.theta_n, self.theta_h, self.pole_re, self.pole_im, self.cosh_coef,
-            self.sinh_coef, ANCHOR_EVERY)
+            self.mix, self.theta_n, self.theta_h, self.gain_row, self.pole_re, self.pole_im,
+            self.cosh_coef, self.sinh_coef, ANCHOR_EVERY)
 
     def check_block(self, out: np.ndarray) -> None:
         """Refuse an output buffer :meth:`process` cannot fill (call before the stream)."""
