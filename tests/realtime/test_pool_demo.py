@@ -1,0 +1,100 @@
+"""The demo preset on the pool: every note at once with the motor on, no allocation, A/B.
+
+The audio callback is :meth:`VoicePool.process`; after the first calls it must
+allocate nothing (tracemalloc sees no growth in the engine's files over many
+calls) while all 37 notes ring with the discs turning.  Switching designs
+mid-phrase must give, sample for sample, the sum of each design's offline
+render of its own strikes (a chord is the sum of its strikes), at the design's
+level.
+"""
+
+from __future__ import annotations
+
+import tracemalloc
+from pathlib import Path
+
+import mido
+import numpy as np
+from conftest import demo_voicer, planned
+from rt_helpers import rounding_bound, run_pool, set_gain_now
+
+from synth.engine import render
+from synth.engine.score import PedalChange, Score, Strike
+from synth.pitch import midi_to_note, note_to_midi
+
+ENGINE_FILES = ("realtime.py", "kernels.py", "live.py")
+
+
+def test_all_notes_ring_with_the_motor_on_and_nothing_is_allocated(motor_session):
+    """37 strikes 50 samples apart, 64-sample blocks: 37 voices sound; no allocation growth."""
+    s = motor_session
+    s.reset(gain_db=-40.0)
+    notes = s.voicers[0].instrument.notes
+    assert len(notes) == 37
+    for k, note in enumerate(notes):
+        s.handle(mido.Message("note_on", note=note_to_midi(note), velocity=127), 50 * k)
+    pool = s.pool
+    out = np.zeros((64, 2), dtype=np.float32)   # what a device hands the callback
+    for _ in range(200):
+        pool.process(out)
+    assert pool.sounding == 37 and pool.fault is None
+    tracemalloc.start()
+    try:
+        before = tracemalloc.take_snapshot()
+        for _ in range(2000):
+            pool.process(out)
+        after = tracemalloc.take_snapshot()
+    finally:
+        tracemalloc.stop()
+    growth = [d for d in after.compare_to(before, "filename")
+              if Path(d.traceback[0].filename).name in ENGINE_FILES and d.size_diff > 0]
+    assert growth == []
+    assert pool.sounding == 37 and np.any(out)
+
+
+def test_switching_designs_mid_phrase(motor_session, tmp_path):
+    """Design B from the switch controller on: earlier notes ring on in A, later ones in B.
+
+    Reference: design A's offline render of its strikes times its level plus
+    design B's of its own strikes times its level (here 1 and 0.5, chosen),
+    one common gain; within the rounding bound and 1e-9 of full scale.
+    """
+    voicer_a = motor_session.voicers[0]
+    voicer_b = demo_voicer(3.0, tubes=False)
+    session = planned([voicer_a, voicer_b], [1.0, 0.5])
+    m = mido.Message
+    script = [(100, m("note_on", note=60, velocity=127)),
+              (3000, m("control_change", control=80, value=127)),
+              (3000, m("note_on", note=64, velocity=127)),
+              (6000, m("note_on", note=60, velocity=64)),     # the A note, struck again in B
+              (9000, m("program_change", program=0)),
+              (9000, m("note_on", note=67, velocity=127)),
+              (12000, m("note_off", note=60)),
+              (12500, m("note_off", note=64)),
+              (13000, m("note_off", note=67)),
+              (14000, m("control_change", control=64, value=0))]
+    designs = {100: 0, 3000: 1, 6000: 1, 9000: 0}
+    for sample, msg in script:
+        session.handle(msg, sample)
+    fs = session.sample_rate
+    strikes = [[], []]
+    for sample, msg in script:
+        if msg.type == "note_on":
+            release = next((t for t, x in script if t > sample and x.type in ("note_off",
+                            "note_on") and getattr(x, "note", None) == msg.note), None)
+            strikes[designs[sample]].append(Strike(
+                sample / fs, midi_to_note(msg.note), velocity=msg.velocity / 127.0,
+                release_s=None if release is None else release / fs))
+    n = 24000
+    ref = np.zeros((n, 2))
+    for voicer, own, scale in zip((voicer_a, voicer_b), strikes, (1.0, 0.5), strict=True):
+        score = Score(tuple(own), (PedalChange(14000 / fs, 0.0),))
+        ref += scale * render(voicer.score_voices(score, default_pedal=1.0), n,
+                              sample_rate=fs, channels=2, retire_db=None)
+    gain = 0.5 / float(np.max(np.abs(ref)))
+    set_gain_now(session.pool, gain)
+    live = run_pool(session.pool, n, "random")
+    struck = [session.template(x.note, x.velocity, d) for t, x in script
+              if x.type == "note_on" for d in (designs[t],)]
+    bound = rounding_bound(session.pool, n, gain, struck)
+    assert float(np.max(np.abs(live - gain * ref))) <= min(bound, 1e-9)
