@@ -1,0 +1,147 @@
+"""``barwright play`` without devices: one clear line and exit 2; a MIDI file to WAV.
+
+No sound card or MIDI port exists on a test machine, and the tests do not rely
+on that: the missing module, device and port are simulated by monkeypatching.
+The ``--to-wav`` output is checked against the offline render of the same file
+at the session's gain (level match times ``--gain-db``), through a float WAV.
+"""
+
+from __future__ import annotations
+
+import sys
+import types
+
+import mido
+import numpy as np
+import pytest
+from conftest import DEMO
+from typer.testing import CliRunner
+
+from synth.cli import app
+from synth.live import recorded_midi
+
+
+def run(*args):
+    """Invoke ``barwright`` in-process; stdout and stderr apart."""
+    return CliRunner().invoke(app, [str(a) for a in args])
+
+
+def one_line_error(result, *needles):
+    """Exit 2, one stderr line holding every needle, no traceback."""
+    assert result.exit_code == 2, (result.exit_code, result.stderr, result.exception)
+    lines = [ln for ln in result.stderr.splitlines() if ln.strip()]
+    assert len(lines) == 1, result.stderr
+    assert lines[0].startswith("barwright: error: ")
+    assert "Traceback" not in result.stdout + result.stderr
+    for n in needles:
+        assert n in lines[0], (n, lines[0])
+
+
+def fake_sounddevice(has_device: bool):
+    """Return a stand-in for sounddevice whose output device exists or not."""
+    mod = types.ModuleType("sounddevice")
+
+    def query_devices(kind=None):
+        if not has_device:
+            raise RuntimeError("Error querying device -1")
+        return {"name": "test output"}
+
+    mod.query_devices = query_devices
+    return mod
+
+
+def test_no_sounddevice_module(monkeypatch):
+    """Without the play extra: says to install it, exit 2."""
+    monkeypatch.setitem(sys.modules, "sounddevice", None)
+    one_line_error(run("play", DEMO), "sounddevice", "barwright[play]")
+
+
+def test_no_portaudio_library(monkeypatch):
+    """The sounddevice module is there but PortAudio is missing (its import raises OSError)."""
+    class Finder:
+        def find_spec(self, name, path=None, target=None):
+            if name == "sounddevice":
+                raise OSError("PortAudio library not found")
+            return None
+
+    monkeypatch.delitem(sys.modules, "sounddevice", raising=False)
+    monkeypatch.setattr(sys, "meta_path", [Finder()] + sys.meta_path)
+    one_line_error(run("play", DEMO), "PortAudio")
+
+
+def test_no_output_device(monkeypatch):
+    """The module loads but no output device exists."""
+    monkeypatch.setitem(sys.modules, "sounddevice", fake_sounddevice(False))
+    one_line_error(run("play", DEMO), "no audio output device", "--to-wav")
+
+
+def test_no_midi_port(monkeypatch):
+    """An output device but no MIDI input port: says how to list ports or play a file."""
+    monkeypatch.setitem(sys.modules, "sounddevice", fake_sounddevice(True))
+    monkeypatch.setattr(mido, "get_input_names", lambda: [])
+    one_line_error(run("play", DEMO), "no MIDI input port", "--midi-file")
+
+
+def test_unknown_port(monkeypatch):
+    """A named port that does not exist: the ports found are listed."""
+    monkeypatch.setitem(sys.modules, "sounddevice", fake_sounddevice(True))
+    monkeypatch.setattr(mido, "get_input_names", lambda: ["Keys 1"])
+    one_line_error(run("play", DEMO, "--port", "Drums"), "--port", "'Keys 1'")
+
+
+def test_no_midi_backend(monkeypatch):
+    """No backend for mido (its ImportError): says to install the play extra."""
+    def missing():
+        raise ImportError("No module named 'rtmidi'")
+
+    monkeypatch.setattr(mido, "get_input_names", missing)
+    one_line_error(run("play", DEMO, "--list-ports"), "mido backend", "barwright[play]")
+
+
+def test_to_wav_needs_a_file():
+    """--to-wav without --midi-file is a usage error."""
+    one_line_error(run("play", DEMO, "--to-wav", "x.wav"), "--to-wav", "--midi-file")
+
+
+@pytest.mark.parametrize("block", [32, 1024])
+def test_midi_file_to_wav_equals_render(tmp_path, block):
+    """The callback's blocks, written as a float WAV, against the offline render at one gain.
+
+    Reference: :func:`synth.engine.render` of the file's voices (no voice
+    retired) times the session's gain, the level match of
+    :func:`synth.live.level_scales` (the same computation, run here) times
+    ``--gain-db``.  Tolerance: float32 rounding of the WAV (2^-24 of each sample)
+    plus the -150 dBFS below which the pool frees voices, plus rounding.
+    """
+    from synth.engine import render
+    from synth.engine.score import read_midi
+    from synth.io import read_audio
+    from synth.live import level_scales
+    from synth.physics.instrument import load_instrument
+    from synth.voicing import Voicer
+
+    m = mido.Message
+    events = [(200, m("note_on", note=53, velocity=127)),
+              (4000, m("note_on", note=72, velocity=64)),
+              (20000, m("note_off", note=53)),
+              (26000, m("note_off", note=72)),
+              (30000, m("control_change", control=64, value=0))]
+    midi = tmp_path / "phrase.mid"
+    recorded_midi(events, 48000.0).save(midi)
+    wav = tmp_path / "phrase.wav"
+    rec = tmp_path / "played.mid"
+    result = run("play", DEMO, "--midi-file", midi, "--to-wav", wav, "--format", "float32",
+                 "--layers", 2, "--block", block, "--gain-db", -6, "--record", rec)
+    assert result.exit_code == 0, result.stderr
+    from synth.live import midi_file_events
+    played = [(t, str(x.copy(time=0))) for t, x in midi_file_events(rec, 48000.0)]
+    assert played == [(t, str(x.copy(time=0))) for t, x in events]
+    got, fs = read_audio(wav)
+    voicer = Voicer(load_instrument(DEMO), sample_rate=48000.0, channels=2)
+    gain = level_scales([voicer])[0] * 10 ** (-6 / 20)
+    voices = voicer.score_voices(read_midi(midi), default_pedal=1.0)
+    ref = gain * render(voices, got.shape[0], sample_rate=48000.0, channels=2, retire_db=None)
+    assert got.shape[0] > 30000
+    tol = 2.0 ** -24 * float(np.max(np.abs(ref))) + 10 ** (-150 / 20) * len(voices) + 1e-12
+    assert float(np.max(np.abs(got - ref))) <= tol
+    assert float(np.max(np.abs(got))) <= 10 ** (-1 / 20)
