@@ -260,6 +260,7 @@ def play_command(
         recorded_midi(session.recording, session.sample_rate).save(file=buf)
         io.write_bytes(record, buf.getvalue(), force=force)
     if fault is not None:
+        commit_outputs()   # what was recorded up to the fault is kept
         raise missed(f"output muted: {fault}; the voices were stopped")
     commit_outputs()
     for path in (to_wav, record):
