@@ -447,8 +447,13 @@ _Q_FIELDS = 18
 
 
 @njit(cache=True)
-def _rt_rotor_angle(fctl, t):
-    """Rotor angle at time ``t`` s (closed form of the present segment), rad."""
+def _rt_rotor(fctl, t):
+    """Rotor angle (rad) and rate (rev/s) at time ``t`` s: closed form of the present segment.
+
+    The rate approaches ``f_to`` from ``f_from`` (at the segment start) as
+    ``f_to + (f_from - f_to) exp(-u / tau)`` (law 0) or linearly over ``tau``
+    (law 1); the angle is its integral from the segment's start angle.
+    """
     u = t - fctl[_F_R_T0]
     if u < 0.0:
         u = 0.0
@@ -457,33 +462,20 @@ def _rt_rotor_angle(fctl, t):
     tau = fctl[_F_R_TAU]
     if tau == 0.0 or f0 == f1:
         turns = f1 * u
+        rate = f1
     elif fctl[_F_R_LAW] == 0.0:
-        if f0 == 0.0:
+        if f0 == 0.0:   # from rest: the form the offline streams evaluate
             turns = f1 * (u + tau * math.expm1(-u / tau))
         else:
             turns = f1 * u - (f1 - f0) * tau * (-math.expm1(-u / tau))
+        rate = f1 + (f0 - f1) * math.exp(-u / tau)
     else:
         if u < tau:
             turns = f0 * u + (f1 - f0) * (u * u / (2.0 * tau))
         else:
             turns = f0 * u + (f1 - f0) * (u - 0.5 * tau)
-    return fctl[_F_R_THETA0] + _TWO_PI * turns
-
-
-@njit(cache=True)
-def _rt_rotor_rate(fctl, t):
-    """Rotor rate at time ``t`` s, rev/s."""
-    u = t - fctl[_F_R_T0]
-    if u < 0.0:
-        u = 0.0
-    f0 = fctl[_F_R_FROM]
-    f1 = fctl[_F_R_TO]
-    tau = fctl[_F_R_TAU]
-    if tau == 0.0:
-        return f1
-    if fctl[_F_R_LAW] == 0.0:
-        return f1 + (f0 - f1) * math.exp(-u / tau)
-    return f0 + (f1 - f0) * min(u / tau, 1.0)
+        rate = f0 + (f1 - f0) * min(u / tau, 1.0)
+    return fctl[_F_R_THETA0] + _TWO_PI * turns, rate
 
 
 @njit(cache=True)
@@ -565,8 +557,7 @@ def _rt_event(kind, ia, ib, val, ctl, fctl, v_int, v_flt, v_re, v_im, v_pair,
                 extra = p_damp[v_int[v, 1]] * (1.0 - val) / fs
                 _rt_damping(v, v_int, v_flt, extra)
     elif kind == _E_ROTOR:
-        theta = _rt_rotor_angle(fctl, t_now)
-        rate = _rt_rotor_rate(fctl, t_now)
+        theta, rate = _rt_rotor(fctl, t_now)
         fctl[_F_R_THETA0] = theta
         fctl[_F_R_FROM] = rate
         fctl[_F_R_TO] = val
@@ -748,8 +739,8 @@ def _rt_block(out, n, ctl, fctl, ev_kind, ev_sample, ev_int, ev_int2, ev_val,
                 j1 = nxt
         # rotor angles of the rows (the same closed form the offline streams evaluate)
         for j in range(j0, j1):
-            theta_n[j] = _rt_rotor_angle(fctl, (float(now + j) + 0.0) / fs)
-            theta_h[j] = _rt_rotor_angle(fctl, (float(now + j) + 0.5) / fs)
+            theta_n[j] = _rt_rotor(fctl, (float(now + j) + 0.0) / fs)[0]
+            theta_h[j] = _rt_rotor(fctl, (float(now + j) + 0.5) / fs)[0]
             gain_row[j] = fctl[_F_GAIN_TO]
         for v in range(n_v):
             if v_int[v, 0] == 0:
