@@ -22,6 +22,9 @@ MIDI_INSTALL_HINT = ('install the playback extra with: pip install "barwright[pl
                      "sounddevice and the python-rtmidi backend of mido)")
 STATUS_EVERY_S = 0.25
 MAX_TAIL_S = 30.0
+LOOKAHEAD_S = 0.2
+"""A played file's events go into the pool's ring this long before they sound (the loop
+that feeds them wakes every 5 ms; each keeps its own sample)."""
 
 
 def _audio_module():
@@ -295,6 +298,7 @@ def _stream(sd, session, *, block: int, port_name: str | None, events) -> None:
     midi_in = None
     stream = sd.OutputStream(samplerate=fs, blocksize=block, channels=session.channels,
                              dtype="float32", callback=callback)
+    ahead = max(8 * block, int(LOOKAHEAD_S * fs))   # file events queued this far ahead
     tty = sys.stderr.isatty()
     try:
         if port_name is not None:
@@ -307,7 +311,7 @@ def _stream(sd, session, *, block: int, port_name: str | None, events) -> None:
             last_status = 0.0
             while True:
                 if events is not None:
-                    while k < len(events) and events[k][0] < pool.now + 8 * block:
+                    while k < len(events) and events[k][0] < pool.now + ahead:
                         session.handle(events[k][1], events[k][0])
                         k += 1
                     if k == len(events) and pool.now > events[-1][0] and pool.sounding == 0:

@@ -145,3 +145,69 @@ def test_midi_file_to_wav_equals_render(tmp_path, block):
     tol = 2.0 ** -24 * float(np.max(np.abs(ref))) + 10 ** (-150 / 20) * len(voices) + 1e-12
     assert float(np.max(np.abs(got - ref))) <= tol
     assert float(np.max(np.abs(got))) <= 10 ** (-1 / 20)
+
+
+class _FakeStream:
+    """An output device that runs the callback in a thread, as PortAudio would."""
+
+    played: list = []
+
+    def __init__(self, *, samplerate, blocksize, channels, dtype, callback):
+        self.block = blocksize
+        self.channels = channels
+        self.callback = callback
+        self.stop = False
+
+    def _run(self):
+        import time as _time
+
+        status = types.SimpleNamespace(output_underflow=False)
+        while not self.stop:
+            out = np.zeros((self.block, self.channels), dtype=np.float32)
+            self.callback(out, self.block, None, status)
+            _FakeStream.played.append(out)
+            _time.sleep(self.block / 48000.0)   # paced like a device at 48 kHz
+
+    def __enter__(self):
+        import threading
+
+        self.thread = threading.Thread(target=self._run, daemon=True)
+        self.thread.start()
+        return self
+
+    def __exit__(self, *exc):
+        self.stop = True
+        self.thread.join()
+
+
+def test_midi_file_through_a_device_equals_to_wav(monkeypatch, tmp_path):
+    """Played on a (simulated) device, a file gives the blocks --to-wav writes; one status line.
+
+    The device callback runs in its own thread while the command feeds the
+    file's events ahead of the stream; the blocks it hands the device must be
+    the blocks ``--to-wav`` writes (same events at the same samples), to
+    float32 rounding of the WAV.
+    """
+    from synth.io import read_audio
+
+    sd = fake_sounddevice(True)
+    sd.OutputStream = _FakeStream
+    _FakeStream.played = []
+    monkeypatch.setitem(sys.modules, "sounddevice", sd)
+    m = mido.Message
+    events = [(300, m("note_on", note=65, velocity=127)),
+              (6000, m("note_off", note=65)),
+              (6100, m("control_change", control=64, value=0))]
+    midi = tmp_path / "short.mid"
+    recorded_midi(events, 48000.0).save(midi)
+    live = run("play", DEMO, "--midi-file", midi, "--layers", 1, "--block", 256)
+    assert live.exit_code == 0, live.stderr
+    assert "volume low" in live.stderr and "sounding" in live.stderr
+    wav = tmp_path / "short.wav"
+    offline = run("play", DEMO, "--midi-file", midi, "--layers", 1, "--block", 256,
+                  "--to-wav", wav, "--format", "float32")
+    assert offline.exit_code == 0, offline.stderr
+    got, _ = read_audio(wav)
+    played = np.concatenate(_FakeStream.played)[:got.shape[0]].astype(np.float64)
+    assert played.shape == got.shape
+    assert float(np.max(np.abs(played - got))) <= 2.0 ** -24 * float(np.max(np.abs(got)))
