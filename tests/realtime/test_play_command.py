@@ -211,3 +211,65 @@ def test_midi_file_through_a_device_equals_to_wav(monkeypatch, tmp_path):
     played = np.concatenate(_FakeStream.played)[:got.shape[0]].astype(np.float64)
     assert played.shape == got.shape
     assert float(np.max(np.abs(played - got))) <= 2.0 ** -24 * float(np.max(np.abs(got)))
+
+
+def test_port_input_is_played_and_recorded(monkeypatch, tmp_path):
+    """Messages from a (simulated) port sound, and --record keeps them in order.
+
+    The port delivers a strike, the pedal and its release from its own thread
+    once the stream runs; Ctrl-C (simulated in the feeding loop's sleep) ends
+    the run with exit 0 and the recording written, its events one block apart
+    as stamped (each lands one block after the block being played).
+    """
+    import threading
+
+    import synth.cli.cmd_play as cmd_play
+
+    sd = fake_sounddevice(True)
+    sd.OutputStream = _FakeStream
+    _FakeStream.played = []
+    monkeypatch.setitem(sys.modules, "sounddevice", sd)
+    monkeypatch.setattr(mido, "get_input_names", lambda: ["Keys 1"])
+    m = mido.Message
+    sent = [m("note_on", note=65, velocity=127), m("control_change", control=64, value=0),
+            m("note_off", note=65)]
+
+    class FakePort:
+        def __init__(self, name, callback):
+            def feed():
+                for msg in sent:
+                    while len(_FakeStream.played) < 20:
+                        threading.Event().wait(0.002)
+                    callback(msg)
+                    n = len(_FakeStream.played)
+                    while len(_FakeStream.played) < n + 10:
+                        threading.Event().wait(0.002)
+            self.thread = threading.Thread(target=feed, daemon=True)
+            self.thread.start()
+
+        def close(self):
+            self.thread.join()
+
+    monkeypatch.setattr(mido, "open_input", lambda name, callback: FakePort(name, callback))
+    real_sleep = cmd_play.time.sleep
+
+    def sleep(seconds):   # Ctrl-C in the command's own loop only
+        if threading.current_thread() is threading.main_thread() \
+                and len(_FakeStream.played) > 80:
+            raise KeyboardInterrupt
+        real_sleep(seconds)
+
+    monkeypatch.setattr(cmd_play.time, "sleep", sleep)
+    rec = tmp_path / "take.mid"
+    result = run("play", DEMO, "--port", "Keys 1", "--layers", 1, "--block", 256,
+                 "--record", rec)
+    assert result.exit_code == 0, result.stderr
+    from synth.live import midi_file_events
+
+    got = midi_file_events(rec, 48000.0)
+    assert [str(x.copy(time=0)) for _, x in got] == [str(x) for x in sent]
+    assert [t % 256 for t, _ in got] == [0, 0, 0]          # stamped at block starts
+    assert all(b > a for (a, _), (b, _) in zip(got, got[1:], strict=False))
+    played = np.concatenate(_FakeStream.played)
+    assert np.any(played[got[0][0]:])                     # the strike sounds
+    assert not np.any(played[:got[0][0]])                  # and nothing before it
