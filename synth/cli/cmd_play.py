@@ -256,6 +256,13 @@ def play_command(
              f"output starts at {gain_db:+.0f} dB and never exceeds -1 dBFS")
         _stream(sd, session, block=block, port_name=port_name, events=events)
     fault = session.pool.fault
+    status = session.status()
+    if status["off_range"]:
+        warn(f"{status['off_range']} strike(s) outside the range of the design were not "
+             "played")
+    if status["dropped_events"]:
+        warn(f"{status['dropped_events']} event(s) did not fit the engine's queue and were "
+             "lost")
     if record is not None:
         from synth.live import recorded_midi
 
@@ -314,7 +321,8 @@ def _stream(sd, session, *, block: int, port_name: str | None, events) -> None:
                     while k < len(events) and events[k][0] < pool.now + ahead:
                         session.handle(events[k][1], events[k][0])
                         k += 1
-                    if k == len(events) and pool.now > events[-1][0] and pool.sounding == 0:
+                    if k == len(events) and pool.now > (events[-1][0] if events else 0) \
+                            and pool.sounding == 0:
                         break
                 if pool.fault is not None:
                     break
