@@ -273,3 +273,9 @@ def test_port_input_is_played_and_recorded(monkeypatch, tmp_path):
     played = np.concatenate(_FakeStream.played)
     assert np.any(played[got[0][0]:])                     # the strike sounds
     assert not np.any(played[:got[0][0]])                  # and nothing before it
+
+
+def test_controllers_must_differ():
+    """The motor and design controllers may not share a number or take the pedal's (64)."""
+    one_line_error(run("play", DEMO, "--motor-cc", 64), "--motor-cc 64", "64")
+    one_line_error(run("play", DEMO, "--motor-cc", 5, "--switch-cc", 5), "--switch-cc 5")
