@@ -41,7 +41,7 @@ import numpy as np
 
 from synth.engine.realtime import DEFAULT_VOICES, LiveVoice, Rotor, RotorLaw, VoicePool
 from synth.engine.voice import seconds_to_sample
-from synth.errors import ConfigError
+from synth.errors import ConfigError, ModelError
 from synth.physics.motor import disc_modulation
 from synth.pitch import note_to_midi
 from synth.voicing import LN_1000, Voicer
@@ -108,20 +108,43 @@ def rotor_of(voicer: Voicer) -> Rotor:
                  spin_up_s=m.spin_up_s, law=m.spin_up_law)
 
 
-def plan_design(voicer: Voicer, velocities: Sequence[int], *,
-                scale: float = 1.0) -> list[LiveVoice]:
-    """Templates for every note (range order) and layer (``velocities`` order).
-
-    ``scale`` multiplies the voice's channel gains (the design's level match).
-    """
+def _plan_notes(voicer: Voicer, notes: Sequence[str], velocities: Sequence[int],
+                scale: float) -> list[LiveVoice]:
+    """Templates of ``notes`` (in order) at every layer: one job of :func:`plan_design`."""
     release = LN_1000 / voicer.sound.damper_t60_s
     out = []
-    for note in voicer.instrument.notes:
+    for note in notes:
         law = rotor_law(voicer, note)
         for vel in velocities:
             v = voicer.strike_voice(note, velocity=vel / 127.0)
             v = replace(v, channel_gains=tuple(g * scale for g in v.channel_gains))
             out.append(LiveVoice(v, tuple(law for _ in v.pairs), release))
+    return out
+
+
+def plan_design(voicer: Voicer, velocities: Sequence[int], *, scale: float = 1.0,
+                workers: int | None = 1, scheduler: str | None = None) -> list[LiveVoice]:
+    """Templates for every note (range order) and layer (``velocities`` order).
+
+    ``scale`` multiplies the voice's channel gains (the design's level match).
+    The notes are independent jobs (:func:`synth.executor.run_jobs`): ``workers``
+    local processes (1: here; ``None``: every core) or a Dask ``scheduler``.
+    """
+    notes = list(voicer.instrument.notes)
+    if workers == 1 and scheduler is None:
+        return _plan_notes(voicer, notes, velocities, scale)
+    from synth.executor import Job, default_workers, run_jobs
+
+    n = default_workers() if workers is None else workers
+    size = max(1, -(-len(notes) // (2 * n)))   # two chunks per worker evens the load
+    chunks = [notes[i:i + size] for i in range(0, len(notes), size)]
+    jobs = [Job(f"notes {c[0]}-{c[-1]}", _plan_notes, (voicer, c, tuple(velocities), scale))
+            for c in chunks]
+    out: list[LiveVoice] = []
+    for res in run_jobs(jobs, workers=workers, scheduler=scheduler):
+        if not res.ok:
+            raise ModelError(f"planning {res.key}: {res.error}")
+        out += res.value
     return out
 
 
@@ -182,6 +205,8 @@ class LiveSession:
         Level of each design (default :func:`level_scales`).
     retire_dbfs : float
         Level below which a voice is freed (see :class:`VoicePool`).
+    workers, scheduler
+        Where the notes are planned (:func:`plan_design`; default here).
     """
 
     def __init__(self, voicers: Sequence[Voicer], *, n_layers: int = DEFAULT_LAYERS,
@@ -189,7 +214,8 @@ class LiveSession:
                  pedal: float = 1.0, motor_top: float = DEFAULT_MOTOR_TOP,
                  motor_cc: int = MOTOR_CC, design_cc: int = DESIGN_CC,
                  scales: Sequence[float] | None = None,
-                 retire_dbfs: float = -150.0):
+                 retire_dbfs: float = -150.0, workers: int | None = 1,
+                 scheduler: str | None = None):
         voicers = list(voicers)
         if not 1 <= len(voicers) <= 2:
             raise ConfigError("a session plays one or two designs")
@@ -214,7 +240,8 @@ class LiveSession:
         for v, scale in zip(voicers, self.scales, strict=True):
             self.first.append(len(templates))
             self.index.append({note_to_midi(n): k for k, n in enumerate(v.instrument.notes)})
-            templates += plan_design(v, self.velocities, scale=scale)
+            templates += plan_design(v, self.velocities, scale=scale, workers=workers,
+                                     scheduler=scheduler)
         self.templates = templates
         self.reset(gain_db=gain_db, pedal=pedal)
 

@@ -18,8 +18,8 @@ live.blocks_timed
     Callbacks timed (every call of the run, after 200 untimed ones).
 live.ready_s
     Start-to-ready of the demo preset in a new process (imports, planning
-    every note at 8 velocity layers, the level match, kernels loaded), second
-    run, so numba's kernels come from its cache.
+    every note at 8 velocity layers on every core, the level match, kernels
+    loaded), second run, so numba's kernels come from its cache.
 live.plan_strikes
     Strikes planned for that (notes x layers).
 """
@@ -41,7 +41,7 @@ from synth.physics.instrument import load_instrument
 from synth.voicing import Voicer
 from synth.live import LiveSession
 v = Voicer(load_instrument({preset!r}), sample_rate=48000.0, channels=2)
-s = LiveSession([v], n_layers={layers})
+s = LiveSession([v], n_layers={layers}, workers=None)
 s.pool.warm_up()
 print(time.perf_counter() - t0, s.pool.n_templates)
 """

@@ -95,7 +95,7 @@ def _choose_port(port: str | None) -> str:
 
 def _session(presets: list[Path], *, sample_rate: int, channels: int, no_tubes: bool,
              motor_rate: float | None, layers: int, voices: int, gain_db: float, pedal: float,
-             motor_top: float, motor_cc: int, switch_cc: int):
+             motor_top: float, motor_cc: int, switch_cc: int, workers: int | None):
     from synth.cli.cmd_sound import _voicer
     from synth.live import LiveSession
 
@@ -103,7 +103,7 @@ def _session(presets: list[Path], *, sample_rate: int, channels: int, no_tubes: 
                        motor_rate=motor_rate) for p in presets]
     session = LiveSession(voicers, n_layers=layers, n_voices=voices, gain_db=gain_db,
                           pedal=pedal, motor_top=motor_top, motor_cc=motor_cc,
-                          design_cc=switch_cc)
+                          design_cc=switch_cc, workers=workers)
     session.pool.warm_up()
     return session
 
@@ -192,6 +192,9 @@ def play_command(
         min=0.0, max=600.0, metavar="seconds",
         help="With --midi-file: seconds after the last event (default: until every voice "
              "has died away, at most 30 s).")] = None,
+    workers: Annotated[int | None, typer.Option(
+        min=1, max=256, help="Local processes that plan the notes before the stream starts "
+                             "(default: every core this process may use).")] = None,
     no_tubes: Annotated[bool, typer.Option("--no-tubes", help="Leave the tubes out.")] = False,
     sample_rate: Annotated[int, typer.Option("--sample-rate", min=44100, max=96000,
                                              metavar="Hz", help="44100, 48000 or 96000 Hz."
@@ -244,7 +247,8 @@ def play_command(
     t0 = time.perf_counter()
     session = _session(presets, sample_rate=sample_rate, channels=channels, no_tubes=no_tubes,
                        motor_rate=motor_rate, layers=layers, voices=voices, gain_db=gain_db,
-                       pedal=pedal, motor_top=motor_top, motor_cc=motor_cc, switch_cc=switch_cc)
+                       pedal=pedal, motor_top=motor_top, motor_cc=motor_cc, switch_cc=switch_cc,
+                       workers=workers)
     levels = ", ".join(f"{d} {20 * np.log10(g) + gain_db:+.2f} dB"
                        for d, g in zip("AB", session.scales, strict=False))
     info(f"barwright: planned {session.pool.n_templates} strikes of {len(presets)} design(s) "

@@ -22,7 +22,9 @@ from synth.live import recorded_midi
 
 
 def run(*args):
-    """Invoke ``barwright`` in-process; stdout and stderr apart."""
+    """Invoke ``barwright`` in-process (planning here too); stdout and stderr apart."""
+    if args[0] == "play" and "--list-ports" not in args:
+        args = (*args, "--workers", 1)
     return CliRunner().invoke(app, [str(a) for a in args])
 
 

@@ -15,6 +15,7 @@ from pathlib import Path
 
 import mido
 import numpy as np
+import pytest
 from conftest import demo_voicer, planned
 from rt_helpers import rounding_bound, run_pool, set_gain_now
 
@@ -98,3 +99,20 @@ def test_switching_designs_mid_phrase(motor_session, tmp_path):
               if x.type == "note_on" for d in (designs[t],)]
     bound = rounding_bound(session.pool, n, gain, struck)
     assert float(np.max(np.abs(live - gain * ref))) <= min(bound, 1e-9)
+
+
+@pytest.mark.slow
+def test_planning_in_worker_processes_gives_the_same_templates():
+    """Notes planned by two local processes equal the notes planned here, bit for bit."""
+    from synth.live import plan_design
+
+    voicer = demo_voicer(3.0)
+    here = plan_design(voicer, (64, 127))
+    there = plan_design(demo_voicer(3.0), (64, 127), workers=2)
+    assert len(here) == len(there) == 74
+    for a, b in zip(here, there, strict=True):
+        for name in ("frequency_hz", "decay_per_s", "amplitude", "phase_rad"):
+            assert np.array_equal(getattr(a.voice.modes, name), getattr(b.voice.modes, name))
+        assert a.voice.channel_gains == b.voice.channel_gains
+        assert [p.amplitude for p in a.voice.pairs] == [p.amplitude for p in b.voice.pairs]
+        assert a.laws == b.laws and a.release_decay_per_s == b.release_decay_per_s
