@@ -402,7 +402,7 @@ _C_LIMITED = 7    # blocks in which the ceiling lowered the gain
 _C_CAP = 8        # capacity of the event ring
 
 _F_LIFT = 0       # damper lift 0..1 (1 = dampers off the bars)
-_F_SPARE = 1
+_F_STOLEN = 1     # start amplitudes of the voices stolen in this block (for the guard)
 _F_R_T0 = 2       # rotor segment: start time, s
 _F_R_THETA0 = 3   # angle at the segment start, rad
 _F_R_FROM = 4     # rate at the segment start, rev/s
@@ -528,6 +528,8 @@ def _rt_event(kind, ia, ib, val, ctl, fctl, v_int, v_flt, v_re, v_im, v_pair,
                     best = b
                     v = i
             ctl[_C_STEALS] += 1
+            fctl[_F_STOLEN] += _rt_plan_bound(v_int[v, 1], p_nmodes, p_amp, p_npairs, p_pair,
+                                              p_w2max, p_gmax)
         p = ia
         v_int[v, 0] = 1
         v_int[v, 1] = p
@@ -720,7 +722,7 @@ def _rt_block(out, n, ctl, fctl, ev_kind, ev_sample, ev_int, ev_int2, ev_val,
         for c in range(n_ch):
             mix[j, c] = 0.0
     j0 = 0
-    bound = 0.0
+    fctl[_F_STOLEN] = 0.0
     while j0 < n:
         # events due at row j0
         while ctl[_C_READ] < ctl[_C_WRITE]:
@@ -756,6 +758,7 @@ def _rt_block(out, n, ctl, fctl, ev_kind, ev_sample, ev_int, ev_int2, ev_val,
         j0 = j1
     # bound of the block: every voice sounding in it, at its start amplitude
     n_active = 0
+    bound = fctl[_F_STOLEN]
     for v in range(n_v):
         if v_int[v, 0] == 1:
             bound += _rt_plan_bound(v_int[v, 1], p_nmodes, p_amp, p_npairs, p_pair, p_w2max,
