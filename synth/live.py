@@ -12,7 +12,7 @@ integrated loudness, the louder true peak at -1 dBTP); a controller or a
 program change picks the design the next strike uses, so a ringing note keeps
 its own design.
 
-MIDI mapping (:meth:`LiveSession.handle`), following the offline reader
+MIDI mapping (:meth:`LivePlayer.handle`), following the offline reader
 (:func:`synth.engine.score.read_midi`):
 
 * note-on with velocity > 0 starts a strike (a key struck again while held is
@@ -26,7 +26,7 @@ MIDI mapping (:meth:`LiveSession.handle`), following the offline reader
   B from 64; program change 0 = A, 1 = B;
 * notes outside the design's range are counted and ignored.
 
-A session can record what it was given as a standard MIDI file whose ticks are
+A player can record what it was given as a standard MIDI file whose ticks are
 samples (:func:`recorded_midi`), so ``render`` makes the same passage offline.
 """
 
@@ -175,14 +175,14 @@ def level_scales(voicers: Sequence[Voicer], *, ceiling_dbtp: float = -1.0) -> li
 
 @dataclass
 class Counters:
-    """What a session has met: notes out of range, events the ring dropped."""
+    """What a player has met: notes out of range, events the ring dropped."""
 
     off_range: int = 0
     dropped: int = 0
     messages: int = 0
 
 
-class LiveSession:
+class LivePlayer:
     """One or two designs planned on one voice pool, driven by MIDI messages.
 
     Parameters
@@ -218,7 +218,7 @@ class LiveSession:
                  scheduler: str | None = None):
         voicers = list(voicers)
         if not 1 <= len(voicers) <= 2:
-            raise ConfigError("a session plays one or two designs")
+            raise ConfigError("a player plays one or two designs")
         fs = voicers[0].sample_rate
         if any(v.sample_rate != fs or v.channels != voicers[0].channels for v in voicers):
             raise ConfigError("designs A and B must play at one sample rate and channel count",

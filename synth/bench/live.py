@@ -39,9 +39,9 @@ import time
 t0 = time.perf_counter()
 from synth.physics.instrument import load_instrument
 from synth.voicing import Voicer
-from synth.live import LiveSession
+from synth.live import LivePlayer
 v = Voicer(load_instrument({preset!r}), sample_rate=48000.0, channels=2)
-s = LiveSession([v], n_layers={layers}, workers=None)
+s = LivePlayer([v], n_layers={layers}, workers=None)
 s.pool.warm_up()
 print(time.perf_counter() - t0, s.pool.n_templates)
 """
@@ -58,7 +58,7 @@ def _ready_once(layers: int) -> tuple[float, int]:
 def _callback_loads(quick: bool) -> np.ndarray:
     import mido
 
-    from synth.live import LiveSession
+    from synth.live import LivePlayer
     from synth.physics.instrument import load_instrument
     from synth.pitch import note_to_midi
     from synth.voicing import Voicer
@@ -66,12 +66,12 @@ def _callback_loads(quick: bool) -> np.ndarray:
     fs, block = 48000.0, 64
     inst = load_instrument(presets_dir() / "instruments" / "tarrow-37.toml")
     v = Voicer(inst, sample_rate=fs, channels=2, motor_rate_rev_per_s=3.0)
-    session = LiveSession([v], n_layers=1, scales=[1.0], gain_db=-40.0)
-    session.pool.warm_up()
+    player = LivePlayer([v], n_layers=1, scales=[1.0], gain_db=-40.0)
+    player.pool.warm_up()
     for k, note in enumerate(inst.notes):
-        session.handle(mido.Message("note_on", note=note_to_midi(note), velocity=127), 10 * k)
+        player.handle(mido.Message("note_on", note=note_to_midi(note), velocity=127), 10 * k)
     out = np.zeros((block, 2), dtype=np.float32)
-    pool = session.pool
+    pool = player.pool
     for _ in range(200):
         pool.process(out)
     n = 2000 if quick else 6000   # 8 s: every note still above the retirement level

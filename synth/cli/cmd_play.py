@@ -93,23 +93,23 @@ def _choose_port(port: str | None) -> str:
     return port
 
 
-def _session(presets: list[Path], *, sample_rate: int, channels: int, no_tubes: bool,
+def _player(presets: list[Path], *, sample_rate: int, channels: int, no_tubes: bool,
              motor_rate: float | None, layers: int, voices: int, gain_db: float, pedal: float,
              motor_top: float, motor_cc: int, switch_cc: int, workers: int | None):
     from synth.cli.cmd_sound import _voicer
-    from synth.live import LiveSession
+    from synth.live import LivePlayer
 
     voicers = [_voicer(p, sample_rate=sample_rate, channels=channels, no_tubes=no_tubes,
                        motor_rate=motor_rate) for p in presets]
-    session = LiveSession(voicers, n_layers=layers, n_voices=voices, gain_db=gain_db,
+    player = LivePlayer(voicers, n_layers=layers, n_voices=voices, gain_db=gain_db,
                           pedal=pedal, motor_top=motor_top, motor_cc=motor_cc,
                           design_cc=switch_cc, workers=workers)
-    session.pool.warm_up()
-    return session
+    player.pool.warm_up()
+    return player
 
 
-def _status_line(session, load, dropouts: int) -> str:
-    s = session.status()
+def _status_line(player, load, dropouts: int) -> str:
+    s = player.status()
     text = (f"sounding {s['sounding']:2d} | pedal {s['pedal']:.2f} | motor "
             f"{s['motor_rev_per_s']:.1f} rev/s | design {s['design']} | load "
             f"{100 * load[0]:3.0f} % (max {100 * load[1]:3.0f} %) | dropouts {dropouts}")
@@ -118,19 +118,19 @@ def _status_line(session, load, dropouts: int) -> str:
     return text
 
 
-def _to_wav(session, events, block: int, tail_s: float | None):
+def _to_wav(player, events, block: int, tail_s: float | None):
     """Yield what the audio callback writes, block by block, until the passage has rung out."""
-    pool = session.pool
-    fs = session.sample_rate
+    pool = player.pool
+    fs = player.sample_rate
     last = events[-1][0] if events else 0
     end = last + int(round((MAX_TAIL_S if tail_s is None else tail_s) * fs))
     k = 0
     while pool.now < end:
         n = min(block, end - pool.now)
         while k < len(events) and events[k][0] < pool.now + n:
-            session.handle(events[k][1], events[k][0])
+            player.handle(events[k][1], events[k][0])
             k += 1
-        out = np.zeros((n, session.channels))
+        out = np.zeros((n, player.channels))
         pool.process(out)
         yield out
         if pool.fault is not None:
@@ -245,25 +245,25 @@ def play_command(
         plan_outputs(targets, force=force)
     presets = [preset] + ([preset_b] if preset_b is not None else [])
     t0 = time.perf_counter()
-    session = _session(presets, sample_rate=sample_rate, channels=channels, no_tubes=no_tubes,
+    player = _player(presets, sample_rate=sample_rate, channels=channels, no_tubes=no_tubes,
                        motor_rate=motor_rate, layers=layers, voices=voices, gain_db=gain_db,
                        pedal=pedal, motor_top=motor_top, motor_cc=motor_cc, switch_cc=switch_cc,
                        workers=workers)
     levels = ", ".join(f"{d} {20 * np.log10(g) + gain_db:+.2f} dB"
-                       for d, g in zip("AB", session.scales, strict=False))
-    info(f"barwright: planned {session.pool.n_templates} strikes of {len(presets)} design(s) "
+                       for d, g in zip("AB", player.scales, strict=False))
+    info(f"barwright: planned {player.pool.n_templates} strikes of {len(presets)} design(s) "
          f"in {time.perf_counter() - t0:.1f} s; output gain re 1 Pa: {levels}")
     if record is not None:
-        session.start_recording()
+        player.start_recording()
     if to_wav is not None:
-        io.write_wav(to_wav, _to_wav(session, events, block, tail), sample_rate=sample_rate,
+        io.write_wav(to_wav, _to_wav(player, events, block, tail), sample_rate=sample_rate,
                      sample_format=fmt, channels=channels, force=force)
     else:
         info("barwright: set your volume low before you play, especially on headphones; "
              f"output starts at {gain_db:+.0f} dB and never exceeds -1 dBFS")
-        _stream(sd, session, block=block, port_name=port_name, events=events)
-    fault = session.pool.fault
-    status = session.status()
+        _stream(sd, player, block=block, port_name=port_name, events=events)
+    fault = player.pool.fault
+    status = player.status()
     if status["off_range"]:
         warn(f"{status['off_range']} strike(s) outside the range of the design were not "
              "played")
@@ -274,7 +274,7 @@ def play_command(
         from synth.live import recorded_midi
 
         buf = _bytes_io.BytesIO()
-        recorded_midi(session.recording, session.sample_rate).save(file=buf)
+        recorded_midi(player.recording, player.sample_rate).save(file=buf)
         io.write_bytes(record, buf.getvalue(), force=force)
     if fault is not None:
         commit_outputs()   # what was recorded up to the fault is kept
@@ -285,10 +285,10 @@ def play_command(
             info(f"barwright: wrote {path}")
 
 
-def _stream(sd, session, *, block: int, port_name: str | None, events) -> None:
+def _stream(sd, player, *, block: int, port_name: str | None, events) -> None:
     """Run the output stream until Ctrl-C (or the end of the file) with a status line."""
-    pool = session.pool
-    fs = session.sample_rate
+    pool = player.pool
+    fs = player.sample_rate
     budget = block / fs
     loads = np.zeros(2)          # last, largest callback time / block duration
     dropouts = [0]
@@ -307,10 +307,10 @@ def _stream(sd, session, *, block: int, port_name: str | None, events) -> None:
 
     def on_message(msg):
         with lock:   # one block ahead: every event lands inside a block not yet rendered
-            session.handle(msg, pool.now + block)
+            player.handle(msg, pool.now + block)
 
     midi_in = None
-    stream = sd.OutputStream(samplerate=fs, blocksize=block, channels=session.channels,
+    stream = sd.OutputStream(samplerate=fs, blocksize=block, channels=player.channels,
                              dtype="float32", callback=callback)
     ahead = max(8 * block, int(LOOKAHEAD_S * fs))   # file events queued this far ahead
     tty = sys.stderr.isatty()
@@ -326,7 +326,7 @@ def _stream(sd, session, *, block: int, port_name: str | None, events) -> None:
             while True:
                 if events is not None:
                     while k < len(events) and events[k][0] < pool.now + ahead:
-                        session.handle(events[k][1], events[k][0])
+                        player.handle(events[k][1], events[k][0])
                         k += 1
                     if k == len(events) and pool.now > (events[-1][0] if events else 0) \
                             and pool.sounding == 0:
@@ -335,7 +335,7 @@ def _stream(sd, session, *, block: int, port_name: str | None, events) -> None:
                     break
                 now = time.monotonic()
                 if tty and now - last_status >= STATUS_EVERY_S:
-                    sys.stderr.write("\r" + _status_line(session, loads, dropouts[0]))
+                    sys.stderr.write("\r" + _status_line(player, loads, dropouts[0]))
                     sys.stderr.flush()
                     last_status = now
                 time.sleep(0.005)
@@ -346,7 +346,7 @@ def _stream(sd, session, *, block: int, port_name: str | None, events) -> None:
             midi_in.close()
         if tty:
             sys.stderr.write("\n")
-    info("barwright: " + _status_line(session, loads, dropouts[0]))
+    info("barwright: " + _status_line(player, loads, dropouts[0]))
     if dropouts[0]:
         warn(f"{dropouts[0]} block(s) reached the device late (dropouts); try a larger "
              "--block or fewer --voices")

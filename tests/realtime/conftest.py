@@ -20,19 +20,19 @@ def demo_voicer(motor_rate: float, *, tubes: bool = True, preset: Path = DEMO):
 
 
 def planned(voicers, scales):
-    """Return a session of the given designs, two velocity layers (64 and 127), no level match."""
-    from synth.live import LiveSession
+    """Return a player of the given designs, two velocity layers (64 and 127), no level match."""
+    from synth.live import LivePlayer
 
-    return LiveSession(voicers, n_layers=2, scales=scales, retire_dbfs=-300.0)
+    return LivePlayer(voicers, n_layers=2, scales=scales, retire_dbfs=-300.0)
 
 
 @pytest.fixture(scope="session")
-def motor_session():
+def motor_player():
     """Plan the demo preset with its motor at 3 rev/s (spin-up as in the preset)."""
     return planned([demo_voicer(3.0)], [1.0])
 
 
 @pytest.fixture(scope="session")
-def still_session():
+def still_player():
     """Plan the demo preset with its motor stopped (the preset's default)."""
     return planned([demo_voicer(0.0)], [1.0])

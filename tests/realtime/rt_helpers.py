@@ -1,4 +1,4 @@
-"""Drive a live session offline, block by block, and render the same events offline."""
+"""Drive a live player offline, block by block, and render the same events offline."""
 
 from __future__ import annotations
 

@@ -1,8 +1,8 @@
 """The live pool against the offline renderer: the same events give the same samples.
 
 A scripted MIDI stream (strikes at two velocities, note-offs, a key struck
-again while held, pedal down, half pedal, up) goes through a live session and
-its audio callback in blocks of 32 to 1024 samples; the session records what it
+again while held, pedal down, half pedal, up) goes through a live player and
+its audio callback in blocks of 32 to 1024 samples; the player records what it
 was given as a standard MIDI file, which the offline reader
 (:func:`synth.engine.score.read_midi`), the voice plan and
 :func:`synth.engine.render` turn into samples independently.  Both at one gain,
@@ -46,39 +46,39 @@ def script():
     ]
 
 
-def compare(session, tmp_path, scheme):
-    """Play the script live and offline; return the difference, its bound, the session."""
-    session.reset(gain_db=0.0)
-    session.start_recording()
+def compare(player, tmp_path, scheme):
+    """Play the script live and offline; return the difference, its bound, the player."""
+    player.reset(gain_db=0.0)
+    player.start_recording()
     for sample, msg in script():
-        session.handle(msg, sample)
+        player.handle(msg, sample)
     path = tmp_path / "played.mid"
-    recorded_midi(session.recording, session.sample_rate).save(path)
-    voicer = session.voicers[0]
+    recorded_midi(player.recording, player.sample_rate).save(path)
+    voicer = player.voicers[0]
     voices = voicer.score_voices(read_midi(path), default_pedal=1.0)
-    ref = render(voices, N_SAMPLES, sample_rate=session.sample_rate, channels=2,
+    ref = render(voices, N_SAMPLES, sample_rate=player.sample_rate, channels=2,
                  retire_db=None)
     gain = PEAK / float(np.max(np.abs(ref)))
-    set_gain_now(session.pool, gain)
-    live = run_pool(session.pool, N_SAMPLES, scheme)
-    struck = [session.template(msg.note, msg.velocity) for _, msg in script()
+    set_gain_now(player.pool, gain)
+    live = run_pool(player.pool, N_SAMPLES, scheme)
+    struck = [player.template(msg.note, msg.velocity) for _, msg in script()
               if msg.type == "note_on" and msg.velocity > 0]
-    bound = rounding_bound(session.pool, N_SAMPLES, gain, struck)
-    return float(np.max(np.abs(live - ref * gain))), bound, session
+    bound = rounding_bound(player.pool, N_SAMPLES, gain, struck)
+    return float(np.max(np.abs(live - ref * gain))), bound, player
 
 
 @pytest.mark.parametrize("scheme", [32, 64, 1024, "random"])
-def test_motor_running_matches_render(motor_session, tmp_path, scheme):
+def test_motor_running_matches_render(motor_player, tmp_path, scheme):
     """Motor at 3 rev/s from sample 0 with the preset's spin-up: discs modulate every tube."""
-    diff, bound, session = compare(motor_session, tmp_path, scheme)
+    diff, bound, player = compare(motor_player, tmp_path, scheme)
     assert diff <= min(bound, 1e-9), f"{diff:.3g} > {min(bound, 1e-9):.3g}"
-    assert session.pool.fault is None and session.pool.limited_blocks == 0
+    assert player.pool.fault is None and player.pool.limited_blocks == 0
 
 
 @pytest.mark.parametrize("scheme", [64, "random"])
-def test_motor_stopped_matches_render(still_session, tmp_path, scheme):
+def test_motor_stopped_matches_render(still_player, tmp_path, scheme):
     """Motor stopped (discs edge-on): the offline pair is constant, the live law at rest."""
-    diff, bound, _ = compare(still_session, tmp_path, scheme)
+    diff, bound, _ = compare(still_player, tmp_path, scheme)
     assert diff <= min(bound, 1e-9), f"{diff:.3g} > {min(bound, 1e-9):.3g}"
 
 
@@ -87,19 +87,19 @@ def test_motor_stopped_matches_render(still_session, tmp_path, scheme):
                           "render's default pedal (1.0) wins over a file's pedal change at "
                           "time 0; live, the file's change acts (measured difference 0.18 "
                           "of full scale for this phrase with the pedal down at sample 0)")
-def test_pedal_at_time_zero(motor_session, tmp_path):
+def test_pedal_at_time_zero(motor_player, tmp_path):
     """A pedal change at sample 0 acts from the first sample, live and offline alike."""
-    motor_session.reset(gain_db=0.0)
-    motor_session.start_recording()
+    motor_player.reset(gain_db=0.0)
+    motor_player.start_recording()
     events = [(0, mido.Message("control_change", control=64, value=0))] + script()[1:]
     for sample, msg in events:
-        motor_session.handle(msg, sample)
+        motor_player.handle(msg, sample)
     path = tmp_path / "played.mid"
-    recorded_midi(motor_session.recording, motor_session.sample_rate).save(path)
-    voices = motor_session.voicers[0].score_voices(read_midi(path), default_pedal=1.0)
-    ref = render(voices, N_SAMPLES, sample_rate=motor_session.sample_rate, channels=2,
+    recorded_midi(motor_player.recording, motor_player.sample_rate).save(path)
+    voices = motor_player.voicers[0].score_voices(read_midi(path), default_pedal=1.0)
+    ref = render(voices, N_SAMPLES, sample_rate=motor_player.sample_rate, channels=2,
                  retire_db=None)
     gain = PEAK / float(np.max(np.abs(ref)))
-    set_gain_now(motor_session.pool, gain)
-    live = run_pool(motor_session.pool, N_SAMPLES, 64)
+    set_gain_now(motor_player.pool, gain)
+    live = run_pool(motor_player.pool, N_SAMPLES, 64)
     assert float(np.max(np.abs(live - ref * gain))) <= 1e-9

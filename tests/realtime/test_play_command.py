@@ -3,7 +3,7 @@
 No sound card or MIDI port exists on a test machine, and the tests do not rely
 on that: the missing module, device and port are simulated by monkeypatching.
 The ``--to-wav`` output is checked against the offline render of the same file
-at the session's gain (level match times ``--gain-db``), through a float WAV.
+at the player's gain (level match times ``--gain-db``), through a float WAV.
 """
 
 from __future__ import annotations
@@ -110,7 +110,7 @@ def test_midi_file_to_wav_equals_render(tmp_path, block):
     """The callback's blocks, written as a float WAV, against the offline render at one gain.
 
     Reference: :func:`synth.engine.render` of the file's voices (no voice
-    retired) times the session's gain, the level match of
+    retired) times the player's gain, the level match of
     :func:`synth.live.level_scales` (the same computation, run here) times
     ``--gain-db``.  Tolerance: float32 rounding of the WAV (2^-24 of each sample)
     plus the -150 dBFS below which the pool frees voices, plus rounding.

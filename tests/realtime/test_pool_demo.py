@@ -26,9 +26,9 @@ from synth.pitch import midi_to_note, note_to_midi
 ENGINE_FILES = ("realtime.py", "kernels.py", "live.py")
 
 
-def test_all_notes_ring_with_the_motor_on_and_nothing_is_allocated(motor_session):
+def test_all_notes_ring_with_the_motor_on_and_nothing_is_allocated(motor_player):
     """37 strikes 50 samples apart, 64-sample blocks: 37 voices sound; no allocation growth."""
-    s = motor_session
+    s = motor_player
     s.reset(gain_db=-40.0)
     notes = s.voicers[0].instrument.notes
     assert len(notes) == 37
@@ -53,16 +53,16 @@ def test_all_notes_ring_with_the_motor_on_and_nothing_is_allocated(motor_session
     assert pool.sounding == 37 and np.any(out)
 
 
-def test_switching_designs_mid_phrase(motor_session, tmp_path):
+def test_switching_designs_mid_phrase(motor_player, tmp_path):
     """Design B from the switch controller on: earlier notes ring on in A, later ones in B.
 
     Reference: design A's offline render of its strikes times its level plus
     design B's of its own strikes times its level (here 1 and 0.5, chosen),
     one common gain; within the rounding bound and 1e-9 of full scale.
     """
-    voicer_a = motor_session.voicers[0]
+    voicer_a = motor_player.voicers[0]
     voicer_b = demo_voicer(3.0, tubes=False)
-    session = planned([voicer_a, voicer_b], [1.0, 0.5])
+    player = planned([voicer_a, voicer_b], [1.0, 0.5])
     m = mido.Message
     script = [(100, m("note_on", note=60, velocity=127)),
               (3000, m("control_change", control=80, value=127)),
@@ -76,8 +76,8 @@ def test_switching_designs_mid_phrase(motor_session, tmp_path):
               (14000, m("control_change", control=64, value=0))]
     designs = {100: 0, 3000: 1, 6000: 1, 9000: 0}
     for sample, msg in script:
-        session.handle(msg, sample)
-    fs = session.sample_rate
+        player.handle(msg, sample)
+    fs = player.sample_rate
     strikes = [[], []]
     for sample, msg in script:
         if msg.type == "note_on":
@@ -93,11 +93,11 @@ def test_switching_designs_mid_phrase(motor_session, tmp_path):
         ref += scale * render(voicer.score_voices(score, default_pedal=1.0), n,
                               sample_rate=fs, channels=2, retire_db=None)
     gain = 0.5 / float(np.max(np.abs(ref)))
-    set_gain_now(session.pool, gain)
-    live = run_pool(session.pool, n, "random")
-    struck = [session.template(x.note, x.velocity, d) for t, x in script
+    set_gain_now(player.pool, gain)
+    live = run_pool(player.pool, n, "random")
+    struck = [player.template(x.note, x.velocity, d) for t, x in script
               if x.type == "note_on" for d in (designs[t],)]
-    bound = rounding_bound(session.pool, n, gain, struck)
+    bound = rounding_bound(player.pool, n, gain, struck)
     assert float(np.max(np.abs(live - gain * ref))) <= min(bound, 1e-9)
 
 
