@@ -108,7 +108,7 @@ def rotor_of(voicer: Voicer) -> Rotor:
                  spin_up_s=m.spin_up_s, law=m.spin_up_law)
 
 
-def _plan_notes(voicer: Voicer, notes: Sequence[str], velocities: Sequence[int],
+def plan_notes(voicer: Voicer, notes: Sequence[str], velocities: Sequence[int],
                 scale: float) -> list[LiveVoice]:
     """Templates of ``notes`` (in order) at every layer: one job of :func:`plan_design`."""
     release = LN_1000 / voicer.sound.damper_t60_s
@@ -132,13 +132,13 @@ def plan_design(voicer: Voicer, velocities: Sequence[int], *, scale: float = 1.0
     """
     notes = list(voicer.instrument.notes)
     if workers == 1 and scheduler is None:
-        return _plan_notes(voicer, notes, velocities, scale)
+        return plan_notes(voicer, notes, velocities, scale)
     from synth.executor import Job, default_workers, run_jobs
 
     n = default_workers() if workers is None else workers
     size = max(1, -(-len(notes) // (2 * n)))   # two chunks per worker evens the load
     chunks = [notes[i:i + size] for i in range(0, len(notes), size)]
-    jobs = [Job(f"notes {c[0]}-{c[-1]}", _plan_notes, (voicer, c, tuple(velocities), scale))
+    jobs = [Job(f"notes {c[0]}-{c[-1]}", plan_notes, (voicer, c, tuple(velocities), scale))
             for c in chunks]
     out: list[LiveVoice] = []
     for res in run_jobs(jobs, workers=workers, scheduler=scheduler):
