@@ -24,6 +24,8 @@ MIDI mapping (:meth:`LivePlayer.handle`), following the offline reader
   ``value / 127`` times the top rate; the shaft follows at the preset's spin-up;
 * the design controller (default 80, a general-purpose switch): A below 64,
   B from 64; program change 0 = A, 1 = B;
+* controller 7 (channel volume): the output gain times ``(value / 127)^2``
+  (40 log10(value / 127) dB, the usual volume curve; from memory), ramped;
 * notes outside the design's range are counted and ignored.
 
 A player can record what it was given as a standard MIDI file whose ticks are
@@ -56,6 +58,7 @@ DEFAULT_MOTOR_TOP: Final[float] = 6.0
 """Motor rate at controller value 127, rev/s (typical 0.5-6 rev/s, physics.md section 9)."""
 
 MOTOR_CC: Final[int] = 1
+VOLUME_CC: Final[int] = 7
 DESIGN_CC: Final[int] = 80
 PEDAL_CC: Final[int] = 64
 DESIGNS: Final[tuple[str, str]] = ("A", "B")
@@ -247,9 +250,10 @@ class LivePlayer:
 
     def reset(self, *, gain_db: float = DEFAULT_GAIN_DB, pedal: float = 1.0) -> None:
         """Start again on a fresh pool (silent, clock 0, design A), keeping the plans."""
+        self.gain = 10.0 ** (gain_db / 20.0)
         self.pool = VoicePool(self.templates, sample_rate=self.sample_rate,
                               channels=self.channels, n_voices=self.n_voices,
-                              gain=10.0 ** (gain_db / 20.0), lift=pedal,
+                              gain=self.gain, lift=pedal,
                               rotor=rotor_of(self.voicers[0]), retire_dbfs=self.retire_dbfs)
         self.design = 0
         self.counters = Counters()
@@ -283,6 +287,8 @@ class LivePlayer:
             ok = pool.lift(msg.value / 127.0, sample)
         elif kind == "control_change" and msg.control == self.motor_cc:
             ok = pool.rotor_rate(self.motor_top * msg.value / 127.0, sample)
+        elif kind == "control_change" and msg.control == VOLUME_CC:
+            ok = pool.set_gain(self.gain * (msg.value / 127.0) ** 2, sample)
         elif kind == "control_change" and msg.control == self.design_cc:
             self.design = min(len(self.voicers) - 1, int(msg.value >= 64))
         elif kind == "program_change" and msg.program < len(self.voicers):

@@ -162,7 +162,8 @@ def play_command(
              "render to make the full WAV later.")] = None,
     gain_db: Annotated[float, typer.Option(
         min=-60.0, max=0.0, metavar="dB",
-        help="Output gain, dB re compare's default phrase matched at -1 dBTP; starts quiet. "
+        help="Output gain, dB re compare's default phrase matched at -1 dBTP; starts quiet; "
+             "controller 7 (volume) scales it down, ramped. "
              "Whatever the gain, a limiter keeps the output at or below -1 dBFS.")] = -18.0,
     pedal: Annotated[float, typer.Option(
         min=0.0, max=1.0, help="Damper pedal before the first controller 64: 1 = dampers "
@@ -214,9 +215,10 @@ def play_command(
         if not names:
             info("barwright: no MIDI input ports found")
         return
-    if len({motor_cc, switch_cc, 64}) < 3:
+    if len({motor_cc, switch_cc, 64, 7}) < 4:
         raise ConfigError(f"--motor-cc {motor_cc}, --switch-cc {switch_cc}: must differ from "
-                          "each other and from 64 (the sustain pedal)", source="controllers")
+                          "each other and from 64 (the sustain pedal) and 7 (volume)",
+                          source="controllers")
     if to_wav is not None and midi_file is None:
         raise ConfigError("needs --midi-file FILE (the events to play)", source="--to-wav")
     if fmt not in io.SAMPLE_FORMATS:

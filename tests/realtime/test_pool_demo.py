@@ -152,3 +152,15 @@ def test_designs_are_loudness_matched_when_played():
         assert pool.limited_blocks == 0
         levels.append(integrated_loudness(fade_out(out, fs), fs).integrated_lufs)
     assert abs(levels[1] - levels[0]) <= 0.2, levels
+
+
+def test_volume_controller_ramps_the_gain(motor_player):
+    """Controller 7 at 64 sets the gain to (64/127)^2 of the start gain, by the ramp."""
+    motor_player.reset(gain_db=-20.0)
+    start = 10 ** (-20 / 20)
+    motor_player.handle(mido.Message("control_change", control=7, value=64), 0)
+    run_pool(motor_player.pool, 64, 64)
+    step = 1.0 / (0.05 * motor_player.sample_rate)   # the pool's default ramp, 50 ms
+    assert motor_player.pool.gain == pytest.approx(start - 64 * step, abs=1e-12)
+    run_pool(motor_player.pool, 4800, 64)
+    assert motor_player.pool.gain == start * (64 / 127) ** 2
