@@ -32,6 +32,7 @@ FORBIDDEN = {
     "voicing": {"analysis", "reports", "cli", "bench", "io", "output"},
     "output": {"physics", "voicing", "analysis", "reports", "cli", "bench", "instrument"},
     "reports": {"cli", "bench"},
+    "live": {"cli", "bench"},
 }
 
 
