@@ -33,6 +33,7 @@ FORBIDDEN = {
     "output": {"physics", "voicing", "analysis", "reports", "cli", "bench", "instrument"},
     "reports": {"cli", "bench"},
     "api": {"cli", "bench"},
+    "live": {"cli", "bench"},
 }
 
 

@@ -15,3 +15,4 @@ from synth.cli import cmd_retune  # noqa: F401  retune
 from synth.cli import cmd_tubecal  # noqa: F401  tubecal
 from synth.cli import cmd_bench  # noqa: F401  bench
 from synth.cli import cmd_demo  # noqa: F401  demo
+from synth.cli import cmd_play  # noqa: F401  play

@@ -374,3 +374,478 @@ def _pair_add(out, o0, n, channel_gain, curve, use_curve, state,
     state[1] = a1i
     state[2] = a2r
     state[3] = a2i
+
+
+# =========================================================================== real-time pool
+# Kernels of the real-time voice pool (:mod:`synth.engine.realtime`).  They take
+# only arrays the pool allocated once, before the stream starts, and allocate
+# nothing themselves: every scratch array is passed in.  The arithmetic follows the
+# offline kernels above (closed-form anchoring of the mode bank on the voice's own
+# clock and at every damping change; the exact 2x2 matrix exponential of a coupled
+# pair per sample step), so the pool reproduces an offline render to rounding.
+#
+# Layout of the packed arrays (indices named in realtime.py, which fills them):
+#   ctl   int64:   stream clock, event read/write counters, pool statistics, fault flag
+#   fctl  float64: damper lift, rotor segment, output gain and limiter state, limits
+#   v_int int64[V, 6]:   active, plan, tag, released, voice clock, damping segment start
+#   v_flt float64[V, 3]: nepers at the segment start, extra decay per sample, anchor flag
+#   p_pair float64[P, Q, 18]: one coupled pair (fields _Q_* below)
+
+_C_NOW = 0        # stream sample at the start of the next block
+_C_READ = 1       # events consumed
+_C_WRITE = 2      # events written (by the producer)
+_C_SERIAL = 3     # strikes started so far
+_C_FAULT = 4      # 0 = running; 1 = NaN/Inf; 2 = runaway; output muted from then on
+_C_STEALS = 5     # voices stolen so far
+_C_ACTIVE = 6     # voices sounding after the last block
+_C_LIMITED = 7    # blocks in which the ceiling lowered the gain
+_C_CAP = 8        # capacity of the event ring
+
+_F_LIFT = 0       # damper lift 0..1 (1 = dampers off the bars)
+_F_STOLEN = 1     # start amplitudes of the voices stolen in this block (for the guard)
+_F_R_T0 = 2       # rotor segment: start time, s
+_F_R_THETA0 = 3   # angle at the segment start, rad
+_F_R_FROM = 4     # rate at the segment start, rev/s
+_F_R_TO = 5       # rate the segment approaches, rev/s
+_F_R_TAU = 6      # spin-up time constant (law 0) or ramp time (law 1), s
+_F_R_LAW = 7      # 0 exponential, 1 linear
+_F_GAIN = 8       # output gain now
+_F_GAIN_TO = 9    # output gain aimed at
+_F_GAIN_STEP = 10  # largest gain change per sample (ramp)
+_F_LIMIT = 11     # limiter gain now (<= 1)
+_F_CEILING = 12   # largest output magnitude
+_F_RECOVER = 13   # limiter recovery per sample (fraction of the distance to 1)
+_F_RETIRE = 14    # a voice whose bound times the gain falls below this is freed
+_F_RATE = 15      # sample rate, Hz
+_F_PEAK = 16      # largest output magnitude of the last block (after gain and ceiling)
+
+_E_START = 1      # (plan, tag): start a voice
+_E_RELEASE = 2    # (tag): the key is up; dampers act as the lift allows
+_E_LIFT = 3       # (value): damper lift
+_E_ROTOR = 4      # (value): rotor rate, rev/s
+_E_GAIN = 5       # (value): output gain aimed at
+
+_Q_OM1 = 0
+_Q_OM2 = 1
+_Q_G1 = 2
+_Q_G2 = 3         # member 2 decay when not modulated
+_Q_A1R = 4
+_Q_A1I = 5
+_Q_A2R = 6
+_Q_A2I = 7
+_Q_MU = 8         # coupling (constant) or with the mouth open (modulated), rad/s
+_Q_W1 = 9
+_Q_W2 = 10        # member 2 weight (constant) or open (modulated)
+_Q_D1 = 11        # damped flags
+_Q_D2 = 12
+_Q_MOD = 13       # 1: modulated by the rotor
+_Q_DEPTH = 14     # m = max(1 - depth |cos(theta + offset)|, floor)
+_Q_FLOOR = 15
+_Q_OFFSET = 16
+_Q_G2RAD = 17     # modulated decay of member 2: g2 + g2rad m (g2 then the fixed part)
+_Q_FIELDS = 18
+
+
+@njit(cache=True)
+def _rt_rotor(fctl, t):
+    """Rotor angle (rad) and rate (rev/s) at time ``t`` s: closed form of the present segment.
+
+    The rate approaches ``f_to`` from ``f_from`` (at the segment start) as
+    ``f_to + (f_from - f_to) exp(-u / tau)`` (law 0) or linearly over ``tau``
+    (law 1); the angle is its integral from the segment's start angle.
+    """
+    u = t - fctl[_F_R_T0]
+    if u < 0.0:
+        u = 0.0
+    f0 = fctl[_F_R_FROM]
+    f1 = fctl[_F_R_TO]
+    tau = fctl[_F_R_TAU]
+    if tau == 0.0 or f0 == f1:
+        turns = f1 * u
+        rate = f1
+    elif fctl[_F_R_LAW] == 0.0:
+        if f0 == 0.0:   # from rest: the form the offline streams evaluate
+            turns = f1 * (u + tau * math.expm1(-u / tau))
+        else:
+            turns = f1 * u - (f1 - f0) * tau * (-math.expm1(-u / tau))
+        rate = f1 + (f0 - f1) * math.exp(-u / tau)
+    else:
+        if u < tau:
+            turns = f0 * u + (f1 - f0) * (u * u / (2.0 * tau))
+        else:
+            turns = f0 * u + (f1 - f0) * (u - 0.5 * tau)
+        rate = f0 + (f1 - f0) * min(u / tau, 1.0)
+    return fctl[_F_R_THETA0] + _TWO_PI * turns, rate
+
+
+@njit(cache=True)
+def _rt_voice_bound(v, v_int, v_flt, v_re, v_im, v_pair, p_nmodes, p_amp, p_dec, p_npairs,
+                    p_pair, p_w2max, p_gmax):
+    """Bound of what voice ``v`` can still add, from its present state (unit gain)."""
+    p = v_int[v, 1]
+    m = v_int[v, 4]
+    nep = v_flt[v, 0] + v_flt[v, 1] * (m - v_int[v, 5])
+    b = 0.0
+    for k in range(p_nmodes[p]):
+        b += abs(p_amp[p, k]) * math.exp(-p_dec[p, k] * m - nep)
+    for q in range(p_npairs[p]):
+        s = v_pair[v, q]
+        norm = math.sqrt(s[0] * s[0] + s[1] * s[1] + s[2] * s[2] + s[3] * s[3])
+        b += norm * (abs(p_pair[p, q, _Q_W1]) + p_w2max[p, q])
+    return b * p_gmax[p]
+
+
+@njit(cache=True)
+def _rt_damping(v, v_int, v_flt, extra_per_sample):
+    """Change voice ``v``'s extra decay from its present clock on (a new segment)."""
+    if v_flt[v, 1] == extra_per_sample:
+        return
+    m = v_int[v, 4]
+    v_flt[v, 0] += v_flt[v, 1] * (m - v_int[v, 5])
+    v_int[v, 5] = m
+    v_flt[v, 1] = extra_per_sample
+    v_flt[v, 2] = 1.0
+
+
+@njit(cache=True)
+def _rt_event(kind, ia, ib, val, ctl, fctl, v_int, v_flt, v_re, v_im, v_pair,
+              p_nmodes, p_amp, p_dec, p_npairs, p_pair, p_w2max, p_gmax, p_damp, t_now):
+    """Apply one event at the present sample (time ``t_now`` s)."""
+    n_v = v_int.shape[0]
+    fs = fctl[_F_RATE]
+    if kind == _E_START:
+        v = -1
+        for i in range(n_v):
+            if v_int[i, 0] == 0:
+                v = i
+                break
+        if v < 0:   # steal the quietest
+            best = math.inf
+            for i in range(n_v):
+                b = _rt_voice_bound(i, v_int, v_flt, v_re, v_im, v_pair, p_nmodes, p_amp,
+                                    p_dec, p_npairs, p_pair, p_w2max, p_gmax)
+                if b < best:
+                    best = b
+                    v = i
+            ctl[_C_STEALS] += 1
+            fctl[_F_STOLEN] += _rt_plan_bound(v_int[v, 1], p_nmodes, p_amp, p_npairs, p_pair,
+                                              p_w2max, p_gmax)
+        p = ia
+        v_int[v, 0] = 1
+        v_int[v, 1] = p
+        v_int[v, 2] = ib
+        v_int[v, 3] = 0
+        v_int[v, 4] = 0
+        v_int[v, 5] = 0
+        v_flt[v, 0] = 0.0
+        v_flt[v, 1] = 0.0
+        v_flt[v, 2] = 1.0
+        for q in range(p_npairs[p]):
+            v_pair[v, q, 0] = p_pair[p, q, _Q_A1R]
+            v_pair[v, q, 1] = p_pair[p, q, _Q_A1I]
+            v_pair[v, q, 2] = p_pair[p, q, _Q_A2R]
+            v_pair[v, q, 3] = p_pair[p, q, _Q_A2I]
+        ctl[_C_SERIAL] += 1
+    elif kind == _E_RELEASE:
+        for v in range(n_v):
+            if v_int[v, 0] == 1 and v_int[v, 3] == 0 and v_int[v, 2] == ia:
+                v_int[v, 3] = 1
+                extra = p_damp[v_int[v, 1]] * (1.0 - fctl[_F_LIFT]) / fs
+                _rt_damping(v, v_int, v_flt, extra)
+    elif kind == _E_LIFT:
+        fctl[_F_LIFT] = val
+        for v in range(n_v):
+            if v_int[v, 0] == 1 and v_int[v, 3] == 1:
+                extra = p_damp[v_int[v, 1]] * (1.0 - val) / fs
+                _rt_damping(v, v_int, v_flt, extra)
+    elif kind == _E_ROTOR:
+        theta, rate = _rt_rotor(fctl, t_now)
+        fctl[_F_R_THETA0] = theta
+        fctl[_F_R_FROM] = rate
+        fctl[_F_R_TO] = val
+        fctl[_F_R_T0] = t_now
+    elif kind == _E_GAIN:
+        fctl[_F_GAIN_TO] = val
+
+
+@njit(cache=True, fastmath=True)
+def _rt_bank(mix, j0, j1, v, p, v_int, v_flt, v_re, v_im, p_nmodes, p_cyc, p_dec, p_amp,
+             p_ph, p_gain, pole_re, pole_im, anchor_every):
+    """Add the mode bank of voice ``v`` for block rows ``j0 .. j1-1``; advance its state."""
+    n_k = p_nmodes[p]
+    n_ch = mix.shape[1]
+    extra = v_flt[v, 1]
+    for k in range(n_k):
+        r = math.exp(-(p_dec[p, k] + extra))
+        th = _TWO_PI * p_cyc[p, k]
+        pole_re[k] = r * math.cos(th)
+        pole_im[k] = r * math.sin(th)
+    m = v_int[v, 4]
+    for j in range(j0, j1):
+        if v_flt[v, 2] != 0.0 or m % anchor_every == 0:
+            nep = v_flt[v, 0] + extra * (m - v_int[v, 5])
+            for k in range(n_k):
+                mag = p_amp[p, k] * math.exp(-p_dec[p, k] * m - nep)
+                cyc = p_cyc[p, k] * m
+                ph = _TWO_PI * (cyc - math.floor(cyc)) + p_ph[p, k]
+                v_re[v, k] = mag * math.cos(ph)
+                v_im[v, k] = mag * math.sin(ph)
+            v_flt[v, 2] = 0.0
+        y = 0.0
+        for k in range(n_k):
+            x = v_re[v, k]
+            z = v_im[v, k]
+            y += z
+            v_re[v, k] = x * pole_re[k] - z * pole_im[k]
+            v_im[v, k] = x * pole_im[k] + z * pole_re[k]
+        for c in range(n_ch):
+            mix[j, c] += p_gain[p, c] * y
+        m += 1
+
+
+@njit(cache=True, fastmath=True)
+def _rt_pair(mix, j0, j1, v, p, q, v_flt, v_pair, p_pair, p_gain, theta_n, theta_h, dt,
+             cosh_coef, sinh_coef):
+    """Add coupled pair ``q`` of voice ``v`` for block rows ``j0 .. j1-1``; step its state.
+
+    ``theta_n[j]``, ``theta_h[j]``: rotor angle at row ``j`` and half a step later.
+    Each step applies ``exp(A dt) = exp(m dt) [cosh(q dt) I + sinh(q dt)/(q dt) B dt]``
+    with the coefficients of that step (see ``_pair_add``).
+    """
+    n_ch = mix.shape[1]
+    n_terms = cosh_coef.shape[0]
+    pp = p_pair[p, q]
+    extra = v_flt[v, 1] * (1.0 / dt)
+    g1 = pp[_Q_G1] + pp[_Q_D1] * extra
+    d_im = 0.5 * (pp[_Q_OM1] - pp[_Q_OM2])
+    m_im = 0.5 * (pp[_Q_OM1] + pp[_Q_OM2])
+    rot_re = math.cos(m_im * dt)
+    rot_im = math.sin(m_im * dt)
+    ddt_im = d_im * dt
+    dt2 = dt * dt
+    w1 = pp[_Q_W1]
+    modulated = pp[_Q_MOD] != 0.0
+    depth = pp[_Q_DEPTH]
+    floor_ = pp[_Q_FLOOR]
+    offset = pp[_Q_OFFSET]
+    st = v_pair[v, q]
+    a1r = st[0]
+    a1i = st[1]
+    a2r = st[2]
+    a2i = st[3]
+    for j in range(j0, j1):
+        if modulated:
+            fm = 1.0 - depth * abs(math.cos(theta_n[j] + offset))
+            if fm < floor_:
+                fm = floor_
+            fh = 1.0 - depth * abs(math.cos(theta_h[j] + offset))
+            if fh < floor_:
+                fh = floor_
+            mu = pp[_Q_MU] * fh
+            w2 = pp[_Q_W2] * math.sqrt(fm)
+            g2 = pp[_Q_G2] + pp[_Q_G2RAD] * fm + pp[_Q_D2] * extra
+        else:
+            mu = pp[_Q_MU]
+            w2 = pp[_Q_W2]
+            g2 = pp[_Q_G2] + pp[_Q_D2] * extra
+        y = w1 * a1i + w2 * a2i
+        for c in range(n_ch):
+            mix[j, c] += p_gain[p, c] * y
+        e = math.exp(-0.5 * (g1 + g2) * dt)
+        er = e * rot_re
+        ei = e * rot_im
+        dr = -0.5 * (g1 - g2) * dt
+        zr = dr * dr - ddt_im * ddt_im - mu * mu * dt2
+        zi = 2.0 * dr * ddt_im
+        cr = cosh_coef[n_terms - 1]
+        ci = 0.0
+        sr = sinh_coef[n_terms - 1]
+        si = 0.0
+        for t in range(n_terms - 2, -1, -1):
+            x = cr * zr - ci * zi + cosh_coef[t]
+            ci = cr * zi + ci * zr
+            cr = x
+            x = sr * zr - si * zi + sinh_coef[t]
+            si = sr * zi + si * zr
+            sr = x
+        mdt = mu * dt
+        sd_re = sr * dr - si * ddt_im
+        sd_im = sr * ddt_im + si * dr
+        u_re = cr + sd_re
+        u_im = ci + sd_im
+        w_re = cr - sd_re
+        w_im = ci - sd_im
+        c_re = -si * mdt
+        c_im = sr * mdt
+        p_re = er * u_re - ei * u_im
+        p_im = er * u_im + ei * u_re
+        q_re = er * w_re - ei * w_im
+        q_im = er * w_im + ei * w_re
+        r_re = er * c_re - ei * c_im
+        r_im = er * c_im + ei * c_re
+        b1r = p_re * a1r - p_im * a1i + r_re * a2r - r_im * a2i
+        b1i = p_re * a1i + p_im * a1r + r_re * a2i + r_im * a2r
+        b2r = r_re * a1r - r_im * a1i + q_re * a2r - q_im * a2i
+        b2i = r_re * a1i + r_im * a1r + q_re * a2i + q_im * a2r
+        a1r = b1r
+        a1i = b1i
+        a2r = b2r
+        a2i = b2i
+    st[0] = a1r
+    st[1] = a1i
+    st[2] = a2r
+    st[3] = a2i
+
+
+@njit(cache=True)
+def _rt_block(out, n, ctl, fctl, ev_kind, ev_sample, ev_int, ev_int2, ev_val,
+              v_int, v_flt, v_re, v_im, v_pair,
+              p_nmodes, p_cyc, p_dec, p_amp, p_ph, p_gain, p_npairs, p_pair, p_w2max,
+              p_gmax, p_damp, mix, theta_n, theta_h, gain_row, pole_re, pole_im, cosh_coef,
+              sinh_coef, anchor_every):
+    """Render the next ``n`` samples of the pool into ``out[:n, :]`` (overwritten).
+
+    Events of the ring whose sample falls before the block's end are applied at
+    their own sample (earlier ones at the block's first sample), in ring order.
+    The voices are summed into ``mix``, then scaled by the output gain (ramped
+    towards its target), held under the ceiling by a limiter that lowers its gain
+    at once and recovers slowly, and checked: a NaN, an infinity or a sum above
+    the sounding voices' bound mutes the output from then on (``ctl[_C_FAULT]``).
+    """
+    n_ch = out.shape[1]
+    n_v = v_int.shape[0]
+    fs = fctl[_F_RATE]
+    dt = 1.0 / fs
+    now = ctl[_C_NOW]
+    cap = ctl[_C_CAP]
+    for j in range(n):
+        for c in range(n_ch):
+            mix[j, c] = 0.0
+    j0 = 0
+    fctl[_F_STOLEN] = 0.0
+    while j0 < n:
+        # events due at row j0
+        while ctl[_C_READ] < ctl[_C_WRITE]:
+            e = ctl[_C_READ] % cap
+            if ev_sample[e] > now + j0:
+                break
+            _rt_event(ev_kind[e], ev_int[e], ev_int2[e], ev_val[e], ctl, fctl, v_int, v_flt,
+                      v_re, v_im, v_pair, p_nmodes, p_amp, p_dec, p_npairs, p_pair, p_w2max,
+                      p_gmax, p_damp, (now + j0) * dt)
+            ctl[_C_READ] += 1
+        j1 = n
+        if ctl[_C_READ] < ctl[_C_WRITE]:
+            e = ctl[_C_READ] % cap
+            nxt = ev_sample[e] - now
+            if nxt < j1:
+                j1 = nxt
+        # rotor angles of the rows (the same closed form the offline streams evaluate)
+        for j in range(j0, j1):
+            theta_n[j] = _rt_rotor(fctl, (float(now + j) + 0.0) / fs)[0]
+            theta_h[j] = _rt_rotor(fctl, (float(now + j) + 0.5) / fs)[0]
+            gain_row[j] = fctl[_F_GAIN_TO]
+        for v in range(n_v):
+            if v_int[v, 0] == 0:
+                continue
+            p = v_int[v, 1]
+            if p_nmodes[p] > 0:
+                _rt_bank(mix, j0, j1, v, p, v_int, v_flt, v_re, v_im, p_nmodes, p_cyc, p_dec,
+                         p_amp, p_ph, p_gain, pole_re, pole_im, anchor_every)
+            for q in range(p_npairs[p]):
+                _rt_pair(mix, j0, j1, v, p, q, v_flt, v_pair, p_pair, p_gain, theta_n,
+                         theta_h, dt, cosh_coef, sinh_coef)
+            v_int[v, 4] += j1 - j0
+        j0 = j1
+    # bound of the block: every voice sounding in it, at its start amplitude
+    n_active = 0
+    bound = fctl[_F_STOLEN]
+    for v in range(n_v):
+        if v_int[v, 0] == 1:
+            bound += _rt_plan_bound(v_int[v, 1], p_nmodes, p_amp, p_npairs, p_pair, p_w2max,
+                                p_gmax)
+    # guard, gain ramp, ceiling
+    peak = 0.0
+    fault = ctl[_C_FAULT]
+    for j in range(n):
+        for c in range(n_ch):
+            x = mix[j, c]
+            if not math.isfinite(x):
+                fault = 1
+            elif abs(x) > peak:
+                peak = abs(x)
+    if fault == 0 and peak > bound * (1.0 + 1e-9) + 1e-300:
+        fault = 2
+    if fault != 0:
+        ctl[_C_FAULT] = fault
+        for v in range(n_v):
+            v_int[v, 0] = 0
+        for j in range(n):
+            for c in range(n_ch):
+                out[j, c] = 0.0
+        ctl[_C_ACTIVE] = 0
+        fctl[_F_PEAK] = 0.0
+        ctl[_C_NOW] = now + n
+        return
+    gain = fctl[_F_GAIN]
+    step = fctl[_F_GAIN_STEP]
+    lim = fctl[_F_LIMIT]
+    ceiling = fctl[_F_CEILING]
+    recover = fctl[_F_RECOVER]
+    limited = False
+    out_peak = 0.0
+    for j in range(n):
+        target = gain_row[j]
+        if gain < target:
+            gain = min(target, gain + step)
+        elif gain > target:
+            gain = max(target, gain - step)
+        biggest = 0.0
+        for c in range(n_ch):
+            a = abs(mix[j, c]) * gain
+            if a > biggest:
+                biggest = a
+        if lim < 1.0:
+            lim += (1.0 - lim) * recover
+        if biggest * lim > ceiling:
+            lim = ceiling / biggest
+            limited = True
+        g = gain * lim
+        for c in range(n_ch):
+            y = mix[j, c] * g
+            if y > ceiling:
+                y = ceiling
+            elif y < -ceiling:
+                y = -ceiling
+            out[j, c] = y
+            if abs(y) > out_peak:
+                out_peak = abs(y)
+    fctl[_F_GAIN] = gain
+    fctl[_F_LIMIT] = lim
+    fctl[_F_PEAK] = out_peak
+    if limited:
+        ctl[_C_LIMITED] += 1
+    # retire voices that can no longer be heard
+    retire = fctl[_F_RETIRE]
+    for v in range(n_v):
+        if v_int[v, 0] == 1:
+            b = _rt_voice_bound(v, v_int, v_flt, v_re, v_im, v_pair, p_nmodes, p_amp, p_dec,
+                                p_npairs, p_pair, p_w2max, p_gmax)
+            if b * gain < retire:
+                v_int[v, 0] = 0
+            else:
+                n_active += 1
+    ctl[_C_ACTIVE] = n_active
+    ctl[_C_NOW] = now + n
+
+
+@njit(cache=True)
+def _rt_plan_bound(p, p_nmodes, p_amp, p_npairs, p_pair, p_w2max, p_gmax):
+    """Largest output a voice of plan ``p`` can ever give (its start amplitudes)."""
+    b = 0.0
+    for k in range(p_nmodes[p]):
+        b += abs(p_amp[p, k])
+    for q in range(p_npairs[p]):
+        pp = p_pair[p, q]
+        norm = math.sqrt(pp[_Q_A1R] ** 2 + pp[_Q_A1I] ** 2 + pp[_Q_A2R] ** 2 + pp[_Q_A2I] ** 2)
+        b += norm * (abs(pp[_Q_W1]) + p_w2max[p, q])
+    return b * p_gmax[p]

@@ -52,7 +52,14 @@ def write_inputs(folder: Path) -> dict[str, Path]:
     x = 0.5 * x / np.max(np.abs(x))
     x += 1e-5 * np.random.default_rng(5).standard_normal(x.size)
     recording = write_wav(folder / "take-A4.wav", x, sample_rate=fs, force=True)
-    return {"events": events, "recording": recording}
+    import mido
+
+    from synth.live import recorded_midi
+
+    midi = folder / "two-notes.mid"
+    recorded_midi([(100, mido.Message("note_on", note=57, velocity=127)),
+                   (24000, mido.Message("note_off", note=57))], fs).save(midi)
+    return {"events": events, "recording": recording, "midi": midi}
 
 
 # name -> (arguments given the output folder and the inputs, files written into the folder)
@@ -79,6 +86,9 @@ COMMANDS: dict[str, tuple] = {
                  "differences.png", "blind-key.toml"]),
     "sweep": (lambda d, i: ["sweep", PRESET, "--vary", "tubes.offset_cents=0,30", "--workers",
                             "1", "--out", d], ["sweep.csv", "sweep.json", "sweep.png"]),
+    "play": (lambda d, i: ["play", PRESET, "--midi-file", i["midi"], "--layers", "1",
+                           "--workers", "1", "--tail", "20", "--to-wav", d / "live.wav",
+                           "--record", d / "live.mid"], ["live.wav", "live.mid"]),
     "demo": (lambda d, i: ["demo", "--out", d], ["cutlist.csv", "profiles.png", "sustain.csv",
                                                   "strike-A4.wav", "calibration-A4.toml"]),
 }
