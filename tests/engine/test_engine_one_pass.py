@@ -16,7 +16,7 @@ import pytest
 import soundfile as sf
 
 from synth.engine import (
-    CoupledPair,
+    ModePair,
     ModeBank,
     Voice,
     constant_power_pan,
@@ -42,12 +42,12 @@ def voices(curves: bool):
     for k, f0 in enumerate((175.0, 262.0, 349.0, 440.0, 523.0, 698.0)):
         bank = ModeBank([f0 * 3.9, f0 * 9.8], [6.0, 20.0], [0.05, -0.02], [0.3, 1.0])
         if curves:
-            pair = CoupledPair((f0, f0 * 1.017), (0.8, 8.0), (0.1, 0.0),
+            pair = ModePair((f0, f0 * 1.017), (0.8, 8.0), (0.1, 0.0),
                                coupling_rad_s=lambda first, n: 3.0 * _opening(first, n),
                                weight_1=0.5, weight_2=lambda first, n: 12.0 * _opening(first, n),
                                decay_2_curve=lambda first, n: 8.0 + 20 * (1 - _opening(first, n)))
         else:
-            pair = CoupledPair((f0, f0 * 1.017), (0.8, 8.0), (0.1, 0.0), coupling_rad_s=3.0,
+            pair = ModePair((f0, f0 * 1.017), (0.8, 8.0), (0.1, 0.0), coupling_rad_s=3.0,
                                weight_1=0.5, weight_2=12.0)
         out.append(Voice(k * 7001, bank, channel_gains=constant_power_pan(-0.8 + 0.3 * k),
                          pairs=(pair,), damping=[(k * 7001 + 30000, 4.0)]))

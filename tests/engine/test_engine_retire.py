@@ -20,7 +20,7 @@ import pytest
 
 from synth.engine import (
     RETIRE_EVERY,
-    CoupledPair,
+    ModePair,
     ModeBank,
     Voice,
     constant_power_pan,
@@ -51,12 +51,12 @@ def passage(rng, n_strikes=40, spacing=2400, curves=False):
                         rng.uniform(-0.1, 0.1, 4), rng.uniform(-3, 3, 4))
         amp = rng.uniform(0.02, 0.2)
         if curves:
-            pair = CoupledPair((f0, f0 * 1.017), (rng.uniform(0.3, 2.0), 8.0), (amp, 0.0),
+            pair = ModePair((f0, f0 * 1.017), (rng.uniform(0.3, 2.0), 8.0), (amp, 0.0),
                                coupling_rad_s=lambda first, n: 3.0 * _opening(first, n),
                                weight_1=0.5, weight_2=lambda first, n: 12.0 * _opening(first, n),
                                decay_2_curve=lambda first, n: 8.0 + 20.0 * (1 - _opening(first, n)))
         else:
-            pair = CoupledPair((f0, f0 * 1.017), (rng.uniform(0.3, 2.0), 8.0), (amp, 0.0),
+            pair = ModePair((f0, f0 * 1.017), (rng.uniform(0.3, 2.0), 8.0), (amp, 0.0),
                                coupling_rad_s=3.0, weight_1=0.5, weight_2=12.0)
         damping = [(k * spacing + 20000, 30.0)] if k % 3 == 0 else []
         voices.append(Voice(k * spacing, bank, channel_gains=constant_power_pan(
@@ -156,7 +156,7 @@ def test_peak_bound_of_one_pair_is_its_eigenmode_sum():
     Checked against numpy's eigendecomposition of
     [[i om1 - g1, i mu], [i mu, i om2 - g2]] (physics.md, section 8).
     """
-    pair = CoupledPair((300.0, 305.0), (0.4, 9.0), (0.3, 0.0), coupling_rad_s=4.0,
+    pair = ModePair((300.0, 305.0), (0.4, 9.0), (0.3, 0.0), coupling_rad_s=4.0,
                        weight_1=0.2, weight_2=15.0)
     a = np.array([[complex(-0.4, 2 * math.pi * 300.0), 4.0j],
                   [4.0j, complex(-9.0, 2 * math.pi * 305.0)]])

@@ -18,7 +18,7 @@ from rt_helpers import EPS, run_pool
 
 from synth.engine import ModeBank, Voice, render
 from synth.engine.realtime import LiveVoice, Rotor, RotorLaw, VoicePool
-from synth.engine.voice import CoupledPair
+from synth.engine.voice import ModePair
 
 FS = 48000.0
 RELEASE = math.log(1000.0) / 0.25   # dampers down: T60 of 0.25 s, 1/s
@@ -150,9 +150,9 @@ def test_motor_controller_changes_rate_without_a_jump():
         th = rotor_angle(t, segments, resting=0.5 * np.pi)
         return np.maximum(1.0 - LAW.depth * np.abs(np.cos(th + LAW.offset_rad)), LAW.floor)
 
-    pair = CoupledPair((440.0, 446.0), (0.5, LAW.decay_2_fixed_per_s), (0.2, 0.0), (0.3, 0.0),
+    pair = ModePair((440.0, 446.0), (0.5, LAW.decay_2_fixed_per_s), (0.2, 0.0), (0.3, 0.0),
                        weight_1=0.7)
-    offline = CoupledPair(
+    offline = ModePair(
         pair.frequency_hz, pair.decay_per_s, pair.amplitude, pair.phase_rad,
         coupling_rad_s=lambda f, n: LAW.coupling_open_rad_s * factor(f, n, 0.5),
         weight_1=0.7, weight_2=lambda f, n: LAW.weight_2_open * np.sqrt(factor(f, n, 0.0)),
