@@ -42,6 +42,7 @@ from pathlib import Path
 
 import numpy as np
 
+from synth import plan_cache
 from synth.engine.score import Score, Strike
 from synth.engine.voice import CoupledPair, ModeBank, Voice, constant_power_pan, seconds_to_sample
 from synth.errors import ConfigError
@@ -180,6 +181,20 @@ class Voicer:
         note = self.instrument.check_note(note, option="note")
         if note in self._cache:
             return self._cache[note]
+        model = plan_cache.cached(self._plan_key("note-model", note),
+                                  lambda: self._solve_model(note))
+        self._cache[note] = model
+        return model
+
+    def _plan_key(self, kind: str, note: str, *more) -> str:
+        """Disk-cache key: every setting :meth:`_solve_model` reads, and ``more``."""
+        inst = self.instrument
+        return plan_cache.plan_key(
+            kind, note, inst.bars.get(note), inst.notes[0], inst.notes[-1], self.material,
+            self.temperature_c, self.supports, self.calibration, self.sound, self.channels,
+            self.tubes_active, self.tube_settings, inst.tube_lengths.get(note), *more)
+
+    def _solve_model(self, note: str) -> NoteModel:
         geo = self.instrument.bar(note)
         modes = solve_bar(geo, self.material, n_vertical=5, n_lateral=0, n_torsional=2)
         budget = tuple(loss_budget(modes, supports=self.supports, calibration=self.calibration,
@@ -189,9 +204,7 @@ class Voicer:
         tube, coupling = (None, None)
         if self.tubes_active:
             tube, coupling = self._couple(note, modes, budget[0], frac)
-        model = NoteModel(note, modes, budget, tube, coupling, pan)
-        self._cache[note] = model
-        return model
+        return NoteModel(note, modes, budget, tube, coupling, pan)
 
     def tube_spec(self, note: str, modes: BarModes | None = None) -> TubeSpec | None:
         """The note's tube as cut (length from [bars.NOTE.tube] or solved from the offset)."""
@@ -293,6 +306,13 @@ class Voicer:
         hit = self._cache.get(("contact", *key))
         if hit is not None:
             return hit
+        # On disk the exact values are the key, so a stored plan equals a fresh one.
+        out = plan_cache.cached(self._plan_key("contact", model.note, head, speed, pos, acr),
+                                lambda: self._contact(model, head, speed, pos, acr))
+        self._cache[("contact", *key)] = out
+        return out
+
+    def _contact(self, model: NoteModel, head: Mallet, speed: float, pos: float, acr: float):
         geo = model.modes.geometry
         x = pos * geo.length_m
         y = acr * geo.width_m
@@ -305,9 +325,7 @@ class Voicer:
         res = simulate_contact(head, speed, omega_rad_s=omega, modal_mass_kg=mass,
                                shape_value=phi, decay_per_s=decay)
         energy_root = np.abs(res.amplitude_m) * omega * np.sqrt(mass / 2.0)
-        out = (energy_root, np.asarray(res.phase_rad, dtype=float))
-        self._cache[("contact", *key)] = out
-        return out
+        return energy_root, np.asarray(res.phase_rad, dtype=float)
 
     def _voice(self, model: NoteModel, energy_root, phases, time_s, release_s, pedal,
                mono: bool = False) -> Voice:
