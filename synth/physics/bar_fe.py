@@ -75,7 +75,6 @@ from dataclasses import dataclass, field
 from functools import lru_cache
 
 import numpy as np
-import scipy.linalg
 from threadpoolctl import ThreadpoolController
 
 from synth.errors import ModelError
@@ -916,6 +915,8 @@ def _eig(K: np.ndarray, nodal: np.ndarray, n_skip: int, n_modes: int, vectors: b
     dk = _apply_rows(scale, extra, nn, K)
     c = _apply_rows(scale, extra, nn, dk.T)  # D K D^T = D (D K)^T, K symmetric
     floor = float(np.finfo(float).eps * np.max(np.sum(np.abs(c), axis=1)))
+    import scipy.linalg  # here, not at the top: a cached voice plan never solves
+
     if not vectors:
         lam = scipy.linalg.eigh(c, subset_by_index=[0, hi], driver="evr",
                                 check_finite=False, eigvals_only=True)
@@ -1258,6 +1259,8 @@ def dense_reference_frequencies(bar: BarGeometry, material: Material,
     The benchmark's reference: the same model and mesh, solved the plain way
     (general dense problem, every eigenvalue and vector).
     """
+    import scipy.linalg
+
     sec = _sections(bar, material, mesh)
     out = {}
     with one_blas_thread():
