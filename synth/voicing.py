@@ -43,6 +43,7 @@ from pathlib import Path
 import numpy as np
 
 from synth import plan_cache
+from synth.engine.contact import run_contact
 from synth.engine.score import Score, Strike
 from synth.engine.voice import CoupledPair, ModeBank, Voice, constant_power_pan, seconds_to_sample
 from synth.errors import ConfigError
@@ -323,7 +324,7 @@ class Voicer:
         phi = np.array([float(m.vertical_displacement_at(x, y)) for m in modes])
         decay = np.array([b.decay_per_s for _, b in sound])
         res = simulate_contact(head, speed, omega_rad_s=omega, modal_mass_kg=mass,
-                               shape_value=phi, decay_per_s=decay)
+                               shape_value=phi, decay_per_s=decay, runner=run_contact)
         energy_root = np.abs(res.amplitude_m) * omega * np.sqrt(mass / 2.0)
         return energy_root, np.asarray(res.phase_rad, dtype=float)
 

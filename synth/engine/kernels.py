@@ -374,3 +374,117 @@ def _pair_add(out, o0, n, channel_gain, curve, use_curve, state,
     state[1] = a1i
     state[2] = a2r
     state[3] = a2i
+
+
+# ======================================================================================
+# Impact of a point mass on a modal system (the contact loop of
+# synth.engine.contact.run_contact).  No fastmath: the arithmetic follows the
+# reference loop in numpy step for step, so the two agree to rounding.
+#
+# State s: [y, v, e_contact, e_damp, impulse, q_1..q_N, q'_1..q'_N].
+# coeffs: [K, p, lambda, 1/m].  modal rows: phi, phi/M, om^2, 2 g, 2 g M, |phi|,
+# damped angular frequency, decay rate g.
+# status (int64): [step, event, in_contact, n_contacts, ended]; peak: [max compression].
+# ======================================================================================
+
+
+@njit(cache=True)
+def _contact_compression(s, modal, n):
+    dq = 0.0
+    dv = 0.0
+    for j in range(n):
+        dq += modal[0, j] * s[5 + j]
+        dv += modal[0, j] * s[5 + n + j]
+    return s[0] - dq, s[1] - dv
+
+
+@njit(cache=True)
+def _contact_rhs(s, out, coeffs, modal, n):
+    d, dd = _contact_compression(s, modal, n)
+    f = 0.0
+    power = 0.0
+    if d > 0.0:
+        elastic = coeffs[0] * d ** coeffs[1]
+        f = elastic * (1.0 + coeffs[2] * dd)
+        if f < 0.0:
+            f = 0.0
+        power = (f - elastic) * dd
+    out[0] = s[1]
+    out[1] = -f * coeffs[3]
+    out[2] = power
+    e = 0.0
+    for j in range(n):
+        e += modal[4, j] * (s[5 + n + j] * s[5 + n + j])
+    out[3] = e
+    out[4] = f
+    for j in range(n):
+        qd = s[5 + n + j]
+        out[5 + j] = qd
+        out[5 + n + j] = modal[1, j] * f - modal[3, j] * qd - modal[2, j] * s[5 + j]
+    return f
+
+
+@njit(cache=True)
+def _contact_step(s, h, s_out, work, coeffs, modal, n):
+    k1, k2, k3, k4, tmp = work[0], work[1], work[2], work[3], work[4]
+    m = s.size
+    half = 0.5 * h
+    f0 = _contact_rhs(s, k1, coeffs, modal, n)
+    for i in range(m):
+        tmp[i] = s[i] + half * k1[i]
+    _contact_rhs(tmp, k2, coeffs, modal, n)
+    for i in range(m):
+        tmp[i] = s[i] + half * k2[i]
+    _contact_rhs(tmp, k3, coeffs, modal, n)
+    for i in range(m):
+        tmp[i] = s[i] + h * k3[i]
+    _contact_rhs(tmp, k4, coeffs, modal, n)
+    sixth = h / 6.0
+    for i in range(m):
+        s_out[i] = s[i] + sixth * (((k1[i] + 2.0 * k2[i]) + 2.0 * k3[i]) + k4[i])
+    return f0
+
+
+@njit(cache=True)
+def _contact_run(s, s_new, work, forces, status, peak, dt, max_steps, coeffs, modal):
+    """Step until the head separates (event 1), is clear for good (2) or time is up (3).
+
+    On event 1, ``s`` is the state before the step and ``s_new`` after it; otherwise
+    ``s`` is the last state.  ``forces[i]`` is the force at the start of step ``i``.
+    """
+    n = modal.shape[1]
+    in_contact = status[2] != 0
+    ended = status[4] != 0
+    n_contacts = status[3]
+    for i in range(status[0], max_steps):
+        forces[i] = _contact_step(s, dt, s_new, work, coeffs, modal, n)
+        d_new, _ = _contact_compression(s_new, modal, n)
+        if d_new > peak[0]:
+            peak[0] = d_new
+        if in_contact and d_new <= 0.0:
+            status[0] = i
+            status[1] = 1
+            status[2] = 1
+            status[3] = n_contacts
+            return
+        if not in_contact and d_new > 0.0:
+            in_contact = True
+            n_contacts += 1
+        for k in range(s.size):
+            s[k] = s_new[k]
+        if not in_contact and ended and s[1] < 0.0:
+            env = 0.0
+            for j in range(n):
+                q = s[5 + j]
+                amp = np.hypot(q, (s[5 + n + j] + modal[7, j] * q) / modal[6, j])
+                env += modal[5, j] * amp
+            if s[0] < -env:
+                status[0] = i
+                status[1] = 2
+                status[2] = 0
+                status[3] = n_contacts
+                return
+    status[0] = max_steps
+    status[1] = 3
+    status[2] = 1 if in_contact else 0
+    status[3] = n_contacts

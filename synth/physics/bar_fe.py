@@ -90,10 +90,13 @@ _THREADS: ThreadpoolController | None = None
 def one_blas_thread():
     """Context manager limiting BLAS to one thread (small eigenproblems run faster).
 
-    The controller is built once; building it scans the loaded libraries.
+    The controller is built once; building it scans the loaded libraries, so
+    scipy's own BLAS is loaded first (it is imported lazily elsewhere).
     """
     global _THREADS
     if _THREADS is None:
+        import scipy.linalg  # noqa: F401  (its BLAS must be loaded to be limited)
+
         _THREADS = ThreadpoolController()
     return _THREADS.limit(limits=1, user_api="blas")
 _RIGID = {"vertical": 3, "lateral": 2, "torsional": 1}
