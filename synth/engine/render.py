@@ -307,6 +307,73 @@ def _series_coefficients(z_bound: float, where: str) -> tuple[np.ndarray, np.nda
     return np.array(cosh), np.array(sinh)
 
 
+FOLD_CONSTANT_PAIRS = True
+"""Render a coupled pair with constant coefficients as its two plain modes (see
+:func:`_plain_modes`); False keeps the per-sample coupled update (for tests)."""
+
+_FOLD_MAX_CONDITION = 1e6
+"""Largest condition number of the eigenvectors for which a pair is folded; nearer
+an exceptional point the per-sample update is kept."""
+
+
+def _plain_modes(pair: CoupledPair, extra_rates_per_s: np.ndarray, nyquist_hz: float):
+    """Return the pair as two plain decaying modes, exactly, or None.
+
+    With ``mu``, ``weight_2`` and both decays constant, ``a' = A a`` with
+    ``A = [[s1, i mu], [i mu, s2]]`` has the solution ``a(t) = sum_k c_k V_k
+    exp(lam_k t)``, ``c = V^-1 a(0)``.  With ``m = (s1 + s2)/2``, ``d = (s1 -
+    s2)/2`` and ``q = sqrt(d^2 - mu^2)``, ``B = A - m I`` has ``B^2 = q^2 I``, so
+    ``lam = m +- q`` with eigenvectors ``(d +- q, i mu)`` or, equivalently,
+    ``(i mu, +-q - d)`` (the longer of the two is taken).  The output
+    ``Im(w1 a1 + w2 a2) = sum_k Im(b_k exp(lam_k t))``, ``b_k = (w . V_k) c_k``, is
+    then two modes of frequency ``Im lam_k / 2 pi``, decay ``-Re lam_k``,
+    amplitude ``|b_k|`` and phase ``arg b_k`` (a negative frequency flips the
+    signs of frequency and phase and of the amplitude).  A damping schedule that
+    adds the same decay to both members shifts both eigenvalues alike, as it does
+    for a plain mode.  None when a coefficient varies, the damping acts on one
+    member only, the coupling is faster than a pair may be rendered at all
+    (:data:`PAIR_MAX_COUPLING_PER_SAMPLE`: refused later, as for any pair), the
+    eigenvectors are ill-conditioned (near an exceptional point) or a mode would
+    not decay or would reach ``nyquist_hz``.
+
+    Returns
+    -------
+    (frequency_hz, decay_per_s, amplitude, phase_rad) : four arrays of 2, or None
+    """
+    if (callable(pair.coupling_rad_s) or callable(pair.weight_2)
+            or pair.decay_2_curve is not None
+            or abs(pair.coupling_rad_s) > PAIR_MAX_COUPLING_PER_SAMPLE * 2 * nyquist_hz
+            or (not (pair.damped[0] and pair.damped[1]) and np.any(extra_rates_per_s > 0))):
+        return None
+    s1 = complex(-pair.decay_per_s[0], 2 * math.pi * pair.frequency_hz[0])
+    s2 = complex(-pair.decay_per_s[1], 2 * math.pi * pair.frequency_hz[1])
+    mu = float(pair.coupling_rad_s)
+    m, d = 0.5 * (s1 + s2), 0.5 * (s1 - s2)
+    q = np.sqrt(complex(d * d - mu * mu))
+    lam = np.array([m + q, m - q])
+    vec = np.empty((2, 2), dtype=complex)
+    for k, sign in enumerate((1.0, -1.0)):
+        u = np.array([d + sign * q, 1j * mu])
+        v = np.array([1j * mu, sign * q - d])
+        best = u if np.linalg.norm(u) >= np.linalg.norm(v) else v
+        norm = np.linalg.norm(best)
+        if norm == 0.0:
+            return None
+        vec[:, k] = best / norm
+    cond = float(np.linalg.cond(vec))
+    if not (math.isfinite(cond) and cond < _FOLD_MAX_CONDITION):
+        return None
+    a0 = np.array([pair.amplitude[0] * np.exp(1j * pair.phase_rad[0]),
+                   pair.amplitude[1] * np.exp(1j * pair.phase_rad[1])])
+    b = (np.array([pair.weight_1, pair.weight_2]) @ vec) * np.linalg.solve(vec, a0)
+    omega = lam.imag
+    decay = -lam.real
+    if np.any(decay < 0.0) or np.any(np.abs(omega) >= 2 * math.pi * nyquist_hz):
+        return None
+    sign = np.where(omega < 0.0, -1.0, 1.0)
+    return (np.abs(omega) / (2 * math.pi), decay, sign * np.abs(b), sign * np.angle(b))
+
+
 class _Prepared:
     """Validated, unpacked voice with its running state for one render."""
 
@@ -334,21 +401,33 @@ class _Prepared:
                 "channels"
             )
         self.max_gain = float(np.max(np.abs(self.gains)))
-        self.cycles = bank.frequency_hz / sample_rate
-        self.decay_per_sample = bank.decay_per_s / sample_rate
-        self.amplitude = bank.amplitude
-        self.phase = bank.phase_rad
-        self.n_modes = bank.n_modes
-        self.state = np.zeros((2, bank.n_modes))       # Re, Im of each mode
-        self.clock = np.array([0, -1], dtype=np.int64)  # state's voice clock, last anchor
-        self.abs_amp = np.abs(bank.amplitude)
         self.segments = _Segments(voice, sample_rate)
+        freq, decay = bank.frequency_hz, bank.decay_per_s
+        amp, phase = bank.amplitude, bank.phase_rad
+        pairs = []
+        for pair in voice.pairs:
+            plain = (_plain_modes(pair, self.segments.extra_per_s, nyq)
+                     if FOLD_CONSTANT_PAIRS else None)
+            if plain is None:
+                pairs.append(pair)
+            else:  # two plain modes, rendered with the bank
+                freq, decay, amp, phase = (np.concatenate([x, y]) for x, y in
+                                           zip((freq, decay, amp, phase), plain, strict=True))
+        self.cycles = freq / sample_rate
+        self.decay_per_s = decay  # the bank's modes and the folded pairs' modes
+        self.decay_per_sample = decay / sample_rate
+        self.amplitude = amp
+        self.phase = phase
+        self.n_modes = freq.size
+        self.state = np.zeros((2, self.n_modes))       # Re, Im of each mode
+        self.clock = np.array([0, -1], dtype=np.int64)  # state's voice clock, last anchor
+        self.abs_amp = np.abs(amp)
         self.pairs = [_PairState(p, sample_rate, where, self.segments.extra_per_s)
-                      for p in voice.pairs]
+                      for p in pairs]
         self.bank_bound = float(self.abs_amp.sum())
         self.level0 = self.bank_bound + sum(p.norm0 for p in self.pairs)
         # slowest decay any part of the voice can have (damping only adds to it), 1/s
-        rates = list(bank.decay_per_s) + [min(p.g1, p.g2) for p in self.pairs]
+        rates = list(decay) + [min(p.g1, p.g2) for p in self.pairs]
         self.slowest_per_s = float(min(rates)) if rates else 0.0
         self.curve_seen = 0.0  # largest gain-curve value met so far
         self.next_check = 0    # output sample of the next retirement check
@@ -893,7 +972,7 @@ def peak_bound(
         if v.gain_curve is not None and v.gain_curve_max is None:
             return None
         scale = p.max_gain * (1.0 if v.gain_curve is None else v.gain_curve_max)
-        for a, g in zip(p.abs_amp, v.modes.decay_per_s, strict=True):
+        for a, g in zip(p.abs_amp, p.decay_per_s, strict=True):
             terms.append((p.start, float(a) * scale, float(g)))
         for ps in p.pairs:
             if callable(ps.pair.weight_2) and ps.pair.weight_2_max is None:
