@@ -58,6 +58,10 @@ def sustain_command(
     out: Annotated[Path | None, typer.Option(
         help="Folder for sustain.csv and sustain.png (default renders/<preset>/).")] = None,
     force: Annotated[bool, typer.Option(help="Overwrite existing files.")] = False,
+    workers: Annotated[int | None, typer.Option(
+        min=1, max=256, metavar="<int>",
+        help="Processes to measure the notes on (default: every core; 1 measures them "
+             "in this process).")] = None,
     json_out: Annotated[bool, typer.Option("--json", help="Print JSON on stdout.")] = False,
 ) -> None:
     """Sustain across the range: T60 per note and partial, mismatch against the target.
@@ -92,7 +96,8 @@ def sustain_command(
     with Progress(len(notes), "sustain") as step:
         rep = sustain_report(v, notes, target_t60_s=target_t60, target_curve=curve,
                              tolerance_percent=tolerance, at_time_s=at_time,
-                             min_gain_db=min_gain, progress=lambda n: step(1, n))
+                             min_gain_db=min_gain, progress=lambda n: step(1, n),
+                             workers=workers)
     io.write_bytes(csv_path, sustain_csv(rep).encode("utf-8"), force=force)
     io.write_bytes(png_path, sustain_png(rep, f"{inst.name}: sustain of the fundamental"),
                    force=force)

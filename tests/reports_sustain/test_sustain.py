@@ -80,3 +80,14 @@ def test_chord_decay_rates_match_the_notes_t60(inst) -> None:
         else:
             assert all(math.isnan(n.balance_db[k]) for n in res.notes)
     assert math.isfinite(res.spread_db_per_s)
+
+
+def test_two_workers_give_the_same_report(inst) -> None:
+    """Notes measured on two processes give the rows measured here, exactly.
+
+    Independent path: the same report with ``workers=1`` (every note in this process).
+    """
+    notes = ["F3", "C4", "A4", "E5", "F6"]
+    here = sustain_report(Voicer(inst, sample_rate=48000, channels=1), notes, workers=1)
+    pool = sustain_report(Voicer(inst, sample_rate=48000, channels=1), notes, workers=2)
+    assert pool.rows == here.rows
