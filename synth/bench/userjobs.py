@@ -26,19 +26,41 @@ frequencies and decays).  When the whole job would take numpy more than a few
 seconds, numpy evaluates an evenly spaced subset of the blocks across the whole
 length, and its rate is the mode-samples of those blocks over their time.
 
-Figures (``J`` is strike, chord, scale or passage)
---------------------------------------------------
-userjobs.J_mode_samples
-    Delivered mode-samples of the job.
-userjobs.J_cold_s, userjobs.J_warm_s
+Figures
+-------
+userjobs.strike_mode_samples,
+userjobs.chord_mode_samples,
+userjobs.scale_mode_samples,
+userjobs.passage_mode_samples
+    Delivered mode-samples of each job.
+userjobs.strike_cold_s,
+userjobs.chord_cold_s,
+userjobs.scale_cold_s,
+userjobs.passage_cold_s
+userjobs.strike_warm_s,
+userjobs.chord_warm_s,
+userjobs.scale_warm_s,
+userjobs.passage_warm_s
     Thread CPU time of plan + render + WAV, s, with an empty and a filled plan cache.
-userjobs.J_plan_cold_s
+userjobs.strike_plan_cold_s,
+userjobs.chord_plan_cold_s,
+userjobs.scale_plan_cold_s,
+userjobs.passage_plan_cold_s
     The planning part of the cold run, s.
-userjobs.J_delivered_mode_samples_per_s
+userjobs.strike_delivered_mode_samples_per_s,
+userjobs.chord_delivered_mode_samples_per_s,
+userjobs.scale_delivered_mode_samples_per_s,
+userjobs.passage_delivered_mode_samples_per_s
     Delivered mode-samples over the warm time.
-userjobs.J_numpy_ratio
+userjobs.strike_numpy_ratio,
+userjobs.chord_numpy_ratio,
+userjobs.scale_numpy_ratio,
+userjobs.passage_numpy_ratio
     That figure over the numpy reference's rate on the same modes and length.
-userjobs.J_of_kernel
+userjobs.strike_of_kernel,
+userjobs.chord_of_kernel,
+userjobs.scale_of_kernel,
+userjobs.passage_of_kernel
     That figure over the kernel-only figure (target for scale and passage: >= 0.4).
 userjobs.kernel_only_mode_samples_per_s
     Kernel-only: the bank kernel alone, one call over every mode of the scale job,
