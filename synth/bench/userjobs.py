@@ -93,8 +93,8 @@ from pathlib import Path
 import numpy as np
 from threadpoolctl import threadpool_limits
 
+from synth.bench import bank_kernel_call, median_time
 from synth.config import presets_dir
-from synth.engine import kernels
 from synth.engine.voice import Voice
 from synth.executor import Job, run_jobs
 from synth.output import render_to_wav
@@ -202,29 +202,9 @@ def _numpy_rate(voices: list[Voice], n_samples: int) -> float:
 def _kernel_only(voices: list[Voice], repeats: int) -> float:
     """Time the bank kernel alone on every mode of ``voices``, 1 s mono, one call."""
     modes = _plain_modes(voices)
-    f = np.concatenate([m[1] for m in modes]) / FS
-    g = np.concatenate([m[2] for m in modes]) / FS
-    a = np.concatenate([m[3] for m in modes])
-    ph = np.concatenate([m[4] for m in modes])
-    k, n = f.size, FS
-    out = np.zeros((n, 1))
-    state = np.zeros((2, k))
-    clock = np.array([0, -1], dtype=np.int64)
-    gains = np.ones(1)
-    empty = np.ones(0)
-
-    def call():
-        clock[:] = (0, -1)
-        kernels._bank_add(out, 0, gains, empty, False, state, clock, f, g, a, ph,
-                          0, n, 1024, 0, 2 ** 40, 0.0, 0.0)
-
-    call()
-    times = []
-    for _ in range(repeats):
-        t0 = time.thread_time()
-        call()
-        times.append(time.thread_time() - t0)
-    return k * n / statistics.median(times)
+    f, g, a, ph = (np.concatenate([m[i] for m in modes]) for i in range(1, 5))
+    call = bank_kernel_call(f, g, a, ph, FS, FS)
+    return f.size * FS / median_time(call, repeats, clock=time.thread_time)
 
 
 def _subprocess_s(args: list[str], env: dict[str, str]) -> tuple[float, float]:
