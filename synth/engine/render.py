@@ -405,12 +405,20 @@ class _Prepared:
         freq, decay = bank.frequency_hz, bank.decay_per_s
         amp, phase = bank.amplitude, bank.phase_rad
         pairs = []
+        # The ring-out level (``_level``) of a folded pair stays the pair's own
+        # (state magnitude at its slowest member's decay), so render lengths are
+        # those of the per-sample update.
+        self.n_bank = bank.n_modes
+        self.folded = []
         for pair in voice.pairs:
             plain = (_plain_modes(pair, self.segments.extra_per_s, nyq)
                      if FOLD_CONSTANT_PAIRS else None)
             if plain is None:
                 pairs.append(pair)
             else:  # two plain modes, rendered with the bank
+                self.folded.append((np.array(pair.decay_per_s, dtype=np.float64),
+                                    np.array(pair.damped, dtype=np.float64),
+                                    math.hypot(*pair.amplitude)))
                 freq, decay, amp, phase = (np.concatenate([x, y]) for x, y in
                                            zip((freq, decay, amp, phase), plain, strict=True))
         self.cycles = freq / sample_rate
@@ -425,7 +433,8 @@ class _Prepared:
         self.pairs = [_PairState(p, sample_rate, where, self.segments.extra_per_s)
                       for p in pairs]
         self.bank_bound = float(self.abs_amp.sum())
-        self.level0 = self.bank_bound + sum(p.norm0 for p in self.pairs)
+        self.level0 = (float(self.abs_amp[:self.n_bank].sum()) + sum(p.norm0 for p in self.pairs)
+                       + sum(norm0 for _, _, norm0 in self.folded))
         # slowest decay any part of the voice can have (damping only adds to it), 1/s
         rates = list(decay) + [min(p.g1, p.g2) for p in self.pairs]
         self.slowest_per_s = float(min(rates)) if rates else 0.0
@@ -460,10 +469,14 @@ class _Prepared:
     # level on the voice clock re its start, for ring_out_sample; never increases
     def _level(self, m: int, sample_rate: float) -> float:
         nep = float(self.segments.nepers_at(m))
-        level = float(np.sum(self.abs_amp * np.exp(-self.decay_per_sample * m - nep)))
+        nb = self.n_bank
+        level = float(np.sum(self.abs_amp[:nb] * np.exp(-self.decay_per_sample[:nb] * m - nep)))
         for p in self.pairs:
             g = p.decay / sample_rate * m + p.damped * nep
             level += p.norm0 * math.exp(-float(np.min(g)))
+        for decay, damped, norm0 in self.folded:
+            g = decay / sample_rate * m + damped * nep
+            level += norm0 * math.exp(-float(np.min(g)))
         return level
 
     def _silent_from(self, end: int, level_db: float, sample_rate: float) -> int:
