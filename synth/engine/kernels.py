@@ -488,3 +488,88 @@ def _contact_run(s, s_new, work, forces, status, peak, dt, max_steps, coeffs, mo
     status[1] = 3
     status[2] = 1 if in_contact else 0
     status[3] = n_contacts
+
+
+# ======================================================================================
+# Many voices' plain modes in one call (render.py, "batched banks").  Stateless:
+# every mode is anchored from its closed form at the call's first sample and at
+# every multiple of ``anchor_every`` of the output clock, so a call needs no state
+# from the one before.  Mode k started at output sample ``start[k]``; its voice's
+# damping segment (constant over the call) began at voice clock ``seg_start[k]``
+# with ``seg_nepers[k]`` nepers accumulated and adds ``extra[k]`` nepers per sample.
+# The first output channel receives ``gain_first[k]`` times the mode, the second
+# (if any) ``gain_last[k]``.
+# ======================================================================================
+
+
+@njit(cache=True, fastmath=True)
+def _banks_add(out, o0, t0, t1, gain_first, gain_last, cycles_per_sample, decay_per_sample,
+               amplitude, phase_rad, start, seg_start, seg_nepers, extra, anchor_every):
+    n_modes = cycles_per_sample.shape[0]
+    n_ch = out.shape[1]
+    pole_re = np.empty(n_modes)
+    pole_im = np.empty(n_modes)
+    for k in range(n_modes):
+        r = math.exp(-(decay_per_sample[k] + extra[k]))
+        th = _TWO_PI * cycles_per_sample[k]
+        pole_re[k] = r * math.cos(th)
+        pole_im[k] = r * math.sin(th)
+    cur_re = np.empty(n_modes)
+    cur_im = np.empty(n_modes)
+    acc = np.zeros((4, 2))
+    ta = t0
+    while ta < t1:
+        tb = min(t1, (ta // anchor_every + 1) * anchor_every)
+        for k in range(n_modes):
+            m = ta - start[k]
+            nep = seg_nepers[k] + extra[k] * (m - seg_start[k])
+            mag = amplitude[k] * math.exp(-decay_per_sample[k] * m - nep)
+            cyc = cycles_per_sample[k] * m
+            ph = _TWO_PI * (cyc - math.floor(cyc)) + phase_rad[k]
+            cur_re[k] = mag * math.cos(ph)
+            cur_im[k] = mag * math.sin(ph)
+        t = ta
+        while t < tb:
+            # two accumulators per sample: channel 0 and the last channel (the same
+            # one in mono), scalars so the loop over modes vectorises
+            l0 = l1 = l2 = l3 = 0.0
+            r0 = r1 = r2 = r3 = 0.0
+            for k in range(n_modes):
+                x = cur_re[k]
+                y = cur_im[k]
+                c_ = pole_re[k]
+                s = pole_im[k]
+                x1 = x * c_ - y * s
+                y1 = x * s + y * c_
+                x2 = x1 * c_ - y1 * s
+                y2 = x1 * s + y1 * c_
+                x3 = x2 * c_ - y2 * s
+                y3 = x2 * s + y2 * c_
+                cur_re[k] = x3 * c_ - y3 * s
+                cur_im[k] = x3 * s + y3 * c_
+                gl = gain_first[k]
+                gr = gain_last[k]
+                l0 += gl * y
+                l1 += gl * y1
+                l2 += gl * y2
+                l3 += gl * y3
+                r0 += gr * y
+                r1 += gr * y1
+                r2 += gr * y2
+                r3 += gr * y3
+            acc[0, 0] = l0
+            acc[1, 0] = l1
+            acc[2, 0] = l2
+            acc[3, 0] = l3
+            acc[0, 1] = r0
+            acc[1, 1] = r1
+            acc[2, 1] = r2
+            acc[3, 1] = r3
+            hi = min(t + 4, tb)
+            for tt in range(t, hi):
+                row = o0 + tt - t0
+                out[row, 0] += acc[tt - t, 0]
+                if n_ch == 2:
+                    out[row, 1] += acc[tt - t, 1]
+            t = hi
+        ta = tb

@@ -438,6 +438,7 @@ class _Prepared:
         # slowest decay any part of the voice can have (damping only adds to it), 1/s
         rates = list(decay) + [min(p.g1, p.g2) for p in self.pairs]
         self.slowest_per_s = float(min(rates)) if rates else 0.0
+        self.batched = False   # last rendered in a batch: the bank state is stale
         self.curve_seen = 0.0  # largest gain-curve value met so far
         self.next_check = 0    # output sample of the next retirement check
         self.last_check: tuple[int, float] | None = None  # (sample, bound) of the last one
@@ -719,8 +720,21 @@ def _stream(voices, order, n_samples, n_ch, block_size, gain, dtype, sample_rate
                 active.sort(key=lambda p: p.index)  # sum in list order, whatever the blocks
             piece = buf[c0 - b0:c1 - b0]
             bound = 0.0
+            batch: dict[tuple[int, int], list[_Prepared]] = {}
             for p in active:
+                lo, hi = max(c0, p.start), min(c1, p.end)
+                if BATCH_BANKS and _batchable(p, lo, hi):
+                    for m_a, m_b, _ in p.segments.pieces(lo - p.start, hi - p.start):
+                        batch.setdefault((p.start + m_a, p.start + m_b), []).append(p)
+                    bound += p.bank_bound
+                    p.batched = True
+                    continue
+                if p.batched:
+                    _reanchor(p, max(c0, p.start) - p.start)
+                    p.batched = False
                 bound += _render_voice(p, piece, c0, c1, sample_rate)
+            for (lo, hi), group in batch.items():
+                _render_batch(group, piece, lo - c0, lo, hi)
             peak = _max_abs(piece)
             if not (peak <= bound * _RUNAWAY_MARGIN):
                 names = ", ".join(p.where for p in active[:4]) + (" ..." if len(active) > 4
@@ -786,6 +800,50 @@ def _schedule(p: _Prepared, t: int, bound: float, room: float) -> None:
         nxt = min(nxt, -(-change // RETIRE_EVERY) * RETIRE_EVERY)
     p.next_check = max(nxt, t + RETIRE_EVERY)
     p.last_check = (t, bound)
+
+
+BATCH_BANKS = True
+"""Render the plain modes of every voice without a gain curve or a coupled pair in
+one kernel call per stretch of a piece between damping changes
+(:func:`_render_batch`); False renders each voice on its own (for tests)."""
+
+
+def _batchable(p: _Prepared, lo: int, hi: int) -> bool:
+    """Whether voice ``p`` can join the batch for output samples ``lo .. hi-1``.
+
+    Its modes then go into one call per stretch between its damping changes.
+    """
+    return hi > lo and not p.pairs and p.voice.gain_curve is None and p.n_modes > 0
+
+
+def _render_batch(group: list[_Prepared], buf: np.ndarray, o0: int, lo: int, hi: int) -> None:
+    """Add the modes of every voice in ``group`` for output samples ``lo .. hi-1``, one call."""
+    parts = []
+    for p in group:
+        seg = p.segments
+        i = seg.index(lo - p.start)
+        n = p.n_modes
+        parts.append((np.full(n, p.gains[0]), np.full(n, p.gains[-1]), p.cycles,
+                      p.decay_per_sample, p.amplitude, p.phase,
+                      np.full(n, p.start, dtype=np.int64),
+                      np.full(n, seg.start_m[i], dtype=np.int64), np.full(n, seg.nepers[i]),
+                      np.full(n, seg.extra_per_sample[i])))
+    arrays = [np.ascontiguousarray(np.concatenate(column)) for column in zip(*parts,
+                                                                              strict=True)]
+    kernels._banks_add(buf, o0, lo, hi, *arrays, ANCHOR_EVERY)
+
+
+def _reanchor(p: _Prepared, m: int) -> None:
+    """Set the bank state of voice ``p`` to its closed form at voice clock ``m``."""
+    seg = p.segments
+    i = seg.index(m)
+    nep = seg.nepers[i] + seg.extra_per_sample[i] * (m - seg.start_m[i])
+    mag = p.amplitude * np.exp(-p.decay_per_sample * m - nep)
+    cyc = p.cycles * m
+    ph = 2.0 * math.pi * (cyc - np.floor(cyc)) + p.phase
+    p.state[0] = mag * np.cos(ph)
+    p.state[1] = mag * np.sin(ph)
+    p.clock[:] = (m, m)
 
 
 def _render_voice(p: _Prepared, buf: np.ndarray, b0: int, b1: int, sample_rate: float) -> float:
