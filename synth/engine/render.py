@@ -10,10 +10,15 @@ Rendering
 ``(block_size, channels)`` (the last one shorter), so a long passage never
 needs more memory than one block plus the voices' state.  :func:`render`
 collects the blocks into one array.  The result does not depend on the block
-size: a voice re-anchors its modes on a fixed grid of its own clock
-(:data:`ANCHOR_EVERY` samples), not at block edges, every coefficient is the
-same whatever the block, and voices are summed in list order, so any two block
-sizes give the same samples bit for bit in practice (tests allow rounding).
+size beyond rounding: every mode is re-anchored from its closed form at least
+every :data:`ANCHOR_EVERY` samples and every coefficient is the same whatever the
+block.  A voice rendered on its own anchors on a grid of its own clock; the
+plain modes of voices without a gain curve or an unfoldable coupled pair are
+rendered together, in one kernel call per stretch of a piece (between the
+voices' damping changes), anchored at the call's first sample and on the output
+clock's grid, so there a block edge moves an anchor and changes the samples by
+rounding only (tests allow it).  A coupled pair with constant coefficients is
+rendered as its two plain modes (:func:`_plain_modes`).
 
 Voices start at ``start_sample`` and fall silent at ``stop_sample``, both
 sample-exact; damping changes act from the exact sample given.
