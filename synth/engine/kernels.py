@@ -128,11 +128,8 @@ def _bank_add(out, o0, channel_gain, curve, use_curve, state, clock,
         if (m == seg_start or m % anchor_every == 0) and m_anchor != m:
             nep = seg_nepers + extra_per_sample * (m - seg_start)
             for k in range(n_modes):
-                mag = amplitude[k] * math.exp(-decay_per_sample[k] * m - nep)
-                cyc = cycles_per_sample[k] * m
-                ph = _TWO_PI * (cyc - math.floor(cyc)) + phase_rad[k]
-                cur_re[k] = mag * math.cos(ph)
-                cur_im[k] = mag * math.sin(ph)
+                cur_re[k], cur_im[k] = _closed_form(amplitude[k], decay_per_sample[k],
+                                                    cycles_per_sample[k], phase_rad[k], m, nep)
             m_state = m
             m_anchor = m
         # run of groups from the state up to the next anchor point (one division per run)
@@ -503,6 +500,18 @@ def _contact_run(s, s_new, work, forces, status, peak, dt, max_steps, coeffs, mo
 
 
 @njit(cache=True, fastmath=True)
+def _closed_form(amplitude, decay_per_sample, cycles_per_sample, phase_rad, m, nep):
+    """Real and imaginary part of one mode at voice clock ``m`` (the anchor value).
+
+    Shared by ``_bank_add`` and ``_banks_add``.
+    """
+    mag = amplitude * math.exp(-decay_per_sample * m - nep)
+    cyc = cycles_per_sample * m
+    ph = _TWO_PI * (cyc - math.floor(cyc)) + phase_rad
+    return mag * math.cos(ph), mag * math.sin(ph)
+
+
+@njit(cache=True, fastmath=True)
 def _banks_add(out, o0, t0, t1, gain_first, gain_last, cycles_per_sample, decay_per_sample,
                amplitude, phase_rad, start, seg_start, seg_nepers, extra, anchor_every):
     n_modes = cycles_per_sample.shape[0]
@@ -523,11 +532,8 @@ def _banks_add(out, o0, t0, t1, gain_first, gain_last, cycles_per_sample, decay_
         for k in range(n_modes):
             m = ta - start[k]
             nep = seg_nepers[k] + extra[k] * (m - seg_start[k])
-            mag = amplitude[k] * math.exp(-decay_per_sample[k] * m - nep)
-            cyc = cycles_per_sample[k] * m
-            ph = _TWO_PI * (cyc - math.floor(cyc)) + phase_rad[k]
-            cur_re[k] = mag * math.cos(ph)
-            cur_im[k] = mag * math.sin(ph)
+            cur_re[k], cur_im[k] = _closed_form(amplitude[k], decay_per_sample[k],
+                                                cycles_per_sample[k], phase_rad[k], m, nep)
         t = ta
         while t < tb:
             # two accumulators per sample: channel 0 and the last channel (the same
