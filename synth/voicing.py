@@ -42,7 +42,9 @@ from pathlib import Path
 
 import numpy as np
 
+from synth import plan_cache
 from synth.constants import LN_1000
+from synth.engine.contact import run_contact
 from synth.engine.score import Score, Strike
 from synth.engine.voice import ModeBank, ModePair, Voice, constant_power_pan, seconds_to_sample
 from synth.errors import ConfigError
@@ -249,9 +251,23 @@ class Voicer:
     def model(self, note: str) -> NoteModel:
         """Return the per-note model (cached per plan)."""
         note = self.instrument.check_note(note, option="note")
-        key = ("model", note, self.tubes_active, self.channels)
-        if key in self._cache:
-            return self._cache[key]
+        if note in self._cache:
+            return self._cache[note]
+        model = plan_cache.cached(self._plan_key("note-model", note),
+                                  lambda: self._solve_model(note))
+        self._cache[note] = model
+        return model
+
+    def _plan_key(self, kind: str, note: str, *more) -> str:
+        """Disk-cache key: every setting :meth:`_solve_model` reads, and ``more``."""
+        inst = self.instrument
+        return plan_cache.plan_key(
+            kind, note, inst.bars.get(note), inst.notes[0], inst.notes[-1], self.material,
+            self.temperature_c, self.supports, self.loss_calibration, self.sound,
+            self.channels, self.tubes_active, self.tube_settings, inst.tube_lengths.get(note),
+            self.correction, *more)
+
+    def _solve_model(self, note: str) -> NoteModel:
         geo = self.instrument.bar(note)
         modes = corrected_modes(_solve_sounding(geo, self.material), self.correction, note)
         budget = tuple(loss_budget(modes, supports=self.supports,
@@ -262,9 +278,7 @@ class Voicer:
         tube, coupling = (None, None)
         if self.tubes_active:
             tube, coupling = self._couple(note, modes, budget[0], frac)
-        model = NoteModel(note, modes, budget, tube, coupling, pan)
-        self._cache[key] = model
-        return model
+        return NoteModel(note, modes, budget, tube, coupling, pan)
 
     def tube_spec(self, note: str, modes: BarModes | None = None) -> TubeSpec | None:
         """Return the note's tube as cut ([bars.NOTE.tube] length, or solved from the offset)."""
@@ -368,6 +382,13 @@ class Voicer:
         hit = self._cache.get(("contact", *key))
         if hit is not None:
             return hit
+        # On disk the exact values are the key, so a stored plan equals a fresh one.
+        out = plan_cache.cached(self._plan_key("contact", model.note, head, speed, pos, acr),
+                                lambda: self._contact(model, head, speed, pos, acr))
+        self._cache[("contact", *key)] = out
+        return out
+
+    def _contact(self, model: NoteModel, head: Mallet, speed: float, pos: float, acr: float):
         geo = model.modes.geometry
         x = pos * geo.length_m
         y = acr * geo.width_m
@@ -378,11 +399,9 @@ class Voicer:
         phi = np.array([float(m.vertical_displacement_at(x, y)) for m in modes])
         decay = np.array([b.decay_per_s for _, b in sound])
         res = simulate_contact(head, speed, omega_rad_s=omega, modal_mass_kg=mass,
-                               shape_value=phi, decay_per_s=decay)
+                               shape_value=phi, decay_per_s=decay, runner=run_contact)
         energy_root = np.abs(res.amplitude_m) * omega * np.sqrt(mass / 2.0)
-        out = (energy_root, np.asarray(res.phase_rad, dtype=float))
-        self._cache[("contact", *key)] = out
-        return out
+        return energy_root, np.asarray(res.phase_rad, dtype=float)
 
     def _voice(self, model: NoteModel, energy_root, phases, time_s, release_s, pedal,
                mono: bool = False) -> Voice:

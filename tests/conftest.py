@@ -19,6 +19,14 @@ def _one_blas_thread():
         yield
 
 
+@pytest.fixture(scope="session", autouse=True)
+def _plan_cache_in_tmp(tmp_path_factory):
+    """Keep the voice-plan cache of the test run in a temporary folder, never the user's."""
+    with pytest.MonkeyPatch.context() as mp:
+        mp.setenv("BARWRIGHT_CACHE", str(tmp_path_factory.mktemp("plan-cache")))
+        yield
+
+
 @pytest.fixture
 def rng() -> np.random.Generator:
     """Return a generator with a fixed seed so noisy checks are repeatable."""

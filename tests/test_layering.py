@@ -23,6 +23,7 @@ FORBIDDEN = {
     "config": {"physics", "engine", "voicing", "io", "analysis", "reports", "cli", "bench"},
     "numerics": {"physics", "engine", "voicing", "io", "analysis", "reports", "cli", "bench"},
     "executor": {"physics", "engine", "voicing", "io", "analysis", "reports", "cli", "bench"},
+    "plan_cache": {"physics", "engine", "voicing", "io", "analysis", "reports", "cli", "bench"},
     "physics": {"engine", "voicing", "io", "analysis", "reports", "cli", "bench"},
     "engine": {"physics", "voicing", "io", "output", "analysis", "reports", "cli", "bench",
                "instrument"},

@@ -42,7 +42,7 @@ import time
 import numpy as np
 from threadpoolctl import threadpool_limits
 
-from synth.bench import median_time
+from synth.bench import bank_kernel_call, median_time
 from synth.engine import ModeBank, ModePair, Voice, kernels, render_blocks
 from synth.engine.render import _series_coefficients
 
@@ -129,21 +129,8 @@ def run(quick: bool = False) -> dict[str, float]:
 
         # bank kernel alone
         k = 64
-        f = rng.uniform(150.0, 12000.0, k) / FS
-        g = rng.uniform(0.2, 3.0, k) / FS
-        a = rng.uniform(0.01, 0.05, k)
-        ph = np.zeros(k)
-        out = np.zeros((n, 1))
-        state = np.zeros((2, k))
-        clock = np.array([0, -1], dtype=np.int64)
-        gains = np.ones(1)
-        empty = np.ones(0)
-
-        def bank_kernel():
-            clock[:] = (0, -1)
-            kernels._bank_add(out, 0, gains, empty, False, state, clock, f, g, a, ph,
-                              0, n, 1024, 0, 2 ** 40, 0.0, 0.0)
-
+        bank_kernel = bank_kernel_call(rng.uniform(150.0, 12000.0, k), rng.uniform(0.2, 3.0, k),
+                                       rng.uniform(0.01, 0.05, k), np.zeros(k), n, FS)
         figures["engine.kernel_mode_samples_per_s"] = k * n / median_time(bank_kernel, repeats)
 
         # gain curves
@@ -176,6 +163,9 @@ def run(quick: bool = False) -> dict[str, float]:
         d = 0.5 * abs(complex(17.54, om[0] - om[1])) / FS
         cosh_c, sinh_c = _series_coefficients(d * d + 1e-4, "bench")
         pstate = np.zeros(4)
+        out = np.zeros((n, 1))
+        gains = np.ones(1)
+        empty = np.ones(0)
 
         def pair_kernel():
             pstate[:] = (1.0, 0.0, 0.0, 0.0)

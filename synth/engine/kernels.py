@@ -128,11 +128,8 @@ def _bank_add(out, o0, channel_gain, curve, use_curve, state, clock,
         if (m == seg_start or m % anchor_every == 0) and m_anchor != m:
             nep = seg_nepers + extra_per_sample * (m - seg_start)
             for k in range(n_modes):
-                mag = amplitude[k] * math.exp(-decay_per_sample[k] * m - nep)
-                cyc = cycles_per_sample[k] * m
-                ph = _TWO_PI * (cyc - math.floor(cyc)) + phase_rad[k]
-                cur_re[k] = mag * math.cos(ph)
-                cur_im[k] = mag * math.sin(ph)
+                cur_re[k], cur_im[k] = _closed_form(amplitude[k], decay_per_sample[k],
+                                                    cycles_per_sample[k], phase_rad[k], m, nep)
             m_state = m
             m_anchor = m
         # run of groups from the state up to the next anchor point (one division per run)
@@ -849,3 +846,211 @@ def _rt_plan_bound(p, p_nmodes, p_amp, p_npairs, p_pair, p_w2max, p_gmax):
         norm = math.sqrt(pp[_Q_A1R] ** 2 + pp[_Q_A1I] ** 2 + pp[_Q_A2R] ** 2 + pp[_Q_A2I] ** 2)
         b += norm * (abs(pp[_Q_W1]) + p_w2max[p, q])
     return b * p_gmax[p]
+
+
+# ======================================================================================
+# Impact of a point mass on a modal system (the contact loop of
+# synth.engine.contact.run_contact).  No fastmath: the arithmetic follows the
+# reference loop in numpy step for step, so the two agree to rounding.
+#
+# State s: [y, v, e_contact, e_damp, impulse, q_1..q_N, q'_1..q'_N].
+# coeffs: [K, p, lambda, 1/m].  modal rows: phi, phi/M, om^2, 2 g, 2 g M, |phi|,
+# damped angular frequency, decay rate g.
+# status (int64): [step, event, in_contact, n_contacts, ended]; peak: [max compression].
+# ======================================================================================
+
+
+@njit(cache=True)
+def _contact_compression(s, modal, n):
+    dq = 0.0
+    dv = 0.0
+    for j in range(n):
+        dq += modal[0, j] * s[5 + j]
+        dv += modal[0, j] * s[5 + n + j]
+    return s[0] - dq, s[1] - dv
+
+
+@njit(cache=True)
+def _contact_rhs(s, out, coeffs, modal, n):
+    d, dd = _contact_compression(s, modal, n)
+    f = 0.0
+    power = 0.0
+    if d > 0.0:
+        elastic = coeffs[0] * d ** coeffs[1]
+        f = elastic * (1.0 + coeffs[2] * dd)
+        if f < 0.0:
+            f = 0.0
+        power = (f - elastic) * dd
+    out[0] = s[1]
+    out[1] = -f * coeffs[3]
+    out[2] = power
+    e = 0.0
+    for j in range(n):
+        e += modal[4, j] * (s[5 + n + j] * s[5 + n + j])
+    out[3] = e
+    out[4] = f
+    for j in range(n):
+        qd = s[5 + n + j]
+        out[5 + j] = qd
+        out[5 + n + j] = modal[1, j] * f - modal[3, j] * qd - modal[2, j] * s[5 + j]
+    return f
+
+
+@njit(cache=True)
+def _contact_step(s, h, s_out, work, coeffs, modal, n):
+    k1, k2, k3, k4, tmp = work[0], work[1], work[2], work[3], work[4]
+    m = s.size
+    half = 0.5 * h
+    f0 = _contact_rhs(s, k1, coeffs, modal, n)
+    for i in range(m):
+        tmp[i] = s[i] + half * k1[i]
+    _contact_rhs(tmp, k2, coeffs, modal, n)
+    for i in range(m):
+        tmp[i] = s[i] + half * k2[i]
+    _contact_rhs(tmp, k3, coeffs, modal, n)
+    for i in range(m):
+        tmp[i] = s[i] + h * k3[i]
+    _contact_rhs(tmp, k4, coeffs, modal, n)
+    sixth = h / 6.0
+    for i in range(m):
+        s_out[i] = s[i] + sixth * (((k1[i] + 2.0 * k2[i]) + 2.0 * k3[i]) + k4[i])
+    return f0
+
+
+@njit(cache=True)
+def _contact_run(s, s_new, work, forces, status, peak, dt, max_steps, coeffs, modal):
+    """Step until the head separates (event 1), is clear for good (2) or time is up (3).
+
+    On event 1, ``s`` is the state before the step and ``s_new`` after it; otherwise
+    ``s`` is the last state.  ``forces[i]`` is the force at the start of step ``i``.
+    """
+    n = modal.shape[1]
+    in_contact = status[2] != 0
+    ended = status[4] != 0
+    n_contacts = status[3]
+    for i in range(status[0], max_steps):
+        forces[i] = _contact_step(s, dt, s_new, work, coeffs, modal, n)
+        d_new, _ = _contact_compression(s_new, modal, n)
+        if d_new > peak[0]:
+            peak[0] = d_new
+        if in_contact and d_new <= 0.0:
+            status[0] = i
+            status[1] = 1
+            status[2] = 1
+            status[3] = n_contacts
+            return
+        if not in_contact and d_new > 0.0:
+            in_contact = True
+            n_contacts += 1
+        for k in range(s.size):
+            s[k] = s_new[k]
+        if not in_contact and ended and s[1] < 0.0:
+            env = 0.0
+            for j in range(n):
+                q = s[5 + j]
+                amp = np.hypot(q, (s[5 + n + j] + modal[7, j] * q) / modal[6, j])
+                env += modal[5, j] * amp
+            if s[0] < -env:
+                status[0] = i
+                status[1] = 2
+                status[2] = 0
+                status[3] = n_contacts
+                return
+    status[0] = max_steps
+    status[1] = 3
+    status[2] = 1 if in_contact else 0
+    status[3] = n_contacts
+
+
+# ======================================================================================
+# Many voices' plain modes in one call (render.py, "batched banks").  Stateless:
+# every mode is anchored from its closed form at the call's first sample and at
+# every multiple of ``anchor_every`` of the output clock, so a call needs no state
+# from the one before.  Mode k started at output sample ``start[k]``; its voice's
+# damping segment (constant over the call) began at voice clock ``seg_start[k]``
+# with ``seg_nepers[k]`` nepers accumulated and adds ``extra[k]`` nepers per sample.
+# The first output channel receives ``gain_first[k]`` times the mode, the second
+# (if any) ``gain_last[k]``.
+# ======================================================================================
+
+
+@njit(cache=True, fastmath=True)
+def _closed_form(amplitude, decay_per_sample, cycles_per_sample, phase_rad, m, nep):
+    """Real and imaginary part of one mode at voice clock ``m`` (the anchor value).
+
+    Shared by ``_bank_add`` and ``_banks_add``.
+    """
+    mag = amplitude * math.exp(-decay_per_sample * m - nep)
+    cyc = cycles_per_sample * m
+    ph = _TWO_PI * (cyc - math.floor(cyc)) + phase_rad
+    return mag * math.cos(ph), mag * math.sin(ph)
+
+
+@njit(cache=True, fastmath=True)
+def _banks_add(out, o0, t0, t1, gain_first, gain_last, cycles_per_sample, decay_per_sample,
+               amplitude, phase_rad, start, seg_start, seg_nepers, extra, anchor_every):
+    n_modes = cycles_per_sample.shape[0]
+    n_ch = out.shape[1]
+    pole_re = np.empty(n_modes)
+    pole_im = np.empty(n_modes)
+    for k in range(n_modes):
+        r = math.exp(-(decay_per_sample[k] + extra[k]))
+        th = _TWO_PI * cycles_per_sample[k]
+        pole_re[k] = r * math.cos(th)
+        pole_im[k] = r * math.sin(th)
+    cur_re = np.empty(n_modes)
+    cur_im = np.empty(n_modes)
+    acc = np.zeros((4, 2))
+    ta = t0
+    while ta < t1:
+        tb = min(t1, (ta // anchor_every + 1) * anchor_every)
+        for k in range(n_modes):
+            m = ta - start[k]
+            nep = seg_nepers[k] + extra[k] * (m - seg_start[k])
+            cur_re[k], cur_im[k] = _closed_form(amplitude[k], decay_per_sample[k],
+                                                cycles_per_sample[k], phase_rad[k], m, nep)
+        t = ta
+        while t < tb:
+            # two accumulators per sample: channel 0 and the last channel (the same
+            # one in mono), scalars so the loop over modes vectorises
+            l0 = l1 = l2 = l3 = 0.0
+            r0 = r1 = r2 = r3 = 0.0
+            for k in range(n_modes):
+                x = cur_re[k]
+                y = cur_im[k]
+                c_ = pole_re[k]
+                s = pole_im[k]
+                x1 = x * c_ - y * s
+                y1 = x * s + y * c_
+                x2 = x1 * c_ - y1 * s
+                y2 = x1 * s + y1 * c_
+                x3 = x2 * c_ - y2 * s
+                y3 = x2 * s + y2 * c_
+                cur_re[k] = x3 * c_ - y3 * s
+                cur_im[k] = x3 * s + y3 * c_
+                gl = gain_first[k]
+                gr = gain_last[k]
+                l0 += gl * y
+                l1 += gl * y1
+                l2 += gl * y2
+                l3 += gl * y3
+                r0 += gr * y
+                r1 += gr * y1
+                r2 += gr * y2
+                r3 += gr * y3
+            acc[0, 0] = l0
+            acc[1, 0] = l1
+            acc[2, 0] = l2
+            acc[3, 0] = l3
+            acc[0, 1] = r0
+            acc[1, 1] = r1
+            acc[2, 1] = r2
+            acc[3, 1] = r3
+            hi = min(t + 4, tb)
+            for tt in range(t, hi):
+                row = o0 + tt - t0
+                out[row, 0] += acc[tt - t, 0]
+                if n_ch == 2:
+                    out[row, 1] += acc[tt - t, 1]
+            t = hi
+        ta = tb

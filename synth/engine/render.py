@@ -10,10 +10,15 @@ Rendering
 ``(block_size, channels)`` (the last one shorter), so a long passage never
 needs more memory than one block plus the voices' state.  :func:`render`
 collects the blocks into one array.  The result does not depend on the block
-size: a voice re-anchors its modes on a fixed grid of its own clock
-(:data:`ANCHOR_EVERY` samples), not at block edges, every coefficient is the
-same whatever the block, and voices are summed in list order, so any two block
-sizes give the same samples bit for bit in practice (tests allow rounding).
+size beyond rounding: every mode is re-anchored from its closed form at least
+every :data:`ANCHOR_EVERY` samples and every coefficient is the same whatever the
+block.  A voice rendered on its own anchors on a grid of its own clock; the
+plain modes of voices without a gain curve or an unfoldable coupled pair are
+rendered together, in one kernel call per stretch of a piece (between the
+voices' damping changes), anchored at the call's first sample and on the output
+clock's grid, so there a block edge moves an anchor and changes the samples by
+rounding only (tests allow it).  A coupled pair with constant coefficients is
+rendered as its two plain modes (:func:`_plain_modes`).
 
 Voices start at ``start_sample`` and fall silent at ``stop_sample``, both
 sample-exact; damping changes act from the exact sample given.
@@ -307,6 +312,73 @@ def _series_coefficients(z_bound: float, where: str) -> tuple[np.ndarray, np.nda
     return np.array(cosh), np.array(sinh)
 
 
+FOLD_CONSTANT_PAIRS = True
+"""Render a coupled pair with constant coefficients as its two plain modes (see
+:func:`_plain_modes`); False keeps the per-sample coupled update (for tests)."""
+
+_FOLD_MAX_CONDITION = 1e6
+"""Largest condition number of the eigenvectors for which a pair is folded; nearer
+an exceptional point the per-sample update is kept."""
+
+
+def _plain_modes(pair: ModePair, extra_rates_per_s: np.ndarray, nyquist_hz: float):
+    """Return the pair as two plain decaying modes, exactly, or None.
+
+    With ``mu``, ``weight_2`` and both decays constant, ``a' = A a`` with
+    ``A = [[s1, i mu], [i mu, s2]]`` has the solution ``a(t) = sum_k c_k V_k
+    exp(lam_k t)``, ``c = V^-1 a(0)``.  With ``m = (s1 + s2)/2``, ``d = (s1 -
+    s2)/2`` and ``q = sqrt(d^2 - mu^2)``, ``B = A - m I`` has ``B^2 = q^2 I``, so
+    ``lam = m +- q`` with eigenvectors ``(d +- q, i mu)`` or, equivalently,
+    ``(i mu, +-q - d)`` (the longer of the two is taken).  The output
+    ``Im(w1 a1 + w2 a2) = sum_k Im(b_k exp(lam_k t))``, ``b_k = (w . V_k) c_k``, is
+    then two modes of frequency ``Im lam_k / 2 pi``, decay ``-Re lam_k``,
+    amplitude ``|b_k|`` and phase ``arg b_k`` (a negative frequency flips the
+    signs of frequency and phase and of the amplitude).  A damping schedule that
+    adds the same decay to both members shifts both eigenvalues alike, as it does
+    for a plain mode.  None when a coefficient varies, the damping acts on one
+    member only, the coupling is faster than a pair may be rendered at all
+    (:data:`PAIR_MAX_COUPLING_PER_SAMPLE`: refused later, as for any pair), the
+    eigenvectors are ill-conditioned (near an exceptional point) or a mode would
+    not decay or would reach ``nyquist_hz``.
+
+    Returns
+    -------
+    (frequency_hz, decay_per_s, amplitude, phase_rad) : four arrays of 2, or None
+    """
+    if (callable(pair.coupling_rad_s) or callable(pair.weight_2)
+            or pair.decay_2_curve is not None
+            or abs(pair.coupling_rad_s) > PAIR_MAX_COUPLING_PER_SAMPLE * 2 * nyquist_hz
+            or (not (pair.damped[0] and pair.damped[1]) and np.any(extra_rates_per_s > 0))):
+        return None
+    s1 = complex(-pair.decay_per_s[0], 2 * math.pi * pair.frequency_hz[0])
+    s2 = complex(-pair.decay_per_s[1], 2 * math.pi * pair.frequency_hz[1])
+    mu = float(pair.coupling_rad_s)
+    m, d = 0.5 * (s1 + s2), 0.5 * (s1 - s2)
+    q = np.sqrt(complex(d * d - mu * mu))
+    lam = np.array([m + q, m - q])
+    vec = np.empty((2, 2), dtype=complex)
+    for k, sign in enumerate((1.0, -1.0)):
+        u = np.array([d + sign * q, 1j * mu])
+        v = np.array([1j * mu, sign * q - d])
+        best = u if np.linalg.norm(u) >= np.linalg.norm(v) else v
+        norm = np.linalg.norm(best)
+        if norm == 0.0:
+            return None
+        vec[:, k] = best / norm
+    cond = float(np.linalg.cond(vec))
+    if not (math.isfinite(cond) and cond < _FOLD_MAX_CONDITION):
+        return None
+    a0 = np.array([pair.amplitude[0] * np.exp(1j * pair.phase_rad[0]),
+                   pair.amplitude[1] * np.exp(1j * pair.phase_rad[1])])
+    b = (np.array([pair.weight_1, pair.weight_2]) @ vec) * np.linalg.solve(vec, a0)
+    omega = lam.imag
+    decay = -lam.real
+    if np.any(decay < 0.0) or np.any(np.abs(omega) >= 2 * math.pi * nyquist_hz):
+        return None
+    sign = np.where(omega < 0.0, -1.0, 1.0)
+    return (np.abs(omega) / (2 * math.pi), decay, sign * np.abs(b), sign * np.angle(b))
+
+
 class _Prepared:
     """Validated, unpacked voice with its running state for one render."""
 
@@ -334,22 +406,44 @@ class _Prepared:
                 "channels"
             )
         self.max_gain = float(np.max(np.abs(self.gains)))
-        self.cycles = bank.frequency_hz / sample_rate
-        self.decay_per_sample = bank.decay_per_s / sample_rate
-        self.amplitude = bank.amplitude
-        self.phase = bank.phase_rad
-        self.n_modes = bank.n_modes
-        self.state = np.zeros((2, bank.n_modes))       # Re, Im of each mode
-        self.clock = np.array([0, -1], dtype=np.int64)  # state's voice clock, last anchor
-        self.abs_amp = np.abs(bank.amplitude)
         self.segments = _Segments(voice, sample_rate)
+        freq, decay = bank.frequency_hz, bank.decay_per_s
+        amp, phase = bank.amplitude, bank.phase_rad
+        pairs = []
+        # The ring-out level (``_level``) of a folded pair stays the pair's own
+        # (state magnitude at its slowest member's decay), so render lengths are
+        # those of the per-sample update.
+        self.n_bank = bank.n_modes
+        self.folded = []
+        for pair in voice.pairs:
+            plain = (_plain_modes(pair, self.segments.extra_per_s, nyq)
+                     if FOLD_CONSTANT_PAIRS else None)
+            if plain is None:
+                pairs.append(pair)
+            else:  # two plain modes, rendered with the bank
+                self.folded.append((np.array(pair.decay_per_s, dtype=np.float64),
+                                    np.array(pair.damped, dtype=np.float64),
+                                    math.hypot(*pair.amplitude)))
+                freq, decay, amp, phase = (np.concatenate([x, y]) for x, y in
+                                           zip((freq, decay, amp, phase), plain, strict=True))
+        self.cycles = freq / sample_rate
+        self.decay_per_s = decay  # the bank's modes and the folded pairs' modes
+        self.decay_per_sample = decay / sample_rate
+        self.amplitude = amp
+        self.phase = phase
+        self.n_modes = freq.size
+        self.state = np.zeros((2, self.n_modes))       # Re, Im of each mode
+        self.clock = np.array([0, -1], dtype=np.int64)  # state's voice clock, last anchor
+        self.abs_amp = np.abs(amp)
         self.pairs = [_PairState(p, sample_rate, where, self.segments.extra_per_s)
-                      for p in voice.pairs]
+                      for p in pairs]
         self.bank_bound = float(self.abs_amp.sum())
-        self.level0 = self.bank_bound + sum(p.norm0 for p in self.pairs)
+        self.level0 = (float(self.abs_amp[:self.n_bank].sum()) + sum(p.norm0 for p in self.pairs)
+                       + sum(norm0 for _, _, norm0 in self.folded))
         # slowest decay any part of the voice can have (damping only adds to it), 1/s
-        rates = list(bank.decay_per_s) + [min(p.g1, p.g2) for p in self.pairs]
+        rates = list(decay) + [min(p.g1, p.g2) for p in self.pairs]
         self.slowest_per_s = float(min(rates)) if rates else 0.0
+        self.batched = False   # last rendered in a batch: the bank state is stale
         self.curve_seen = 0.0  # largest gain-curve value met so far
         self.next_check = 0    # output sample of the next retirement check
         self.last_check: tuple[int, float] | None = None  # (sample, bound) of the last one
@@ -381,10 +475,14 @@ class _Prepared:
     # level on the voice clock re its start, for ring_out_sample; never increases
     def _level(self, m: int, sample_rate: float) -> float:
         nep = float(self.segments.nepers_at(m))
-        level = float(np.sum(self.abs_amp * np.exp(-self.decay_per_sample * m - nep)))
+        nb = self.n_bank
+        level = float(np.sum(self.abs_amp[:nb] * np.exp(-self.decay_per_sample[:nb] * m - nep)))
         for p in self.pairs:
             g = p.decay / sample_rate * m + p.damped * nep
             level += p.norm0 * math.exp(-float(np.min(g)))
+        for decay, damped, norm0 in self.folded:
+            g = decay / sample_rate * m + damped * nep
+            level += norm0 * math.exp(-float(np.min(g)))
         return level
 
     def _silent_from(self, end: int, level_db: float, sample_rate: float) -> int:
@@ -627,8 +725,21 @@ def _stream(voices, order, n_samples, n_ch, block_size, gain, dtype, sample_rate
                 active.sort(key=lambda p: p.index)  # sum in list order, whatever the blocks
             piece = buf[c0 - b0:c1 - b0]
             bound = 0.0
+            batch: dict[tuple[int, int], list[_Prepared]] = {}
             for p in active:
+                lo, hi = max(c0, p.start), min(c1, p.end)
+                if BATCH_BANKS and _batchable(p, lo, hi):
+                    for m_a, m_b, _ in p.segments.pieces(lo - p.start, hi - p.start):
+                        batch.setdefault((p.start + m_a, p.start + m_b), []).append(p)
+                    bound += p.bank_bound
+                    p.batched = True
+                    continue
+                if p.batched:
+                    _reanchor(p, max(c0, p.start) - p.start)
+                    p.batched = False
                 bound += _render_voice(p, piece, c0, c1, sample_rate)
+            for (lo, hi), group in batch.items():
+                _render_batch(group, piece, lo - c0, lo, hi)
             peak = _max_abs(piece)
             if not (peak <= bound * _RUNAWAY_MARGIN):
                 names = ", ".join(p.where for p in active[:4]) + (" ..." if len(active) > 4
@@ -694,6 +805,50 @@ def _schedule(p: _Prepared, t: int, bound: float, room: float) -> None:
         nxt = min(nxt, -(-change // RETIRE_EVERY) * RETIRE_EVERY)
     p.next_check = max(nxt, t + RETIRE_EVERY)
     p.last_check = (t, bound)
+
+
+BATCH_BANKS = True
+"""Render the plain modes of every voice without a gain curve or a coupled pair in
+one kernel call per stretch of a piece between damping changes
+(:func:`_render_batch`); False renders each voice on its own (for tests)."""
+
+
+def _batchable(p: _Prepared, lo: int, hi: int) -> bool:
+    """Whether voice ``p`` can join the batch for output samples ``lo .. hi-1``.
+
+    Its modes then go into one call per stretch between its damping changes.
+    """
+    return hi > lo and not p.pairs and p.voice.gain_curve is None and p.n_modes > 0
+
+
+def _render_batch(group: list[_Prepared], buf: np.ndarray, o0: int, lo: int, hi: int) -> None:
+    """Add the modes of every voice in ``group`` for output samples ``lo .. hi-1``, one call."""
+    parts = []
+    for p in group:
+        seg = p.segments
+        i = seg.index(lo - p.start)
+        n = p.n_modes
+        parts.append((np.full(n, p.gains[0]), np.full(n, p.gains[-1]), p.cycles,
+                      p.decay_per_sample, p.amplitude, p.phase,
+                      np.full(n, p.start, dtype=np.int64),
+                      np.full(n, seg.start_m[i], dtype=np.int64), np.full(n, seg.nepers[i]),
+                      np.full(n, seg.extra_per_sample[i])))
+    arrays = [np.ascontiguousarray(np.concatenate(column)) for column in zip(*parts,
+                                                                              strict=True)]
+    kernels._banks_add(buf, o0, lo, hi, *arrays, ANCHOR_EVERY)
+
+
+def _reanchor(p: _Prepared, m: int) -> None:
+    """Set the bank state of voice ``p`` to its closed form at voice clock ``m``."""
+    seg = p.segments
+    i = seg.index(m)
+    nep = seg.nepers[i] + seg.extra_per_sample[i] * (m - seg.start_m[i])
+    mag = p.amplitude * np.exp(-p.decay_per_sample * m - nep)
+    cyc = p.cycles * m
+    ph = 2.0 * math.pi * (cyc - np.floor(cyc)) + p.phase
+    p.state[0] = mag * np.cos(ph)
+    p.state[1] = mag * np.sin(ph)
+    p.clock[:] = (m, m)
 
 
 def _render_voice(p: _Prepared, buf: np.ndarray, b0: int, b1: int, sample_rate: float) -> float:
@@ -893,7 +1048,7 @@ def peak_bound(
         if v.gain_curve is not None and v.gain_curve_max is None:
             return None
         scale = p.max_gain * (1.0 if v.gain_curve is None else v.gain_curve_max)
-        for a, g in zip(p.abs_amp, v.modes.decay_per_s, strict=True):
+        for a, g in zip(p.abs_amp, p.decay_per_s, strict=True):
             terms.append((p.start, float(a) * scale, float(g)))
         for ps in p.pairs:
             if callable(ps.pair.weight_2) and ps.pair.weight_2_max is None:

@@ -75,7 +75,6 @@ from dataclasses import dataclass, field
 from functools import lru_cache
 
 import numpy as np
-import scipy.linalg
 from threadpoolctl import ThreadpoolController
 
 from synth.errors import ModelError
@@ -91,10 +90,13 @@ _THREADS: ThreadpoolController | None = None
 def one_blas_thread():
     """Context manager limiting BLAS to one thread (small eigenproblems run faster).
 
-    The controller is built once; building it scans the loaded libraries.
+    The controller is built once; building it scans the loaded libraries, so
+    scipy's own BLAS is loaded first (it is imported lazily elsewhere).
     """
     global _THREADS
     if _THREADS is None:
+        import scipy.linalg  # noqa: F401  (its BLAS must be loaded to be limited)
+
         _THREADS = ThreadpoolController()
     return _THREADS.limit(limits=1, user_api="blas")
 _RIGID = {"vertical": 3, "lateral": 2, "torsional": 1}
@@ -916,6 +918,8 @@ def _eig(K: np.ndarray, nodal: np.ndarray, n_skip: int, n_modes: int, vectors: b
     dk = _apply_rows(scale, extra, nn, K)
     c = _apply_rows(scale, extra, nn, dk.T)  # D K D^T = D (D K)^T, K symmetric
     floor = float(np.finfo(float).eps * np.max(np.sum(np.abs(c), axis=1)))
+    import scipy.linalg  # here, not at the top: a cached voice plan never solves
+
     if not vectors:
         lam = scipy.linalg.eigh(c, subset_by_index=[0, hi], driver="evr",
                                 check_finite=False, eigvals_only=True)
@@ -1258,6 +1262,8 @@ def dense_reference_frequencies(bar: BarGeometry, material: Material,
     The benchmark's reference: the same model and mesh, solved the plain way
     (general dense problem, every eigenvalue and vector).
     """
+    import scipy.linalg
+
     sec = _sections(bar, material, mesh)
     out = {}
     with one_blas_thread():

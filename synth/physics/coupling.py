@@ -86,7 +86,6 @@ import math
 from dataclasses import dataclass, replace
 
 import numpy as np
-from scipy.linalg import solve_continuous_lyapunov
 
 from synth.config import checked_number
 from synth.constants import AIR_DENSITY_20C_KG_M3, CENTS_PER_NEPER, LN_1000
@@ -486,6 +485,8 @@ class CoupledPair:
         a0 = np.array([math.sqrt(strike_energy_j), 0.0], dtype=complex)
         if self.bar_decay_per_s <= 0 and self.tube_decay_per_s <= 0:
             raise ModelError("radiated energy: a lossless pair rings for ever")
+        from scipy.linalg import solve_continuous_lyapunov  # only here: scipy loads slowly
+
         x = solve_continuous_lyapunov(self.matrix, -np.outer(a0, a0.conj()))
         return float(2.0 * self.bar_radiation_decay_per_s * x[0, 0].real
                      + 2.0 * self.tube_radiation_decay_per_s * x[1, 1].real)

@@ -54,13 +54,14 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
+from functools import cache
 
 import numpy as np
 
 from synth.config import Section
 from synth.constants import LN_1000
 from synth.errors import ConfigError
-from synth.physics.bar_fe import BarModes, Mode
+from synth.physics.bar_fe import BarModes, Mode, one_blas_thread
 from synth.physics.tube import air_density, dynamic_viscosity, speed_of_sound
 from synth.pitch import canonical_note
 
@@ -124,11 +125,11 @@ class Calibration:
     keys win (:func:`synth.physics.tube.with_file_calibration`)."""
 
     def factor(self, term: str) -> float:
-        """The scale of one term (1 when not calibrated)."""
+        """Return the scale of one term (1 when not calibrated)."""
         return self.factors.get(term, 1.0)
 
     def override(self, note: str | None, kind: str, order: int) -> float | None:
-        """A Q set outright for this mode, if any."""
+        """Return the Q set outright for this mode, if any."""
         return self.overrides.get((note or "*", kind, order), self.overrides.get(
             ("*", kind, order)))
 
@@ -342,12 +343,24 @@ def zener_eta(frequency_hz: float, thickness_m: float, material,
     return float(delta * wt / (1 + wt**2))
 
 
+@cache
+def _gauss_legendre(n: int) -> tuple[np.ndarray, np.ndarray]:
+    # numpy finds the nodes by an eigensolve of the companion matrix: once per n.
+    x, w = np.polynomial.legendre.leggauss(n)
+    x.flags.writeable = False
+    w.flags.writeable = False
+    return x, w
+
+
+@cache
 def _quadrature(length: float, n: int) -> tuple[np.ndarray, np.ndarray]:
-    g, w = np.polynomial.legendre.leggauss(8)
+    g, w = _gauss_legendre(8)
     edges = np.linspace(0.0, length, n // 8 + 1)
     a, b = edges[:-1, None], edges[1:, None]
     x = (0.5 * (a + b) + 0.5 * (b - a) * g[None, :]).ravel()
     wt = (0.5 * (b - a) * w[None, :]).ravel()
+    x.flags.writeable = False
+    wt.flags.writeable = False
     return x, wt
 
 
@@ -358,22 +371,23 @@ def radiation_eta(mode: Mode, geometry, material, temperature_c: float = 20.0,
     c0 = speed_of_sound(temperature_c)
     om = mode.angular_frequency
     k = om / c0
-    xq, wq = _quadrature(geometry.length_m, n_points)
+    xq, wq = _quadrature(float(geometry.length_m), n_points)
+    shape = mode.shape_at(xq)  # evaluated once: the line strength and the ceiling share it
     h = geometry.thickness_at(xq)
     b = geometry.width_m
     # Directions: u = cosine of the angle to the bar's axis, phi = azimuth about it.
     # The line's far field depends on u only; the dipole factor n_z (or n_y) squared
     # integrates over phi to pi (1 - u^2), so bending needs a 1-D integral over u.
-    u, wu = np.polynomial.legendre.leggauss(64)
+    u, wu = _gauss_legendre(64)
     phase_x = np.exp(1j * k * np.outer(u, xq))  # (n_u, n_x)
     if mode.kind in ("vertical", "lateral"):
         cross = b**2 if mode.kind == "vertical" else h**2
-        strength = (b * h + math.pi * cross / 4.0) * om * mode.shape_at(xq)
+        strength = (b * h + math.pi * cross / 4.0) * om * shape
         line = phase_x @ (wq * strength)
         directional = np.sum(wu * np.abs(line) ** 2 * math.pi * (1.0 - u**2))
     else:
         half = 0.5 * b
-        strength = (half * h + math.pi * half**2 / 4.0) * om * mode.shape_at(xq) * (b / 4.0)
+        strength = (half * h + math.pi * half**2 / 4.0) * om * shape * (b / 4.0)
         line = phase_x @ (wq * strength)
         phi = np.linspace(0.0, 2 * math.pi, 48, endpoint=False)
         sin_t = np.sqrt(1.0 - u**2)[:, None]
@@ -382,17 +396,18 @@ def radiation_eta(mode: Mode, geometry, material, temperature_c: float = 20.0,
         across = 4.0 * np.sin(k * ny * b / 4.0) ** 2  # |e^{ix} - e^{-ix}|^2
         per_u = np.mean(across * nz**2, axis=1) * 2 * math.pi
         directional = np.sum(wu * np.abs(line) ** 2 * per_u)
-    # far field p r = rho0 c k^2 (dipole volume x velocity) cos / (4 pi); power = int |p r|^2 /(2 rho0 c)
+    # far field p r = rho0 c k^2 (dipole volume x velocity) cos / (4 pi);
+    # power = int |p r|^2 /(2 rho0 c)
     power = float((rho0 * c0 * k**2 / (4.0 * math.pi)) ** 2 * directional / (2.0 * rho0 * c0))
     energy = 0.5 * mode.modal_mass * om**2  # unit modal amplitude
     compact = power / (om * energy)
     # ceiling: both faces radiating with unit efficiency, P = rho0 c S <v^2>
     if mode.kind == "vertical":
-        surface = b * np.sum(wq * mode.shape_at(xq) ** 2)
+        surface = b * np.sum(wq * shape**2)
     elif mode.kind == "lateral":
-        surface = np.sum(wq * h * mode.shape_at(xq) ** 2)
+        surface = np.sum(wq * h * shape**2)
     else:
-        surface = b**3 / 12.0 * np.sum(wq * mode.shape_at(xq) ** 2)
+        surface = b**3 / 12.0 * np.sum(wq * shape**2)
     ceiling = 2.0 * rho0 * c0 * surface * om**2 / 2.0 / (om * energy)
     return 1.0 / (1.0 / compact + 1.0 / ceiling) if compact > 0 else 0.0
 
@@ -442,17 +457,23 @@ def loss_budget(modes: BarModes, *, supports: Supports | None = None,
     cal = calibration or Calibration()
     geo, mat = modes.geometry, modes.material
     cords = supports.positions(modes)
-    out = []
-    for m in modes.modes:
-        raw = {
-            "internal": mat.loss_factor,
-            "thermoelastic": thermoelastic_eta(m, geo, mat, temperature_c),
-            "radiation": radiation_eta(m, geo, mat, temperature_c),
-            "cords": cord_eta(m, geo, cords, supports.cord_loss_n_s_m),
-            "air": air_eta(m, geo, mat, temperature_c),
-            "tube": (tube_eta or {}).get((m.kind, m.order), 0.0),
-        }
-        terms = {k: v * cal.factor(k) for k, v in raw.items()}
-        out.append(ModeLoss(m.kind, m.order, m.frequency_hz, terms,
-                            cal.override(note, m.kind, m.order)))
+    with one_blas_thread():  # small products: a second BLAS thread only contends
+        out = [_mode_loss(m, geo, mat, cords, supports, cal, temperature_c, note, tube_eta)
+               for m in modes.modes]
     return out
+
+
+def _mode_loss(m: Mode, geo, mat, cords, supports: Supports, cal: Calibration,
+               temperature_c: float, note: str | None,
+               tube_eta: dict[tuple[str, int], float] | None) -> ModeLoss:
+    raw = {
+        "internal": mat.loss_factor,
+        "thermoelastic": thermoelastic_eta(m, geo, mat, temperature_c),
+        "radiation": radiation_eta(m, geo, mat, temperature_c),
+        "cords": cord_eta(m, geo, cords, supports.cord_loss_n_s_m),
+        "air": air_eta(m, geo, mat, temperature_c),
+        "tube": (tube_eta or {}).get((m.kind, m.order), 0.0),
+    }
+    terms = {k: v * cal.factor(k) for k, v in raw.items()}
+    return ModeLoss(m.kind, m.order, m.frequency_hz, terms,
+                    cal.override(note, m.kind, m.order))

@@ -628,6 +628,47 @@ class _Contact:
         return s + (h / 6.0) * (k1 + 2.0 * k2 + 2.0 * k3 + k4), f0
 
 
+_SEPARATED, _CLEAR, _EXHAUSTED = 1, 2, 3
+
+
+def _run_steps(s, s_new, work, forces, status, peak, dt, max_steps, coeffs, modal) -> None:
+    """Step the head + modes system until an event; the reference of the compiled loop.
+
+    From step ``status[0]`` on, RK4 steps of ``dt`` until the head separates from
+    the bar (``status[1] = 1``: ``s`` is the state before that step, ``s_new``
+    after it), or, once a separation has been seen (``status[4]``), until the
+    head moves away above the highest point the freely vibrating bar can reach
+    (2), or until ``max_steps`` (3).  ``forces[i]`` receives the force at the
+    start of step ``i``; a re-contact sets ``status[2]`` and counts in
+    ``status[3]``; ``peak[0]`` keeps the largest compression.  ``coeffs`` holds
+    K, p, lambda and 1/m, ``modal`` the rows phi, phi/M, om^2, 2 g, 2 g M, |phi|,
+    damped angular frequency and g.  ``work`` is scratch of shape (5, state size).
+    """
+    n = modal.shape[1]
+    c = _Contact.__new__(_Contact)
+    c.k, c.p, c.lam, c.inv_m = (float(x) for x in coeffs)
+    c.n = n
+    c.phi, c.phi_over_mass, c.om2, c.two_g, c.two_g_mass = modal[:5]
+    om_d, g = modal[6], modal[7]
+    in_contact, ended, n_contacts = bool(status[2]), bool(status[4]), int(status[3])
+    for i in range(int(status[0]), max_steps):
+        stepped, forces[i] = c.step(s, dt)
+        s_new[:] = stepped
+        d_new, _ = c.compression(s_new)
+        peak[0] = max(peak[0], d_new)
+        if in_contact and d_new <= 0.0:
+            status[:4] = (i, _SEPARATED, 1, n_contacts)
+            return
+        if not in_contact and d_new > 0.0:
+            in_contact = True
+            n_contacts += 1
+        s[:] = s_new
+        if not in_contact and ended and s[1] < 0.0 and s[0] < -_envelope_m(s, c, om_d, g):
+            status[:4] = (i, _CLEAR, 0, n_contacts)
+            return
+    status[:4] = (max_steps, _EXHAUSTED, int(in_contact), n_contacts)
+
+
 def _envelope_m(s: np.ndarray, c: _Contact, om_d: np.ndarray, g: np.ndarray) -> float:
     """Upper bound of the bar's displacement at the strike point from now on, m."""
     n = c.n
@@ -648,6 +689,7 @@ def simulate_contact(
     decay_per_s: Any = None,
     max_step_s: float | None = None,
     max_time_s: float = 0.05,
+    runner: Any = None,
 ) -> ContactResult:
     """Strike a bar, given by its modes at the strike point, with a mallet.
 
@@ -677,6 +719,11 @@ def simulate_contact(
         of the shortest mode period.
     max_time_s : float
         Give up (ModelError) if the head is not clear of the bar after this long, s.
+    runner : callable, optional
+        Runs the fixed-step loop (contract of :func:`_run_steps`, which is the
+        default); the voice plan passes :func:`synth.engine.contact.run_contact`,
+        the same loop compiled.  Physics cannot import the engine, so the compiled
+        loop comes in as an argument.
 
     Returns
     -------
@@ -736,54 +783,58 @@ def simulate_contact(
     n = om.size
     s = np.zeros(5 + 2 * n)
     s[1] = v0
-    times = [0.0]
-    forces: list[float] = []
-    t = 0.0
-    in_contact = True
-    n_contacts = 1
+    coeffs = np.array([c.k, c.p, c.lam, c.inv_m])
+    modal = np.array([c.phi, c.phi_over_mass, c.om2, c.two_g, c.two_g_mass, np.abs(c.phi),
+                      om_d, g]).reshape(8, n)
+    s_new = np.empty_like(s)
+    work = np.empty((5, s.size))
+    forces = np.zeros(max_steps)
+    status = np.array([0, 0, 1, 1, 0], dtype=np.int64)  # step, event, in contact, contacts, ended
+    peak = np.zeros(1)
+    run = _run_steps if runner is None else runner
     end_state = None
-    max_compression = 0.0
     end_time = 0.0
     end_index = 0
-    for i in range(max_steps):
-        s_new, f0 = c.step(s, dt)
-        forces.append(f0)
-        d_new, _ = c.compression(s_new)
-        max_compression = max(max_compression, d_new)
-        if in_contact and d_new <= 0.0:
-            # Separation inside this step: find the step length where d = 0.
-            def compression_after(h: float, s0: np.ndarray = s) -> float:
-                return c.compression(c.step(s0, h)[0])[0]
-
-            h = (
-                dt
-                if d_new == 0.0
-                else bracketed_root(
-                    compression_after, 0.0, dt, xtol=1e-14 * dt, rtol=4 * np.finfo(float).eps
-                )
+    while True:
+        run(s, s_new, work, forces, status, peak, dt, max_steps, coeffs, modal)
+        i, event = int(status[0]), int(status[1])
+        if event == _EXHAUSTED:
+            raise ModelError(
+                f"mallet {mallet.name!r} at {v0:g} m/s has not left the bar after "
+                f"{max_time_s:g} s ({int(status[3])} contact(s)): the head is too heavy or too "
+                "soft for this bar to throw it back; raise max_time_s or check mass_kg and "
+                "stiffness"
             )
-            end_state = c.step(s, h)[0]
-            end_time = t + h
-            end_index = i + 1
-            in_contact = False
-        elif not in_contact and d_new > 0.0:
-            in_contact = True
-            n_contacts += 1
-        s = s_new
-        t = (i + 1) * dt
-        times.append(t)
-        if not in_contact and end_state is not None and s[1] < 0.0:
-            if s[0] < -_envelope_m(s, c, om_d, g):
-                break
-    else:
-        raise ModelError(
-            f"mallet {mallet.name!r} at {v0:g} m/s has not left the bar after "
-            f"{max_time_s:g} s ({n_contacts} contact(s)): the head is too heavy or too soft "
-            "for this bar to throw it back; raise max_time_s or check mass_kg and stiffness"
-        )
+        if event == _CLEAR:
+            break
+        # Separation inside step i: find the step length where d = 0.
+        d_new = c.compression(s_new)[0]
+        before = s.copy()
 
-    time_s = np.array(times[:end_index] + [end_time])
-    force_n = np.array(forces[:end_index] + [0.0])
+        def compression_after(h: float, s0: np.ndarray = before) -> float:
+            return c.compression(c.step(s0, h)[0])[0]
+
+        h = (
+            dt
+            if d_new == 0.0
+            else bracketed_root(
+                compression_after, 0.0, dt, xtol=1e-14 * dt, rtol=4 * np.finfo(float).eps
+            )
+        )
+        end_state = c.step(s, h)[0]
+        end_time = i * dt + h
+        end_index = i + 1
+        s[:] = s_new
+        status[2] = 0
+        status[4] = 1
+        if s[1] < 0.0 and s[0] < -_envelope_m(s, c, om_d, g):
+            break
+        status[0] = i + 1
+    n_contacts = int(status[3])
+    max_compression = float(peak[0])
+
+    time_s = np.array([k * dt for k in range(end_index)] + [end_time])
+    force_n = np.array(list(forces[:end_index]) + [0.0])
     q = end_state[5 : 5 + n].copy()
     qd = end_state[5 + n :].copy()
     # Free vibration referred to t = 0 (see Notes).

@@ -191,13 +191,15 @@ def test_runaway_output_is_muted_and_reported(monkeypatch):
     """Output above the voices' amplitude bound stops the render, bad block withheld."""
     from synth.engine import kernels
 
-    real = kernels._bank_add
+    def unstable(real):
+        def kernel(out, o0, *args):
+            real(out, o0, *args)
+            out[o0:] *= 1e6  # what a numerically unstable integrator would do
+        return kernel
 
-    def unstable(out, o0, *args):
-        real(out, o0, *args)
-        out[o0:] *= 1e6  # what a numerically unstable integrator would do
-
-    monkeypatch.setattr(kernels, "_bank_add", unstable)
+    # one voice alone or voices rendered together: both kernels
+    monkeypatch.setattr(kernels, "_bank_add", unstable(kernels._bank_add))
+    monkeypatch.setattr(kernels, "_banks_add", unstable(kernels._banks_add))
     v = Voice(0, ModeBank([440.0], [1.0], [0.5]), label="C4")
     with pytest.raises(ModelError, match=r"ran away at samples 0\.\.1023 .*voice C4"):
         next(iter(render_blocks([v], 4096, sample_rate=FS, block_size=1024)))
