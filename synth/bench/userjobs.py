@@ -2,7 +2,7 @@
 
 Kernel figures alone say little about what a user waits for (planning in Python,
 per-voice calls, file writing).  This suite times the jobs users run on the demo
-instrument (tarrow-37), in this process with one BLAS thread, by the CPU time
+instrument (lantern-street-bars), in this process with one BLAS thread, by the CPU time
 of this thread (steadier than wall time on a shared machine):
 
 * ``strike``: A4 struck once, 10 s;
@@ -114,7 +114,7 @@ NUMPY_BUDGET_MODE_SAMPLES = 3e8
 
 
 def _preset() -> Path:
-    return presets_dir() / "instruments" / "tarrow-37.toml"
+    return presets_dir() / "instruments" / "lantern-street-bars.toml"
 
 
 @contextmanager

@@ -97,10 +97,12 @@ def _player(presets: list[Path], *, sample_rate: int, channels: int, no_tubes: b
              motor_rate: float | None, layers: int, voices: int, gain_db: float, pedal: float,
              motor_top: float, motor_cc: int, switch_cc: int, workers: int | None):
     from synth.cli.cmd_sound import _voicer
+    from synth.cli.options import RenderOptions
     from synth.live import LivePlayer
 
-    voicers = [_voicer(p, sample_rate=sample_rate, channels=channels, no_tubes=no_tubes,
-                       motor_rate=motor_rate) for p in presets]
+    opts = RenderOptions(no_tubes=no_tubes, motor_rate=motor_rate, sample_rate=sample_rate,
+                         channels=channels)
+    voicers = [_voicer(p, opts) for p in presets]
     player = LivePlayer(voicers, n_layers=layers, n_voices=voices, gain_db=gain_db,
                           pedal=pedal, motor_top=motor_top, motor_cc=motor_cc,
                           design_cc=switch_cc, workers=workers)

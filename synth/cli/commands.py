@@ -7,10 +7,10 @@ checks the table against the commands the modules register.
 """
 
 COMMANDS: dict[str, tuple[str, str]] = {
-    "solid": ("synth.cli.cmd_solid", "Solve a bar as a 3-D elastic solid and set its "
-              "partials beside the 1-D model's."),
     "partials": ("synth.cli.cmd_bar", "Compute a bar's partials: frequency, ratio, nearest "
                  "note, cents and nodes."),
+    "solid": ("synth.cli.cmd_solid", "Solve a bar as a 3-D elastic solid and set its "
+              "partials beside the 1-D model's."),
     "tune": ("synth.cli.cmd_bar", "Solve every bar's length and undercut so partials 1-3 "
              "land on the target ratios."),
     "grind": ("synth.cli.cmd_bar", "Grind map: cents each partial moves per 0.1 mm removed "

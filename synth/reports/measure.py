@@ -466,7 +466,7 @@ def measure_signal(signal, sample_rate: float, *, recording: str = "signal",
         if slow is not None and slow.decay_per_s > 0 and \
                 slow.decay_se_per_s < DEMOD_MAX_SE * slow.decay_per_s:
             f, decay, how = slow.frequency_hz, slow.decay_per_s, "demodulated"
-            q, t60 = math.pi * f / decay, math.log(1000.0) / decay
+            q, t60 = math.pi * f / decay, LN_1000 / decay
             q_se = slow.decay_se_per_s / decay
         name, off = nearest_note(f, reference_hz)
         partials.append(MeasuredPartial(
@@ -1535,7 +1535,7 @@ def calibrate_tube(instrument: Instrument, note: str, *, tube_hz: float, bare: M
                                 bar_t60_with_tube_s=p_tube.t60_s,
                                 tube_frequency_hz=tm.frequency_hz, tube_q=tm.q)
     bar = replace(bar_model, frequency_hz=p_bare.frequency_hz,
-                  q=math.pi * p_bare.frequency_hz * p_bare.t60_s / math.log(1000.0))
+                  q=math.pi * p_bare.frequency_hz * p_bare.t60_s / LN_1000)
     unc = couple(bar, spec, temperature_c=temp, ka_correction=ka)
     cal = couple(bar, fitted, temperature_c=temp, ka_correction=ka)
     return TubeCalibration(

@@ -274,9 +274,11 @@ def voice_at_offset(voicer: Voicer, note: str, offset_cents: float) -> tuple[flo
     ts = voicer.tube_settings
     bar, template = model.coupling.bar, model.tube
     length = tube_length_for_bar(bar.frequency_hz, template, offset_cents=offset_cents,
-                                 temperature_c=voicer.temperature_c)
+                                 temperature_c=voicer.temperature_c,
+                                 ka_correction=ts.ka_correction)
     pair = coupling_at_offset(bar, template, offset_cents, temperature_c=voicer.temperature_c,
-                              coupling_calibration=ts.coupling_calibration).pair
+                              coupling_calibration=ts.coupling_calibration,
+                              ka_correction=ts.ka_correction).pair
     decay = float(pair.modes().decay_per_s[0])
     motor = voicer.motor
     if not (motor.rate_rev_per_s <= 0 and motor.resting == "open"):

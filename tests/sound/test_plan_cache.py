@@ -105,7 +105,7 @@ def test_key_is_the_same_in_another_process(demo) -> None:
     code = ("from synth.config import presets_dir\n"
             "from synth.physics.instrument import load_instrument\n"
             "from synth.voicing import Voicer\n"
-            "inst = load_instrument(presets_dir() / 'instruments' / 'tarrow-37.toml')\n"
+            "inst = load_instrument(presets_dir() / 'instruments' / 'lantern-street-bars.toml')\n"
             "print(Voicer(inst)._plan_key('note-model', 'A4'))\n")
     out = subprocess.run([sys.executable, "-c", code], cwd=ROOT, capture_output=True,
                          text=True, timeout=300,
