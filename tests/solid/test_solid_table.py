@@ -28,6 +28,7 @@ def tuned(tmp_path_factory) -> Path:
     folder = tmp_path_factory.mktemp("table")
     data = load_toml(DEMO)
     data.pop("bars")
+    data.pop("solid_correction", None)  # the demo's own table: built again below
     data["lowest_note"], data["highest_note"] = "A4", "D5"
     short = folder / "short.toml"
     short.write_bytes(tomli_w.dumps(data).encode("utf-8"))
