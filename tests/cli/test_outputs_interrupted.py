@@ -55,11 +55,22 @@ def _written_temporaries(folder: Path) -> list[str]:
     return [n for n in temporaries(folder) if not n.startswith(".write-test.")]
 
 
+def _default_signals() -> None:
+    """Give the child the signal dispositions of a command typed at a terminal.
+
+    A test run started in the background by a non-interactive shell (as CI may be)
+    ignores SIGINT, and an ignored signal stays ignored across exec; Python then
+    installs no Ctrl-C handler and the child would never see the interrupt.
+    """
+    signal.signal(signal.SIGINT, signal.SIG_DFL)
+    signal.signal(signal.SIGTERM, signal.SIG_DFL)
+
+
 def _start_and_kill(args, out: Path, cwd: Path, sig: int) -> tuple[subprocess.Popen, str]:
     env = {**os.environ, "PYTHONPATH": str(SOURCE_ROOT)}
     proc = subprocess.Popen([sys.executable, "-c", HOLD_BEFORE_COMMIT, *map(str, args)],
                             cwd=cwd, env=env, stdout=subprocess.DEVNULL,
-                            stderr=subprocess.PIPE, text=True)
+                            stderr=subprocess.PIPE, text=True, preexec_fn=_default_signals)
     try:
         deadline = time.monotonic() + WAIT_FOR_TEMPORARY_S
         while not _written_temporaries(out):
