@@ -14,7 +14,7 @@ import types
 import mido
 import numpy as np
 import pytest
-from conftest import DEMO
+from realtime_common import DEMO
 from typer.testing import CliRunner
 
 from synth.cli import app

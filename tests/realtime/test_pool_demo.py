@@ -16,7 +16,7 @@ from pathlib import Path
 import mido
 import numpy as np
 import pytest
-from conftest import DEMO, demo_voicer, planned
+from realtime_common import DEMO, demo_voicer, planned
 from rt_helpers import rounding_bound, run_pool, set_gain_now
 
 from synth.engine import render

@@ -17,7 +17,7 @@ import math
 
 import numpy as np
 import pytest
-from conftest import heterodyne_fit
+from sound_fits import heterodyne_fit
 
 from synth.engine.render import render
 from synth.voicing import Voicer
