@@ -165,6 +165,17 @@ LIMITS: Final[dict[str, Limit]] = {
     "solid.factor": Limit(0.5, 2.0),
     "solid.mesh_level": Limit(1, 8),
     "solid.estimated_error": Limit(0.0, 0.1),
+    # -- stiffness calibration from a prototype bar ([stiffness] of a calibration file):
+    # handbook moduli of one alloy differ by a few percent between batches (from
+    # memory); a factor of 2 in E is another alloy, not a calibration.  What the
+    # modulus leaves per partial is a model gap of a few tens of cents at most (the
+    # 1-D vs 3-D gaps, physics.md); 0.8-1.25 (about +-390 cents) is far outside it
+    "stiffness.scale": Limit(0.5, 2.0),
+    "stiffness.factor": Limit(0.8, 1.25),
+    "stiffness.uncertainty": Limit(0.0, 1.0),
+    "stiffness.frequency_hz": Limit(1.0, 1e5, "Hz"),
+    "stiffness.tolerance_hz": Limit(0.0, 1e3, "Hz"),
+    "stiffness.residual_cents": Limit(-400.0, 400.0, "cents"),
     # -- event lists: a passage of at most MAX_SCORE_S
     "score.time_s": Limit(0.0, MAX_SCORE_S, "s"),
     "score.beat": Limit(0.0, 1e6, "beats"),

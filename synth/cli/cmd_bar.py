@@ -200,6 +200,18 @@ MAX_RATIO = 50.0
 """Highest target ratio --ratios takes (partial 5 of a plain bar sits near 33)."""
 
 
+def _changes_table(changes) -> str:
+    """Per bar: calibrated minus uncalibrated length, undercut depth and thinnest section."""
+    rows = [(c.note, f"{c.before.geometry.length_m * 1e3:.1f}",
+             f"{c.after.geometry.length_m * 1e3:.1f}", f"{c.length_mm:+.2f}",
+             "-" if np.isnan(c.depth_mm) else f"{c.depth_mm:+.3f}", f"{c.thinnest_mm:+.3f}")
+            for c in changes]
+    return format_table(["note", "length mm uncal.", "length mm cal.", "length change mm",
+                         "depth change mm", "thinnest change mm"], rows, align="lrrrrr",
+                        title="what the stiffness calibration changes (calibrated minus "
+                              "uncalibrated design)")
+
+
 def _parse_ratios(text: str | None) -> tuple[float, ...] | None:
     if text is None:
         return None
@@ -254,6 +266,13 @@ def tune_command(
                                    "re-tune every bar through it, and store it in --out "
                                    "as [solid_correction]. Tunes the whole range.")
     ] = False,
+    calibration: Annotated[Path | None, typer.Option(
+        help="Calibration file with a [stiffness] table (measure --calibrate): re-tune with "
+             "its effective Young's modulus and vertical 1-3 factors, on top of the 3-D "
+             "table, and show per bar the change in mm of length and undercut depth against "
+             "the uncalibrated design. Default: the file the preset's [damping] "
+             "calibration_file names, when it holds [stiffness].", show_default=False)
+    ] = None,
     anchor_step: Annotated[int, typer.Option(
         min=1, max=24, metavar="SEMITONES",
         help="Anchor spacing of --correction-table (both ends are always anchors).")] = 6,
@@ -276,7 +295,11 @@ def tune_command(
     --workers, --scheduler and --cache apply to the 3-D solves of --solid and
     --correction-table. A preset with a [solid_correction] table is tuned through it
     (1-D targets divided by the interpolated 3-D/1-D factors), and the residuals are
-    the table's predictions; the command says so.
+    the table's predictions; the command says so. With a stiffness calibration
+    (--calibration FILE, or the [stiffness] table of the calibration file the
+    preset names) every bar is tuned to target / (3-D factor x sqrt(E_eff/E) x
+    partial factor), and a second table says what that changed per bar against
+    the uncalibrated design: mm of length and of undercut depth.
     """
     import time
 
@@ -301,7 +324,23 @@ def tune_command(
     if correction_table and note:
         raise ConfigError("= true: builds the table from the whole range; drop --note",
                           source="--correction-table")
-    if correction_table:
+    from synth.physics.stiffness import stiffness_of
+
+    stiffness = stiffness_of(inst, calibration)
+    changes = None
+    if stiffness is not None and (solid or correction_table):
+        raise ConfigError(
+            f"= true: cannot be combined with a stiffness calibration ("
+            f"{'--calibration' if calibration else 'the preset names ' + stiffness.source}) "
+            "yet; tune with the calibration through the 3-D table instead",
+            source="--solid" if solid else "--correction-table")
+    if stiffness is not None:
+        from synth.physics.solid_tuning import tune_calibrated
+
+        with Progress(2 * len(notes), "tuning") as step:
+            results, changes = tune_calibrated(inst, notes, table, stiffness, ratios=target,
+                                               progress=lambda n: step(1, n))
+    elif correction_table:
         results, table, anchor_miss = build_correction_table(
             inst, ratios=target, step=anchor_step, level=level, accuracy=wanted,
             workers=workers, scheduler=scheduler, cache=cache)
@@ -345,7 +384,8 @@ def tune_command(
         import tomli_w
 
         header = (f"# {inst.name}: tuned by barwright from {preset.name}\n"
-                  f"# every [bars.*] table below is a solved bar; sizes in metres\n")
+                  f"# every [bars.*] table below is a solved bar; sizes in metres\n"
+                  + (f"# tuned with the {stiffness.describe()}\n" if stiffness else ""))
         tuned = tuned_preset(inst, results)
         if table is not None and not solid:
             tuned["solid_correction"] = table.to_table()
@@ -373,7 +413,11 @@ def tune_command(
                     **({"solid_correction": table.to_table()}
                        if table is not None and not solid else {}),
                     **({"anchor_residual_cents": {a: list(v) for a, v in anchor_miss.items()}}
-                       if anchor_miss else {})})
+                       if anchor_miss else {}),
+                    **({"stiffness_calibration": {
+                        "source": stiffness.source, "youngs_modulus_scale": stiffness.youngs_scale,
+                        "factors": list(stiffness.factors),
+                        "changes": [c.to_dict() for c in changes]}} if changes else {})})
         _exit_if_missed(worst)
         return
     n_p = max(len(r.spec.ratios) for r in results)
@@ -411,6 +455,10 @@ def tune_command(
     if shop:
         typer.echo(f"'at {shop_c:g} C': what partial 1 reads in the shop when the bar is in tune "
                    f"at {inst.temperature_c:g} C.")
+    if changes:
+        typer.echo("")
+        typer.echo(_changes_table(changes))
+        typer.echo(_sentence(stiffness.describe()))
     if solid:
         typer.echo(solid_summary(solid_runs))
     elif table is not None:

@@ -112,12 +112,18 @@ def measure_command(
         min=1, max=64, help="Analyse this channel only (1 = first); default: the mean of all.")
     ] = None,
     calibrate: Annotated[Path | None, typer.Option(
-        "--calibrate", help="Instrument preset whose loss factors to fit to this recording "
-                            "of --note; writes the calibration file --out.",
+        "--calibrate", help="Instrument preset whose loss factors, effective Young's modulus "
+                            "and vertical 1-3 factors to fit to this recording of --note; "
+                            "writes the calibration file --out.",
         show_default=False)] = None,
     out: Annotated[Path | None, typer.Option(
-        help="Calibration file to write (TOML), with --calibrate.")] = None,
-    force: Annotated[bool, typer.Option(help="Overwrite --out if it exists.")] = False,
+        help="Calibration file to write (TOML), with --calibrate; an existing calibration "
+             "file (e.g. from tubecal) gets the [damping] and [stiffness] tables added.")
+    ] = None,
+    force: Annotated[bool, typer.Option(
+        help="Replace the [damping] and [stiffness] tables of --out if it holds them (a "
+             "[tubes] table from tubecal is kept either way); with a folder, overwrite "
+             "--plot.")] = False,
     keep_overrides: Annotated[bool, typer.Option(
         "--keep-overrides", help="When no loss factor is identifiable from the recording, "
                                  "still write --out with per-mode Q overrides for the note "
@@ -150,6 +156,13 @@ def measure_command(
     table (calibration_file = "..."). Record with the motor stopped. When no
     factor is identifiable the command says so first and exits with code 3; it
     then writes the file (per-mode Q overrides) only with --keep-overrides.
+
+    From vertical partials 1-3 it also fits the effective Young's modulus (one
+    scale on E, least squares in log-frequency) and what is left per partial
+    after it; both multiply on top of the preset's 3-D correction table, go to
+    the file's [stiffness] table, and `barwright tune` re-tunes the range with
+    them. An existing calibration file (from tubecal) gets the tables added; a
+    table it already holds is replaced only with --force.
     """
     from synth.reports.measure import calibrate as fit_calibration
     from synth.reports.measure import measure_file, write_calibration
@@ -164,14 +177,17 @@ def measure_command(
         return
     if plot is not None:
         raise ConfigError("is only used when RECORDING is a folder", source="--plot")
-    instrument = None
+    instrument = target = None
     if note is not None:
         _check_keyboard_note(note)
     if calibrate is not None:
         if note is None or out is None:
             raise ConfigError("needs --note (the note recorded) and --out (the calibration "
                               "file to write)", source="--calibrate")
-        plan_outputs([(out, "calibration file")], force=force)
+        from synth.reports.measure import calibration_target
+
+        target = calibration_target(out, ("damping", "stiffness"), force=force)
+        plan_outputs([(out, "calibration file")], force=force or target is not None)
         from synth.physics.instrument import load_instrument
 
         instrument = load_instrument(calibrate)
@@ -218,7 +234,7 @@ def measure_command(
                 if keep_overrides else "nothing written (use --keep-overrides to write "
                 "per-mode Q overrides instead)"))
         if keep_overrides or not fit.fallback:
-            path = write_calibration(out, fit, force=force)
+            path = write_calibration(out, fit, target=target, force=force)
             commit_outputs()  # before a non-zero exit, which discards uncommitted files
             rel = os.path.relpath(path, Path(calibrate).parent)
     for w in measurement.warnings + (fit.warnings if fit is not None else ()):
@@ -252,6 +268,9 @@ def measure_command(
         return
     typer.echo("")
     typer.echo(_fit_tables(fit))
+    if fit.stiffness is not None:
+        typer.echo("")
+        typer.echo(_stiffness_table(fit))
     if fit.coupling_calibration is not None:
         typer.echo(f"renders take the tube's effect from the coupled bar-tube pair, not from "
                    f"factors.tube: [tubes] coupling_calibration = "
@@ -260,6 +279,22 @@ def measure_command(
         typer.echo(f"wrote {path}; use it from the preset's [damping] table: "
                    f'calibration_file = "{rel}"')
     _exit_if_missed(fit)
+
+
+def _stiffness_table(fit) -> str:
+    st = fit.stiffness
+    rows = [(f"vertical {n + 1}", f"{st.model_hz[n]:.2f}", f"{st.measured_hz[n]:.2f}",
+             f"{st.tolerance_hz[n]:.3f}", f"{st.factors[n]:.5f}", f"{st.residual_cents[n]:+.2f}")
+            for n in range(len(st.factors))]
+    table = format_table(["partial", "model Hz", "measured Hz", "+- Hz", "factor after E",
+                          "residual cents"], rows, align="lrrrrr",
+                         title="stiffness calibration (model: 1-D x the preset's 3-D table "
+                               "where it has one)")
+    e = fit.youngs_modulus_pa * st.youngs_scale
+    return (f"{table}\neffective Young's modulus: E x {st.youngs_scale:.5f} = {e / 1e9:.3f} GPa "
+            f"(+-{100 * st.scale_uncertainty:.3f} % from the frequency resolution); residual "
+            f"rms {st.rms_residual_cents:.2f} cents; `barwright tune` re-tunes the range with "
+            "them")
 
 
 def _exit_if_missed(fit) -> None:

@@ -37,8 +37,12 @@ def tubecal_command(
         show_default=False)] = None,
     out: Annotated[Path | None, typer.Option(
         help="Write the [tubes] calibration keys to this TOML file (to copy into the "
-             "preset).", show_default=False)] = None,
-    force: Annotated[bool, typer.Option(help="Overwrite --out if it exists.")] = False,
+             "preset, or to name in its [damping] calibration_file); an existing "
+             "calibration file gets the [tubes] table added.", show_default=False)] = None,
+    force: Annotated[bool, typer.Option(
+        help="Replace the [tubes] table of --out if it holds one (its other tables, e.g. "
+             "[damping] and [stiffness] from measure --calibrate, are kept either way).")
+    ] = False,
     json_out: Annotated[bool, typer.Option("--json", help="Print JSON on stdout.")] = False,
 ) -> None:
     """Tube calibration: gap correction and coupling strength of one note's tube.
@@ -60,8 +64,12 @@ def tubecal_command(
     if (tube_hz is None) == (tube_recording is None):
         raise ConfigError("give either --tube-hz or --tube-recording (one of them)",
                           source="--tube-hz")
+    target = None
     if out is not None:
-        plan_outputs([(out, "tube calibration")], force=force)
+        from synth.reports.measure import calibration_target
+
+        target = calibration_target(out, ("tubes",), force=force)
+        plan_outputs([(out, "tube calibration")], force=force or target is not None)
     instrument = load_instrument(preset)
     note = instrument.check_note(note)
     ref = instrument.reference_pitch_hz
@@ -79,8 +87,9 @@ def tubecal_command(
         from synth.io import write_bytes
 
         text = cal.to_toml(preset.name, (str(tube_recording) if tube_recording else
-                                         f"tube {tube_hz:g} Hz", str(bare), str(with_tube)))
-        write_bytes(out, text.encode("utf-8"), force=force)
+                                         f"tube {tube_hz:g} Hz", str(bare), str(with_tube)),
+                           target)
+        write_bytes(out, text.encode("utf-8"), force=force or target is not None)
     for w in (*extra, *m_bare.warnings, *m_tube.warnings, *cal.warnings):
         warn(w)
     if json_out:

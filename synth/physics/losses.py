@@ -62,6 +62,7 @@ from synth.config import Section
 from synth.constants import LN_1000
 from synth.errors import ConfigError
 from synth.physics.bar_fe import BarModes, Mode, one_blas_thread
+from synth.physics.stiffness import StiffnessCalibration, parse_stiffness
 from synth.physics.tube import air_density, dynamic_viscosity, speed_of_sound
 from synth.pitch import canonical_note
 
@@ -123,6 +124,10 @@ class Calibration:
     """``gap_calibration`` / ``coupling_calibration`` from a calibration file's
     ``[tubes]`` table (``barwright tubecal --out``); a preset's own ``[tubes]``
     keys win (:func:`synth.physics.tube.with_file_calibration`)."""
+    stiffness: StiffnessCalibration | None = None
+    """Effective modulus and per-partial factors from a calibration file's
+    ``[stiffness]`` table (``barwright measure --calibrate``); ``barwright tune``
+    re-tunes the range with them (:mod:`synth.physics.stiffness`)."""
 
     def factor(self, term: str) -> float:
         """Return the scale of one term (1 when not calibrated)."""
@@ -166,11 +171,11 @@ def parse_calibration(sec: Section | None, notes: tuple[str, ...] | None = None)
         return own
     base = _calibration_file(sec, name, notes)
     return Calibration({**base.factors, **own.factors}, {**base.overrides, **own.overrides},
-                       f"{sec.source} (with {base.source})", dict(base.tubes))
+                       f"{sec.source} (with {base.source})", dict(base.tubes), base.stiffness)
 
 
 def _calibration_file(sec: Section, name: str, notes: tuple[str, ...] | None) -> Calibration:
-    """Read the ``[damping]`` table of a calibration file named by a preset."""
+    """Read the calibration file named by a preset's ``[damping]`` table."""
     from pathlib import Path
 
     from synth.config import load_toml
@@ -185,25 +190,37 @@ def _calibration_file(sec: Section, name: str, notes: tuple[str, ...] | None) ->
     except ConfigError as exc:
         raise sec.error("calibration_file", f"cannot be used: {exc} (the path is relative "
                         "to the preset)") from None
-    top = Section(data, str(path))
-    top.check_keys({"damping", "tubes"})
+    return calibration_from_table(data, str(path), notes)
+
+
+CALIBRATION_TABLES = ("damping", "stiffness", "tubes")
+"""The tables a calibration file may hold."""
+
+
+def calibration_from_table(data: dict, source: str,
+                           notes: tuple[str, ...] | None = None) -> Calibration:
+    """Read a parsed calibration file: ``[damping]``, ``[stiffness]`` and/or ``[tubes]``."""
+    top = Section(data, source)
+    top.check_keys(set(CALIBRATION_TABLES))
     table = top.section("damping", None)
     tsec = top.section("tubes", None)
-    if table is None and tsec is None:
-        raise ConfigError("has no [damping] or [tubes] table; a calibration file holds "
-                          "[damping] with factors and [[damping.override]] tables, and/or "
-                          "[tubes] with gap_calibration and coupling_calibration",
-                          source=str(path))
+    ssec = top.section("stiffness", None)
+    if table is None and tsec is None and ssec is None:
+        raise ConfigError("has no [damping], [stiffness] or [tubes] table; a calibration file "
+                          "holds [damping] with factors and [[damping.override]] tables, "
+                          "[stiffness] with youngs_modulus_scale and factors, and/or [tubes] "
+                          "with gap_calibration and coupling_calibration", source=source)
     tubes = {}
     if tsec is not None:
         tsec.check_keys({"gap_calibration", "coupling_calibration"})
         for k in tsec.data:
             tubes[k] = tsec.number(k, limit="tubes.calibration")
+    stiffness = parse_stiffness(ssec)
     if table is None:
-        return Calibration(source=str(path), tubes=tubes)
+        return Calibration(source=source, tubes=tubes, stiffness=stiffness)
     table.check_keys({"factors", "override"})
     cal = _parse_damping(table, notes)
-    return Calibration(cal.factors, cal.overrides, cal.source, tubes)
+    return Calibration(cal.factors, cal.overrides, cal.source, tubes, stiffness)
 
 
 def _override_note(osec: Section, notes: tuple[str, ...] | None) -> str:

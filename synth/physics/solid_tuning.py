@@ -148,31 +148,110 @@ def solid_tune_job(spec: TuneSpec, level: int | None, accuracy: float | None,
 
 
 def tune_with_table(instrument, notes: list[str], table, *, ratios=None,
-                    progress=None) -> list[TuneResult]:
+                    progress=None, stiffness=None) -> list[TuneResult]:
     """Tune ``notes`` in 1-D to target / (the table's interpolated factors).
 
-    The results carry the original specs; ``frequencies_hz`` are the table's predicted
-    3-D frequencies (1-D times factor), ``residual_cents`` and ``reachable`` refer to them.
+    With ``stiffness`` (a :class:`~synth.physics.stiffness.StiffnessCalibration`) the
+    factors are ``k3D_n sqrt(s) c_n``: the calibration multiplies on top of the
+    table (``table`` may then be None: ``k3D_n = 1``).  The results carry the
+    original specs; ``frequencies_hz`` are the predicted frequencies (1-D times the
+    factors), ``residual_cents`` and ``reachable`` refer to them.
     """
     from synth.physics.tuning import tune_instrument
 
-    def aim(spec: TuneSpec) -> TuneSpec:
-        return corrected_spec(spec, np.asarray(table.vertical(spec.note, len(spec.ratios))))
+    def factors(note: str, n: int) -> np.ndarray:
+        k = np.ones(n) if table is None else np.asarray(table.vertical(note, n))
+        if stiffness is not None:
+            k = k * np.asarray(stiffness.frequency_factors(n))
+        return k
 
+    def aim(spec: TuneSpec) -> TuneSpec:
+        return corrected_spec(spec, factors(spec.note, len(spec.ratios)))
+
+    what = ", ".join(w for w, on in (("3-D table", table is not None),
+                                     ("calibrated stiffness", stiffness is not None)) if on)
     raw = tune_instrument(instrument, notes, ratios=ratios, progress=progress, aim=aim)
     out = []
     for r in raw:
         original = replace(r.spec, fundamental_hz=instrument.target_hz(r.spec.note),
                            ratios=tuple(ratios or instrument.target_ratios))
-        predicted = np.asarray(r.frequencies_hz) * np.asarray(
-            table.vertical(r.spec.note, len(r.frequencies_hz)))
+        predicted = np.asarray(r.frequencies_hz) * factors(r.spec.note,
+                                                           len(r.frequencies_hz))
         miss = cents(predicted, original.targets_hz)
         ok = bool(np.all(np.abs(miss) <= original.tolerances_cents))
         msg = (r.message if not r.reachable else
-               "on target (3-D table)" if ok else "off target after the 3-D table")
+               f"on target ({what})" if ok else f"off target after the {what}")
         out.append(replace(r, spec=original, frequencies_hz=predicted, residual_cents=miss,
                            reachable=r.reachable and ok, message=msg))
     return out
+
+
+@dataclass(frozen=True)
+class CalibrationChange:
+    """What a stiffness calibration changes in one bar's design.
+
+    Attributes
+    ----------
+    note : str
+    length_mm, depth_mm, thinnest_mm : float
+        Calibrated minus uncalibrated design: bar length, undercut depth (NaN
+        for a family without one) and thinnest section, mm.
+    before, after : TuneResult
+        The uncalibrated and the calibrated design.
+    """
+
+    note: str
+    length_mm: float
+    depth_mm: float
+    thinnest_mm: float
+    before: TuneResult
+    after: TuneResult
+
+    def to_dict(self) -> dict:
+        """Plain values for JSON (NaN depth as None)."""
+        return {"note": self.note, "length_change_mm": self.length_mm,
+                "depth_change_mm": None if np.isnan(self.depth_mm) else self.depth_mm,
+                "thinnest_change_mm": self.thinnest_mm,
+                "length_uncalibrated_m": self.before.geometry.length_m,
+                "length_calibrated_m": self.after.geometry.length_m}
+
+
+def _depth_m(result: TuneResult) -> float:
+    depth = getattr(result.geometry.undercut, "depth_m", None)
+    return float("nan") if depth is None else float(depth)
+
+
+def tune_calibrated(instrument, notes: list[str], table, stiffness, *, ratios=None,
+                    progress=None) -> tuple[list[TuneResult], list[CalibrationChange]]:
+    """Re-tune ``notes`` with a stiffness calibration and compare with the uncalibrated design.
+
+    Both designs are solved here the same way (through ``table`` when given, else the
+    plain 1-D model), so the differences are the calibration's alone.
+
+    Returns
+    -------
+    results : list of TuneResult
+        The calibrated designs (:func:`tune_with_table` with ``stiffness``).
+    changes : list of CalibrationChange
+        Per note, calibrated minus uncalibrated.
+    """
+    from synth.physics.tuning import tune_instrument
+
+    def half(note):  # two passes over the notes
+        if progress is not None:
+            progress(note)
+
+    if table is None:
+        before = tune_instrument(instrument, notes, ratios=ratios, progress=half)
+    else:
+        before = tune_with_table(instrument, notes, table, ratios=ratios, progress=half)
+    after = tune_with_table(instrument, notes, table, ratios=ratios, progress=half,
+                            stiffness=stiffness)
+    changes = [CalibrationChange(
+        b.spec.note, 1e3 * (a.geometry.length_m - b.geometry.length_m),
+        1e3 * (_depth_m(a) - _depth_m(b)), 1e3 * (a.thinnest_m - b.thinnest_m), b, a)
+        for b, a in zip(before, after, strict=True)]
+    return after, changes
 
 
 def anchor_job(geometry, material, level: int | None, accuracy: float | None,

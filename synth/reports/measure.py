@@ -141,7 +141,8 @@ from synth.analysis.checks import CLIP_LEVEL, CLIP_MIN_RUN
 from synth.constants import LN_1000
 from synth.errors import AudioError, ConfigError, ModelError
 from synth.physics.instrument import Instrument
-from synth.physics.losses import TERMS, Calibration
+from synth.physics.losses import CALIBRATION_TABLES, TERMS, Calibration
+from synth.physics.stiffness import StiffnessFit, fit_stiffness
 from synth.pitch import DEFAULT_REFERENCE_HZ, cents, nearest_note, note_to_hz
 
 MATCH_TOLERANCE = 0.03
@@ -880,6 +881,12 @@ class CalibrationFit:
         ``[tubes] coupling_calibration`` that makes renders give the fitted
         coupled Q of vertical 1 (when the tube factor was fitted).
     warnings : tuple of str
+    stiffness : StiffnessFit or None
+        Effective modulus and per-partial factors (None when vertical 1-3 were
+        not all matched).
+    youngs_modulus_pa : float
+        The preset material's E at its reference temperature, Pa (``E_eff`` is
+        this times the fitted scale).
     """
 
     note: str
@@ -899,6 +906,8 @@ class CalibrationFit:
     fallback: bool
     coupling_calibration: float | None
     warnings: tuple[str, ...]
+    stiffness: StiffnessFit | None = None
+    youngs_modulus_pa: float = math.nan
 
     def calibration(self) -> Calibration:
         """Return the file's content as a :class:`~synth.physics.losses.Calibration`."""
@@ -917,15 +926,23 @@ class CalibrationFit:
             "sensitivity_percent_per_percent": dict(self.sensitivity),
             "condition_number": self.condition_number, "fallback": self.fallback,
             "coupling_calibration": self.coupling_calibration,
+            "stiffness": None if self.stiffness is None else {
+                **self.stiffness.to_dict(),
+                "youngs_modulus_pa": self.youngs_modulus_pa * self.stiffness.youngs_scale},
             "warnings": list(self.warnings),
         }
 
-    def to_toml(self) -> str:
-        """Return the calibration file: header comment and a ``[damping]`` table."""
-        import tomllib
+    def tables(self) -> dict:
+        """Return the tables this fit writes into a calibration file: damping, stiffness."""
+        out = {"damping": self.calibration().to_table()}
+        if self.stiffness is not None:
+            out["stiffness"] = self.stiffness.to_table(
+                youngs_modulus_pa=self.youngs_modulus_pa, note=self.note,
+                recording=Path(self.recording).name)
+        return out
 
-        import tomli_w
-
+    def header(self) -> list[str]:
+        """Return the calibration file's header comment lines."""
         modes = ", ".join(m.label for m in self.modes)
         lines = [
             "# barwright calibration file, written by `barwright measure --calibrate`.",
@@ -946,18 +963,30 @@ class CalibrationFit:
                 f"{100 * m.error_before:+11.1f}%  {100 * m.error_after:+10.1f}%")
         for u in self.unmatched:
             lines.append(f"# not matched: {u}")
+        st = self.stiffness
+        if st is not None:
+            lines += [
+                "#",
+                "# [stiffness]: E_eff = E x youngs_modulus_scale fitted to vertical 1-3 (least "
+                "squares in log-frequency);",
+                "# factors = what is left per partial after E (geometric mean 1). They multiply "
+                "the model's",
+                "# frequencies on top of the preset's 3-D correction table: f = f_1D(E) x "
+                "k3D x sqrt(scale) x factor.",
+                f"# E x {st.youngs_scale:.5f} (+-{100 * st.scale_uncertainty:.3f} % from the "
+                f"frequency resolution); residual rms {st.rms_residual_cents:.2f} cents",
+            ]
         lines += [
             "#",
             "# Use it from a preset's [damping] table: calibration_file = \"<this file, "
             "relative to the preset>\";",
             "# factors or overrides the preset sets itself win over this file.",
-            "",
         ]
-        table = {"damping": self.calibration().to_table()}
-        body = tomli_w.dumps(table)
-        text = "\n".join(lines) + body
-        tomllib.loads(text)  # the file must read back
-        return text
+        return lines
+
+    def to_toml(self) -> str:
+        """Return the calibration file: header comment, ``[damping]`` and ``[stiffness]``."""
+        return calibration_text(self.header(), self.tables())
 
 
 def _coupled_eta(pair, bar_eta: float, radiation_eta: float) -> float:
@@ -1270,6 +1299,7 @@ def calibrate(measurement: Measurement, instrument: Instrument, note: str, *,
     hint = None
     if "tube" in fit_terms and abs(state["tube"] - 1.0) > 1e-3 and ("vertical", 1) in keys:
         hint = _coupling_hint(after, after_cal, warnings)
+    stiffness = _stiffness_fit(measurement, matched, raw, budget_raw, warnings)
     return CalibrationFit(
         note=note, preset=instrument.source, recording=measurement.recording,
         measured_at=_dt.datetime.now(_dt.UTC).isoformat(timespec="seconds"),
@@ -1277,7 +1307,35 @@ def calibrate(measurement: Measurement, instrument: Instrument, note: str, *,
         fitted_terms=tuple(fit_terms), held_terms=tuple(held), factors=file_factors,
         overrides=overrides, modes=tuple(fits), unmatched=tuple(unmatched),
         sensitivity=sens_out, condition_number=cond, fallback=fallback,
-        coupling_calibration=hint, warnings=tuple(warnings))
+        coupling_calibration=hint, warnings=tuple(warnings), stiffness=stiffness,
+        youngs_modulus_pa=instrument.material.youngs_modulus_pa)
+
+
+def _stiffness_fit(measurement: Measurement, matched: dict, raw, budget_raw: dict,
+                   warnings: list[str]) -> StiffnessFit | None:
+    """Fit E_eff and the factors of vertical 1-3 (:mod:`synth.physics.stiffness`).
+
+    The model frequencies are the voice plan's bare-bar partials, 3-D corrected when
+    the preset has a table.  Under a tube the measured vertical 1 is the coupled
+    pole: it is taken back to the bare bar by the model's pull (coupled over bare),
+    held fixed.  Each measured frequency is known to the record's resolution 1/T.
+    """
+    wanted = [("vertical", n) for n in (1, 2, 3)]
+    missing = [f"{k} {o}" for k, o in wanted if (k, o) not in matched]
+    if missing:
+        warnings.append("stiffness not fitted: it needs vertical 1-3 and "
+                        + ", ".join(missing) + " did not match a measured partial")
+        return None
+    model = [budget_raw[k].frequency_hz for k in wanted]
+    measured = [matched[k].frequency_hz for k in wanted]
+    if raw.coupling is not None:
+        pull = raw.coupling.pair.modes().frequency_hz[0] / model[0]
+        measured[0] /= pull
+        warnings.append(f"vertical 1 was measured under its tube: the stiffness fit takes "
+                        f"the model's tube pull ({float(cents(pull, 1.0)):+.1f} cents) as "
+                        "fixed; record the bar alone (--no-tubes) for the modulus")
+    span = min(max(measurement.duration_s - measurement.onset_s, 1e-3), WINDOW_S)
+    return fit_stiffness(model, measured, [1.0 / span] * 3)
 
 
 def parse_motor_rate(instrument: Instrument) -> float:
@@ -1369,11 +1427,106 @@ def _coupling_hint(after, after_cal: Calibration, warnings: list[str]) -> float 
     return float(c)  # absolute: calibrate_coupling starts from an uncalibrated coupling
 
 
-def write_calibration(path, fit: CalibrationFit, *, force: bool = False) -> Path:
-    """Write the calibration file atomically; refuse to overwrite without ``force``."""
+def calibration_text(header: list[str], tables: dict, kept: dict | None = None,
+                     kept_header: list[str] | None = None) -> str:
+    """Return a calibration file: header comments, then ``tables`` and the ``kept`` ones."""
+    import tomllib
+
+    import tomli_w
+
+    lines = list(header)
+    if kept:
+        lines += ["#", "# Kept from the file as it was: [" + "], [".join(kept) + "]"]
+        lines += kept_header or []
+    body = tomli_w.dumps({**{k: v for k, v in kept.items() if k not in tables},
+                          **tables} if kept else tables)
+    text = "\n".join(lines) + "\n\n" + body
+    tomllib.loads(text)  # the file must read back
+    return text
+
+
+@dataclass(frozen=True)
+class CalibrationTarget:
+    """An existing calibration file that a command writes its tables into.
+
+    Attributes
+    ----------
+    path : Path
+    kept : dict
+        The file's tables this command does not write (kept as they are).
+    header : list of str
+        The file's comment lines (kept with those tables).
+    replaced : tuple of str
+        Tables of the file this command replaces (only with ``force``).
+    """
+
+    path: Path
+    kept: dict
+    header: list[str]
+    replaced: tuple[str, ...]
+
+
+def calibration_target(path, writes: tuple[str, ...], *,
+                       force: bool = False) -> CalibrationTarget | None:
+    """Check a calibration file about to be written; None when it does not exist yet.
+
+    One calibration file holds ``[damping]``, ``[stiffness]`` (``measure --calibrate``)
+    and ``[tubes]`` (``tubecal``): a command writing some of them into an existing
+    file keeps the others.  A table the file already holds is replaced only with
+    ``force``; a file that is not a calibration file is replaced only with ``force``.
+
+    Raises
+    ------
+    ConfigError
+        The file holds one of ``writes`` (or is not a calibration file) and ``force``
+        is not given.
+    """
+    import tomllib
+
+    p = Path(path)
+    if not p.is_file():
+        return None
+    try:
+        text = p.read_text(encoding="utf-8")
+        data = tomllib.loads(text)
+    except (OSError, UnicodeDecodeError, tomllib.TOMLDecodeError) as exc:
+        if force:
+            return None
+        raise ConfigError(f"exists and is not a calibration file this command can add to "
+                          f"({type(exc).__name__}); use --force to replace it",
+                          source=str(p)) from None
+    other = [k for k in data if k not in CALIBRATION_TABLES]
+    if other or not all(isinstance(v, dict) for v in data.values()):
+        if force:
+            return None
+        raise ConfigError("exists and is not a calibration file (it holds "
+                          + ", ".join(repr(k) for k in (other or data))
+                          + f"; a calibration file holds {', '.join(CALIBRATION_TABLES)}); "
+                          "use --force to replace it", source=str(p))
+    replaced = tuple(k for k in writes if k in data)
+    if replaced and not force:
+        raise ConfigError("exists and already holds [" + "], [".join(replaced)
+                          + "]; use --force to replace " + ("it" if len(replaced) == 1 else
+                                                              "them")
+                          + " (the file's other tables are kept)", source=str(p))
+    kept = {k: v for k, v in data.items() if k not in writes}
+    header = [ln for ln in text.splitlines() if ln.startswith("#")] if kept else []
+    return CalibrationTarget(p, kept, header, replaced)
+
+
+def write_calibration(path, fit: CalibrationFit, *, target: CalibrationTarget | None = None,
+                      force: bool = False) -> Path:
+    """Write the calibration file atomically, into ``target``'s other tables when given.
+
+    Without ``target`` an existing file is refused unless ``force``.
+    """
     from synth.io import write_bytes
 
-    return write_bytes(path, fit.to_toml().encode("utf-8"), force=force)
+    if target is None:
+        text = fit.to_toml()
+    else:
+        text = calibration_text(fit.header(), fit.tables(), target.kept, target.header)
+    return write_bytes(path, text.encode("utf-8"), force=force or target is not None)
 
 
 # --------------------------------------------------------------------------------------
@@ -1430,10 +1583,23 @@ class TubeCalibration:
         """Plain values for JSON."""
         return {**self.__dict__, "warnings": list(self.warnings)}
 
-    def to_toml(self, preset: str, sources: tuple[str, ...]) -> str:
-        """Return the ``[tubes]`` values to copy into the preset, with a header saying how."""
+    def to_toml(self, preset: str, sources: tuple[str, ...],
+                target: CalibrationTarget | None = None) -> str:
+        """Return the ``[tubes]`` values to copy into the preset, with a header saying how.
+
+        With ``target`` (an existing calibration file, :func:`calibration_target`) its
+        other tables are kept.
+        """
+        tubes = {"gap_calibration": _sig6(self.gap_calibration),
+                 "coupling_calibration": _sig6(self.coupling_calibration)}
+        return calibration_text(self.header(preset, sources), {"tubes": tubes},
+                                None if target is None else target.kept,
+                                None if target is None else target.header)
+
+    def header(self, preset: str, sources: tuple[str, ...]) -> list[str]:
+        """Return the header comment lines of the tube calibration."""
         when = _dt.datetime.now(_dt.UTC).isoformat(timespec="seconds")
-        return "\n".join([
+        return [
             f"# Tube calibration of {preset}, note {self.note}, {when}",
             "# from " + ", ".join(sources),
             f"# tube with bar in place: measured {self.tube_measured_hz:.3f} Hz, uncalibrated "
@@ -1444,11 +1610,7 @@ class TubeCalibration:
             f"{self.model_t60_with_tube_s:.2f} s)",
             "# name this file in the preset's [damping] table (calibration_file = ...), or",
             "# copy these keys into the preset's [tubes] table (the preset's own keys win)",
-            "[tubes]",
-            f"gap_calibration = {_sig6(self.gap_calibration)!r}",
-            f"coupling_calibration = {_sig6(self.coupling_calibration)!r}",
-            "",
-        ])
+        ]
 
 
 def _fundamental(m: Measurement, near_hz: float, what: str):

@@ -52,7 +52,7 @@ def preset_with(folder, damping: str):
 
 
 def test_file_has_a_header_and_a_damping_table(fitted) -> None:
-    """The file starts with its provenance and holds only [damping]."""
+    """The file starts with its provenance and holds [damping] and [stiffness]."""
     _, out, cal = fitted
     text = out.read_text(encoding="utf-8")
     head = [ln for ln in text.splitlines() if ln.startswith("#")]
@@ -61,8 +61,10 @@ def test_file_has_a_header_and_a_damping_table(fitted) -> None:
     assert any(cal["measured_at"] in ln for ln in head)
     assert any(ln.startswith("# vertical 1") for ln in head)
     table = tomllib.loads(text)
-    assert set(table) == {"damping"}
+    assert set(table) == {"damping", "stiffness"}
     assert table["damping"]["factors"] == pytest.approx(cal["factors"])
+    assert table["stiffness"]["youngs_modulus_scale"] == pytest.approx(
+        cal["stiffness"]["youngs_modulus_scale"], rel=1e-8)  # 9 significant digits written
 
 
 def test_preset_loads_the_file_and_the_budget_changes_as_fitted(fitted) -> None:
