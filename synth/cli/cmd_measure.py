@@ -141,6 +141,10 @@ def measure_command(
     plot: Annotated[Path | None, typer.Option(
         help="With a folder: PNG of cents off target and T60 across the range (default "
              "renders/<folder>/measure-range.png).", show_default=False)] = None,
+    workers: Annotated[int | None, typer.Option(
+        min=1, max=256, help="With a folder: local worker processes measuring the "
+                             "recordings (default: every core; one recording takes one).")
+    ] = None,
     json_out: Annotated[bool, typer.Option("--json", help="Print JSON on stdout.")] = False,
 ) -> None:
     """Measure a recorded strike: partials with note, cents, Q, T60 and level.
@@ -170,7 +174,7 @@ def measure_command(
     if recording.is_dir():
         _measure_folder(recording, preset=preset, reference_hz=reference_hz,
                         max_partials=max_partials, channel=channel, plot=plot, force=force,
-                        json_out=json_out,
+                        json_out=json_out, workers=workers,
                         refused=[o for o, v in (("--note", note), ("--calibrate", calibrate),
                                                 ("--out", out), ("--terms", terms))
                                  if v is not None])
@@ -313,7 +317,7 @@ def _check_keyboard_note(note: str) -> None:
 
 
 def _measure_folder(folder: Path, *, preset, reference_hz, max_partials, channel, plot, force,
-                    json_out, refused) -> None:
+                    json_out, refused, workers) -> None:
     """One table and one plot across the range from a folder of recordings."""
     from synth.cli.common import default_output
     from synth.pitch import DEFAULT_REFERENCE_HZ, cents
@@ -334,7 +338,8 @@ def _measure_folder(folder: Path, *, preset, reference_hz, max_partials, channel
     png = plot or default_output(folder, "measure-range.png")
     plan_outputs([(png, "plot")], force=force)
     rows, skipped = measure_folder(folder, reference_hz=ref, ratios=ratios,
-                                   max_partials=max_partials, channel=channel)
+                                   max_partials=max_partials, channel=channel,
+                                   workers=workers)
     if not rows:
         raise ConfigError(f"= {folder}: no recording named by its note in it"
                           + (f" ({len(skipped)} skipped)" if skipped else ""),

@@ -104,7 +104,26 @@ when, the before/after table) and one ``[damping]`` table::
     q = 5210.0
 
 Each factor scales its loss term for every bar of the preset; an override sets
-one mode's Q outright (``note = "*"`` for every note).  A preset uses the file
+one mode's Q outright (``note = "*"`` for every note).
+
+Stiffness
+---------
+When vertical 1-3 are all matched the same run fits the effective Young's
+modulus and the per-partial factors left after it (:mod:`synth.physics.stiffness`)
+against the voice plan's bare-bar frequencies (1-D times the preset's 3-D
+table where it has one; under a tube the measured vertical 1 is taken back to
+the bare bar by the model's pull), and writes them to a ``[stiffness]`` table
+of the same file.  They multiply on top of the 3-D table:
+``f = f_1D(E) k3D sqrt(E_eff / E) c_n``.  ``barwright tune`` re-tunes the range
+with them.
+
+One file for the shop
+---------------------
+A calibration file holds ``[damping]`` and ``[stiffness]`` (this command) and
+``[tubes]`` (``barwright tubecal --out``).  Each command writes its own tables
+into an existing file and keeps the others with their comment lines
+(:func:`calibration_target`); a table the file already holds is replaced only
+with ``--force``, and a file that is not a calibration file is refused.  A preset uses the file
 through ``calibration_file`` in its own ``[damping]`` table, a path relative to
 the preset; anything the preset's ``[damping]`` sets itself wins over the file::
 
@@ -1473,36 +1492,28 @@ def calibration_target(path, writes: tuple[str, ...], *,
     One calibration file holds ``[damping]``, ``[stiffness]`` (``measure --calibrate``)
     and ``[tubes]`` (``tubecal``): a command writing some of them into an existing
     file keeps the others.  A table the file already holds is replaced only with
-    ``force``; a file that is not a calibration file is replaced only with ``force``.
+    ``force``.  A file that is not a calibration file gives None too: the output
+    plan then refuses it as an existing file unless ``force`` (and replaces it
+    whole with ``force``).
 
     Raises
     ------
     ConfigError
-        The file holds one of ``writes`` (or is not a calibration file) and ``force``
-        is not given.
+        The file holds one of ``writes`` and ``force`` is not given.
     """
     import tomllib
 
     p = Path(path)
-    if not p.is_file():
-        return None
     try:
+        if not p.is_file():
+            return None
         text = p.read_text(encoding="utf-8")
         data = tomllib.loads(text)
-    except (OSError, UnicodeDecodeError, tomllib.TOMLDecodeError) as exc:
-        if force:
-            return None
-        raise ConfigError(f"exists and is not a calibration file this command can add to "
-                          f"({type(exc).__name__}); use --force to replace it",
-                          source=str(p)) from None
-    other = [k for k in data if k not in CALIBRATION_TABLES]
-    if other or not all(isinstance(v, dict) for v in data.values()):
-        if force:
-            return None
-        raise ConfigError("exists and is not a calibration file (it holds "
-                          + ", ".join(repr(k) for k in (other or data))
-                          + f"; a calibration file holds {', '.join(CALIBRATION_TABLES)}); "
-                          "use --force to replace it", source=str(p))
+    except (OSError, UnicodeDecodeError, tomllib.TOMLDecodeError):
+        return None
+    if not data or any(k not in CALIBRATION_TABLES or not isinstance(v, dict)
+                       for k, v in data.items()):
+        return None
     replaced = tuple(k for k in writes if k in data)
     if replaced and not force:
         raise ConfigError("exists and already holds [" + "], [".join(replaced)
@@ -1771,21 +1782,31 @@ class RangeRow:
         return out
 
 
+def _measure_job(path: str, note: str, reference_hz: float, max_partials: int,
+                 channel: int | None) -> Measurement:
+    """:func:`measure_file` as a picklable job for :func:`synth.executor.run_jobs`."""
+    return measure_file(path, note=note, reference_hz=reference_hz,
+                        max_partials=max_partials, channel=channel)
+
+
 def measure_folder(folder, *, reference_hz: float, ratios=(1.0, 4.0, 10.08),
-                   max_partials: int = 12, channel: int | None = None
-                   ) -> tuple[list[RangeRow], list[str]]:
+                   max_partials: int = 12, channel: int | None = None,
+                   workers: int | None = 1) -> tuple[list[RangeRow], list[str]]:
     """Measure every recording in a folder, the note of each taken from its file name.
 
     Returns the rows sorted by pitch and a list of files skipped (no note in the
     name).  A file that cannot be measured gets a row with its error; the others
-    go on.
+    go on.  ``workers`` local processes measure the files (None: every core; 1:
+    here, one after the other), or the Dask cluster that ``BARWRIGHT_SCHEDULER``
+    names, whose workers must see the folder (:func:`synth.executor.run_jobs`).
     """
+    from synth.executor import Job, run_jobs
     from synth.pitch import note_to_midi
 
     folder = Path(folder)
     files = sorted(p for p in folder.iterdir()
                    if p.is_file() and p.suffix.lower() in AUDIO_SUFFIXES)
-    rows, skipped = [], []
+    jobs, skipped = [], []
     for f in files:
         note = note_from_name(f.name)
         if note is None:
@@ -1796,12 +1817,10 @@ def measure_folder(folder, *, reference_hz: float, ratios=(1.0, 4.0, 10.08),
         except ConfigError:
             skipped.append(f"{f.name}: {note} is not a note")
             continue
-        try:
-            m = measure_file(f, note=note, reference_hz=reference_hz,
-                             max_partials=max_partials, channel=channel)
-            rows.append(RangeRow(str(f), note, m, None))
-        except (AudioError, ConfigError) as exc:
-            rows.append(RangeRow(str(f), note, None, str(exc)))
+        jobs.append(Job((str(f), note), _measure_job,
+                        (str(f), note, reference_hz, max_partials, channel)))
+    rows = [RangeRow(r.key[0], r.key[1], r.value, r.error)
+            for r in run_jobs(jobs, workers=workers)]
     rows.sort(key=lambda r: (note_to_midi(r.note), r.path))
     return rows, skipped
 

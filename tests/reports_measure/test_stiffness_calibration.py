@@ -254,7 +254,7 @@ def test_a_file_that_is_not_a_calibration_is_refused(calibrated, tmp_path) -> No
     before = out.read_bytes()
     r = run("measure", d / "a4-prototype.wav", "--calibrate", PRESET, "--note", NOTE,
             "--no-tubes", "--out", out)
-    assert_one_line_error(r, str(out), "not a calibration file", "--force")
+    assert_one_line_error(r, str(out), "already exists; use --force")
     assert out.read_bytes() == before
 
 
