@@ -298,3 +298,18 @@ def test_recovered_under_the_tube(tmp_path) -> None:
     assert st["youngs_modulus_scale"] == pytest.approx(HIDDEN_SCALE, rel=0.01)  # issue
     assert abs(st["youngs_modulus_scale"] / HIDDEN_SCALE - 1) <= st["scale_uncertainty"]
     assert "tube pull" in r.stderr and "--no-tubes" in r.stderr
+
+
+def test_tune_takes_the_file_the_preset_names(calibrated) -> None:
+    """Without --calibration, tune uses the [stiffness] of the preset's calibration_file."""
+    d, _, st = calibrated
+    preset = d / "names-its-calibration.toml"
+    preset.write_text(PRESET.read_text(encoding="utf-8")
+                      + '\n[damping]\ncalibration_file = "cal.toml"\n', encoding="utf-8")
+    doc = run_json("tune", preset, "--note", "A4")
+    used = doc["stiffness_calibration"]
+    assert used["youngs_modulus_scale"] == pytest.approx(st["youngs_modulus_scale"], rel=1e-8)
+    assert used["source"].endswith("cal.toml")
+    assert [c["note"] for c in used["changes"]] == ["A4"]
+    # the plain preset has no calibration file: no stiffness table in its JSON
+    assert "stiffness_calibration" not in run_json("tune", PRESET, "--note", "A4")

@@ -24,9 +24,11 @@ from __future__ import annotations
 
 import json
 import math
+import tomllib
 from dataclasses import replace
 
 import pytest
+import tomli_w
 from measure_signals import PRESET, demo, run
 
 from synth.physics.tube import resonance_frequency
@@ -61,13 +63,26 @@ def test_hidden_tube_factors_are_recovered(tmp_path):
         r = run("strike", hidden, note, "--channels", 1, "--duration", 5, "--out", out, *extra)
         assert r.exit_code == 0, r.stderr
     out = tmp_path / "tubes.toml"
-    r = run("tubecal", PRESET, "--note", note, "--tube-hz", repr(tube_hz), "--bare", bare,
-            "--with-tube", tube, "--out", out, "--json")
+    # the shop's calibration file already holds what measure --calibrate wrote: kept
+    shop = {"damping": {"factors": {"internal": 1.5}},
+            "stiffness": {"youngs_modulus_scale": 1.01, "factors": [1.0, 1.0, 1.0]}}
+    out.write_text("# from measure --calibrate\n" + tomli_w.dumps(shop), encoding="utf-8")
+    args = ("tubecal", PRESET, "--note", note, "--tube-hz", repr(tube_hz), "--bare", bare,
+            "--with-tube", tube, "--out", out)
+    r = run(*args, "--json")
     assert r.exit_code == 0, r.stderr
     doc = json.loads(r.stdout)
     assert doc["gap_calibration"] == pytest.approx(HIDDEN_GAP, rel=1e-6)
     assert doc["coupling_calibration"] == pytest.approx(HIDDEN_COUPLING, rel=0.05)
     assert "[tubes]" in out.read_text() and "coupling_calibration" in out.read_text()
+    merged = tomllib.loads(out.read_text(encoding="utf-8"))
+    assert merged["damping"] == shop["damping"] and merged["stiffness"] == shop["stiffness"]
+    assert "# from measure --calibrate" in out.read_text(encoding="utf-8")
+    # a second run would replace [tubes]: refused without --force, the file untouched
+    before = out.read_bytes()
+    again = run(*args)
+    assert again.exit_code == 2 and "already holds [tubes]" in again.stderr
+    assert out.read_bytes() == before
 
 
 def test_tube_pitch_outside_the_model_is_refused(tmp_path):
