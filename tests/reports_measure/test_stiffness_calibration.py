@@ -313,3 +313,20 @@ def test_tune_takes_the_file_the_preset_names(calibrated) -> None:
     assert [c["note"] for c in used["changes"]] == ["A4"]
     # the plain preset has no calibration file: no stiffness table in its JSON
     assert "stiffness_calibration" not in run_json("tune", PRESET, "--note", "A4")
+
+
+@pytest.mark.parametrize(("table", "needle"), [
+    ("youngs_modulus_scale = 3.0\nfactors = [1.0, 1.0, 1.0]",
+     "stiffness.youngs_modulus_scale = 3: too large; allowed: 0.5 to 2"),
+    ("youngs_modulus_scale = 1.0\nfactors = [1.0, 1.0]",
+     "stiffness.factors = [1, 1]: must hold exactly 3 numbers"),
+    ("youngs_modulus_scale = 1.0\nfactors = [1.0, 1.0, 1.0]\nfoo = 1",
+     "stiffness.foo = 1: unknown key"),
+    ("factors = [1.0, 1.0, 1.0]", "youngs_modulus_scale"),
+])
+def test_bad_stiffness_table_is_one_line(tmp_path, table, needle) -> None:
+    """A [stiffness] table out of range, short, with a stray key or missing one: exit 2."""
+    f = tmp_path / "cal.toml"
+    f.write_text("[stiffness]\n" + table + "\n", encoding="utf-8")
+    assert_one_line_error(run("tune", PRESET, "--calibration", f, "--note", "A4"), str(f),
+                          needle)
