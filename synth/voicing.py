@@ -35,6 +35,7 @@ hold): it rings while the dampers are lifted and stops when they come down.
 
 from __future__ import annotations
 
+import hashlib
 import math
 from dataclasses import dataclass, field, replace
 from functools import cached_property, lru_cache
@@ -376,6 +377,35 @@ class Voicer:
         head = _mallet(mallet if mallet is not None else s.mallet)
         amps, phases = self._excite(model, head, float(speed_m_s), pos, acr)
         return self._voice(model, amps, phases, time_s, release_s, pedal, mono)
+
+    def strike_settings(self, *, velocity: float | None = None, speed_m_s: float | None = None,
+                        mallet: str | None = None, position: float | None = None,
+                        across: float | None = None) -> dict:
+        """The strike as :meth:`strike_voice` plays it: every default resolved.
+
+        Returns ``velocity`` (None when a speed was given), ``speed_m_s``,
+        ``mallet``, ``position`` and ``across``, as used.
+        """
+        s = self.sound
+        speed = speed_m_s if speed_m_s is not None else (
+            1.0 if velocity is None else s.speed_of(velocity))
+        name = mallet if mallet is not None else s.mallet
+        return {"velocity": velocity, "speed_m_s": float(speed),
+                "mallet": name if isinstance(name, str) else name.name,
+                "position": s.position if position is None else float(position),
+                "across": s.across if across is None else float(across)}
+
+    def plan_settings(self) -> dict:
+        """What every voice of this plan shares: rate, channels, tubes, motor, preset digest."""
+        source = Path(self.instrument.source)
+        try:
+            digest = hashlib.sha256(source.read_bytes()).hexdigest()
+        except OSError:
+            digest = None
+        return {"sample_rate_hz": self.sample_rate, "channels": self.channels,
+                "tubes": self.tubes_active,
+                "motor_rate_rev_per_s": float(self.motor.rate_rev_per_s),
+                "preset_sha256": digest}
 
     def _excite(self, model: NoteModel, head: Mallet, speed: float, pos: float, acr: float):
         key = (model.note, head, round(speed, 6), round(pos, 6), round(acr, 6))
