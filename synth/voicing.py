@@ -167,6 +167,10 @@ class Voicer:
     mallet : str, optional
         Mallet preset name for strikes that name none (default: the preset's
         ``[sound]`` mallet).
+    attack : bool
+        Render the first samples as the modes' response to the contact force
+        while the mallet touches the bar (:func:`contact_onset`; default).
+        False starts every mode at once in its free form, as the live pool does.
     """
 
     instrument: Instrument
@@ -176,6 +180,7 @@ class Voicer:
     channels: int = 2
     calibration: Calibration | None = None
     mallet: str | None = None
+    attack: bool = True
     _cache: dict = field(default_factory=dict, init=False, repr=False, compare=False)
 
     def __post_init__(self):
@@ -375,8 +380,11 @@ class Voicer:
             raise ConfigError(f"= {acr}: must be between -0.5 and 0.5 (fraction of the width)",
                               key="across")
         head = _mallet(mallet if mallet is not None else s.mallet)
-        amps, phases = self._excite(model, head, float(speed_m_s), pos, acr)
-        return self._voice(model, amps, phases, time_s, release_s, pedal, mono)
+        amps, phases, pulse = self._excite(model, head, float(speed_m_s), pos, acr)
+        voice = self._voice(model, amps, phases, time_s, release_s, pedal, mono)
+        if not self.attack:
+            return voice
+        return replace(voice, onset=contact_onset(voice, pulse, self.sample_rate))
 
     def strike_settings(self, *, velocity: float | None = None, speed_m_s: float | None = None,
                         mallet: str | None = None, position: float | None = None,
@@ -431,7 +439,8 @@ class Voicer:
         res = simulate_contact(head, speed, omega_rad_s=omega, modal_mass_kg=mass,
                                shape_value=phi, decay_per_s=decay, runner=run_contact)
         energy_root = np.abs(res.amplitude_m) * omega * np.sqrt(mass / 2.0)
-        return energy_root, np.asarray(res.phase_rad, dtype=float)
+        pulse = (np.asarray(res.time_s, dtype=float), np.asarray(res.force_n, dtype=float))
+        return energy_root, np.asarray(res.phase_rad, dtype=float), pulse
 
     def _voice(self, model: NoteModel, energy_root, phases, time_s, release_s, pedal,
                mono: bool = False) -> Voice:
@@ -560,6 +569,77 @@ class Voicer:
                                  speed_m_s=st.mallet_speed_m_s, mallet=st.mallet,
                                  position=st.position, across=st.across,
                                  release_s=release, pedal=pedal)
+
+
+def contact_onset(voice: Voice, pulse: tuple[np.ndarray, np.ndarray],
+                  sample_rate: float) -> np.ndarray:
+    """The voice's first samples while the mallet touches the bar, as the engine's onset.
+
+    A mode's free vibration after the contact, ``Im(c e^(s t))`` with ``s = -g +
+    i 2 pi f``, is the response to the contact force ``F``:
+    ``q(t) = Im(K e^(s t) C(t))`` with ``C(t) = int_0^t F(tau) e^(-s tau) dtau``.
+    While the force acts, the mode is therefore the free form times the ramp
+    ``r(t) = C(t) / C(t_c)``, which runs from 0 at the first touch to 1 at the
+    final separation ``t_c``.  The onset is the difference between that and the
+    free form the engine renders, ``a Im(e^(i phi) e^(s t) (r(t) - 1))`` summed over
+    the modes, for the samples before ``t_c`` (zero after).  The tube member of a
+    coupled pair, driven by the bar member at rate ``mu``, gets the first-order
+    difference ``i mu int_0^t e^(s2 (t - tau)) da1(tau) dtau`` (``mu`` and the
+    tube's weight taken at the voice's first sample; terms of order
+    ``(mu t_c)^2`` left out).  The integrals run on the contact's own time grid
+    (trapezoid rule) and are interpolated to the samples.
+
+    The output thus starts at zero and follows the force: for the modes whose
+    period is long beside ``t_c`` it rises as the momentum given so far.
+    """
+    t, force = pulse
+    t_c = float(t[-1])
+    n = int(math.ceil(t_c * sample_rate))
+    tk = np.arange(n) / sample_rate
+    tk = tk[tk < t_c]
+    if tk.size == 0 or t.size < 2:
+        return np.zeros(0)
+    dt = np.diff(t)
+
+    def cumulative(values: np.ndarray) -> np.ndarray:
+        out = np.zeros(values.shape, dtype=complex)
+        out[..., 1:] = np.cumsum(0.5 * (values[..., 1:] + values[..., :-1]) * dt, axis=-1)
+        return out
+
+    def at_samples(values: np.ndarray) -> np.ndarray:
+        return np.interp(tk, t, values.real) + 1j * np.interp(tk, t, values.imag)
+
+    def ramp(s: complex) -> np.ndarray:  # r on the contact grid
+        c = cumulative(force * np.exp(-s * t))
+        return c / c[-1] if c[-1] != 0 else np.ones_like(c)
+
+    out = np.zeros(tk.size)
+    bank = voice.modes
+    for f, g, a, ph in zip(bank.frequency_hz, bank.decay_per_s, bank.amplitude,
+                           bank.phase_rad, strict=True):
+        if a == 0.0:
+            continue
+        s = complex(-g, 2.0 * math.pi * f)
+        r = at_samples(ramp(s))
+        out += a * np.imag(np.exp(1j * ph + s * tk) * (r - 1.0))
+    start = voice.start_sample
+    for pair in voice.pairs:
+        e, ph = pair.amplitude[0], pair.phase_rad[0]
+        if e == 0.0:
+            continue
+        s1 = complex(-pair.decay_per_s[0], 2.0 * math.pi * pair.frequency_hz[0])
+        s2 = complex(-pair.decay_per_s[1], 2.0 * math.pi * pair.frequency_hz[1])
+        da1 = e * np.exp(1j * ph + s1 * t) * (ramp(s1) - 1.0)     # on the contact grid
+        mu = _first_value(pair.coupling_rad_s, start)
+        w2 = _first_value(pair.weight_2, start)
+        da2 = 1j * mu * np.exp(s2 * t) * cumulative(np.exp(-s2 * t) * da1)
+        out += pair.weight_1 * np.imag(at_samples(da1)) + w2 * np.imag(at_samples(da2))
+    return out
+
+
+def _first_value(value, sample: int) -> float:
+    """A constant, or a curve's value at ``sample``."""
+    return float(value(sample, 1)[0]) if callable(value) else float(value)
 
 
 @lru_cache(maxsize=64)
