@@ -46,6 +46,7 @@ import numpy as np
 from synth import plan_cache
 from synth.constants import LN_1000
 from synth.engine.contact import run_contact
+from synth.engine.render import render
 from synth.engine.score import Score, Strike
 from synth.engine.voice import ModeBank, ModePair, Voice, constant_power_pan, seconds_to_sample
 from synth.errors import ConfigError
@@ -384,7 +385,7 @@ class Voicer:
         voice = self._voice(model, amps, phases, time_s, release_s, pedal, mono)
         if not self.attack:
             return voice
-        return replace(voice, onset=contact_onset(voice, pulse, self.sample_rate))
+        return contact_onset(voice, pulse, self.sample_rate)
 
     def strike_settings(self, *, velocity: float | None = None, speed_m_s: float | None = None,
                         mallet: str | None = None, position: float | None = None,
@@ -572,74 +573,52 @@ class Voicer:
 
 
 def contact_onset(voice: Voice, pulse: tuple[np.ndarray, np.ndarray],
-                  sample_rate: float) -> np.ndarray:
-    """The voice's first samples while the mallet touches the bar, as the engine's onset.
+                  sample_rate: float) -> Voice:
+    """The voice with its first samples following the contact force (the engine's onset).
 
-    A mode's free vibration after the contact, ``Im(c e^(s t))`` with ``s = -g +
-    i 2 pi f``, is the response to the contact force ``F``:
-    ``q(t) = Im(K e^(s t) C(t))`` with ``C(t) = int_0^t F(tau) e^(-s tau) dtau``.
-    While the force acts, the mode is therefore the free form times the ramp
-    ``r(t) = C(t) / C(t_c)``, which runs from 0 at the first touch to 1 at the
-    final separation ``t_c``.  The onset is the difference between that and the
-    free form the engine renders, ``a Im(e^(i phi) e^(s t) (r(t) - 1))`` summed over
-    the modes, for the samples before ``t_c`` (zero after).  The tube member of a
-    coupled pair, driven by the bar member at rate ``mu``, gets the first-order
-    difference ``i mu int_0^t e^(s2 (t - tau)) da1(tau) dtau`` (``mu`` and the
-    tube's weight taken at the voice's first sample; terms of order
-    ``(mu t_c)^2`` left out).  The integrals run on the contact's own time grid
-    (trapezoid rule) and are interpolated to the samples.
-
-    The output thus starts at zero and follows the force: for the modes whose
-    period is long beside ``t_c`` it rises as the momentum given so far.
+    While the mallet touches the bar the voice is its free form scaled by the
+    momentum given so far, ``rho(t) = int_0^t F / int_0^t_c F``: zero at the first
+    touch (the Hunt & Crossley force is zero there and ``rho`` grows from it),
+    rising monotonically to 1 at the final separation ``t_c``, after which the
+    free form rings on unchanged.  For a mode whose period is long beside
+    ``t_c`` this is its response to the force, ``(1 / M w) int_0^t F(tau)
+    sin(w (t - tau)) dtau``, to first order in ``w t_c``; a mode of shorter period
+    is small after the contact (the pulse filters it), and the scale never lets it
+    exceed its free amplitude (the modes' own response to the force would add the
+    bar's quasi-static deflection under the head, which radiates little).  The
+    onset is ``(rho - 1)`` times the free form, rendered here by the engine over
+    the samples before ``t_c`` from the voice's own start (damping changes within
+    the contact left out).
     """
     t, force = pulse
     t_c = float(t[-1])
-    n = int(math.ceil(t_c * sample_rate))
-    tk = np.arange(n) / sample_rate
+    tk = np.arange(int(math.ceil(t_c * sample_rate))) / sample_rate
     tk = tk[tk < t_c]
     if tk.size == 0 or t.size < 2:
-        return np.zeros(0)
-    dt = np.diff(t)
+        return voice
+    momentum = np.concatenate([[0.0], np.cumsum(0.5 * (force[1:] + force[:-1]) * np.diff(t))])
+    if not momentum[-1] > 0:
+        return voice
+    rho = np.interp(tk, t, momentum) / momentum[-1]
+    free = render([_from_zero(voice)], tk.size, sample_rate=sample_rate, channels=1,
+                  retire_db=None)[:, 0]
+    return replace(voice, onset=(rho - 1.0) * free)
 
-    def cumulative(values: np.ndarray) -> np.ndarray:
-        out = np.zeros(values.shape, dtype=complex)
-        out[..., 1:] = np.cumsum(0.5 * (values[..., 1:] + values[..., :-1]) * dt, axis=-1)
-        return out
 
-    def at_samples(values: np.ndarray) -> np.ndarray:
-        return np.interp(tk, t, values.real) + 1j * np.interp(tk, t, values.imag)
-
-    def ramp(s: complex) -> np.ndarray:  # r on the contact grid
-        c = cumulative(force * np.exp(-s * t))
-        return c / c[-1] if c[-1] != 0 else np.ones_like(c)
-
-    out = np.zeros(tk.size)
-    bank = voice.modes
-    for f, g, a, ph in zip(bank.frequency_hz, bank.decay_per_s, bank.amplitude,
-                           bank.phase_rad, strict=True):
-        if a == 0.0:
-            continue
-        s = complex(-g, 2.0 * math.pi * f)
-        r = at_samples(ramp(s))
-        out += a * np.imag(np.exp(1j * ph + s * tk) * (r - 1.0))
+def _from_zero(voice: Voice) -> Voice:
+    """The voice moved to output sample 0, mono, undamped; its curves read where it was."""
     start = voice.start_sample
-    for pair in voice.pairs:
-        e, ph = pair.amplitude[0], pair.phase_rad[0]
-        if e == 0.0:
-            continue
-        s1 = complex(-pair.decay_per_s[0], 2.0 * math.pi * pair.frequency_hz[0])
-        s2 = complex(-pair.decay_per_s[1], 2.0 * math.pi * pair.frequency_hz[1])
-        da1 = e * np.exp(1j * ph + s1 * t) * (ramp(s1) - 1.0)     # on the contact grid
-        mu = _first_value(pair.coupling_rad_s, start)
-        w2 = _first_value(pair.weight_2, start)
-        da2 = 1j * mu * np.exp(s2 * t) * cumulative(np.exp(-s2 * t) * da1)
-        out += pair.weight_1 * np.imag(at_samples(da1)) + w2 * np.imag(at_samples(da2))
-    return out
 
+    def shifted(curve):
+        if not callable(curve):
+            return curve
+        return lambda first, n: curve(first + start, n)
 
-def _first_value(value, sample: int) -> float:
-    """A constant, or a curve's value at ``sample``."""
-    return float(value(sample, 1)[0]) if callable(value) else float(value)
+    pairs = tuple(replace(p, coupling_rad_s=shifted(p.coupling_rad_s),
+                          weight_2=shifted(p.weight_2),
+                          decay_2_curve=shifted(p.decay_2_curve)) for p in voice.pairs)
+    return replace(voice, start_sample=0, channel_gains=(1.0,), stop_sample=None, damping=(),
+                   gain_curve=shifted(voice.gain_curve), pairs=pairs, onset=None)
 
 
 @lru_cache(maxsize=64)

@@ -49,23 +49,58 @@ def _last_10ms_db(path) -> float:
 
 
 def test_strike_attack_rises_from_zero_with_the_contact_force(tmp_path):
-    """A4, default mallet and strength: first 0.5 ms rise monotonically from zero.
+    """A4, default mallet and strength: the first 0.5 ms start at zero and grow as the force.
 
-    Before the change the first sample was 0.126 of full scale (the free modes
-    extrapolated back to the first touch); measured now: 0 and 0.47 of the
-    peak at 0.5 ms, every step at least 5e-5 of the peak.
+    Before the change sample 0 was 0.126 of full scale (the free modes
+    extrapolated back to the first touch).  Now sample 0 is zero within the
+    file's rounding, and each sample of the first 0.5 ms lies within the
+    momentum envelope ``rho(t) S``: ``rho`` is the momentum the Hunt & Crossley
+    contact has given by ``t`` over all it gives (integrated here with the
+    trapezoid rule from the contact's force pulse, which
+    :func:`synth.physics.mallet.simulate_contact` returns), ``S`` the sum of the
+    voice's free amplitudes, scaled to the file by its gain.  ``rho`` itself
+    must start at 0 and rise monotonically (the force is >= 0).  Measured: the
+    file's first 0.5 ms reach 0.016 of its peak (tubed A4, the tube still
+    building up), and the envelope allows 0.03 of full scale there.  A strictly
+    monotonic rise is not asked: partials 2 and 3 (periods 0.57 and 0.22 ms) turn
+    within the window; the largest fall between neighbours is 0.4 % of the peak.
     """
+    from synth.physics.instrument import load_instrument
+    from synth.physics.mallet import load_mallet, simulate_contact
+    from synth.voicing import Voicer
+
     out = tmp_path / "a4.wav"
-    r = run("strike", DEMO, "A4", "--duration", "0.2", "--out", out)
+    r = run("strike", DEMO, "A4", "--duration", "0.2", "--channels", "1", "--out", out)
     assert r.exit_code == 0, r.stderr
     x, fs = sf.read(out, dtype="float64", always_2d=True)
+    side = json.loads(out.with_suffix(".json").read_text())
     n = int(round(0.0005 * fs))                   # 24 samples at 48 kHz
-    for ch in range(x.shape[1]):
-        first = x[:n, ch]
-        assert abs(first[0]) <= HALF_STEP_24
-        sign = np.sign(first[-1])
-        assert abs(first[-1]) > 0.1 * np.max(np.abs(x[:, ch]))    # it does rise
-        assert np.all(sign * np.diff(first) >= -2 * HALF_STEP_24), np.diff(first)
+    assert abs(x[0, 0]) <= HALF_STEP_24
+
+    plan = Voicer(load_instrument(DEMO), channels=1)
+    model = plan.model("A4")
+    sound = model.sounding()
+    modes = [model.modes.modes[i] for i, _ in sound]
+    geo = model.modes.geometry
+    res = simulate_contact(
+        load_mallet(side["mallet"]), side["speed_m_s"],
+        omega_rad_s=np.array([m.angular_frequency for m in modes]),
+        modal_mass_kg=np.array([m.modal_mass for m in modes]),
+        shape_value=np.array([float(m.vertical_displacement_at(side["position"] * geo.length_m,
+                                                               side["across"] * geo.width_m))
+                              for m in modes]),
+        decay_per_s=np.array([b.decay_per_s for _, b in sound]))
+    force, t = np.asarray(res.force_n), np.asarray(res.time_s)
+    assert force[0] == 0.0 and np.all(force >= 0.0)
+    momentum = np.concatenate([[0.0], np.cumsum(0.5 * (force[1:] + force[:-1]) * np.diff(t))])
+    assert np.all(np.diff(momentum) >= 0.0)
+    rho = np.interp(np.arange(n) / fs, t, momentum / momentum[-1])
+    voice = plan.strike_voice("A4", speed_m_s=side["speed_m_s"])
+    free_sum = float(np.sum(np.abs(voice.modes.amplitude))) + sum(
+        np.hypot(*p.amplitude) * (abs(p.weight_1) + abs(p.weight_2)) for p in voice.pairs)
+    gain = 10 ** (side["gain_db"] / 20)
+    assert np.all(np.abs(x[:n, 0]) <= rho * free_sum * gain + HALF_STEP_24)
+    assert np.max(np.abs(x[:n, 0])) > 0.0
 
 
 def test_hard_mallet_starts_at_zero(tmp_path):
