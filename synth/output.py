@@ -48,6 +48,7 @@ from typing import Any
 import numpy as np
 
 from synth import io
+from synth.defaults import RENDER_DEFAULTS
 from synth.engine.render import (
     DEFAULT_BLOCK_SIZE,
     DEFAULT_RETIRE_DB,
@@ -57,7 +58,6 @@ from synth.engine.render import (
     render_blocks,
     ring_out_sample,
 )
-from synth.defaults import RENDER_DEFAULTS
 from synth.engine.voice import Voice
 from synth.errors import AudioError, ConfigError
 
@@ -139,7 +139,7 @@ class Ending:
                 f"{self.end_level_db:g} dB")
 
     def record(self) -> dict[str, Any]:
-        """The sidecar's keys."""
+        """Return the sidecar's keys."""
         return {"ending": self.how, "end_level_db": self.end_level_db,
                 "fade_s": self.fade_s, "last_10ms_db_re_peak": self.last_10ms_db}
 

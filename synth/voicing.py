@@ -390,7 +390,7 @@ class Voicer:
     def strike_settings(self, *, velocity: float | None = None, speed_m_s: float | None = None,
                         mallet: str | None = None, position: float | None = None,
                         across: float | None = None) -> dict:
-        """The strike as :meth:`strike_voice` plays it: every default resolved.
+        """Return the strike as :meth:`strike_voice` plays it, every default resolved.
 
         Returns ``velocity`` (None when a speed was given), ``speed_m_s``,
         ``mallet``, ``position`` and ``across``, as used.
@@ -405,7 +405,7 @@ class Voicer:
                 "across": s.across if across is None else float(across)}
 
     def plan_settings(self) -> dict:
-        """What every voice of this plan shares: rate, channels, tubes, motor, preset digest."""
+        """Return what every voice of this plan shares: rate, channels, tubes, motor, preset."""
         source = Path(self.instrument.source)
         try:
             digest = hashlib.sha256(source.read_bytes()).hexdigest()
@@ -574,7 +574,7 @@ class Voicer:
 
 def contact_onset(voice: Voice, pulse: tuple[np.ndarray, np.ndarray],
                   sample_rate: float) -> Voice:
-    """The voice with its first samples following the contact force (the engine's onset).
+    """Return the voice with its first samples following the contact force (its onset).
 
     While the mallet touches the bar the voice is its free form scaled by the
     momentum given so far, ``rho(t) = int_0^t F / int_0^t_c F``: zero at the first
@@ -606,7 +606,7 @@ def contact_onset(voice: Voice, pulse: tuple[np.ndarray, np.ndarray],
 
 
 def _from_zero(voice: Voice) -> Voice:
-    """The voice moved to output sample 0, mono, undamped; its curves read where it was."""
+    """Return the voice moved to output sample 0, mono, undamped; curves read where it was."""
     start = voice.start_sample
 
     def shifted(curve):

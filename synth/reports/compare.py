@@ -77,8 +77,8 @@ from synth.defaults import RENDER_DEFAULTS
 from synth.engine.render import render
 from synth.engine.score import Score, Strike
 from synth.errors import AudioError, ConfigError
-from synth.pitch import canonical_note, midi_to_note, note_to_midi, ratio_to_cents
 from synth.output import fade_seconds
+from synth.pitch import canonical_note, midi_to_note, note_to_midi, ratio_to_cents
 from synth.voicing import Voicer
 
 CEILING_DBTP: Final[float] = -1.0

@@ -1,5 +1,8 @@
-"""Clean renders: the attack follows the contact force, every file ends below its end level,
-the sidecar holds every resolved setting, and the sound commands share one set of defaults.
+"""Clean renders: attack, end level, sidecar and shared defaults of the sound commands.
+
+The attack follows the contact force, every file ends below its end level, the
+sidecar holds every resolved setting, and the sound commands share one set of
+defaults.
 
 Checks against something the render does not compute itself:
 

@@ -40,6 +40,7 @@ def _no_steps(n, label):
 
 
 def test_demo_tube_pair_shares_one_gain(tmp_path):
+    """Same gain in both sidecars; the files' loudness difference is the model's."""
     from dataclasses import replace
 
     from synth.engine.render import render

@@ -17,8 +17,8 @@ import pytest
 import soundfile as sf
 
 from synth.engine import (
-    ModePair,
     ModeBank,
+    ModePair,
     Voice,
     constant_power_pan,
     peak_bound,
