@@ -261,15 +261,24 @@ def _sounds(inst, out: Path, say: Say, steps: Steps):
                                              else {})})
             if name == DEMO_WAVS[0]:
                 pair_gain = rep.plan.gain_db
-            how = (f"same gain as {DEMO_WAVS[0]}, {rep.plan.gain_db:+.1f} dB: "
-                   f"peak {rep.plan.peak_dbfs:.1f} dBFS, so the tube adds "
-                   f"{-1.0 - rep.plan.peak_dbfs:.1f} dB of peak" if bare
+            how = (f"same gain as {DEMO_WAVS[0]}, {rep.plan.gain_db:+.1f} dB: the tube adds "
+                   f"{_tube_loudness_db(renders, fs):.1f} dB of BS.1770-4 loudness" if bare
                    else f"gain {rep.plan.gain_db:+.1f} dB")
             say(f"   {rep.path}   ({what}; {rep.seconds:.1f} s, {how}; "
                 f"{rep.ending.sentence(rep.seconds)})")
             step(1, name)
     say("")
     return stereo
+
+
+def _tube_loudness_db(renders, fs: int) -> float:
+    """Loudness of the tubed A4 over the bare one (the first two renders, unscaled), dB."""
+    from synth.analysis import integrated_loudness
+    from synth.engine.render import render
+
+    level = [integrated_loudness(render(voices, int(seconds * fs), sample_rate=fs, channels=2),
+                                 fs).integrated_lufs for _, voices, seconds, _ in renders[:2]]
+    return level[0] - level[1]
 
 
 def _reports(inst, stereo, out: Path, say: Say, steps: Steps) -> None:

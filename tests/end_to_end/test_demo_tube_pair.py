@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import contextlib
 import json
+import re
 
 import numpy as np
 import pyloudnorm
@@ -74,3 +75,7 @@ def test_demo_tube_pair_shares_one_gain(tmp_path):
     model_db = 10 * np.log10(_k_energy(model[0]) / _k_energy(model[1]))
     assert model_db > 6.0                      # the tube is heard: 12.1 dB measured
     assert files_db == pytest.approx(model_db, abs=0.15)
+    # what the demo prints: the same difference, to its printed 0.1 dB
+    printed = [float(m.group(1)) for line in said
+               if (m := re.search(r"the tube adds ([0-9.]+) dB of BS.1770-4 loudness", line))]
+    assert len(printed) == 1 and printed[0] == pytest.approx(files_db, abs=0.15 + 0.05)
