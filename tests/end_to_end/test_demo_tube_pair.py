@@ -8,8 +8,9 @@ from the standard (ITU-R BS.1770-4, Annex 1, Tables 1 and 2), and summed over
 the whole render without gating.  With one gain on both files the two
 differences agree up to the gating, which the ungated sum leaves out, and the
 24-bit rounding: measured 12.2357 dB (files, gated) against 12.2345 dB (model,
-ungated), 0.0012 dB apart; tolerance 0.02 dB.  Normalising each file on its own, as the demo did before, would leave
-the files' difference 12 dB away from the model's, and the check fails.
+ungated), 0.0012 dB apart; tolerance 0.02 dB.  Normalising each file on its own,
+as the demo did before, would leave the files' difference 12 dB away from the
+model's, and the check fails.
 """
 
 from __future__ import annotations
