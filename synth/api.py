@@ -21,6 +21,7 @@ import math
 
 import numpy as np
 
+from synth.defaults import RENDER_DEFAULTS
 from synth.engine.score import Score
 from synth.errors import ConfigError
 from synth.physics.bar_fe import BarModes, solve_bar
@@ -148,7 +149,7 @@ def score_length_s(plan: Voicer, score: Score, voices) -> float:
 
 
 def render_score(plan: Voicer | Instrument, score: Score, *, seconds: float | None = None,
-                 default_pedal: float = 0.0) -> np.ndarray:
+                 default_pedal: float = RENDER_DEFAULTS.pedal) -> np.ndarray:
     """Render a score (strikes and pedal changes) into an array.
 
     Parameters
@@ -161,7 +162,8 @@ def render_score(plan: Voicer | Instrument, score: Score, *, seconds: float | No
         Length, s; default the score's own length, else until every note has
         fallen 60 dB (at most 30 s after the last event).
     default_pedal : float
-        Pedal before the score's first pedal event, 0-1 (1: dampers lifted).
+        Pedal before the score's first pedal event, 0-1 (1: dampers lifted; default
+        :data:`synth.defaults.RENDER_DEFAULTS`, as ``barwright render``).
 
     Returns
     -------

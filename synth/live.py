@@ -219,7 +219,8 @@ class LivePlayer:
                  scales: Sequence[float] | None = None,
                  retire_dbfs: float = -150.0, workers: int | None = 1,
                  scheduler: str | None = None):
-        voicers = list(voicers)
+        # the pool renders modes only: every mode starts in its free form (no contact onset)
+        voicers = [replace(v, attack=False) for v in voicers]
         if not 1 <= len(voicers) <= 2:
             raise ConfigError("a player plays one or two designs")
         fs = voicers[0].sample_rate

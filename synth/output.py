@@ -14,6 +14,22 @@ output's peak (``retire_db``).  The file is written atomically and never
 replaces an existing one unless ``force``; a JSON sidecar beside it records the
 resolved settings.
 
+Every file ends cleanly, in one of two ways, and says which (:class:`Ending`):
+
+* **rung out**: given a longest length (``ring_out=True``), the file stops
+  where its samples have stayed below the end level re its peak
+  (:data:`RENDER_DEFAULTS` ``end_level_db``, -60 dB) for :data:`END_HOLD_S`
+  (10 ms): the last 10 ms are then below the end level by construction;
+* **faded**: at a length the caller set, or when the longest length comes
+  first, the last :func:`fade_seconds` seconds get a raised-cosine fade
+  ``sin^2(pi tau / (2 F))`` (tau: time to the end).  Since
+  ``sin^2 x <= x^2``, the fade gain over the last 10 ms stays at or below
+  ``(pi h / (2 F))^2``, and ``F`` is chosen so that this is the end level:
+  whatever the signal, the last 10 ms are below it (F = 0.50 s at -60 dB).
+
+The sidecar holds the ending, the end level, the fade length and the level of
+the last 10 ms that the file really has.
+
 .. note:: Struck metal bars are peaky. Start playback quietly, especially on
    headphones.
 """
@@ -21,6 +37,7 @@ resolved settings.
 from __future__ import annotations
 
 import contextlib
+import math
 import tempfile
 import time
 from collections.abc import Callable, Iterable, Iterator, Mapping, Sequence
@@ -31,6 +48,7 @@ from typing import Any
 import numpy as np
 
 from synth import io
+from synth.defaults import RENDER_DEFAULTS
 from synth.engine.render import (
     DEFAULT_BLOCK_SIZE,
     DEFAULT_RETIRE_DB,
@@ -38,9 +56,93 @@ from synth.engine.render import (
     peak_bound,
     plan_gain,
     render_blocks,
+    ring_out_sample,
 )
 from synth.engine.voice import Voice
-from synth.errors import AudioError
+from synth.errors import AudioError, ConfigError
+
+END_HOLD_S = 0.01
+"""Length of the file's end that must stay below the end level, s (the last 10 ms)."""
+
+
+def fade_seconds(end_level_db: float = RENDER_DEFAULTS.end_level_db,
+                 hold_s: float = END_HOLD_S) -> float:
+    """Length of the closing fade whose last ``hold_s`` stay below ``end_level_db``, s.
+
+    The fade gain ``sin^2(pi tau / (2 F))`` is at most ``(pi tau / (2 F))^2``;
+    setting that to ``10^(end_level_db / 20)`` at ``tau = hold_s`` gives
+    ``F = pi hold_s / (2 10^(end_level_db / 40))``.
+    """
+    if not (math.isfinite(end_level_db) and end_level_db < 0):
+        raise ConfigError(f"end level = {end_level_db!r} dB: must be a negative number of dB",
+                          source="--end-level")
+    return math.pi * hold_s / (2.0 * 10.0 ** (end_level_db / 40.0))
+
+
+RING_MARGIN_DB = 20.0
+"""How much further than the end level the voices' amplitude bound must fall before the
+longest length of a ring-out, dB: the bound (the sum of the mode amplitudes) exceeds
+the file's peak, by a factor below 10 for the strikes and chords of the demo preset."""
+
+
+def ring_out_length(voices: Sequence[Voice], *, sample_rate: float,
+                    end_level_db: float = RENDER_DEFAULTS.end_level_db,
+                    longest_s: float = RENDER_DEFAULTS.longest_s) -> int:
+    """Return the longest length of a ring-out render, samples.
+
+    The first sample by which every voice's amplitude bound has fallen
+    ``end_level_db - RING_MARGIN_DB`` below its start
+    (:func:`synth.engine.render.ring_out_sample`), at most ``longest_s``
+    after the last voice starts.  :func:`render_to_wav` with ``ring_out=True``
+    then stops the file where its samples have fallen to the end level.
+    """
+    fade_seconds(end_level_db)  # checks the level
+    last = max((v.start_sample for v in voices), default=0)
+    cap = last + int(round(longest_s * sample_rate))
+    ring = ring_out_sample(voices, sample_rate=sample_rate,
+                           level_db=end_level_db - RING_MARGIN_DB) if voices else 1
+    return max(1, cap if ring is None else min(ring, cap))
+
+
+@dataclass(frozen=True)
+class Ending:
+    """How a file ends.
+
+    Attributes
+    ----------
+    how : str
+        ``"rang out"`` or ``"faded"``.
+    end_level_db : float
+        The stated end level re the peak, dB.
+    fade_s : float
+        Length of the closing fade, s (0 when the file rang out).
+    last_10ms_db : float
+        Largest magnitude of the file's last 10 ms re its peak, dB (``-inf``: silent).
+    longest_reached : bool
+        A ring-out that had not reached the end level by its longest length (then faded).
+    """
+
+    how: str
+    end_level_db: float
+    fade_s: float
+    last_10ms_db: float
+    longest_reached: bool = False
+
+    def sentence(self, seconds: float) -> str:
+        """One line for the command's summary."""
+        if self.how == "rang out":
+            return (f"rang out to {self.end_level_db:g} dB re peak at {seconds:.2f} s "
+                    f"(last 10 ms at {self.last_10ms_db:.1f} dB)")
+        why = (" (had not rung out by the longest length)" if self.longest_reached else "")
+        return (f"cut at {seconds:.2f} s with a {self.fade_s * 1000:.0f} ms fade{why}; "
+                f"last 10 ms at {self.last_10ms_db:.1f} dB re peak, below "
+                f"{self.end_level_db:g} dB")
+
+    def record(self) -> dict[str, Any]:
+        """Return the sidecar's keys."""
+        return {"ending": self.how, "end_level_db": self.end_level_db,
+                "fade_s": self.fade_s, "last_10ms_db_re_peak": self.last_10ms_db}
+
 
 HEARING_CAUTION = ("Caution: start playback at a low volume and raise it slowly; struck metal "
                    "bars are peaky, especially on headphones.")
@@ -60,6 +162,8 @@ class RenderReport:
     wall_s: float
     streamed: bool = False
     """True when the samples went straight into the WAV (a fixed gain that cannot clip)."""
+    ending: Ending | None = None
+    """How the file ends (rang out or faded) and the level of its last 10 ms."""
 
 
 def render_to_wav(path: str | Path, voices: Sequence[Voice], n_samples: int, *,
@@ -70,7 +174,8 @@ def render_to_wav(path: str | Path, voices: Sequence[Voice], n_samples: int, *,
                   progress: Callable[[int, int], None] | None = None,
                   block_size: int = DEFAULT_BLOCK_SIZE,
                   retire_db: float | None = DEFAULT_RETIRE_DB,
-                  scratch_dir: str | Path | None = None) -> RenderReport:
+                  scratch_dir: str | Path | None = None, ring_out: bool = False,
+                  end_level_db: float = RENDER_DEFAULTS.end_level_db) -> RenderReport:
     """Render ``voices`` over ``n_samples`` into ``path`` (WAV) plus a JSON sidecar.
 
     ``progress(done, total)`` is called with the samples rendered (total
@@ -79,50 +184,84 @@ def render_to_wav(path: str | Path, voices: Sequence[Voice], n_samples: int, *,
     every voice; see :mod:`synth.engine.render`).  The temporary file of a
     normalised render goes to ``scratch_dir`` (default: the WAV's folder) and
     takes 8 bytes per sample and channel while the render runs.
+
+    ``ring_out=False``: the file is ``n_samples`` long and faded at its end so
+    that its last 10 ms stay below ``end_level_db`` re its peak.  ``True``:
+    ``n_samples`` is the longest length, and the file stops 10 ms after its
+    samples last reached ``end_level_db`` re the peak (faded instead when they
+    never fall that far within ``n_samples``).  See the module docstring.
     """
     t0 = time.perf_counter()
     target = io.check_writable(path, force=force)
     side = io.sidecar_path(target)
     io.check_writable(side, force=force)
     out_dtype = np.float32 if sample_format == "float32" else np.float64
+    fade_n = min(int(n_samples), int(round(fade_seconds(end_level_db) * sample_rate)))
+    hold = max(1, int(round(END_HOLD_S * sample_rate)))
 
     def blocks() -> Iterator[np.ndarray]:
         return render_blocks(voices, n_samples, sample_rate=sample_rate, channels=channels,
                              block_size=block_size, retire_db=retire_db, progress=progress)
 
     plan = None
-    if gain_db is not None:
+    n_out, faded, longest = int(n_samples), True, False
+    if gain_db is not None and not ring_out:
         bound = peak_bound(voices, n_samples, sample_rate=sample_rate, channels=channels)
         gain = plan_gain(0.0, target_dbfs=target_dbfs, gain_db=gain_db).gain
         if bound is not None and bound * gain <= 1.0:  # cannot clip: stream it
-            meter = _PeakMeter(blocks())
-            io.write_wav(target, _scaled(meter, gain, out_dtype), sample_rate=sample_rate,
+            unscaled = _TailMeter(_faded(blocks(), n_out, fade_n), n_out, 0)
+            meter = _TailMeter(_scaled(unscaled, gain, out_dtype), n_out, hold)
+            io.write_wav(target, meter, sample_rate=sample_rate,
                          sample_format=sample_format, channels=channels, force=force)
-            plan = plan_gain(meter.peak, target_dbfs=target_dbfs, gain_db=gain_db)
+            plan = plan_gain(unscaled.peak, target_dbfs=target_dbfs, gain_db=gain_db)
     streamed = plan is not None
     if plan is None:
         with _Scratch(target.parent if scratch_dir is None else Path(scratch_dir),
-                      channels) as scratch:
-            peak = scratch.fill(blocks())
+                      channels, hold) as scratch:
+            source = blocks() if ring_out else _faded(blocks(), n_out, fade_n)
+            peak = scratch.fill(source)
             plan = plan_gain(peak, target_dbfs=target_dbfs, gain_db=gain_db)
-            io.write_wav(target, _scaled(scratch.blocks(block_size), plan.gain, out_dtype),
-                         sample_rate=sample_rate, sample_format=sample_format,
+            if ring_out:
+                # half a step of the sample format below the level, so that rounding
+                # the samples cannot lift the last 10 ms above it
+                step = 0.5 * _LSB.get(sample_format, 0.0) / plan.gain
+                end = scratch.rung_out_rows(peak * 10.0 ** (end_level_db / 20.0) - step)
+                if end is not None:
+                    n_out, faded = end, False
+                else:
+                    longest = True
+            rows = scratch.blocks(block_size, n_out)
+            if ring_out and faded:
+                rows = _faded(rows, n_out, fade_n)
+            meter = _TailMeter(_scaled(rows, plan.gain, out_dtype), n_out, hold)
+            io.write_wav(target, meter, sample_rate=sample_rate, sample_format=sample_format,
                          channels=channels, force=force)
+    tail_db = (20.0 * math.log10(meter.tail / meter.peak) if meter.tail > 0 and meter.peak > 0
+               else -math.inf)
+    ending = Ending("faded" if faded else "rang out", float(end_level_db),
+                    fade_n / sample_rate if faded else 0.0, tail_db, longest)
     record = dict(settings or {})
     record.update({
         "file": target.name, "sample_rate_hz": sample_rate, "channels": channels,
-        "sample_format": sample_format, "samples": int(n_samples),
-        "seconds": n_samples / sample_rate, "voices": len(voices),
+        "sample_format": sample_format, "samples": n_out,
+        "seconds": n_out / sample_rate, "voices": len(voices),
         "peak_unscaled": plan.peak, "gain_db": plan.gain_db, "peak_dbfs": plan.peak_dbfs,
         "gain_mode": plan.mode, "requested_gain_db": plan.requested_gain_db,
         "would_clip": plan.would_clip, "limited": plan.limited, "retire_db": retire_db,
+        "longest_s": n_samples / sample_rate if ring_out else None, **ending.record(),
     })
+    if not ring_out:
+        record.pop("longest_s")
     io.write_sidecar(target, record, force=force)
-    return RenderReport(target, side, n_samples / sample_rate, int(n_samples), sample_rate,
-                        channels, plan, time.perf_counter() - t0, streamed)
+    return RenderReport(target, side, n_out / sample_rate, n_out, sample_rate,
+                        channels, plan, time.perf_counter() - t0, streamed, ending)
 
 
 # --------------------------------------------------------------------------- one pass
+_LSB = {"pcm16": 2.0 ** -15, "pcm24": 2.0 ** -23}
+"""Step of the integer sample formats, full scale."""
+
+
 def _scaled(blocks: Iterable[np.ndarray], gain: float, dtype) -> Iterator[np.ndarray]:
     """Apply the gain as the engine does (float64 product, then the output type)."""
     for block in blocks:
@@ -131,27 +270,55 @@ def _scaled(blocks: Iterable[np.ndarray], gain: float, dtype) -> Iterator[np.nda
         yield block if dtype == np.float64 else block.astype(dtype)
 
 
-class _PeakMeter:
-    """Pass blocks through and keep their largest magnitude."""
+def _faded(blocks: Iterable[np.ndarray], n_rows: int, fade_rows: int) -> Iterator[np.ndarray]:
+    """Apply the closing fade ``sin^2(pi tau / (2 F))`` to the last ``fade_rows`` of ``n_rows``.
 
-    def __init__(self, blocks: Iterable[np.ndarray]):
+    ``tau`` counts from the end: the last row (tau = 1 sample) gets a small
+    positive gain, a row past the end would get 0.
+    """
+    first = n_rows - fade_rows
+    row = 0
+    for block in blocks:
+        n = block.shape[0]
+        if fade_rows > 0 and row + n > first:
+            idx = np.arange(row, row + n)
+            tau = np.clip(n_rows - idx, 0, fade_rows) / fade_rows
+            ramp = np.where(idx >= first, np.sin(0.5 * np.pi * tau) ** 2, 1.0)
+            block = block * ramp[:, None]
+        row += n
+        yield block
+
+
+class _TailMeter:
+    """Pass blocks through; keep their largest magnitude and that of the last ``hold`` rows."""
+
+    def __init__(self, blocks: Iterable[np.ndarray], n_rows: int, hold: int):
         self._blocks = blocks
+        self._first = n_rows - hold
         self.peak = 0.0
+        self.tail = 0.0
 
     def __iter__(self) -> Iterator[np.ndarray]:
+        row = 0
         for block in self._blocks:
             if block.size:
                 self.peak = max(self.peak, float(np.max(np.abs(block))))
+                if row + block.shape[0] > self._first:
+                    end = block[max(0, self._first - row):]
+                    self.tail = max(self.tail, float(np.max(np.abs(end))))
+            row += block.shape[0]
             yield block
 
 
 class _Scratch:
     """Unscaled float64 samples in an unnamed temporary file (removed on close)."""
 
-    def __init__(self, folder: Path, channels: int):
+    def __init__(self, folder: Path, channels: int, chunk: int):
         self.folder = folder
         self.channels = channels
         self.rows = 0
+        self.chunk = chunk
+        self._chunks: list[np.ndarray] = []  # largest magnitude per ``chunk`` rows
         self._file = None
 
     def __enter__(self) -> _Scratch:
@@ -172,6 +339,7 @@ class _Scratch:
         for block in blocks:
             if block.size:
                 peak = max(peak, float(np.max(np.abs(block))))
+                self._note_chunks(np.max(np.abs(block), axis=1))
             try:
                 self._file.write(np.ascontiguousarray(block, dtype=np.float64).data)
             except OSError as exc:
@@ -180,11 +348,32 @@ class _Scratch:
             self.rows += block.shape[0]
         return peak
 
-    def blocks(self, block_size: int) -> Iterator[np.ndarray]:
-        """Read the samples back in blocks of ``block_size`` rows."""
+    def _note_chunks(self, row_max: np.ndarray) -> None:
+        ids = (self.rows + np.arange(row_max.size)) // self.chunk
+        starts = np.flatnonzero(np.diff(ids)) + 1
+        starts = np.concatenate([[0], starts])
+        values = np.maximum.reduceat(row_max, starts)
+        if self._chunks and self.rows % self.chunk:  # the first chunk goes on from the last
+            last = self._chunks[-1]
+            last[-1] = max(last[-1], values[0])
+            values = values[1:]
+        if values.size:
+            self._chunks.append(np.array(values, dtype=np.float64))
+
+    def rung_out_rows(self, threshold: float) -> int | None:
+        """Rows up to one whole chunk after the last chunk reaching ``threshold`` (None: never)."""
+        chunks = np.concatenate(self._chunks) if self._chunks else np.zeros(0)
+        if threshold <= 0:
+            return None
+        loud = np.flatnonzero(chunks >= threshold)
+        end = (int(loud[-1]) + 2) * self.chunk if loud.size else self.chunk
+        return end if end <= self.rows else None
+
+    def blocks(self, block_size: int, rows: int | None = None) -> Iterator[np.ndarray]:
+        """Read the first ``rows`` samples (default all) back in blocks of ``block_size``."""
         self._file.seek(0)
         width = 8 * self.channels
-        left = self.rows
+        left = self.rows if rows is None else min(rows, self.rows)
         while left > 0:
             rows = min(block_size, left)
             data = self._file.read(rows * width)

@@ -35,6 +35,7 @@ hold): it rings while the dampers are lifted and stops when they come down.
 
 from __future__ import annotations
 
+import hashlib
 import math
 from dataclasses import dataclass, field, replace
 from functools import cached_property, lru_cache
@@ -45,6 +46,7 @@ import numpy as np
 from synth import plan_cache
 from synth.constants import LN_1000
 from synth.engine.contact import run_contact
+from synth.engine.render import render
 from synth.engine.score import Score, Strike
 from synth.engine.voice import ModeBank, ModePair, Voice, constant_power_pan, seconds_to_sample
 from synth.errors import ConfigError
@@ -166,6 +168,10 @@ class Voicer:
     mallet : str, optional
         Mallet preset name for strikes that name none (default: the preset's
         ``[sound]`` mallet).
+    attack : bool
+        Render the first samples as the modes' response to the contact force
+        while the mallet touches the bar (:func:`contact_onset`; default).
+        False starts every mode at once in its free form, as the live pool does.
     """
 
     instrument: Instrument
@@ -175,6 +181,7 @@ class Voicer:
     channels: int = 2
     calibration: Calibration | None = None
     mallet: str | None = None
+    attack: bool = True
     _cache: dict = field(default_factory=dict, init=False, repr=False, compare=False)
 
     def __post_init__(self):
@@ -374,8 +381,40 @@ class Voicer:
             raise ConfigError(f"= {acr}: must be between -0.5 and 0.5 (fraction of the width)",
                               key="across")
         head = _mallet(mallet if mallet is not None else s.mallet)
-        amps, phases = self._excite(model, head, float(speed_m_s), pos, acr)
-        return self._voice(model, amps, phases, time_s, release_s, pedal, mono)
+        amps, phases, pulse = self._excite(model, head, float(speed_m_s), pos, acr)
+        voice = self._voice(model, amps, phases, time_s, release_s, pedal, mono)
+        if not self.attack:
+            return voice
+        return contact_onset(voice, pulse, self.sample_rate)
+
+    def strike_settings(self, *, velocity: float | None = None, speed_m_s: float | None = None,
+                        mallet: str | None = None, position: float | None = None,
+                        across: float | None = None) -> dict:
+        """Return the strike as :meth:`strike_voice` plays it, every default resolved.
+
+        Returns ``velocity`` (None when a speed was given), ``speed_m_s``,
+        ``mallet``, ``position`` and ``across``, as used.
+        """
+        s = self.sound
+        speed = speed_m_s if speed_m_s is not None else (
+            1.0 if velocity is None else s.speed_of(velocity))
+        name = mallet if mallet is not None else s.mallet
+        return {"velocity": velocity, "speed_m_s": float(speed),
+                "mallet": name if isinstance(name, str) else name.name,
+                "position": s.position if position is None else float(position),
+                "across": s.across if across is None else float(across)}
+
+    def plan_settings(self) -> dict:
+        """Return what every voice of this plan shares: rate, channels, tubes, motor, preset."""
+        source = Path(self.instrument.source)
+        try:
+            digest = hashlib.sha256(source.read_bytes()).hexdigest()
+        except OSError:
+            digest = None
+        return {"sample_rate_hz": self.sample_rate, "channels": self.channels,
+                "tubes": self.tubes_active,
+                "motor_rate_rev_per_s": float(self.motor.rate_rev_per_s),
+                "preset_sha256": digest}
 
     def _excite(self, model: NoteModel, head: Mallet, speed: float, pos: float, acr: float):
         key = (model.note, head, round(speed, 6), round(pos, 6), round(acr, 6))
@@ -401,7 +440,8 @@ class Voicer:
         res = simulate_contact(head, speed, omega_rad_s=omega, modal_mass_kg=mass,
                                shape_value=phi, decay_per_s=decay, runner=run_contact)
         energy_root = np.abs(res.amplitude_m) * omega * np.sqrt(mass / 2.0)
-        return energy_root, np.asarray(res.phase_rad, dtype=float)
+        pulse = (np.asarray(res.time_s, dtype=float), np.asarray(res.force_n, dtype=float))
+        return energy_root, np.asarray(res.phase_rad, dtype=float), pulse
 
     def _voice(self, model: NoteModel, energy_root, phases, time_s, release_s, pedal,
                mono: bool = False) -> Voice:
@@ -530,6 +570,55 @@ class Voicer:
                                  speed_m_s=st.mallet_speed_m_s, mallet=st.mallet,
                                  position=st.position, across=st.across,
                                  release_s=release, pedal=pedal)
+
+
+def contact_onset(voice: Voice, pulse: tuple[np.ndarray, np.ndarray],
+                  sample_rate: float) -> Voice:
+    """Return the voice with its first samples following the contact force (its onset).
+
+    While the mallet touches the bar the voice is its free form scaled by the
+    momentum given so far, ``rho(t) = int_0^t F / int_0^t_c F``: zero at the first
+    touch (the Hunt & Crossley force is zero there and ``rho`` grows from it),
+    rising monotonically to 1 at the final separation ``t_c``, after which the
+    free form rings on unchanged.  For a mode whose period is long beside
+    ``t_c`` this is its response to the force, ``(1 / M w) int_0^t F(tau)
+    sin(w (t - tau)) dtau``, to first order in ``w t_c``; a mode of shorter period
+    is small after the contact (the pulse filters it), and the scale never lets it
+    exceed its free amplitude (the modes' own response to the force would add the
+    bar's quasi-static deflection under the head, which radiates little).  The
+    onset is ``(rho - 1)`` times the free form, rendered here by the engine over
+    the samples before ``t_c`` from the voice's own start (damping changes within
+    the contact left out).
+    """
+    t, force = pulse
+    t_c = float(t[-1])
+    tk = np.arange(int(math.ceil(t_c * sample_rate))) / sample_rate
+    tk = tk[tk < t_c]
+    if tk.size == 0 or t.size < 2:
+        return voice
+    momentum = np.concatenate([[0.0], np.cumsum(0.5 * (force[1:] + force[:-1]) * np.diff(t))])
+    if not momentum[-1] > 0:
+        return voice
+    rho = np.interp(tk, t, momentum) / momentum[-1]
+    free = render([_from_zero(voice)], tk.size, sample_rate=sample_rate, channels=1,
+                  retire_db=None)[:, 0]
+    return replace(voice, onset=(rho - 1.0) * free)
+
+
+def _from_zero(voice: Voice) -> Voice:
+    """Return the voice moved to output sample 0, mono, undamped; curves read where it was."""
+    start = voice.start_sample
+
+    def shifted(curve):
+        if not callable(curve):
+            return curve
+        return lambda first, n: curve(first + start, n)
+
+    pairs = tuple(replace(p, coupling_rad_s=shifted(p.coupling_rad_s),
+                          weight_2=shifted(p.weight_2),
+                          decay_2_curve=shifted(p.decay_2_curve)) for p in voice.pairs)
+    return replace(voice, start_sample=0, channel_gains=(1.0,), stop_sample=None, damping=(),
+                   gain_curve=shifted(voice.gain_curve), pairs=pairs, onset=None)
 
 
 @lru_cache(maxsize=64)

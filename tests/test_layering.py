@@ -18,6 +18,7 @@ ROOT = Path(__file__).resolve().parent.parent / "synth"
 # For each layer, the synth subpackages/modules it must not import.
 FORBIDDEN = {
     "errors": {"physics", "engine", "voicing", "io", "analysis", "reports", "cli", "bench"},
+    "defaults": {"physics", "engine", "voicing", "io", "analysis", "reports", "cli", "bench"},
     "constants": {"physics", "engine", "voicing", "io", "analysis", "reports", "cli", "bench"},
     "pitch": {"physics", "engine", "voicing", "io", "analysis", "reports", "cli", "bench"},
     "config": {"physics", "engine", "voicing", "io", "analysis", "reports", "cli", "bench"},

@@ -321,6 +321,9 @@ def _design_rows(comp, names, files) -> list[list[str]]:
 
 
 def _print_report(comp, names, files) -> None:
+    from synth.defaults import RENDER_DEFAULTS
+    from synth.reports.compare import FADE_S
+
     lv = comp.levels
     typer.echo(format_table(["", "design", "tubes", "motor", "mallet", "gain dB re 1/Pa"],
                             _design_rows(comp, names, files), align="llllll",
@@ -329,6 +332,8 @@ def _print_report(comp, names, files) -> None:
     typer.echo(f"render length {comp.length_s:.2f} s per design at {comp.sample_rate} Hz, "
                "stereo, onsets aligned (integrated loudness of ringing notes depends on the "
                "length)")
+    typer.echo(f"end: both cut at {comp.length_s:.2f} s with a {FADE_S * 1000:.0f} ms fade; "
+               f"last 10 ms below {RENDER_DEFAULTS.end_level_db:g} dB re peak")
     typer.echo("")
     after = ("as written (B matched to A)" if comp.match == "loudness"
              else "as written (one gain on both)")

@@ -254,6 +254,7 @@ def chord_decay_check(voicer, items, velocity, mallet, roll_ms, duration,
     from synth.reports.chord import chord_decay
 
     strengths = [(n, velocity if v is None else v) for n, v in items]
-    res = chord_decay(voicer, strengths, mallet=mallet, roll_ms=roll_ms, seconds=duration)
+    length = {} if duration is None else {"seconds": duration}
+    res = chord_decay(voicer, strengths, mallet=mallet, roll_ms=roll_ms, **length)
     return ChordDecayCheck(res, png, f"{voicer.instrument.name}: "
                            + " ".join(n for n, _ in items))

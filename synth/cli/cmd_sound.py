@@ -27,17 +27,19 @@ from synth.cli.options import (  # noqa: F401  (cmd_compare reads the aliases fr
     FormatOpt,
     MalletOpt,
     MotorOpt,
+    PedalOpt,
     PresetArg,
     RateOpt,
     RenderOptions,
     TubesOpt,
+    VelocityHelp,
     render_options,
 )
+from synth.defaults import RENDER_DEFAULTS
 from synth.errors import ConfigError
 
 VelocityOpt = Annotated[float | None, typer.Option(
-    min=0.0, max=1.0, help="Strength 0..1, mapped to a mallet speed by the preset's [sound] "
-                           "table (default: a 1 m/s strike).")]
+    min=0.0, max=1.0, show_default=False, help=VelocityHelp)]
 SpeedOpt = Annotated[float | None, typer.Option(
     min=0.01, max=20.0, metavar="m/s", help="Mallet head speed at impact, m/s (instead of "
                                             "--velocity).")]
@@ -51,31 +53,27 @@ HoldOpt = Annotated[float | None, typer.Option(
     min=0.0, max=600.0, metavar="seconds",
     help="Key released after this many seconds; the dampers then act as --pedal allows "
          "(default: held for the whole render).")]
-StrikePedalOpt = Annotated[float, typer.Option(
-    min=0.0, max=1.0, help="Damper pedal: 1 = dampers lifted (the note rings), 0 = dampers on "
-                           "the bar, in between = half pedal.")]
 RollOpt = Annotated[float, typer.Option(
     min=0.0, max=2000.0, metavar="ms",
     help="Spread the notes from the lowest up over this many ms (0 = struck together).")]
-ChordVelocityOpt = Annotated[float, typer.Option(min=0.0, max=1.0,
-                                                 help="Strength of notes given without one.")]
+ChordVelocityOpt = Annotated[float, typer.Option(min=0.0, max=1.0, help=VelocityHelp)]
 CheckDecayOpt = Annotated[bool, typer.Option(
     help="Also track each note's level in its own band and report the decay per note, their "
          "spread and the balance over time (and a PNG).")]
 EventsArg = Annotated[Path, typer.Argument(
     help="Event file: our TOML event list (see the README) or a standard MIDI file (.mid): "
          "notes and the sustain pedal (controller 64).", show_default=False)]
-ScorePedalOpt = Annotated[float, typer.Option(
-    min=0.0, max=1.0, help="Pedal before the file's first pedal event: 1 = dampers lifted, "
-                           "0 = dampers on.")]
 TailOpt = Annotated[float | None, typer.Option(
-    min=0.0, max=600.0, metavar="seconds",
-    help="Seconds after the last event (default: until the slowest note has fallen 60 dB, at "
-         "most 30 s).")]
+    min=0.0, max=600.0, metavar="seconds", show_default=False,
+    help="Seconds after the last event, the end faded to --end-level (default: ring out to "
+         f"--end-level, at most {RENDER_DEFAULTS.longest_s:g} s after the last event; an event "
+         "file with its own length is cut there with a fade).")]
 
 
-DurationOpt = Annotated[float, typer.Option(min=0.05, max=600.0, metavar="seconds",
-                                            help="Length of the WAV, seconds.")]
+DurationOpt = Annotated[float | None, typer.Option(
+    min=0.05, max=600.0, metavar="seconds", show_default=False,
+    help="Length of the WAV, the end faded to --end-level (default: ring out to --end-level, "
+         f"at most {RENDER_DEFAULTS.longest_s:g} s).")]
 
 
 def _voicer(preset: Path, opts: RenderOptions):
@@ -99,12 +97,18 @@ def _check_format(fmt: str) -> None:
                           source="--format")
 
 
-def _render(path: Path, voices, seconds: float, voicer, opts: RenderOptions, settings: dict):
-    """Render to the planned WAV with a progress bar; return the render's report."""
-    from synth.output import render_to_wav
+def _render(path: Path, voices, seconds: float | None, voicer, opts: RenderOptions,
+            settings: dict):
+    """Render to the planned WAV with a progress bar; return the render's report.
 
-    settings = {"tubes": voicer.tubes_active,
-                "motor_rate_rev_per_s": voicer.motor.rate_rev_per_s, **settings}
+    ``seconds=None`` rings out to the end level; a length is cut there with a fade.
+    """
+    from synth.output import render_to_wav, ring_out_length
+
+    ring = seconds is None
+    n = (ring_out_length(voices, sample_rate=opts.sample_rate, end_level_db=opts.end_level)
+         if ring else int(round(seconds * opts.sample_rate)))
+    settings = {**voicer.plan_settings(), "requested_seconds": seconds, **settings}
     with Progress(100, "rendering") as step:
         last = [0]
 
@@ -114,10 +118,11 @@ def _render(path: Path, voices, seconds: float, voicer, opts: RenderOptions, set
                 step(pct - last[0])
                 last[0] = pct
 
-        return render_to_wav(path, voices, int(round(seconds * opts.sample_rate)),
+        return render_to_wav(path, voices, n,
                              sample_rate=opts.sample_rate, channels=opts.channels,
                              sample_format=opts.fmt, gain_db=opts.gain_db, force=opts.force,
-                             settings=settings, progress=progress)
+                             settings=settings, progress=progress, ring_out=ring,
+                             end_level_db=opts.end_level)
 
 
 def _say(rep, opts: RenderOptions) -> dict:
@@ -130,7 +135,7 @@ def _say(rep, opts: RenderOptions) -> dict:
     return {"wav": str(rep.path), "sidecar": str(rep.sidecar), "seconds": rep.seconds,
             "sample_rate_hz": opts.sample_rate, "channels": opts.channels,
             "peak_dbfs": plan.peak_dbfs, "gain_db": plan.gain_db, "mode": plan.mode,
-            "render_wall_s": rep.wall_s}
+            **rep.ending.record(), "render_wall_s": rep.wall_s}
 
 
 def _print(record: dict, rep, opts: RenderOptions) -> None:
@@ -143,6 +148,7 @@ def _print(record: dict, rep, opts: RenderOptions) -> None:
     typer.echo(f"wrote {rep.path} ({rep.seconds:.2f} s, {opts.sample_rate} Hz, "
                f"{'stereo' if opts.channels == 2 else 'mono'}, {opts.fmt}); peak "
                f"{plan.peak_dbfs:.1f} dBFS, gain {plan.gain_db:+.1f} dB ({how})")
+    typer.echo(f"end: {rep.ending.sentence(rep.seconds)}")
     typer.echo(f"settings: {rep.sidecar}")
 
 
@@ -158,7 +164,7 @@ def _play(path: Path) -> None:
         warn(f"cannot play ({exc}); the WAV is written")
 
 
-def _finish(preset: Path, name: str, voices, seconds: float, *, voicer, opts: RenderOptions,
+def _finish(preset: Path, name: str, voices, seconds: float | None, *, voicer, opts: RenderOptions,
             settings: dict, wav: Path | None = None,
             also_write: Callable[[], None] | None = None, report: bool = True) -> dict:
     """Render to the WAV (planned with its sidecar), run ``also_write``, commit, report.
@@ -193,8 +199,8 @@ def strike_command(
     speed: SpeedOpt = None,
     position: PositionOpt = None,
     across: AcrossOpt = None,
-    duration: DurationOpt = 5.0,
-    pedal: StrikePedalOpt = 1.0,
+    duration: DurationOpt = None,
+    pedal: PedalOpt = RENDER_DEFAULTS.pedal,
     hold: HoldOpt = None,
     *,
     render: RenderOptions,
@@ -202,15 +208,18 @@ def strike_command(
     """Render one struck bar to WAV: its computed partials, losses, tube and motor."""
     if velocity is not None and speed is not None:
         raise ConfigError("give --velocity or --speed, not both", source="--speed")
+    if velocity is None and speed is None:
+        velocity = RENDER_DEFAULTS.velocity
     v = _voicer(preset, render)
     name = v.instrument.check_note(note)
     voice = v.strike_voice(name, velocity=velocity, speed_m_s=speed, mallet=mallet,
                            position=position, across=across, release_s=hold,
                            pedal=((0.0, pedal),))
+    strike = v.strike_settings(velocity=velocity, speed_m_s=speed, mallet=mallet,
+                               position=position, across=across)
     _finish(preset, f"strike-{file_label(name)}", [voice], duration, voicer=v, opts=render,
-            settings={"command": "strike", "note": name, "mallet": mallet or v.sound.mallet,
-                      "velocity": velocity, "speed_m_s": speed, "position": position,
-                      "across": across, "pedal": pedal, "hold_s": hold})
+            settings={"command": "strike", "note": name, **strike, "pedal": pedal,
+                      "hold_s": hold})
 
 
 _CHORD_NOTE = re.compile(r"^[A-Ga-g][#b]?-?\d+$")
@@ -241,9 +250,9 @@ def chord_command(
     notes: Annotated[str, typer.Argument(
         help='Notes, e.g. "F3 A4 C5"; a strength per note as "A4:0.8".', show_default=False)],
     mallet: MalletOpt = None,
-    velocity: ChordVelocityOpt = 0.6,
+    velocity: ChordVelocityOpt = RENDER_DEFAULTS.velocity,
     roll_ms: RollOpt = 0.0,
-    duration: DurationOpt = 6.0,
+    duration: DurationOpt = None,
     check_decay: CheckDecayOpt = False,
     *,
     render: RenderOptions,
@@ -268,7 +277,9 @@ def chord_command(
         report=not (render.json_out and check_decay),
         settings={"command": "chord", "notes": [n for n, _ in items],
                   "strengths": [velocity if vel is None else vel for _, vel in items],
-                  "roll_ms": roll_ms, "mallet": mallet or v.sound.mallet},
+                  "roll_ms": roll_ms, "mallet": mallet or v.sound.mallet,
+                  "strikes": [v.strike_settings(velocity=velocity if vel is None else vel,
+                                                mallet=mallet) for _, vel in items]},
         also_write=None if decay is None else decay.write)
     if decay is not None:
         decay.report(json_out=render.json_out, render=record)
@@ -293,7 +304,7 @@ def render_command(
     preset: PresetArg,
     events: EventsArg,
     mallet: MalletOpt = None,
-    pedal: ScorePedalOpt = 0.0,
+    pedal: PedalOpt = RENDER_DEFAULTS.pedal,
     tail: TailOpt = None,
     *,
     render: RenderOptions,
@@ -301,7 +312,6 @@ def render_command(
     """Render a passage from an event file (TOML events or MIDI) to WAV."""
     from dataclasses import replace
 
-    from synth.api import score_length_s
     from synth.engine.score import read_events
 
     v = _voicer(preset, render)
@@ -317,10 +327,13 @@ def render_command(
                                              for s in score.strikes))
     with Progress(len(score.strikes), "planning") as step:
         voices = v.score_voices(score, default_pedal=pedal, progress=lambda k, n: step(1))
-    if score.length_s is None and tail is not None:
+    if score.length_s is not None:
+        seconds = score.length_s
+    elif tail is not None:
         seconds = score.last_event_s + tail
     else:
-        seconds = score_length_s(v, replace(score, source=str(events)), voices)
+        seconds = None   # ring out to the end level
     _finish(preset, events.stem, voices, seconds, voicer=v, opts=render,
             settings={"command": "render", "events": str(events), "strikes": len(voices),
-                      "default_pedal": pedal, "mallet": mallet})
+                      "default_pedal": pedal, "mallet": mallet or v.sound.mallet,
+                      "tail_s": tail, "score_length_s": score.length_s})

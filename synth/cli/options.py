@@ -1,8 +1,8 @@
 """Options shared by the sound commands (``strike``, ``chord``, ``render``), defined once.
 
-:func:`render_options` adds the ten options every render takes (tubes, motor,
-output file, sample rate and format, channels, gain, playback, JSON) to a
-command's signature and hands them to the command as one frozen
+:func:`render_options` adds the eleven options every render takes (tubes, motor,
+output file, sample rate and format, channels, gain, end level, playback, JSON)
+to a command's signature and hands them to the command as one frozen
 :class:`RenderOptions`, so each option is written in one place and the command
 functions stay short.
 """
@@ -17,6 +17,8 @@ from pathlib import Path
 from typing import Annotated
 
 import typer
+
+from synth.defaults import RENDER_DEFAULTS
 
 PresetArg = Annotated[Path, typer.Argument(help="Instrument preset (TOML) with solved [bars].",
                                            show_default=False)]
@@ -41,6 +43,16 @@ MotorOpt = Annotated[float | None, typer.Option(
     min=0.0, max=50.0, metavar="rev/s",
     help="Motor rate in rev/s, overriding the preset (0 stops it). The "
          "tube mouths pulse at twice this rate.")]
+EndLevelOpt = Annotated[float, typer.Option(
+    "--end-level", min=-120.0, max=-20.0, metavar="dB",
+    help="Level re the peak that the file's last 10 ms stay below: a render without a set "
+         "length rings out to it, one with a set length is faded to it.")]
+PedalOpt = Annotated[float, typer.Option(
+    min=0.0, max=1.0, help="Damper pedal (before any pedal change of an event file): 1 = "
+                           "dampers lifted (notes ring), 0 = dampers on the bars, in between = "
+                           "half pedal.")]
+VelocityHelp = (f"Strength 0..1 of a strike that gives none, mapped to a mallet speed by the "
+                f"preset's [sound] table (default {RENDER_DEFAULTS.velocity:g}).")
 PlayOpt = Annotated[bool, typer.Option(help="Play the WAV after writing it (needs the play "
                                             "extra and an output device).")]
 JsonOpt = Annotated[bool, typer.Option("--json", help="Print the render's report as JSON.")]
@@ -58,13 +70,14 @@ class RenderOptions:
     fmt: str = "pcm24"
     channels: int = 2
     gain_db: float | None = None
+    end_level: float = RENDER_DEFAULTS.end_level_db
     play: bool = False
     json_out: bool = False
 
 
 _ALIASES = {"no_tubes": TubesOpt, "motor_rate": MotorOpt, "out": OutOpt, "force": ForceOpt,
             "sample_rate": RateOpt, "fmt": FormatOpt, "channels": ChannelsOpt,
-            "gain_db": GainOpt, "play": PlayOpt, "json_out": JsonOpt}
+            "gain_db": GainOpt, "end_level": EndLevelOpt, "play": PlayOpt, "json_out": JsonOpt}
 _SHARED = [inspect.Parameter(f.name, inspect.Parameter.KEYWORD_ONLY, default=f.default,
                              annotation=_ALIASES[f.name]) for f in fields(RenderOptions)]
 

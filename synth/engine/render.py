@@ -450,6 +450,12 @@ class _Prepared:
         self.start = voice.start_sample
         end = n_samples if voice.stop_sample is None else min(voice.stop_sample, n_samples)
         self.end = self.start if self.level0 == 0.0 else max(self.start, end)
+        self.onset = voice.onset
+        self.onset_n = 0 if self.onset is None else int(self.onset.size)
+        self.onset_bound = (0.0 if self.onset is None
+                            else float(np.max(np.abs(self.onset))) * self.max_gain)
+        if self.onset_n:
+            self.end = max(self.end, min(self.start + self.onset_n, n_samples))
 
     def curve_bound(self) -> float:
         """Bound of the gain curve's magnitude from here on (1 without a curve)."""
@@ -470,7 +476,8 @@ class _Prepared:
         bound = bank * _RUNAWAY_MARGIN
         for ps in self.pairs:
             bound += ps.output_bound()
-        return bound * self.curve_bound() * self.max_gain
+        onset = self.onset_bound if m < self.onset_n else 0.0
+        return bound * self.curve_bound() * self.max_gain + onset
 
     # level on the voice clock re its start, for ring_out_sample; never increases
     def _level(self, m: int, sample_rate: float) -> float:
@@ -740,6 +747,9 @@ def _stream(voices, order, n_samples, n_ch, block_size, gain, dtype, sample_rate
                 bound += _render_voice(p, piece, c0, c1, sample_rate)
             for (lo, hi), group in batch.items():
                 _render_batch(group, piece, lo - c0, lo, hi)
+            for p in active:
+                if p.onset_n and c0 < p.start + p.onset_n:
+                    bound += _add_onset(p, piece, c0, c1)
             peak = _max_abs(piece)
             if not (peak <= bound * _RUNAWAY_MARGIN):
                 names = ", ".join(p.where for p in active[:4]) + (" ..." if len(active) > 4
@@ -760,6 +770,15 @@ def _stream(voices, order, n_samples, n_ch, block_size, gain, dtype, sample_rate
         yield buf if dtype == np.float64 else buf.astype(dtype)
     if n_samples == 0 and progress is not None:
         progress(0, 0)
+
+
+def _add_onset(p: _Prepared, buf: np.ndarray, b0: int, b1: int) -> float:
+    """Add the onset samples of voice ``p`` falling in output rows b0..b1; return their bound."""
+    lo, hi = max(b0, p.start), min(b1, p.start + p.onset_n, p.end)
+    if hi <= lo:
+        return 0.0
+    buf[lo - b0:hi - b0] += p.onset[lo - p.start:hi - p.start, None] * p.gains[None, :]
+    return p.onset_bound
 
 
 def _retire(active: list[_Prepared], t: int, level: float,
@@ -1048,6 +1067,8 @@ def peak_bound(
         if v.gain_curve is not None and v.gain_curve_max is None:
             return None
         scale = p.max_gain * (1.0 if v.gain_curve is None else v.gain_curve_max)
+        if p.onset_n:  # held as a constant: only overstates the sum
+            terms.append((p.start, p.onset_bound, 0.0))
         for a, g in zip(p.abs_amp, p.decay_per_s, strict=True):
             terms.append((p.start, float(a) * scale, float(g)))
         for ps in p.pairs:

@@ -38,6 +38,15 @@ order: from that output sample on, every mode's decay rate is its own rate plus
 ``extra_decay_per_s`` (until the next change).  Changes before the voice starts
 set the rate it starts with.  Rates are >= 0: a damper, a pedal, a release.
 
+Onset
+-----
+``onset`` holds samples added to the voice's output from its start on (one
+value per output sample, before the channel gains; the gain curve and the
+damping schedule leave them alone).  The voice plan uses it for what its modes
+in closed form cannot say, such as the first samples while a force is still
+acting on the modes; a voice with an onset keeps sounding at least until the
+onset ends.
+
 Coupled pair
 ------------
 A :class:`ModePair` is two complex modes in rotating-wave form
@@ -270,6 +279,9 @@ class Voice:
         largest value the curve has given so far (a curve that rises far above
         that late in a voice could be cut off; see
         :mod:`synth.engine.render`), and no advance peak bound exists.
+    onset : sequence of float, optional
+        Samples added to the voice from ``start_sample`` on, before the channel
+        gains (see the module docstring); ``None`` or empty: none.
     """
 
     start_sample: int
@@ -281,9 +293,13 @@ class Voice:
     pairs: tuple[ModePair, ...] = field(default=())
     label: str = ""
     gain_curve_max: float | None = None
+    onset: np.ndarray | None = None
 
     def __post_init__(self) -> None:
         where = self.where
+        if self.onset is not None:
+            onset = _frozen_array(self.onset, "onset", where)
+            object.__setattr__(self, "onset", onset if onset.size else None)
         start = _as_sample(self.start_sample, "start_sample", where)
         if start < 0:
             raise ModelError(f"{where}: start_sample = {start}: must be >= 0")

@@ -73,9 +73,11 @@ import numpy as np
 from synth import io
 from synth.analysis import integrated_loudness, match_loudness, true_peak
 from synth.config import Section, load_toml
+from synth.defaults import RENDER_DEFAULTS
 from synth.engine.render import render
 from synth.engine.score import Score, Strike
 from synth.errors import AudioError, ConfigError
+from synth.output import fade_seconds
 from synth.pitch import canonical_note, midi_to_note, note_to_midi, ratio_to_cents
 from synth.voicing import Voicer
 
@@ -83,10 +85,11 @@ CEILING_DBTP: Final[float] = -1.0
 """True-peak ceiling of every file written, dBTP (physics note, section 14:
 peak-normalise to at most -1 dBTP)."""
 
-FADE_S: Final[float] = 0.1
-"""Raised-cosine fade-out over the end of both renders, s (so the cut of a
-still-ringing passage is no click; the same fade on both) [common practice,
-no source]."""
+FADE_S: Final[float] = fade_seconds(RENDER_DEFAULTS.end_level_db)
+"""Raised-cosine fade-out over the end of both renders, s: the closing fade of
+every render (:func:`synth.output.fade_seconds`, 0.50 s), so that the last 10 ms
+of each file stay below the end level, -60 dB re its peak, and the cut of a
+still-ringing passage is no click; the same fade on both."""
 
 LEAD_IN_S: Final[float] = 0.1
 """Silence before the first strike of a generated passage, s."""
@@ -97,7 +100,7 @@ STEP_S: Final[float] = 0.5
 DEFAULT_TAIL_S: Final[float] = 3.0
 """Ringing time after the last strike of a generated passage, s."""
 
-DEFAULT_VELOCITY: Final[float] = 0.6
+DEFAULT_VELOCITY: Final[float] = RENDER_DEFAULTS.velocity
 """Strength of generated strikes, 0..1."""
 
 DEFAULT_GAP_S: Final[float] = 0.5
@@ -283,7 +286,8 @@ def sequence_passage(items: Sequence[tuple[str, float | None]], *,
 def events_passage(score: Score, *, tail_s: float = DEFAULT_TAIL_S) -> Passage:
     """Build an event file's passage: its own ``length_s``, or the last event plus ``tail_s``.
 
-    The pedal before the file's first pedal change is down (dampers on), as
+    The pedal before the file's first pedal change is the render default
+    (:data:`synth.defaults.RENDER_DEFAULTS`, dampers lifted), as
     ``barwright render`` plays the file.
     """
     tail_s = _check_tail(tail_s)
@@ -292,7 +296,7 @@ def events_passage(score: Score, *, tail_s: float = DEFAULT_TAIL_S) -> Passage:
                           source=score.source or "--events")
     length = score.length_s if score.length_s is not None else score.last_event_s + tail_s
     return Passage(score, _check_length(length, score.source or "--events"),
-                   f"events {score.source}", default_pedal=0.0)
+                   f"events {score.source}", default_pedal=RENDER_DEFAULTS.pedal)
 
 
 # --------------------------------------------------------------------------- per-note figures
@@ -836,6 +840,7 @@ def comparison_record(comp: Comparison, *, names: tuple[str, str],
         "sample_rate_hz": comp.sample_rate,
         "channels": comp.channels,
         "fade_out_s": FADE_S,
+        "end_level_db": RENDER_DEFAULTS.end_level_db,
         "loudness": {
             "before_matching_lufs": {"A": lv.loudness_before_lufs[0],
                                      "B": lv.loudness_before_lufs[1]},
@@ -993,7 +998,9 @@ def write_listening_files(comp: Comparison, directory: str | Path, *, gap_s: flo
     lv = comp.levels
     common = {"passage": comp.passage.label, "render_length_s": comp.length_s,
               "ceiling_dbtp": lv.ceiling_dbtp, "gain_b_db": lv.gain_b_db,
-              "levelling": comp.match, "loudness_standard": "ITU-R BS.1770-4"}
+              "levelling": comp.match, "loudness_standard": "ITU-R BS.1770-4",
+              "ending": "faded", "fade_s": FADE_S,
+              "end_level_db": RENDER_DEFAULTS.end_level_db}
     out = []
     for i, (name, x) in enumerate((("A.wav", comp.a), ("B.wav", comp.b))):
         path = io.write_wav(d / name, x, sample_rate=comp.sample_rate,

@@ -234,25 +234,51 @@ def _render_list(inst, stereo):
 
 
 def _sounds(inst, out: Path, say: Say, steps: Steps):
-    """Step 4: strikes, a chord and a passage to WAV; return the stereo plan."""
+    """Step 4: strikes, a chord and a passage to WAV; return the stereo plan.
+
+    The A4 pair (with and without its tube) shares one gain, that of the tubed
+    strike normalised to -1 dBFS, so the pair keeps the level the tube adds;
+    ``compare`` is where designs are heard loudness-matched.  Every file is cut
+    at its length with the closing fade of :func:`synth.output.render_to_wav`.
+    """
     from synth.output import render_to_wav
     from synth.voicing import Voicer
 
-    say("4. sound (peak-normalised to -1 dBFS; start playback quietly)")
+    say("4. sound (peak-normalised to -1 dBFS; the A4 pair at one gain; start playback "
+        "quietly)")
     fs = DEMO_SAMPLE_RATE
     stereo = Voicer(inst, sample_rate=float(fs), channels=2)
     renders = _render_list(inst, stereo)
+    pair_gain = None
     with steps(len(renders), "rendering") as step:
         for name, voices, seconds, what in renders:
+            bare = name == DEMO_WAVS[1]
             rep = render_to_wav(out / name, voices, int(seconds * fs), sample_rate=fs,
-                                channels=2, force=True,
+                                channels=2, force=True, gain_db=pair_gain if bare else None,
                                 settings={"command": "demo", "what": what,
-                                          "preset": str(demo_preset_path())})
-            say(f"   {rep.path}   ({what}; {rep.seconds:.1f} s, gain "
-                f"{rep.plan.gain_db:+.1f} dB)")
+                                          "preset": str(demo_preset_path()),
+                                          **({"gain_shared_with": DEMO_WAVS[0]} if bare
+                                             else {})})
+            if name == DEMO_WAVS[0]:
+                pair_gain = rep.plan.gain_db
+            how = (f"same gain as {DEMO_WAVS[0]}, {rep.plan.gain_db:+.1f} dB: the tube adds "
+                   f"{_tube_loudness_db(renders, fs):.1f} dB of BS.1770-4 loudness" if bare
+                   else f"gain {rep.plan.gain_db:+.1f} dB")
+            say(f"   {rep.path}   ({what}; {rep.seconds:.1f} s, {how}; "
+                f"{rep.ending.sentence(rep.seconds)})")
             step(1, name)
     say("")
     return stereo
+
+
+def _tube_loudness_db(renders, fs: int) -> float:
+    """Loudness of the tubed A4 over the bare one (the first two renders, unscaled), dB."""
+    from synth.analysis import integrated_loudness
+    from synth.engine.render import render
+
+    level = [integrated_loudness(render(voices, int(seconds * fs), sample_rate=fs, channels=2),
+                                 fs).integrated_lufs for _, voices, seconds, _ in renders[:2]]
+    return level[0] - level[1]
 
 
 def _reports(inst, stereo, out: Path, say: Say, steps: Steps) -> None:

@@ -91,20 +91,21 @@ def test_measured_partials_are_the_plan(written, plan) -> None:
 
     1e-3 Hz is 0.01 cents at F3. Partial 3 of F3 (10.08 x 175.4 = 1768.00 Hz) and
     partial 2 of A4 (4 x 442 = 1768.00 Hz) coincide by design, 0.002 Hz apart: in a
-    2 s render they are one line, which must lie between them.
+    2 s render they are one line, which must lie between them (with the closing
+    fade over the last 0.5 s it falls at 1768.0095 Hz, 2.5e-3 Hz from either).
     """
     folder, _ = written
     x, fs = sf.read(folder / "chord.wav")
     found = np.array(sorted(p.frequency_hz for p in find_partials(x, fs).partials))
     planned = np.array(sorted(f for fs_ in plan.values() for f in fs_))
+    a4_p2, f3_p3 = plan["A4"][1], plan["F3"][2]
+    lo, hi = sorted((a4_p2, f3_p3))
     for f in found:
-        assert np.min(np.abs(planned - f)) <= 1e-3, f
+        assert np.min(np.abs(planned - f)) <= 1e-3 or lo - 1e-3 <= f <= hi + 1e-3, f
     # every fundamental and partial 2 (and the coincident pair) is found
     must = [plan[n][0] for n in NOTES] + [plan[n][1] for n in NOTES if n != "A4"]
     for f in must:
         assert np.min(np.abs(found - f)) <= 1e-3, f
-    a4_p2, f3_p3 = plan["A4"][1], plan["F3"][2]
-    lo, hi = sorted((a4_p2, f3_p3))
     assert np.any((found >= lo - 1e-3) & (found <= hi + 1e-3))
 
 

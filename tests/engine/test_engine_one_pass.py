@@ -1,10 +1,11 @@
 """One render per WAV: the file equals that of the former two-pass render.
 
-Reference: the two-pass procedure kept in the engine (``measure_peak`` for the
-peak, :func:`plan_gain`, then ``render_blocks(gain=...)`` streamed into
-:func:`synth.io.write_wav`), read back with soundfile (libsndfile).  The
-one-pass writer scales the same float64 samples by the same gain, so the files
-must agree bit for bit, and the sidecar must carry the same peak and gain.
+Reference: the two-pass procedure (the whole render at unit gain, the closing
+fade ``sin^2(pi tau / (2 F))`` over its last ``F`` samples written out here,
+its peak, :func:`plan_gain`, the gain applied, :func:`synth.io.write_wav`),
+read back with soundfile (libsndfile).  The one-pass writer fades and scales the
+same float64 samples by the same factors in the same order, so the files must
+agree bit for bit, and the sidecar must carry the same peak and gain.
 """
 
 from __future__ import annotations
@@ -16,17 +17,16 @@ import pytest
 import soundfile as sf
 
 from synth.engine import (
-    ModePair,
     ModeBank,
+    ModePair,
     Voice,
     constant_power_pan,
-    measure_peak,
     peak_bound,
     plan_gain,
     render_blocks,
 )
 from synth.io import write_wav
-from synth.output import render_to_wav
+from synth.output import fade_seconds, render_to_wav
 
 FS = 48000
 
@@ -55,11 +55,15 @@ def voices(curves: bool):
 
 
 def two_pass(path, vs, n, fmt, gain_db=None):
-    """Write the former way: measure the peak in one render, write a second, scaled one."""
-    plan = plan_gain(measure_peak(vs, n, sample_rate=FS, channels=2), gain_db=gain_db)
-    write_wav(path, render_blocks(vs, n, sample_rate=FS, channels=2, gain=plan.gain,
-                                  dtype=np.float32 if fmt == "float32" else np.float64),
-              sample_rate=FS, sample_format=fmt)
+    """Write the two-pass way: render, fade the end, measure the peak, scale, write."""
+    x = np.concatenate(list(render_blocks(vs, n, sample_rate=FS, channels=2)))
+    f = int(round(fade_seconds() * FS))
+    tau = (n - np.arange(n - f, n)) / f
+    x[n - f:] = x[n - f:] * (np.sin(0.5 * np.pi * tau) ** 2)[:, None]
+    plan = plan_gain(float(np.max(np.abs(x))), gain_db=gain_db)
+    y = x * plan.gain if plan.gain != 1.0 else x
+    write_wav(path, y.astype(np.float32) if fmt == "float32" else y, sample_rate=FS,
+              sample_format=fmt)
     return plan
 
 
