@@ -16,8 +16,8 @@ import pytest
 import soundfile as sf
 
 from synth.engine import (
-    ModePair,
     ModeBank,
+    ModePair,
     Voice,
     constant_power_pan,
     measure_peak,

@@ -1,5 +1,6 @@
 """Plans shared by the real-time pool tests (imported by name: a module of its own,
-since every test folder's conftest is called ``conftest``)."""
+since every test folder's conftest is called ``conftest``).
+"""
 
 from __future__ import annotations
 
