@@ -1,4 +1,4 @@
-"""Even decay of chords: does every note of a chord fade at the same rate?
+"""Even decay of chords: whether every note of a chord fades at the same rate.
 
 The chord is rendered (mono) and each note is followed in its own narrow band
 around its sounding fundamental (heterodyne envelope,
@@ -81,7 +81,8 @@ def chord_decay(voicer: Voicer, items: list[tuple[str, float]], *, mallet=None,
         curves.append((note, f, fit, t, level, tuple(warn) + tuple(fit.warnings)))
     balance = []
     for tb in BALANCE_TIMES_S:
-        at = [float(np.interp(tb, t, lv, left=np.nan, right=np.nan)) for _, _, _, t, lv, _ in curves]
+        at = [float(np.interp(tb, t, lv, left=np.nan, right=np.nan))
+              for _, _, _, t, lv, _ in curves]
         top = np.nanmax(at) if np.any(np.isfinite(at)) else np.nan
         balance.append([a - top for a in at])
     notes = []
