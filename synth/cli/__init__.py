@@ -12,6 +12,7 @@ imported only when that command runs or its own ``--help`` is asked for.
 from __future__ import annotations
 
 import importlib
+import typing
 
 import typer
 import typer.main
@@ -42,7 +43,7 @@ class BarwrightGroup(TyperGroup):
 
     def list_commands(self, ctx) -> list[str]:
         """Every command's name, in the order of ``barwright --help``, without imports."""
-        return self.commands.names()
+        return typing.cast(_LazyCommands, self.commands).names()
 
     def format_commands(self, ctx, formatter) -> None:
         """Write the commands table of ``--help`` from the one-line helps, without imports."""
@@ -76,7 +77,8 @@ class _LazyCommands(dict):
             return
         importlib.import_module(COMMANDS[name][0])
         # The module registered its commands on ``app``: convert them as typer does.
-        for key, command in dict.items(typer.main.get_group(app).commands):
+        commands = typing.cast(dict[str, typing.Any], typer.main.get_group(app).commands)
+        for key, command in dict.items(commands):
             dict.setdefault(self, key, command)
 
     def _load_all(self) -> None:
@@ -121,7 +123,7 @@ def _shorten(text: str, limit: int) -> str:
     try:  # typer >= 0.2x carries its own copy of click
         from typer._click.utils import make_default_short_help
     except ImportError:
-        from click.utils import make_default_short_help
+        from click.utils import make_default_short_help  # type: ignore[no-redef]
     return make_default_short_help(text, limit)
 
 
