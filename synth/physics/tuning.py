@@ -290,7 +290,7 @@ def tune_bar(spec: TuneSpec, start: tuple[float, ...] | None = None, *,
 
     length0 = _uniform_length(spec)
     if start is None:
-        if free:
+        if isinstance(par, _FreeParam):  # free: the stations move
             # the power-4 arch of the family's span and depth, sampled at the stations
             u = np.linspace(-1.0, 0.0, par.k)
             x = np.concatenate([[length0], spec.family.depth_fraction * (1 - np.abs(u) ** 4)[1:]])
