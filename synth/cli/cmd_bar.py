@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from pathlib import Path
-from typing import Annotated
+from typing import Annotated, Any
 
 import numpy as np
 import typer
@@ -293,7 +293,7 @@ def tune_command(
         plan_outputs([(out, "tuned preset")], force=force)
     t0 = time.perf_counter()
     wanted = check_level_accuracy(level, accuracy)
-    solid_runs = {}
+    solid_runs: dict[str, Any] = {}
     table, anchor_miss = correction_of(inst), None
     if solid and correction_table:
         raise ConfigError("= true: give --solid or --correction-table, not both",
@@ -341,7 +341,7 @@ def tune_command(
                f"{worst[1]} {worst[2]:+.0f} cents at {worst[0]}){what}")
     if solid:
         report_failed_jobs(results, solid_runs)
-    if write:
+    if write and out is not None:
         import tomli_w
 
         header = (f"# {inst.name}: tuned by barwright from {preset.name}\n"
@@ -564,8 +564,9 @@ def cutlist_command(
             "-" if r.tube_length_m is None else f"{r.tube_length_m * 1e3:.1f}",
         ])
     typer.echo(format_table(heads, table))
-    if correction_of(inst) is not None:
-        typer.echo(_sentence(correction_of(inst).describe()))
+    correction = correction_of(inst)
+    if correction is not None:
+        typer.echo(_sentence(correction.describe()))
     typer.echo(f"wrote {csv_path} and {png_path}")
     if any(r.tube_length_m is not None for r in rows):
         typer.echo(f"tube lengths: closed end to mouth rim, for the [tubes] offset at "

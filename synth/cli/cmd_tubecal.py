@@ -57,9 +57,10 @@ def tubecal_command(
         tube_resonance,
     )
 
+    one_of = ConfigError("give either --tube-hz or --tube-recording (one of them)",
+                         source="--tube-hz")
     if (tube_hz is None) == (tube_recording is None):
-        raise ConfigError("give either --tube-hz or --tube-recording (one of them)",
-                          source="--tube-hz")
+        raise one_of
     if out is not None:
         plan_outputs([(out, "tube calibration")], force=force)
     instrument = load_instrument(preset)
@@ -71,6 +72,8 @@ def tubecal_command(
         m_t = measure_file(tube_recording, reference_hz=ref)
         extra = list(m_t.warnings)
         tube_hz, tube_q = tube_resonance(m_t, tube_model_hz(instrument, note))
+    if tube_hz is None:  # not reached: the check above asks for one of the two
+        raise one_of
     m_bare = measure_file(bare, note=note, reference_hz=ref)
     m_tube = measure_file(with_tube, note=note, reference_hz=ref)
     cal = calibrate_tube(instrument, note, tube_hz=tube_hz, bare=m_bare, with_tube=m_tube,

@@ -230,7 +230,7 @@ def weak_coupling_shift(s1: complex, s2: complex, mu: float) -> complex:
 
 
 def _two(values: Iterable[float]) -> tuple[float, float]:
-    """The two values of a coupled pair (bar-like member first), as a pair."""
+    """Return the two values of a coupled pair (bar-like member first) as a pair."""
     first, second = values
     return first, second
 
