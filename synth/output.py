@@ -26,7 +26,7 @@ import time
 from collections.abc import Callable, Iterable, Iterator, Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
+from typing import IO, Any
 
 import numpy as np
 
@@ -152,7 +152,13 @@ class _Scratch:
         self.folder = folder
         self.channels = channels
         self.rows = 0
-        self._file = None
+        self._file: IO[bytes] | None = None
+
+    @property
+    def _open(self) -> IO[bytes]:
+        if self._file is None:
+            raise AudioError(f"{self.folder}: the render's temporary file is not open")
+        return self._file
 
     def __enter__(self) -> _Scratch:
         try:
@@ -164,7 +170,7 @@ class _Scratch:
 
     def __exit__(self, *exc) -> None:
         with contextlib.suppress(OSError):
-            self._file.close()
+            self._open.close()
 
     def fill(self, blocks: Iterable[np.ndarray]) -> float:
         """Write every block; return their largest magnitude."""
@@ -173,7 +179,7 @@ class _Scratch:
             if block.size:
                 peak = max(peak, float(np.max(np.abs(block))))
             try:
-                self._file.write(np.ascontiguousarray(block, dtype=np.float64).data)
+                self._open.write(np.ascontiguousarray(block, dtype=np.float64).data)
             except OSError as exc:
                 raise AudioError(f"{self.folder}: cannot write the render's temporary file "
                                  f"({exc.strerror or exc})") from None
@@ -182,12 +188,12 @@ class _Scratch:
 
     def blocks(self, block_size: int) -> Iterator[np.ndarray]:
         """Read the samples back in blocks of ``block_size`` rows."""
-        self._file.seek(0)
+        self._open.seek(0)
         width = 8 * self.channels
         left = self.rows
         while left > 0:
             rows = min(block_size, left)
-            data = self._file.read(rows * width)
+            data = self._open.read(rows * width)
             if len(data) != rows * width:
                 raise AudioError(f"{self.folder}: the render's temporary file came back short")
             yield np.frombuffer(data, dtype=np.float64).reshape(rows, self.channels)
