@@ -208,7 +208,9 @@ def _detect(x, fs, *, frame_s, hop_s, threshold_db, min_rise_db, min_gap_s, rang
         lo = max(0, p - lag)
         moved.append(lo + int(np.argmax(flux[lo : p + 1])))
     peaks = np.unique(np.concatenate((by_flux, np.array(moved, dtype=int))))
-    times, strengths, levels = [], [], []
+    times: list[float] = []
+    strengths: list[float] = []
+    levels: list[float] = []
     # Frames reaching into the silence assumed before the file: an onset there is
     # sound at the first sample, kept only when that sound is loud for the file
     # (within LEAD_IN_DB of its loudest frame), not a quiet noise lead-in.

@@ -28,8 +28,9 @@ class BarwrightGroup(TyperGroup):
     :data:`app` behave exactly like the installed command.
     """
 
-    def main(self, args=None, prog_name=None, complete_var=None, standalone_mode=True,
-             **extra):
+    # click's parameters, untyped: their annotations differ between click's versions
+    def main(self, args=None, prog_name=None, complete_var=None,  # type: ignore[override]
+             standalone_mode=True, **extra):
         """Run the command line; see :func:`synth.cli.usage.one_line_usage_errors`."""
         run = super().main
         if not standalone_mode:

@@ -139,8 +139,8 @@ class StationUndercut(Undercut):
 
     def to_table(self):
         """Return the TOML table that reproduces this undercut."""
-        table = {"x_m": [float(v) for v in self.x_m],
-                 "thickness_m": [float(v) for v in self.thickness_m]}
+        table: dict[str, Any] = {"x_m": [float(v) for v in self.x_m],
+                                 "thickness_m": [float(v) for v in self.thickness_m]}
         if self.smooth:
             table["smooth"] = True
         return table

@@ -315,7 +315,7 @@ def tune_bar(spec: TuneSpec, start: tuple[float, ...] | None = None, *,
         if not free and np.max(np.abs(miss)) < STOP_CENTS:
             raise _OnTarget(np.array(xv))
         r = miss * weights
-        if free:
+        if isinstance(par, _FreeParam):  # free
             r = np.concatenate([r, par.smooth_residuals(xv)])
         return r
 

@@ -1338,7 +1338,9 @@ def _solve(rows, y, terms, base, sensitivity_limit, warnings):
                             f"explain the measured loss); not identifiable, kept at {base[t]:g}")
             continue
         sens = _sensitivity(A, x)
-        if sens is not None and np.max(sens) > sensitivity_limit:
+        if sens is None:  # not reached: it depends on A only, which passed above
+            raise ModelError("the loss fit's sensitivity matrix became singular")
+        if np.max(sens) > sensitivity_limit:
             worst = int(np.argmax(sens))
             t = active.pop(worst)
             held.append(t)
