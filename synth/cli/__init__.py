@@ -123,7 +123,7 @@ def _shorten(text: str, limit: int) -> str:
     """Click's shortening of a one-line help to ``limit`` characters."""
     try:  # typer >= 0.2x carries its own copy of click
         from typer._click.utils import make_default_short_help
-    except ImportError:
+    except ImportError:  # the same function from click itself, under the same name
         from click.utils import make_default_short_help  # type: ignore[no-redef]
     return make_default_short_help(text, limit)
 
