@@ -57,10 +57,9 @@ def tubecal_command(
         tube_resonance,
     )
 
-    one_of = ConfigError("give either --tube-hz or --tube-recording (one of them)",
-                         source="--tube-hz")
     if (tube_hz is None) == (tube_recording is None):
-        raise one_of
+        raise ConfigError("give either --tube-hz or --tube-recording (one of them)",
+                          source="--tube-hz")
     if out is not None:
         plan_outputs([(out, "tube calibration")], force=force)
     instrument = load_instrument(preset)
@@ -73,7 +72,7 @@ def tubecal_command(
         extra = list(m_t.warnings)
         tube_hz, tube_q = tube_resonance(m_t, tube_model_hz(instrument, note))
     if tube_hz is None:  # not reached: the check above asks for one of the two
-        raise one_of
+        raise ConfigError("give either --tube-hz or --tube-recording", source="--tube-hz")
     m_bare = measure_file(bare, note=note, reference_hz=ref)
     m_tube = measure_file(with_tube, note=note, reference_hz=ref)
     cal = calibrate_tube(instrument, note, tube_hz=tube_hz, bare=m_bare, with_tube=m_tube,
