@@ -2,7 +2,8 @@
 
 Reads pyproject.toml: the runtime dependencies and the ``test`` extra.  Each
 ``name>=X`` becomes ``name==X``, so the second CI environment runs the suite on
-the oldest versions the project says it supports.
+the oldest versions the project says it supports.  The ``lint`` extra (ruff, mypy)
+is left out: CI lints and type-checks in the newest environment only.
 """
 
 import re

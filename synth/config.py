@@ -22,7 +22,7 @@ import tomllib
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any, Final
+from typing import Any, Final, overload
 
 from synth.errors import ConfigError
 
@@ -378,6 +378,15 @@ class Section:
         return default
 
     # -- typed getters -------------------------------------------------------------
+    # A None default is given back when the key is absent: typed Optional there only.
+    @overload
+    def number(self, name: str, default: None, *, limit: str | Limit | None = ...,
+               gt: float | None = ..., ge: float | None = ..., lt: float | None = ...,
+               le: float | None = ..., unit: str = ...) -> float | None: ...
+    @overload
+    def number(self, name: str, default: float = ..., *, limit: str | Limit | None = ...,
+               gt: float | None = ..., ge: float | None = ..., lt: float | None = ...,
+               le: float | None = ..., unit: str = ...) -> float: ...
     def number(
         self,
         name: str,
@@ -389,7 +398,7 @@ class Section:
         lt: float | None = None,
         le: float | None = None,
         unit: str = "",
-    ) -> float:
+    ) -> float | None:
         """Return a finite float in the named range ``limit`` (a key of LIMITS).
 
         ``gt``/``ge``/``lt``/``le`` are the older one-off bounds, kept for tables
@@ -405,10 +414,10 @@ class Section:
                 ge: int | None = None, le: int | None = None) -> int:
         """Return an integer, in the named range ``limit`` or between ``ge`` and ``le``."""
         value = self._get(name, default)
+        lim = _limit(limit)
         if isinstance(value, bool) or not isinstance(value, int):
             raise self.error(name, "must be a whole number"
-                             + (f"; allowed: {_limit(limit).text()}" if limit else ""))
-        lim = _limit(limit)
+                             + (f"; allowed: {lim.text()}" if lim is not None else ""))
         if lim is not None and not lim.allows(value):
             raise self.error(name, f"{lim.problem(value)}; allowed: {lim.text()}")
         if ge is not None and value < ge:
@@ -417,8 +426,14 @@ class Section:
             raise self.error(name, f"must be <= {le}")
         return value
 
+    @overload
+    def string(self, name: str, default: None, *,
+               choices: Iterable[str] | None = ...) -> str | None: ...
+    @overload
+    def string(self, name: str, default: str = ..., *,
+               choices: Iterable[str] | None = ...) -> str: ...
     def string(self, name: str, default: Any = _MISSING, *,
-               choices: Iterable[str] | None = None) -> str:
+               choices: Iterable[str] | None = None) -> str | None:
         """Return a string, optionally one of ``choices``."""
         value = self._get(name, default)
         if value is None:
@@ -441,6 +456,17 @@ class Section:
             raise self.error(name, "must be true or false")
         return value
 
+    @overload
+    def numbers(self, name: str, default: None, *, limit: str | Limit | None = ...,
+                gt: float | None = ..., ge: float | None = ..., min_len: int = ...,
+                max_len: int = ..., length: int | None = ..., increasing: bool = ...,
+                unit: str = ...) -> list[float] | None: ...
+    @overload
+    def numbers(self, name: str, default: list[float] = ..., *,
+                limit: str | Limit | None = ..., gt: float | None = ...,
+                ge: float | None = ..., min_len: int = ..., max_len: int = ...,
+                length: int | None = ..., increasing: bool = ...,
+                unit: str = ...) -> list[float]: ...
     def numbers(
         self,
         name: str,
@@ -454,7 +480,7 @@ class Section:
         length: int | None = None,
         increasing: bool = False,
         unit: str = "",
-    ) -> list[float]:
+    ) -> list[float] | None:
         """Return a list of finite floats, each in the named range ``limit``."""
         value = self._get(name, default)
         if value is None:
@@ -476,6 +502,10 @@ class Section:
             raise self.error(name, "must be strictly increasing")
         return out
 
+    @overload
+    def section(self, name: str, default: None) -> Section | None: ...
+    @overload
+    def section(self, name: str) -> Section: ...
     def section(self, name: str, default: Any = _MISSING) -> Section | None:
         """Return a sub-table as a Section (``None`` if absent and default is None)."""
         value = self._get(name, default)

@@ -314,7 +314,7 @@ def remove_stale_temporaries(folder: str | os.PathLike[str]) -> list[tuple[Path,
     list of (Path, int)
         The removed files and their sizes in bytes.
     """
-    removed = []
+    removed: list[tuple[Path, int]] = []
     host = host_tag()
     try:
         entries = list(os.scandir(folder))
@@ -508,12 +508,11 @@ class OutputPlan:
     def __enter__(self) -> OutputPlan:
         return self.open()
 
-    def __exit__(self, exc_type, exc, tb) -> bool:
+    def __exit__(self, exc_type, exc, tb) -> None:  # never swallows the exception
         if exc_type is None:
             self.commit()
         else:
             self.discard()
-        return False
 
 
 def _as_block(block: Any, channels: int | None, where: str) -> np.ndarray:
@@ -628,7 +627,7 @@ def write_wav(
         except (sf.LibsndfileError, RuntimeError, OSError) as exc:
             raise AudioError(f"{where}: cannot write WAV ({_sf_reason(exc)})") from None
         try:
-            block = first
+            block: np.ndarray | None = first
             while block is not None:
                 _check_range(block, where, written)
                 try:

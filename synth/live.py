@@ -37,7 +37,7 @@ from __future__ import annotations
 import math
 from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, replace
-from typing import Final
+from typing import Any, Final
 
 import numpy as np
 
@@ -333,7 +333,7 @@ RECORD_TEMPO_US: Final[int] = 10_000
 is one sample, so the recording keeps every event's sample exactly."""
 
 
-def recorded_midi(events: Iterable[tuple[int, object]], sample_rate: float):
+def recorded_midi(events: Iterable[tuple[int, Any]], sample_rate: float):
     """Return a type-0 ``mido.MidiFile`` of ``(sample, message)`` events, one tick per sample."""
     import mido
 

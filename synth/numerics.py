@@ -18,7 +18,7 @@ EPS = 2.220446049250313e-16
 
 def bracketed_root(f: Callable[[float], float], a: float, b: float, *,
                    xtol: float = 2e-12, rtol: float = 4 * EPS, max_iter: int = 100) -> float:
-    """A root of ``f`` between ``a`` and ``b``, where ``f`` changes sign, by Brent's method.
+    """Find a root of ``f`` between ``a`` and ``b``, where ``f`` changes sign, by Brent's method.
 
     Inverse quadratic interpolation or secant steps while they make fast progress,
     bisection otherwise, so the bracket always shrinks and the worst case is that of

@@ -43,7 +43,7 @@ import time
 from collections.abc import Callable, Iterable, Iterator, Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
+from typing import IO, Any
 
 import numpy as np
 
@@ -319,7 +319,13 @@ class _Scratch:
         self.rows = 0
         self.chunk = chunk
         self._chunks: list[np.ndarray] = []  # largest magnitude per ``chunk`` rows
-        self._file = None
+        self._file: IO[bytes] | None = None
+
+    @property
+    def _open(self) -> IO[bytes]:
+        if self._file is None:
+            raise AudioError(f"{self.folder}: the render's temporary file is not open")
+        return self._file
 
     def __enter__(self) -> _Scratch:
         try:
@@ -331,7 +337,7 @@ class _Scratch:
 
     def __exit__(self, *exc) -> None:
         with contextlib.suppress(OSError):
-            self._file.close()
+            self._open.close()
 
     def fill(self, blocks: Iterable[np.ndarray]) -> float:
         """Write every block; return their largest magnitude."""
@@ -341,7 +347,7 @@ class _Scratch:
                 peak = max(peak, float(np.max(np.abs(block))))
                 self._note_chunks(np.max(np.abs(block), axis=1))
             try:
-                self._file.write(np.ascontiguousarray(block, dtype=np.float64).data)
+                self._open.write(np.ascontiguousarray(block, dtype=np.float64).data)
             except OSError as exc:
                 raise AudioError(f"{self.folder}: cannot write the render's temporary file "
                                  f"({exc.strerror or exc})") from None
@@ -371,13 +377,13 @@ class _Scratch:
 
     def blocks(self, block_size: int, rows: int | None = None) -> Iterator[np.ndarray]:
         """Read the first ``rows`` samples (default all) back in blocks of ``block_size``."""
-        self._file.seek(0)
+        self._open.seek(0)
         width = 8 * self.channels
         left = self.rows if rows is None else min(rows, self.rows)
         while left > 0:
-            rows = min(block_size, left)
-            data = self._file.read(rows * width)
-            if len(data) != rows * width:
+            n = min(block_size, left)
+            data = self._open.read(n * width)
+            if len(data) != n * width:
                 raise AudioError(f"{self.folder}: the render's temporary file came back short")
-            yield np.frombuffer(data, dtype=np.float64).reshape(rows, self.channels)
-            left -= rows
+            yield np.frombuffer(data, dtype=np.float64).reshape(n, self.channels)
+            left -= n

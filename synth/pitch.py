@@ -101,7 +101,8 @@ def cents_to_ratio(c):
     return 2.0 ** (np.asarray(c, dtype=float) / CENTS_PER_OCTAVE)
 
 
-def nearest_note(frequency_hz: float, reference_hz: float = DEFAULT_REFERENCE_HZ) -> tuple[str, float]:
+def nearest_note(frequency_hz: float,
+                 reference_hz: float = DEFAULT_REFERENCE_HZ) -> tuple[str, float]:
     """Return the nearest equal-tempered note and the offset from it in cents.
 
     Returns

@@ -48,8 +48,15 @@ from synth.constants import LN_1000
 from synth.engine.contact import run_contact
 from synth.engine.render import render
 from synth.engine.score import Score, Strike
-from synth.engine.voice import ModeBank, ModePair, Voice, constant_power_pan, seconds_to_sample
-from synth.errors import ConfigError
+from synth.engine.voice import (
+    CurveOrConstant,
+    ModeBank,
+    ModePair,
+    Voice,
+    constant_power_pan,
+    seconds_to_sample,
+)
+from synth.errors import ConfigError, ModelError
 from synth.physics.bar_fe import BarModes, solve_bar
 from synth.physics.coupling import BarMode, BarTubeCoupling, couple, pressure_weight
 from synth.physics.instrument import BarFile, Instrument
@@ -211,8 +218,10 @@ class Voicer:
 
     @cached_property
     def tube_settings(self) -> TubeSettings | None:
-        """The preset's ``[tubes]`` table with any ``[tubes]`` of the calibration file
-        (None: no tubes)."""
+        """The preset's ``[tubes]`` table with any ``[tubes]`` of the calibration file.
+
+        None: no tubes.
+        """
         return with_file_calibration(parse_tubes(self.instrument.section("tubes")),
                                      self.loss_calibration)
 
@@ -312,7 +321,9 @@ class Voicer:
         return replace(template, length_m=length)
 
     def _couple(self, note: str, modes: BarModes, fund: ModeLoss, frac: float):
-        tube = self.tube_spec(note, modes)
+        tube, ts = self.tube_spec(note, modes), self.tube_settings
+        if tube is None or ts is None:  # called only while tubes are active
+            raise ModelError(f"{note}: no [tubes] table to couple a tube from")
         geo = modes.geometry
         m1 = modes.vertical[0]
         a = tube.inner_radius_m
@@ -326,8 +337,8 @@ class Voicer:
             radiation_loss_factor=min(fund.terms["radiation"], fund.eta),
         )
         coupling = couple(bar, tube, temperature_c=self.temperature_c,
-                          coupling_calibration=self.tube_settings.coupling_calibration,
-                          ka_correction=self.tube_settings.ka_correction)
+                          coupling_calibration=ts.coupling_calibration,
+                          ka_correction=ts.ka_correction)
         return tube, coupling
 
     def disc_phase_deg(self, note: str) -> float:
@@ -466,15 +477,19 @@ class Voicer:
             ph.append(phases[j])
         start = seconds_to_sample(time_s, fs)
         gains = constant_power_pan(model.pan) if self.channels == 2 and not mono else (1.0,)
-        return Voice(start, ModeBank(freq, decay, amp, ph), channel_gains=gains,
+        bank = ModeBank(np.asarray(freq), np.asarray(decay), np.asarray(amp), np.asarray(ph))
+        return Voice(start, bank, channel_gains=gains,
                      damping=self._damping(start, release_s, pedal), pairs=tuple(pairs),
                      label=model.note)
 
     def _pair(self, model: NoteModel, energy_root: float, phase: float) -> ModePair:
+        if model.coupling is None:  # called for a note with a tube only
+            raise ModelError(f"{model.note}: no tube under the bar to pair with")
         pair = model.coupling.pair
         form = pair.engine_form(strike_energy_j=1.0,
                                 reference_distance_m=self.sound.listening_distance_m)
-        coupling, weight2 = form.coupling_rate_rad_s, form.weight_tube
+        coupling: CurveOrConstant = form.coupling_rate_rad_s
+        weight2: CurveOrConstant = form.weight_tube
         decays, decay_curve = form.decay_per_s, None
         mod = self.modulation(model)
         if mod is not None:
@@ -637,7 +652,8 @@ def tube_cut_lengths(instrument: Instrument) -> dict[str, float]:
     v = Voicer(instrument, channels=1)
     if v.tube_settings is None:
         return {}
-    return {n: v.tube_spec(n).length_m for n in instrument.notes if n in instrument.bars}
+    return {n: spec.length_m for n in instrument.notes
+            if n in instrument.bars and (spec := v.tube_spec(n)) is not None}
 
 
 def design_budget(design: Instrument | BarFile, label: str,
@@ -659,7 +675,7 @@ def design_budget(design: Instrument | BarFile, label: str,
         tube = (f"tube {model.tube.length_m * 1e3:.1f} mm long, radius "
                 f"{model.tube.inner_radius_m * 1e3:.1f} mm, tuned "
                 f"{model.coupling.tube_offset_cents:+.1f} cents from the bar"
-                if model.coupling is not None else "no tube")
+                if model.coupling is not None and model.tube is not None else "no tube")
         return budget, (f"cords at the mode-1 nodes; {tube}; air and bar at "
                         f"{design.temperature_c:g} C")
     sections = design.sections

@@ -208,7 +208,9 @@ def _detect(x, fs, *, frame_s, hop_s, threshold_db, min_rise_db, min_gap_s, rang
         lo = max(0, p - lag)
         moved.append(lo + int(np.argmax(flux[lo : p + 1])))
     peaks = np.unique(np.concatenate((by_flux, np.array(moved, dtype=int))))
-    times, strengths, levels = [], [], []
+    times: list[float] = []
+    strengths: list[float] = []
+    levels: list[float] = []
     # Frames reaching into the silence assumed before the file: an onset there is
     # sound at the first sample, kept only when that sound is loud for the file
     # (within LEAD_IN_DB of its loudest frame), not a quiet noise lead-in.
@@ -435,3 +437,47 @@ def find_strike(signal, sample_rate: float, *, attack_margin_s: float = 0.01) ->
     prep = prepare(signal, sample_rate, what="strike detection")
     strike = strike_in(prep.samples, prep.sample_rate, attack_margin_s=attack_margin_s)
     return StrikeOnset(**{**strike.__dict__, "warnings": prep.warnings + strike.warnings})
+
+
+FADE_DROP_DB: Final[float] = 6.0
+"""A recording's end counts as faded (or damped) when its level stays this far below
+the straight line of the decay before it, through to the last frame."""
+
+FADE_END_DB: Final[float] = 20.0
+"""... and its last frame lies at least this far below that line."""
+
+
+def find_fade_out(signal, sample_rate: float, start_s: float, *,
+                  frame_s: float = 0.01) -> float | None:
+    """Where a fade-out (or a hand damping the bar) begins at a recording's end, s.
+
+    A free decay of several partials falls ever more slowly in dB (the fast
+    partials go first), so its level stays above the straight line fitted to the
+    first 60 % of the decay.  An end whose 10 ms RMS level stays
+    :data:`FADE_DROP_DB` below that line through to the last frame, and ends
+    :data:`FADE_END_DB` below it, was cut short by a fade or a damper.  A
+    symmetric fade is half-way down (-6 dB) at its middle, so the fade is taken to
+    start the length of the below-line run again before that run.
+
+    Returns None when the end is a free decay (or noise, which lies above the line).
+    """
+    x = np.asarray(signal, dtype=float)
+    x = x if x.ndim == 1 else x.mean(axis=1)
+    frame = max(1, int(round(frame_s * sample_rate)))
+    i0 = int(math.ceil(start_s * sample_rate / frame))
+    n = x.size // frame
+    if n - i0 < 40:  # under 0.4 s of decay: nothing to compare with
+        return None
+    power = np.mean(x[:n * frame].reshape(n, frame) ** 2, axis=1)
+    level = 10 * np.log10(np.maximum(power, 1e-30))
+    m = i0 + int(0.6 * (n - i0))
+    t = np.arange(n, dtype=float)
+    slope, icpt = np.polyfit(t[i0:m], level[i0:m], 1)
+    below = level < slope * t + icpt - FADE_DROP_DB
+    if not below[-1] or level[-1] > slope * (n - 1) + icpt - FADE_END_DB:
+        return None
+    k = n - 1
+    while k > m and below[k - 1]:
+        k -= 1
+    start = max(i0, k - (n - k))
+    return start * frame / sample_rate

@@ -461,7 +461,7 @@ def _analyse(x, fs, i0, i1, seg, onset, prep, max_partials, min_snr_db, dynamic_
             f_off = float(np.angle(zj) * band.rate_hz / (2 * np.pi))
             d_sub = float(-np.log(abs(zj)) * band.rate_hz)
             use_env = efit is not None and efit.valid and not efit.beating
-            d = efit.decay_per_s if use_env else d_sub
+            d = efit.decay_per_s if use_env and efit is not None else d_sub
             finals.append((centre + f_off, d, d_sub, "envelope" if use_env else "subspace"))
         # Amplitudes with the final poles, then undo the band filter and refer to the onset.
         zf = np.array([np.exp((-d + 2j * np.pi * (f - centre)) / band.rate_hz)

@@ -34,6 +34,7 @@ engine.warm_start_render_s
 
 from __future__ import annotations
 
+import functools
 import math
 import subprocess
 import sys
@@ -186,7 +187,7 @@ def run(quick: bool = False) -> dict[str, float]:
                                     coupling_rad_s=mu, weight_2=w2, **extra)
             full = [Voice(0, note_bank, gain_curve=curve, pairs=(full_pair,))]
             _drain(full, 1024)
-            t_full = median_time(lambda full=full: _drain(full, n), repeats)
+            t_full = median_time(functools.partial(_drain, full, n), repeats)
             figures[f"engine.{name}"] = t_full / t_bare
     figures["engine.warm_start_render_s"] = _warm_start_s()
     return figures

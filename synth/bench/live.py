@@ -55,7 +55,7 @@ def _ready_once(layers: int) -> tuple[float, int]:
     return float(seconds), int(strikes)
 
 
-def _callback_loads(quick: bool) -> np.ndarray:
+def _callback_loads(quick: bool) -> tuple[np.ndarray, np.ndarray]:
     import mido
 
     from synth.live import LivePlayer

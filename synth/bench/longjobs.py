@@ -102,6 +102,8 @@ def _run(args: list[str]) -> tuple[float, float, float]:
     _, status, usage = os.wait4(proc.pid, 0)
     wall = time.perf_counter() - t0
     proc.returncode = os.waitstatus_to_exitcode(status)
+    if proc.stderr is None:  # stderr=PIPE above
+        raise RuntimeError("the child process has no stderr pipe")
     err = proc.stderr.read().decode(errors="replace").strip()
     proc.stderr.close()
     if proc.returncode != 0:

@@ -163,7 +163,8 @@ def _mode_samples(voices: list[Voice], n_samples: int) -> int:
                for v in voices)
 
 
-def _plain_modes(voices: list[Voice]) -> list[tuple[int, np.ndarray, ...]]:
+def _plain_modes(
+        voices: list[Voice]) -> list[tuple[int, np.ndarray, np.ndarray, np.ndarray, np.ndarray]]:
     """(start, f, g, a, phase) per voice, a coupled pair as its two members."""
     out = []
     for v in voices:
@@ -219,6 +220,8 @@ def _subprocess_s(args: list[str], env: dict[str, str]) -> tuple[float, float]:
                             stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
     _, status, usage = os.wait4(proc.pid, 0)
     wall = time.perf_counter() - t0
+    if proc.stderr is None:  # stderr=PIPE above
+        raise RuntimeError("the child process has no stderr pipe")
     err = proc.stderr.read().decode(errors="replace").strip()
     proc.stderr.close()
     if os.waitstatus_to_exitcode(status) != 0:
@@ -285,6 +288,8 @@ def run(quick: bool = False) -> dict[str, float]:
                 scale_voices = voices
             if job == "passage":
                 figures["userjobs.passage_realtime_factor_one_core"] = seconds / warm
+        if scale_voices is None:  # the loop above always runs the scale
+            raise RuntimeError("the scale job did not run")
         kernel = _kernel_only(scale_voices, repeats)
         figures["userjobs.kernel_only_mode_samples_per_s"] = kernel
         for job in ("strike", "chord", "scale", "passage"):

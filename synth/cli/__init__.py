@@ -12,6 +12,7 @@ imported only when that command runs or its own ``--help`` is asked for.
 from __future__ import annotations
 
 import importlib
+import typing
 
 import typer
 import typer.main
@@ -27,8 +28,9 @@ class BarwrightGroup(TyperGroup):
     :data:`app` behave exactly like the installed command.
     """
 
-    def main(self, args=None, prog_name=None, complete_var=None, standalone_mode=True,
-             **extra):
+    # click's parameters, untyped: their annotations differ between click's versions
+    def main(self, args=None, prog_name=None, complete_var=None,  # type: ignore[override]
+             standalone_mode=True, **extra):
         """Run the command line; see :func:`synth.cli.usage.one_line_usage_errors`."""
         run = super().main
         if not standalone_mode:
@@ -42,7 +44,7 @@ class BarwrightGroup(TyperGroup):
 
     def list_commands(self, ctx) -> list[str]:
         """Every command's name, in the order of ``barwright --help``, without imports."""
-        return self.commands.names()
+        return typing.cast(_LazyCommands, self.commands).names()
 
     def format_commands(self, ctx, formatter) -> None:
         """Write the commands table of ``--help`` from the one-line helps, without imports."""
@@ -76,7 +78,8 @@ class _LazyCommands(dict):
             return
         importlib.import_module(COMMANDS[name][0])
         # The module registered its commands on ``app``: convert them as typer does.
-        for key, command in dict.items(typer.main.get_group(app).commands):
+        commands = typing.cast(dict[str, typing.Any], typer.main.get_group(app).commands)
+        for key, command in dict.items(commands):
             dict.setdefault(self, key, command)
 
     def _load_all(self) -> None:
@@ -120,8 +123,8 @@ def _shorten(text: str, limit: int) -> str:
     """Click's shortening of a one-line help to ``limit`` characters."""
     try:  # typer >= 0.2x carries its own copy of click
         from typer._click.utils import make_default_short_help
-    except ImportError:
-        from click.utils import make_default_short_help
+    except ImportError:  # the same function from click itself, under the same name
+        from click.utils import make_default_short_help  # type: ignore[no-redef]
     return make_default_short_help(text, limit)
 
 

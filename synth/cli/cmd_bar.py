@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from pathlib import Path
-from typing import Annotated
+from typing import Annotated, Any
 
 import numpy as np
 import typer
@@ -316,7 +316,7 @@ def tune_command(
         plan_outputs([(out, "tuned preset")], force=force)
     t0 = time.perf_counter()
     wanted = check_level_accuracy(level, accuracy)
-    solid_runs = {}
+    solid_runs: dict[str, Any] = {}
     table, anchor_miss = correction_of(inst), None
     if solid and correction_table:
         raise ConfigError("= true: give --solid or --correction-table, not both",
@@ -380,7 +380,7 @@ def tune_command(
                f"{worst[1]} {worst[2]:+.0f} cents at {worst[0]}){what}")
     if solid:
         report_failed_jobs(results, solid_runs)
-    if write:
+    if write and out is not None:
         import tomli_w
 
         header = (f"# {inst.name}: tuned by barwright from {preset.name}\n"
@@ -392,7 +392,7 @@ def tune_command(
         text = header + tomli_w.dumps(tuned)
         io.write_bytes(out, text.encode("utf-8"), force=force)
         commit_outputs()
-    records = []
+    records: list[dict[str, Any]] = []
     for r in results:
         g = r.geometry
         records.append({
@@ -417,7 +417,8 @@ def tune_command(
                     **({"stiffness_calibration": {
                         "source": stiffness.source, "youngs_modulus_scale": stiffness.youngs_scale,
                         "factors": list(stiffness.factors),
-                        "changes": [c.to_dict() for c in changes]}} if changes else {})})
+                        "changes": [c.to_dict() for c in changes]}}
+                       if changes and stiffness is not None else {})})
         _exit_if_missed(worst)
         return
     n_p = max(len(r.spec.ratios) for r in results)
@@ -455,7 +456,7 @@ def tune_command(
     if shop:
         typer.echo(f"'at {shop_c:g} C': what partial 1 reads in the shop when the bar is in tune "
                    f"at {inst.temperature_c:g} C.")
-    if changes:
+    if changes and stiffness is not None:
         typer.echo("")
         typer.echo(_changes_table(changes))
         typer.echo(_sentence(stiffness.describe()))
@@ -612,8 +613,9 @@ def cutlist_command(
             "-" if r.tube_length_m is None else f"{r.tube_length_m * 1e3:.1f}",
         ])
     typer.echo(format_table(heads, table))
-    if correction_of(inst) is not None:
-        typer.echo(_sentence(correction_of(inst).describe()))
+    correction = correction_of(inst)
+    if correction is not None:
+        typer.echo(_sentence(correction.describe()))
     typer.echo(f"wrote {csv_path} and {png_path}")
     if any(r.tube_length_m is not None for r in rows):
         typer.echo(f"tube lengths: closed end to mouth rim, for the [tubes] offset at "

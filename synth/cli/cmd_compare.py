@@ -226,7 +226,7 @@ def compare_command(
         from synth.engine.score import read_events
 
         passage = cmp.events_passage(read_events(events), tail_s=tail)
-    elif notes is not None:
+    elif sequence is not None:  # --notes
         passage = cmp.sequence_passage(sequence, tail_s=tail)
     else:
         passage = cmp.default_passage(va.instrument.notes, vb.instrument.notes, tail_s=tail)
@@ -263,7 +263,9 @@ def compare_command(
     png = io.write_bytes(directory / "differences.png", png_bytes, force=force)
     report = io.write_bytes(directory / "differences.json",
                             cmp.record_json(record).encode("utf-8"), force=force)
-    trials, key_path, page_path = [], None, None
+    trials: list[Path] = []
+    key_path: Path | None = None
+    page_path: Path | None = None
     run_id = secrets.token_hex(6)  # names this run's answers; says nothing about the key
     if blind is not None:
         seed_used = seed if seed is not None else secrets.randbelow(2**31)
@@ -294,7 +296,7 @@ def compare_command(
         typer.echo(f"wrote {directory}/: A.wav, B.wav, AB.wav (A, gap, B, gap, A, gap, B; "
                    f"gap {gap_samples / sample_rate:g} s), a .json sidecar beside each, "
                    f"{png.name}, {report.name}")
-        if blind is not None:
+        if blind is not None and key_path is not None:
             typer.echo(f"blind: {blind} trials {trials[0].name}..{trials[-1].name} (A, gap, B, "
                        f"gap, X) and their answer key {key_path.name}")
         if page_path is not None:

@@ -24,7 +24,7 @@ from synth.cli.common import (
     print_json,
     warn,
 )
-from synth.errors import ConfigError, SynthError
+from synth.errors import ConfigError, ModelError, SynthError
 
 
 def _num(value, fmt: str) -> str:
@@ -215,13 +215,16 @@ def measure_command(
 
     ref = reference_hz or (instrument.reference_pitch_hz if instrument else
                            DEFAULT_REFERENCE_HZ)
+    preset_path = preset or calibrate  # the instrument's file, when one was loaded
     ref_from = ("--reference-hz" if reference_hz else
-                f"{(preset or calibrate).name}" if instrument else
+                f"{preset_path.name}" if preset_path is not None else
                 "default, ISO 16; --preset or --reference-hz to change")
     measurement = measure_file(recording, note=note, reference_hz=ref,
                                max_partials=max_partials, channel=channel)
     fit = path = rel = None
     if calibrate is not None:
+        if instrument is None or note is None:  # both set above with --calibrate
+            raise ModelError("--calibrate: no instrument or note to calibrate")
         wanted = None
         if terms is not None:
             wanted = tuple(t.strip() for t in terms.split(",") if t.strip())
@@ -325,7 +328,7 @@ def _measure_folder(folder: Path, *, preset, reference_hz, max_partials, channel
 
     if refused:
         raise ConfigError("applies to one recording, not to a folder", source=refused[0])
-    ratios = (1.0, 4.0, 10.08)
+    ratios: tuple[float, ...] = (1.0, 4.0, 10.08)
     ref = reference_hz or DEFAULT_REFERENCE_HZ
     ref_from = "--reference-hz" if reference_hz else "default, ISO 16"
     if preset is not None:
@@ -362,8 +365,8 @@ def _measure_folder(folder: Path, *, preset, reference_hz, max_partials, channel
                     "skipped": skipped})
     else:
         headers = ["note", "file", "f1 Hz", "cents"]
-        for k, r in enumerate(ratios[1:], start=2):
-            headers += [f"p{k} cents re x{r:g}"]
+        for k, ratio in enumerate(ratios[1:], start=2):
+            headers += [f"p{k} cents re x{ratio:g}"]
         headers += [f"T60 p{k + 1} s" for k in range(len(ratios))]
         trows = []
         for r in rows:

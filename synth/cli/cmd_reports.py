@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Annotated
+from typing import TYPE_CHECKING, Annotated
 
 import typer
 
@@ -19,6 +19,9 @@ from synth.cli.common import (
     plan_outputs,
     print_json,
 )
+
+if TYPE_CHECKING:  # annotations only: the report module loads when the command runs
+    from synth.reports.chord import ChordDecay
 
 MAX_T60_S = 600.0
 """Longest T60 a target may ask for, s (the upper bound of --target-t60)."""
@@ -125,7 +128,7 @@ def sustain_command(
     preset_data = preset_with_tubes(inst, lengths) if out_preset is not None else None
     io.write_bytes(csv_path, sustain_csv(rep).encode("utf-8"), force=force)
     io.write_bytes(png_path, sustain_png(rep, f"{inst.name}: sustain"), force=force)
-    if preset_data is not None:
+    if preset_data is not None and out_preset is not None:
         import tomli_w
 
         head = (f"# {preset.name} with the tube lengths `barwright sustain` suggested for "
@@ -212,7 +215,7 @@ def decay_png_path(wav: Path) -> Path:
 class ChordDecayCheck:
     """The even-decay check of a chord, computed before anything is written."""
 
-    result: object
+    result: ChordDecay
     png: Path
     title: str
 

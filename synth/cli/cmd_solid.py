@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import math
 from pathlib import Path
-from typing import Annotated
+from typing import TYPE_CHECKING, Annotated, Any
 
 import numpy as np
 import typer
@@ -19,6 +19,9 @@ from synth.cli.common import (
     print_json,
 )
 from synth.errors import ConfigError
+
+if TYPE_CHECKING:  # annotations only: the 3-D modules load when a command needs them
+    from synth.physics.solid_correction import CorrectionTable
 
 ACCURACY_DEFAULT_PCT = 0.05
 """Default wanted error of the 3-D partials, percent."""
@@ -101,7 +104,7 @@ def solid_command(
                               n_modes=modes, solver=cached_solver if cache else None,
                               progress=lambda lv: step(1, f"level {lv.level}"))
     one_d = solve_bar(geometry, material, n_vertical=5, n_lateral=2, n_torsional=3)
-    rows = []
+    rows: list[dict[str, Any]] = []
     for p in result.partials:
         try:
             f1 = one_d.mode(p.kind, p.order).frequency_hz
@@ -117,7 +120,7 @@ def solid_command(
         })
     worst = watched_error(result)
     short = wanted is not None and worst > wanted
-    if short:
+    if short and wanted is not None:
         missed(f"{label}: the 3-D estimate reached {worst * 100:.3f} % at mesh level "
                f"{result.finest.level}, not the {wanted * 100:g} % asked (level "
                f"{finest_level(geometry)} is the finest this bar may be solved on)")
@@ -219,7 +222,8 @@ TABLE_PASSES = 3
 
 def build_correction_table(inst, *, ratios, step: int, level: int | None,
                            accuracy: float | None, workers: int | None,
-                           scheduler: str | None, cache: bool) -> tuple[list, object, dict]:
+                           scheduler: str | None,
+                           cache: bool) -> tuple[list, CorrectionTable | None, dict]:
     """Tune the whole range through a correction table made from 3-D anchor solves.
 
     Round 1 tunes in 1-D (through the preset's own table when it has one), solves the

@@ -106,8 +106,8 @@ def _render(path: Path, voices, seconds: float | None, voicer, opts: RenderOptio
     from synth.output import render_to_wav, ring_out_length
 
     ring = seconds is None
-    n = (ring_out_length(voices, sample_rate=opts.sample_rate, end_level_db=opts.end_level)
-         if ring else int(round(seconds * opts.sample_rate)))
+    n = (int(round(seconds * opts.sample_rate)) if seconds is not None
+         else ring_out_length(voices, sample_rate=opts.sample_rate, end_level_db=opts.end_level))
     settings = {**voicer.plan_settings(), "requested_seconds": seconds, **settings}
     with Progress(100, "rendering") as step:
         last = [0]

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from pathlib import Path
-from typing import Annotated
+from typing import Annotated, cast
 
 import typer
 
@@ -74,7 +74,7 @@ def sweep_command(
                  force=force)
     with Progress(count, "sweep") as step:
         report = run_variants(preset, varies, tables, workers=workers, scheduler=scheduler,
-                              progress=lambda r: step(1, f"variant {r.key + 1}"))
+                              progress=lambda r: step(1, f"variant {cast(int, r.key) + 1}"))
     record = _write(report, paths, preset, force)
     failures = failure_lines(report)
     if failures:

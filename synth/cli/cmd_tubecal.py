@@ -79,6 +79,8 @@ def tubecal_command(
         m_t = measure_file(tube_recording, reference_hz=ref)
         extra = list(m_t.warnings)
         tube_hz, tube_q = tube_resonance(m_t, tube_model_hz(instrument, note))
+    if tube_hz is None:  # not reached: the check above asks for one of the two
+        raise ConfigError("give either --tube-hz or --tube-recording", source="--tube-hz")
     m_bare = measure_file(bare, note=note, reference_hz=ref)
     m_tube = measure_file(with_tube, note=note, reference_hz=ref)
     cal = calibrate_tube(instrument, note, tube_hz=tube_hz, bare=m_bare, with_tube=m_tube,

@@ -97,6 +97,8 @@ def render_options(command: Callable) -> Callable:
         shared = RenderOptions(**{n: kwargs.pop(n) for n in names if n in kwargs})
         return command(*args, render=shared, **kwargs)
 
-    wrapper.__signature__ = own.replace(parameters=params + _SHARED)
+    # read by inspect.signature, which typer calls; functools.wraps does not declare it
+    wrapper.__signature__ = own.replace(  # type: ignore[attr-defined]
+        parameters=params + _SHARED)
     wrapper.__annotations__ = {p.name: p.annotation for p in params + _SHARED}
     return wrapper

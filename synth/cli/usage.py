@@ -45,7 +45,9 @@ def _exception_modules() -> list[types.ModuleType]:
     return mods
 
 
-def _classes(name: str) -> tuple[type[BaseException], ...]:
+def _classes(name: str) -> tuple[type[typing.Any], ...]:
+    # Any: the classes are found at run time in typer's or click's module, and their
+    # attributes (show, exit_code, message) are click's, not BaseException's.
     return tuple(getattr(m, name) for m in _exception_modules() if hasattr(m, name))
 
 
@@ -72,7 +74,8 @@ def one_line_usage_errors(run: Callable[[list[str]], object],
     sys.exit(rv if isinstance(rv, int) and not isinstance(rv, bool) else EXIT_DONE)
 
 
-def describe(exc: BaseException, argv: Sequence[str]) -> str:
+# exc: a ClickException from typer's or click's module (see _classes)
+def describe(exc: typing.Any, argv: Sequence[str]) -> str:
     """One line for a click usage error: command, option, value, what is allowed."""
     ctx = getattr(exc, "ctx", None)
     command = ctx.info_name if ctx is not None and ctx.parent is not None else None

@@ -375,8 +375,8 @@ def _plain_modes(pair: ModePair, extra_rates_per_s: np.ndarray, nyquist_hz: floa
     decay = -lam.real
     if np.any(decay < 0.0) or np.any(np.abs(omega) >= 2 * math.pi * nyquist_hz):
         return None
-    sign = np.where(omega < 0.0, -1.0, 1.0)
-    return (np.abs(omega) / (2 * math.pi), decay, sign * np.abs(b), sign * np.angle(b))
+    flip = np.where(omega < 0.0, -1.0, 1.0)
+    return (np.abs(omega) / (2 * math.pi), decay, flip * np.abs(b), flip * np.angle(b))
 
 
 class _Prepared:
@@ -408,7 +408,8 @@ class _Prepared:
         self.max_gain = float(np.max(np.abs(self.gains)))
         self.segments = _Segments(voice, sample_rate)
         freq, decay = bank.frequency_hz, bank.decay_per_s
-        amp, phase = bank.amplitude, bank.phase_rad
+        amp = bank.amplitude
+        phase = np.zeros_like(freq) if bank.phase_rad is None else bank.phase_rad  # ModeBank fills
         pairs = []
         # The ring-out level (``_level``) of a folded pair stays the pair's own
         # (state magnitude at its slowest member's decay), so render lengths are
@@ -775,7 +776,7 @@ def _stream(voices, order, n_samples, n_ch, block_size, gain, dtype, sample_rate
 def _add_onset(p: _Prepared, buf: np.ndarray, b0: int, b1: int) -> float:
     """Add the onset samples of voice ``p`` falling in output rows b0..b1; return their bound."""
     lo, hi = max(b0, p.start), min(b1, p.start + p.onset_n, p.end)
-    if hi <= lo:
+    if hi <= lo or p.onset is None:
         return 0.0
     buf[lo - b0:hi - b0] += p.onset[lo - p.start:hi - p.start, None] * p.gains[None, :]
     return p.onset_bound
@@ -854,7 +855,8 @@ def _render_batch(group: list[_Prepared], buf: np.ndarray, o0: int, lo: int, hi:
                       np.full(n, seg.extra_per_sample[i])))
     arrays = [np.ascontiguousarray(np.concatenate(column)) for column in zip(*parts,
                                                                               strict=True)]
-    kernels._banks_add(buf, o0, lo, hi, *arrays, ANCHOR_EVERY)
+    # mypy cannot count the ten columns in *arrays against the kernel's parameters
+    kernels._banks_add(buf, o0, lo, hi, *arrays, ANCHOR_EVERY)  # type: ignore[call-arg]
 
 
 def _reanchor(p: _Prepared, m: int) -> None:
@@ -1064,9 +1066,10 @@ def peak_bound(
         p = _Prepared(v, float(sample_rate), n_ch, int(n_samples), i)
         if p.end <= p.start:
             continue
-        if v.gain_curve is not None and v.gain_curve_max is None:
+        curve_max = 1.0 if v.gain_curve is None else v.gain_curve_max
+        if curve_max is None:
             return None
-        scale = p.max_gain * (1.0 if v.gain_curve is None else v.gain_curve_max)
+        scale = p.max_gain * curve_max
         if p.onset_n:  # held as a constant: only overstates the sum
             terms.append((p.start, p.onset_bound, 0.0))
         for a, g in zip(p.abs_amp, p.decay_per_s, strict=True):

@@ -320,7 +320,7 @@ class Voice:
                 "(stereo) finite numbers"
             )
         object.__setattr__(self, "channel_gains", gains)
-        changes = []
+        changes: list[tuple[int, float]] = []
         for i, item in enumerate(self.damping):
             try:
                 s, e = item

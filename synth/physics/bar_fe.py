@@ -1228,14 +1228,14 @@ def _package(bar, material, mesh, res, sec, change) -> BarModes:
     # The solver's vectors have unit generalised mass, so the scaled ones have scale**2.
     shapes = np.concatenate([np.moveaxis(v[:nn][conn], -1, 0) for _, _, v, _ in scaled])
     nodes = iter(_find_zeros(mesh, shapes, bar.length_m))  # every mode in one pass
-    shapes = iter(shapes)
+    shape_iter = iter(shapes)
     modes = []
     for kind, freqs, vec, gm in scaled:
         rots = np.moveaxis(vec[nn:2 * nn][conn], -1, 0) if kind != "torsional" else None
         axial = np.moveaxis(vec[2 * nn:3 * nn][conn], -1, 0) if kind == "vertical" else None
         for j, f in enumerate(freqs):
             modes.append(Mode(kind, j + 1, float(f), next(nodes), float(gm[j]), mesh,
-                              next(shapes), None if rots is None else rots[j], vec[:, j],
+                              next(shape_iter), None if rots is None else rots[j], vec[:, j],
                               None if axial is None else axial[j]))
     return BarModes(bar, material, tuple(modes), mesh.n_elements, change, mass)
 

@@ -83,7 +83,9 @@ from __future__ import annotations
 
 import cmath
 import math
+from collections.abc import Iterable
 from dataclasses import dataclass, replace
+from typing import Any
 
 import numpy as np
 
@@ -225,6 +227,12 @@ def weak_coupling_shift(s1: complex, s2: complex, mu: float) -> complex:
     eigenproblem).
     """
     return mu * mu / (complex(s2) - complex(s1))
+
+
+def _two(values: Iterable[float]) -> tuple[float, float]:
+    """Return the two values of a coupled pair (bar-like member first) as a pair."""
+    first, second = values
+    return first, second
 
 
 @dataclass(frozen=True)
@@ -427,10 +435,10 @@ class CoupledPair:
     def modes(self) -> CoupledModes:
         """Return the coupled frequencies, Qs and T60s."""
         lams = self.eigenvalues()
-        f = tuple(lam.imag / (2.0 * math.pi) for lam in lams)
-        g = tuple(-lam.real for lam in lams)
-        q = tuple(lam.imag / (2.0 * -lam.real) if lam.real < 0 else math.inf for lam in lams)
-        t60 = tuple(LN_1000 / gg if gg > 0 else math.inf for gg in g)
+        f = _two(lam.imag / (2.0 * math.pi) for lam in lams)
+        g = _two(-lam.real for lam in lams)
+        q = _two(lam.imag / (2.0 * -lam.real) if lam.real < 0 else math.inf for lam in lams)
+        t60 = _two(LN_1000 / gg if gg > 0 else math.inf for gg in g)
         pull = CENTS_PER_NEPER * math.log(f[0] / self.bar_frequency_hz)
         return CoupledModes(frequency_hz=f, decay_per_s=g, q=q, t60_s=t60,
                             pitch_pull_cents=pull)
@@ -815,8 +823,10 @@ def sweep_tube_offset(bar: BarMode, template: TubeSpec, offsets_cents, *,
         rows.append((cpl.tube.length_m, cpl.tube_mode.frequency_hz, cpl.tube_mode.q,
                      cpl.coupling_rate_rad_s, m.t60_s[0], m.t60_s[1], m.pitch_pull_cents,
                      cpl.pair.peak_gain_db(), cpl.pair.energy_gain_db()))
-    cols = np.array(rows, dtype=float).reshape(len(offsets), 9).T
-    return OffsetSweep(offsets, *cols, bare_t60_s=bar.t60_s)
+    (length, tube_hz, tube_q, rate, bar_t60, tube_t60, pull, peak_db,
+     energy_db) = np.array(rows, dtype=float).reshape(len(offsets), 9).T
+    return OffsetSweep(offsets, length, tube_hz, tube_q, rate, bar_t60, tube_t60, pull,
+                       peak_db, energy_db, bare_t60_s=bar.t60_s)
 
 
 @dataclass(frozen=True)
@@ -895,8 +905,9 @@ def suggest_tube_offset(bar: BarMode, template: TubeSpec, *, target_t60_s: float
     target = checked_number(target_t60_s, "target_t60_s", "> 0 s", lambda v: v > 0)
     floor = checked_number(min_gain_db, "min_gain_db", "finite dB", lambda v: True)
     cmax = checked_number(max_offset_cents, "max_offset_cents", "> 0 cents", lambda v: v > 0)
-    kw = {"temperature_c": temperature_c, "coupling_calibration": coupling_calibration,
-          "ka_correction": ka_correction}
+    kw: dict[str, Any] = {"temperature_c": temperature_c,
+                          "coupling_calibration": coupling_calibration,
+                          "ka_correction": ka_correction}
 
     def at(c: float) -> BarTubeCoupling:
         return coupling_at_offset(bar, template, c, **kw)

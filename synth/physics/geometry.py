@@ -31,6 +31,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, replace
 from functools import cached_property
+from typing import Any
 
 import numpy as np
 
@@ -138,8 +139,8 @@ class StationUndercut(Undercut):
 
     def to_table(self):
         """Return the TOML table that reproduces this undercut."""
-        table = {"x_m": [float(v) for v in self.x_m],
-                 "thickness_m": [float(v) for v in self.thickness_m]}
+        table: dict[str, Any] = {"x_m": [float(v) for v in self.x_m],
+                                 "thickness_m": [float(v) for v in self.thickness_m]}
         if self.smooth:
             table["smooth"] = True
         return table
@@ -323,7 +324,7 @@ class BarGeometry:
         ``inf`` marks one that always gets a mesh node (see :meth:`Undercut.kinks`).
         """
         pts = self.breakpoints()
-        if not pts:
+        if not pts or self.undercut is None:  # no undercut, no breakpoints
             return np.zeros(0), np.zeros(0)
         at = np.asarray(pts)
         raw, jump = self.undercut.kinks(self.length_m, self.thickness_m)
@@ -357,7 +358,7 @@ class BarGeometry:
             uc = StationUndercut(tuple(v * factor for v in uc.x_m),
                                  tuple(v * factor for v in uc.thickness_m), uc.smooth)
         elif isinstance(uc, ArchUndercut | FlatArchUndercut):
-            kw = {"depth_m": uc.depth_m * factor, "span_m": uc.span_m * factor}
+            kw: dict[str, Any] = {"depth_m": uc.depth_m * factor, "span_m": uc.span_m * factor}
             if uc.center_m is not None:
                 kw["center_m"] = uc.center_m * factor
             if isinstance(uc, FlatArchUndercut):
@@ -374,9 +375,10 @@ class BarGeometry:
 
     def to_table(self) -> dict:
         """Return the TOML keys that reproduce this geometry."""
-        table = {"length_m": float(self.length_m), "width_m": float(self.width_m),
-                 "thickness_m": float(self.thickness_m),
-                 "min_thickness_m": float(self.min_thickness_m)}
+        table: dict[str, Any] = {
+            "length_m": float(self.length_m), "width_m": float(self.width_m),
+            "thickness_m": float(self.thickness_m),
+            "min_thickness_m": float(self.min_thickness_m)}
         if self.undercut is not None:
             table["undercut"] = self.undercut.to_table()
         return table
@@ -435,6 +437,7 @@ def parse_geometry(sec: Section, defaults: dict | None = None) -> BarGeometry:
     if min_t >= thick:
         raise sec.error("min_thickness_m", f"must be below the blank thickness {thick:g} m")
     uc_sec = sec.section("undercut", None)
+    uc: Undercut | None
     if uc_sec is not None:
         uc = parse_undercut(uc_sec)
     else:

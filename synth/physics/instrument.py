@@ -161,7 +161,7 @@ class Instrument:
         return self.blank.at(self.note_fraction(note))
 
     def bar(self, note: str) -> BarGeometry:
-        """The geometry of a note's bar, as given in ``[bars.<note>]``."""
+        """Return the geometry of a note's bar, as given in ``[bars.<note>]``."""
         name = self.check_note(note)
         if name not in self.bars:
             raise ConfigError(
@@ -283,9 +283,11 @@ def _instrument(sec: Section, data: dict) -> Instrument:
     bsec = sec.section("blank", None)
     if bsec is not None:
         bsec.check_keys({"width_m", "thickness_m", "grading", "min_thickness_m"})
+        width = bsec.numbers("width_m", limit="bar.width_m", length=2)
+        thick = bsec.numbers("thickness_m", limit="bar.thickness_m", length=2)
         blank = Blank(
-            tuple(bsec.numbers("width_m", limit="bar.width_m", length=2)),
-            tuple(bsec.numbers("thickness_m", limit="bar.thickness_m", length=2)),
+            (width[0], width[1]),
+            (thick[0], thick[1]),
             bsec.string("grading", "geometric", choices=("linear", "geometric")),
             bsec.number("min_thickness_m", DEFAULT_MIN_THICKNESS_M, limit="bar.min_thickness_m"),
         )

@@ -830,6 +830,9 @@ def simulate_contact(
         if s[1] < 0.0 and s[0] < -_envelope_m(s, c, om_d, g):
             break
         status[0] = i + 1
+    if end_state is None:  # the kernel reports the mallet clear only after a separation
+        raise ModelError(f"mallet {mallet.name!r} at {v0:g} m/s: clear of the bar without "
+                         "leaving it (contact model)")
     n_contacts = int(status[3])
     max_compression = float(peak[0])
 

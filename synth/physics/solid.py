@@ -67,6 +67,7 @@ import time
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import scipy.sparse as sp
@@ -221,7 +222,8 @@ class LevelSolve:
         modes = tuple(SolidMode(float(m["frequency_hz"]), str(m["kind"]), int(m["order"]),
                                 float(m["mirror_symmetry"]), float(m["share"]),
                                 tuple(float(x) for x in m["nodes_m"])) for m in d["modes"])
-        return cls(int(d["level"]), tuple(int(c) for c in d["counts"]), int(d["n_elements"]),
+        nx, ny, nz = (int(c) for c in d["counts"])  # three, or ValueError (a bad cache file)
+        return cls(int(d["level"]), (nx, ny, nz), int(d["n_elements"]),
                    int(d["n_dof"]), modes, float(d["mass_kg"]), float(d["seconds"]))
 
 
@@ -372,12 +374,12 @@ def _build_mesh(geometry: BarGeometry, counts: tuple[int, int, int]):
                                        np.linspace(0, geometry.length_m, 201))))
     if c_mean <= 0:
         raise ModelError("the undercut leaves no metal under the top face")
-    s_grid = [np.linspace(0.0, 1.0, nz + 1)]
+    s_parts = [np.linspace(0.0, 1.0, nz + 1)]
     for i in range(1, len(layout.levels)):
         thick = layout.levels[i] - layout.levels[i - 1]
         n_i = max(1, int(math.ceil(nz * thick / c_mean - 1e-9)))
-        s_grid.append(np.linspace(-float(i), -float(i - 1), n_i + 1)[:-1])
-    s_grid = np.unique(np.concatenate(s_grid))
+        s_parts.append(np.linspace(-float(i), -float(i - 1), n_i + 1)[:-1])
+    s_grid = np.unique(np.concatenate(s_parts))
 
     base = MeshHex.init_tensor(x_grid, y_grid, s_grid)
     if len(layout.levels) > 1:
@@ -457,7 +459,7 @@ def _assemble(mesh2, material: Material):
     lam = E * nu / ((1 + nu) * (1 - 2 * nu))
     mu = E / (2 * (1 + nu))
     lap = S[0, 0] + S[1, 1] + S[2, 2]
-    blocks = [[None] * 3 for _ in range(3)]
+    blocks: list[list[Any]] = [[None] * 3 for _ in range(3)]
     for i in range(3):
         blocks[i][i] = (lam + mu) * S[i, i] + mu * lap
         for j in range(i + 1, 3):
@@ -550,7 +552,7 @@ def classify(symmetric: bool, shares: dict[str, float]) -> tuple[str, float]:
     Returns the kind and the share that named it; ``other`` when the largest share is
     under one half or belongs to the other symmetry family.
     """
-    kind = max(shares, key=shares.get)
+    kind = max(shares, key=shares.__getitem__)
     if shares[kind] < 0.5 or (kind in ("vertical", "longitudinal")) != symmetric:
         return "other", shares[kind]
     return kind, shares[kind]
@@ -720,7 +722,7 @@ def combine(levels: tuple[LevelSolve, ...]) -> SolidResult:
     for m in use[-1].modes:
         if m.kind == "other":
             continue
-        vals = []
+        vals: list[float | None] = []
         for lv in use:
             try:
                 vals.append(lv.mode(m.kind, m.order).frequency_hz)

@@ -155,7 +155,8 @@ def parse_tubes(sec: Section | None) -> TubeSettings | None:
                     "coupling_calibration", "gap_calibration", "enabled", "ka_correction"})
     raw = sec.data.get("inner_radius_m")
     if isinstance(raw, list):
-        radii = tuple(sec.numbers("inner_radius_m", limit="tubes.inner_radius_m", length=2))
+        r_low, r_high = sec.numbers("inner_radius_m", limit="tubes.inner_radius_m", length=2)
+        radii = (r_low, r_high)
     else:
         r = sec.number("inner_radius_m", limit="tubes.inner_radius_m")
         radii = (r, r)
@@ -181,7 +182,7 @@ def with_file_calibration(settings: TubeSettings | None, calibration) -> TubeSet
     """
     extra = {k: v for k, v in (getattr(calibration, "tubes", None) or {}).items()
              if settings is not None and k not in settings.given}
-    if not extra:
+    if settings is None or not extra:
         return settings
     return replace(settings, **extra, given=settings.given | frozenset(extra))
 
@@ -388,6 +389,8 @@ def gap_inertance(gap_m: float, density_kg_m3: float) -> float:
 
 def _mouth_paths(spec: TubeSpec, free_end_m: float, density: float) -> tuple[float, float, float]:
     """Return (Z_A, Z_B, M_g) of the bar-over-mouth model; Z_A is inf when sigma = 1."""
+    if spec.gap_to_bar_m is None:  # the callers check first
+        raise ModelError("tube.gap_to_bar_m is not set: no bar over the mouth")
     s = spec.mouth_area_m2
     sigma = spec.bar_cover_fraction
     m_g = spec.gap_calibration * gap_inertance(spec.gap_to_bar_m, density)

@@ -290,7 +290,7 @@ def tune_bar(spec: TuneSpec, start: tuple[float, ...] | None = None, *,
 
     length0 = _uniform_length(spec)
     if start is None:
-        if free:
+        if isinstance(par, _FreeParam):  # free: the stations move
             # the power-4 arch of the family's span and depth, sampled at the stations
             u = np.linspace(-1.0, 0.0, par.k)
             x = np.concatenate([[length0], spec.family.depth_fraction * (1 - np.abs(u) ** 4)[1:]])
@@ -315,7 +315,7 @@ def tune_bar(spec: TuneSpec, start: tuple[float, ...] | None = None, *,
         if not free and np.max(np.abs(miss)) < STOP_CENTS:
             raise _OnTarget(np.array(xv))
         r = miss * weights
-        if free:
+        if isinstance(par, _FreeParam):  # free
             r = np.concatenate([r, par.smooth_residuals(xv)])
         return r
 
@@ -490,7 +490,7 @@ def grind_map(result: BarModes, *, n_stations: int = 31, band_m: float = 0.010,
 
 def at_temperature(geometry: BarGeometry, material: Material,
                    temperature_c: float) -> tuple[BarGeometry, Material]:
-    """The bar at another temperature: modulus and density, and every length expanded."""
+    """Return the bar at another temperature: modulus and density, and every length expanded."""
     dt = temperature_c - material.reference_temperature_c
     return (geometry.scaled(1.0 + material.thermal_expansion_per_k * dt),
             material.at_temperature(temperature_c))
@@ -518,7 +518,7 @@ def temperature_shift_cents(geometry: BarGeometry, material: Material, from_c: f
 
 def instrument_spec(instrument: Instrument, note: str,
                     ratios: tuple[float, ...] | None = None) -> TuneSpec:
-    """The tuning spec of one note of an instrument preset.
+    """Return the tuning spec of one note of an instrument preset.
 
     The material is taken at the preset's design temperature (``temperature_c``):
     the bars are solved to be in tune there.
@@ -594,7 +594,7 @@ def worst_miss(results: list[TuneResult]) -> tuple[str, int, float] | None:
 
 
 def tuned_preset(instrument: Instrument, results: list[TuneResult]) -> dict:
-    """The instrument preset as a TOML-ready table with every solved bar in [bars]."""
+    """Return the instrument preset as a TOML-ready table with every solved bar in [bars]."""
     import copy
 
     table = copy.deepcopy(instrument.raw)

@@ -1,4 +1,4 @@
-"""Even decay of chords: does every note of a chord fade at the same rate?
+"""Even decay of chords: whether every note of a chord fades at the same rate.
 
 The chord is rendered (mono) and each note is followed in its own narrow band
 around its sounding fundamental (heterodyne envelope,
@@ -79,15 +79,16 @@ def chord_decay(voicer: Voicer, items: list[tuple[str, float]], *, mallet=None,
         fit = fit_envelope_decay(t, env, f, noise_floor=1e-9 * peak)
         level = 20 * np.log10(np.maximum(env, 1e-12 * peak) / peak)
         curves.append((note, f, fit, t, level, tuple(warn) + tuple(fit.warnings)))
-    balance = []
+    balance: list[list[float]] = []
     for tb in BALANCE_TIMES_S:
-        at = [float(np.interp(tb, t, lv, left=np.nan, right=np.nan)) for _, _, _, t, lv, _ in curves]
+        at = [float(np.interp(tb, t, lv, left=np.nan, right=np.nan))
+              for _, _, _, t, lv, _ in curves]
         top = np.nanmax(at) if np.any(np.isfinite(at)) else np.nan
         balance.append([a - top for a in at])
     notes = []
-    for k, (note, f, fit, t, level, warn) in enumerate(curves):
+    for k, (note, f, fit, t, level, warnings) in enumerate(curves):
         notes.append(ChordNote(note, f, DB_PER_NEPER * fit.decay_per_s, fit.t60_s, t, level,
-                               tuple(b[k] for b in balance), warn))
+                               tuple(b[k] for b in balance), warnings))
     rates = [n.decay_db_per_s for n in notes]
     return ChordDecay(tuple(notes), float(max(rates) - min(rates)), BALANCE_TIMES_S, seconds)
 

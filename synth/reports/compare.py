@@ -355,10 +355,12 @@ def note_difference(voicer_a: Voicer, voicer_b: Voicer, note: str) -> NoteDiffer
     """Fundamental, partials 2-3 and fundamental T60 of one note in both designs."""
     fa, ta, ca = _fundamental(voicer_a, note)
     fb, tb, cb = _fundamental(voicer_b, note)
-    partials = tuple((_vertical_hz(voicer_a, note, k), _vertical_hz(voicer_b, note, k))
-                     for k in (2, 3))
-    cents = tuple(float(ratio_to_cents(b / a)) if a > 0 and b > 0 else math.nan
-                  for a, b in partials)
+    p2, p3 = ((_vertical_hz(voicer_a, note, k), _vertical_hz(voicer_b, note, k))
+              for k in (2, 3))
+    partials = (p2, p3)
+    c2, c3 = (float(ratio_to_cents(b / a)) if a > 0 and b > 0 else math.nan
+              for a, b in partials)
+    cents = (c2, c3)
     return NoteDifference(note, (fa, fb), float(ratio_to_cents(fb / fa)), partials, cents,
                           (ta, tb), (ca, cb))
 
@@ -616,7 +618,7 @@ def band_levels(x: np.ndarray, sample_rate: float, start_s: float, end_s: float)
 def balance_windows(length_s: float) -> tuple[tuple[float, float], ...]:
     """Return the spectral-balance windows of a ``length_s`` render (:data:`WINDOW_EDGES_S`)."""
     edges = [e for e in WINDOW_EDGES_S if e < length_s] + [length_s]
-    wins = []
+    wins: list[tuple[float, float]] = []
     for t0, t1 in zip(edges[:-1], edges[1:], strict=True):
         if t1 - t0 >= MIN_WINDOW_S or not wins:
             wins.append((t0, t1))
@@ -802,7 +804,7 @@ def compare_designs(voicer_a: Voicer, voicer_b: Voicer, passage: Passage, *,
         if progress is not None:
             progress(k, 5)
 
-    renders = []
+    renders: list[np.ndarray] = []
     for design, voicer in zip(DESIGNS, (voicer_a, voicer_b), strict=True):
         _check_notes(voicer, score, design)
         voices = voicer.score_voices(score, default_pedal=passage.default_pedal)
@@ -816,12 +818,13 @@ def compare_designs(voicer_a: Voicer, voicer_b: Voicer, passage: Passage, *,
     windows = balance_windows(passage.length_s)
     balance = spectral_balance(a, b, fs, windows, range_db=band_range_db)
     step(5)
-    designs = tuple({**design_settings(v, mallet), "output_gain_db_re_1_per_pa": g}
-                    for v, g in zip((voicer_a, voicer_b), plan.output_gain_db, strict=True))
+    design_a, design_b = ({**design_settings(v, mallet), "output_gain_db_re_1_per_pa": g}
+                          for v, g in zip((voicer_a, voicer_b), plan.output_gain_db,
+                                          strict=True))
     return Comparison(a=a, b=b, sample_rate=int(fs), passage=passage, levels=plan, notes=notes,
                       balance=balance, bands=octave_bands(fs),
                       render_wall_s=time.perf_counter() - t0, warnings=plan.warnings,
-                      designs=designs, match=match)
+                      designs=(design_a, design_b), match=match)
 
 
 def comparison_record(comp: Comparison, *, names: tuple[str, str],

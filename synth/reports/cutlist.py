@@ -81,7 +81,7 @@ def cut_rows(instrument: Instrument, notes: list[str] | None = None, progress=No
 
 
 def cutlist_csv(rows: list[CutRow]) -> str:
-    """The build sheet as CSV text, lengths in millimetres."""
+    """Return the build sheet as CSV text, lengths in millimetres."""
     buf = io.StringIO()
     w = csv.writer(buf, lineterminator="\n")
     head = ["note", "target_hz", "length_mm", "width_mm", "thickness_mm", "undercut",

@@ -265,7 +265,7 @@ def _sounds(inst, out: Path, say: Say, steps: Steps):
                    f"{_tube_loudness_db(renders, fs):.1f} dB of BS.1770-4 loudness" if bare
                    else f"gain {rep.plan.gain_db:+.1f} dB")
             say(f"   {rep.path}   ({what}; {rep.seconds:.1f} s, {how}; "
-                f"{rep.ending.sentence(rep.seconds)})")
+                f"{rep.ending.sentence(rep.seconds) if rep.ending else 'no ending stated'})")
             step(1, name)
     say("")
     return stereo

@@ -152,11 +152,13 @@ import hashlib
 import math
 from dataclasses import dataclass, replace
 from pathlib import Path
+from typing import Any, cast
 
 import numpy as np
 
 from synth.analysis import find_partials, find_strike
 from synth.analysis.checks import CLIP_LEVEL, CLIP_MIN_RUN
+from synth.analysis.onset import find_fade_out
 from synth.constants import LN_1000
 from synth.errors import AudioError, ConfigError, ModelError
 from synth.physics.instrument import Instrument
@@ -436,6 +438,10 @@ def measure_signal(signal, sample_rate: float, *, recording: str = "signal",
             raise AudioError(
                 "no strike found (steady sound, noise, or a strike lost in noise): measure "
                 "needs one strike with its decay; trim the lead-in or record closer")
+        fade_s = find_fade_out(mono, fs, strike.attack_end_s)
+        if fade_s is not None:  # the decay analysed ends where the fade begins
+            cut = int(round(fade_s * fs))
+            signal, mono = np.asarray(signal)[:cut], mono[:cut]
         res = find_partials(signal, fs, max_partials=max_partials)
     except AudioError as exc:
         raise AudioError(f"{recording}: {exc}") from None
@@ -451,6 +457,9 @@ def measure_signal(signal, sample_rate: float, *, recording: str = "signal",
             "no partial stands above the noise"
         raise AudioError(f"{recording}: {why}")
     warnings = list(res.warnings)
+    if fade_s is not None:
+        warnings.append(f"the recording fades out (or is damped) from {fade_s:.2f} s: "
+                        "analysed up to there")
     if fs < 44100:
         warnings.append(f"sample rate {fs:g} Hz: partials above {0.45 * fs:g} Hz are not "
                         "analysed (upper bar partials reach 10 times the fundamental and more); "
@@ -488,15 +497,16 @@ def measure_signal(signal, sample_rate: float, *, recording: str = "signal",
             f, decay, how = slow.frequency_hz, slow.decay_per_s, "demodulated"
             q, t60 = math.pi * f / decay, LN_1000 / decay
             q_se = slow.decay_se_per_s / decay
-        name, off = nearest_note(f, reference_hz)
+        name, off_cents = nearest_note(f, reference_hz)
         partials.append(MeasuredPartial(
             frequency_hz=f, q=q, t60_s=t60, decay_per_s=decay, q_rel_se=q_se,
-            level_db=p.level_db, note=name, cents=off,
+            level_db=p.level_db, note=name, cents=off_cents,
             ratio=f / fundamental if fundamental else None,
             cents_from_note=float(cents(f, note_hz)) if note_hz else None,
             snr_db=p.snr_db, decay_method=how, beating=p.beating))
     if fundamental is not None:  # refer ratios to the refined frequency
-        f1 = min(partials, key=lambda q: abs(q.frequency_hz - fundamental)).frequency_hz
+        f0 = fundamental
+        f1 = min(partials, key=lambda q: abs(q.frequency_hz - f0)).frequency_hz
         partials = [replace(q, ratio=q.frequency_hz / f1) for q in partials]
         fundamental = f1
     return Measurement(
@@ -1413,7 +1423,9 @@ def _solve(rows, y, terms, base, sensitivity_limit, warnings):
                             f"explain the measured loss); not identifiable, kept at {base[t]:g}")
             continue
         sens = _sensitivity(A, x)
-        if sens is not None and np.max(sens) > sensitivity_limit:
+        if sens is None:  # not reached: it depends on A only, which passed above
+            raise ModelError("the loss fit's sensitivity matrix became singular")
+        if np.max(sens) > sensitivity_limit:
             worst = int(np.argmax(sens))
             t = active.pop(worst)
             held.append(t)
@@ -1640,11 +1652,11 @@ def tube_model_hz(instrument: Instrument, note: str) -> float:
     from synth.voicing import Voicer
 
     v = Voicer(instrument, tubes=True, channels=1, calibration=None, motor_rate_rev_per_s=0.0)
-    spec = v.tube_spec(instrument.check_note(note))
-    if spec is None:
+    spec, ts = v.tube_spec(instrument.check_note(note)), v.tube_settings
+    if spec is None or ts is None:
         raise ConfigError("has no [tubes] table: nothing to calibrate", source=instrument.source)
     return tube_mode(replace(spec, gap_calibration=1.0), temperature_c=v.temperature_c,
-                     ka_correction=v.tube_settings.ka_correction).frequency_hz
+                     ka_correction=ts.ka_correction).frequency_hz
 
 
 def tube_resonance(m: Measurement, model_hz: float) -> tuple[float, float]:
@@ -1685,12 +1697,12 @@ def calibrate_tube(instrument: Instrument, note: str, *, tube_hz: float, bare: M
 
     note = instrument.check_note(note)
     v = Voicer(instrument, tubes=True, channels=1, calibration=None, motor_rate_rev_per_s=0.0)
-    model = v.model(note)
-    if model.coupling is None:
+    model, ts = v.model(note), v.tube_settings
+    if model.coupling is None or model.tube is None or ts is None:
         raise ConfigError("has no [tubes] table (or tubes are off): nothing to calibrate",
                           source=instrument.source)
     temp = model.coupling.temperature_c
-    ka = v.tube_settings.ka_correction
+    ka = ts.ka_correction
     spec = replace(model.tube, gap_calibration=1.0)
     f_model = tube_mode(spec, temperature_c=temp, ka_correction=ka).frequency_hz
     gap = calibrate_gap(spec, tube_hz, temperature_c=temp, ka_correction=ka)
@@ -1770,7 +1782,7 @@ class RangeRow:
 
     def to_dict(self, ratios) -> dict:
         """Plain values for JSON: note, file, fundamental and the partials near the ratios."""
-        out = {"note": self.note, "file": self.path, "error": self.error}
+        out: dict[str, Any] = {"note": self.note, "file": self.path, "error": self.error}
         if self.measurement is not None:
             m = self.measurement
             out["fundamental_hz"] = m.fundamental_hz
@@ -1819,7 +1831,7 @@ def measure_folder(folder, *, reference_hz: float, ratios=(1.0, 4.0, 10.08),
             continue
         jobs.append(Job((str(f), note), _measure_job,
                         (str(f), note, reference_hz, max_partials, channel)))
-    rows = [RangeRow(r.key[0], r.key[1], r.value, r.error)
+    rows = [RangeRow(*cast(tuple[str, str], r.key), r.value, r.error)
             for r in run_jobs(jobs, workers=workers)]
     rows.sort(key=lambda r: (note_to_midi(r.note), r.path))
     return rows, skipped
@@ -1835,10 +1847,9 @@ def range_png(rows: list[RangeRow], ratios, *, title: str = "") -> bytes:
     for k, r in enumerate(ratios):
         xs, cs, ts = [], [], []
         for row in rows:
-            p = row.partial(r)
-            if p is None:
+            p, m = row.partial(r), row.measurement
+            if p is None or m is None:  # a partial comes with its measurement
                 continue
-            m = row.measurement
             xs.append(note_to_midi(row.note))
             cs.append(float(cents(p.frequency_hz, r * m.note_hz)))
             ts.append(p.t60_s if math.isfinite(p.t60_s) else np.nan)

@@ -272,7 +272,8 @@ def uncertainties(flexural_hz: float, torsional_hz: float, inputs: OffcutInputs,
         rho = v["mass_kg"] / (v["length_m"] * v["width_m"] * v["thickness_m"])
         return {"E": math.log(e), "G": math.log(g), "nu": nu, "density": math.log(rho)}
 
-    out = {k: (0.0, {}) for k in ("E", "G", "nu", "density")}
+    out: dict[str, tuple[float, dict[str, float]]] = {
+        k: (0.0, {}) for k in ("E", "G", "nu", "density")}
     for name, x in base.items():
         h = 1e-6 * x
         up = results({**base, name: x + h})

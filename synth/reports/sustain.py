@@ -39,7 +39,7 @@ import numpy as np
 from synth.analysis import band_envelope, fit_envelope_decay
 from synth.constants import LN_1000
 from synth.engine.render import render
-from synth.errors import ConfigError
+from synth.errors import ConfigError, ModelError
 from synth.numerics import bracketed_root
 from synth.physics.coupling import coupling_at_offset
 from synth.physics.motor import disc_modulation, steady_bar_decay_per_s
@@ -272,6 +272,8 @@ def voice_at_offset(voicer: Voicer, note: str, offset_cents: float) -> tuple[flo
     """
     model = voicer.model(note)
     ts = voicer.tube_settings
+    if model.coupling is None or model.tube is None or ts is None:
+        raise ModelError(f"{note}: no tube under the bar: there is no tube offset to vary")
     bar, template = model.coupling.bar, model.tube
     length = tube_length_for_bar(bar.frequency_hz, template, offset_cents=offset_cents,
                                  temperature_c=voicer.temperature_c,

@@ -248,14 +248,18 @@ def evaluate_variant(settings: tuple, data: dict, source: str) -> VariantResult:
 def _evaluate(settings: tuple, data: dict, source: str) -> VariantResult:
     from synth.analysis import integrated_loudness
     from synth.engine.render import render
-    from synth.physics.instrument import design_from_table
+    from synth.physics.instrument import Instrument, design_from_table
     from synth.physics.tuning import tune_instrument
     from synth.pitch import cents, note_to_midi
     from synth.voicing import Voicer
 
     inst = design_from_table(data, source)
+    if not isinstance(inst, Instrument):  # variant_tables refuses these before any work
+        raise ConfigError("is a single-bar file; a sweep needs an instrument preset",
+                          source=source)
     notes = list(inst.notes)
     registers = _sample_notes(notes)
+    low, mid, high = registers
     tuned = tune_instrument(inst, list(registers))
     reach = max(float(np.max(np.abs(r.residual_cents))) for r in tuned)
     plan = Voicer(inst, sample_rate=SWEEP_SAMPLE_RATE, channels=1)
@@ -274,8 +278,8 @@ def _evaluate(settings: tuple, data: dict, source: str) -> VariantResult:
     loud = integrated_loudness(x, SWEEP_SAMPLE_RATE).integrated_lufs
     return VariantResult(
         settings=settings, registers=registers, tuning_reach_cents=reach,
-        bars_off_target_cents=off, t60_s=tuple(t60[n] for n in registers),
-        tube_gain_db=tuple(gains),
+        bars_off_target_cents=off, t60_s=(t60[low], t60[mid], t60[high]),
+        tube_gain_db=(gains[0], gains[1], gains[2]),
         evenness_percent=evenness_percent([note_to_midi(n) for n in trend],
                                           [t60[n] for n in trend]),
         loudness_lufs=float(loud), t60_by_note=tuple(t60.items()))
@@ -306,8 +310,8 @@ def run_sweep(preset: str | Path, varies: Sequence[Vary | str], *, workers: int 
         One result per variant in grid order; a failed variant has its error
         instead, and the others complete.
     """
-    varies = tuple(v if isinstance(v, Vary) else parse_vary(v) for v in varies)
-    return run_variants(preset, varies, variant_tables(preset, varies), workers=workers,
+    axes = tuple(v if isinstance(v, Vary) else parse_vary(v) for v in varies)
+    return run_variants(preset, axes, variant_tables(preset, axes), workers=workers,
                         scheduler=scheduler, progress=progress)
 
 

@@ -21,10 +21,10 @@ def format_table(headers: Sequence[str], rows: Iterable[Sequence[Any]],
     title : str, optional
         A line printed above the table.
     """
-    rows = [["" if c is None else str(c) for c in r] for r in rows]
+    text_rows = [["" if c is None else str(c) for c in r] for r in rows]
     n = len(headers)
     widths = [len(h) for h in headers]
-    for r in rows:
+    for r in text_rows:
         for i, c in enumerate(r[:n]):
             widths[i] = max(widths[i], len(c))
     if align is None:
@@ -41,5 +41,5 @@ def format_table(headers: Sequence[str], rows: Iterable[Sequence[Any]],
         parts.append(title)
     parts.append(line(list(headers)))
     parts.append("  ".join("-" * w for w in widths))
-    parts.extend(line(r + [""] * (n - len(r))) for r in rows)
+    parts.extend(line(r + [""] * (n - len(r))) for r in text_rows)
     return "\n".join(parts)

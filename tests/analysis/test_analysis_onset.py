@@ -83,3 +83,42 @@ def test_steady_noise_has_no_strike(rng) -> None:
     strike = find_strike(rng.standard_normal(int(2 * FS)) * 0.05, FS)
     assert not strike.found
     assert any("no strike found" in w for w in strike.warnings)
+
+
+# --- fade-outs at a recording's end (find_fade_out) ---------------------------------
+
+def _two_partial_decay(fs, seconds, noise_db=None, seed=3):
+    """Partials at 220 Hz (T60 40 s) and 2.2 kHz (T60 2 s); optional white noise."""
+    t = np.arange(int(seconds * fs)) / fs
+    x = (np.exp(-6.9078 * t / 40) * np.sin(2 * np.pi * 220 * t)
+         + 0.5 * np.exp(-6.9078 * t / 2) * np.sin(2 * np.pi * 2200 * t))
+    if noise_db is not None:
+        x += 10 ** (noise_db / 20) * np.random.default_rng(seed).standard_normal(t.size)
+    return x
+
+
+@pytest.mark.parametrize("fade_s", [0.1, 0.5, 1.0])
+def test_fade_out_found_near_where_it_begins(fade_s):
+    """A sin^2 fade over the last fade_s of a 6 s free decay is found within a quarter of
+    its length of where it starts (the estimate assumes the -6 dB point at mid-fade).
+    """
+    from synth.analysis.onset import find_fade_out
+
+    fs = 16000.0
+    x = _two_partial_decay(fs, 6.0)
+    n = int(fade_s * fs)
+    x[-n:] *= np.cos(0.5 * np.pi * np.arange(1, n + 1) / n) ** 2
+    start = find_fade_out(x, fs, 0.01)
+    assert start is not None
+    assert abs(start - (6.0 - fade_s)) <= 0.25 * fade_s + 0.02
+
+
+@pytest.mark.parametrize("noise_db", [None, -60.0, -30.0])
+def test_free_decay_or_noise_floor_is_no_fade(noise_db):
+    """A free decay ends above its early straight line (the fast partial dies first) and a
+    noise floor lifts it further: neither counts as a fade.
+    """
+    from synth.analysis.onset import find_fade_out
+
+    fs = 16000.0
+    assert find_fade_out(_two_partial_decay(fs, 6.0, noise_db), fs, 0.01) is None

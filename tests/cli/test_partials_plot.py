@@ -1,5 +1,6 @@
 """`barwright partials --plot/--out`: the mode-shape PNG is written whole, named in
-the JSON, and never overwritten unasked (exit 2, one line, file untouched)."""
+the JSON, and never overwritten unasked (exit 2, one line, file untouched).
+"""
 
 from __future__ import annotations
 

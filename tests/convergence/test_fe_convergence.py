@@ -86,7 +86,8 @@ def test_refinement_past_the_degree_step_meets_a_tight_tolerance(fe_rounding) ->
 def test_a_tolerance_below_rounding_is_refused() -> None:
     """Finer meshes only raise the rounding floor (lambda_max grows as 1 / h_e**2):
     a tolerance below it cannot be met, and the solver says so instead of refining
-    to its element limit."""
+    to its element limit.
+    """
     bar = BarGeometry(0.35, 0.055, 0.013, ArchUndercut(0.008, 0.22, 3.0))
     with pytest.raises(ModelError, match="below what double precision resolves"):
         solve_bar(bar, AL, tolerance=1e-12, n_lateral=0, n_torsional=0)
@@ -95,7 +96,8 @@ def test_a_tolerance_below_rounding_is_refused() -> None:
 def test_start_mesh_follows_the_bending_wavelength() -> None:
     """Thin sections carry shorter bending waves (k**4 = rho A omega**2 / EI, so
     k ~ h**-1/2 for a rectangle): a caliper table's thin middle gets more elements per
-    metre than its thick ends, and no element holds more than its share of wave."""
+    metre than its thick ends, and no element holds more than its share of wave.
+    """
     bar = BarGeometry(0.32, 0.055, 0.012, StationUndercut(
         (0.060, 0.100, 0.160, 0.220, 0.260), (0.012, 0.0082, 0.0050, 0.0082, 0.012)))
     mesh = start_mesh(bar, n_modes=5, degree=6)
@@ -115,7 +117,8 @@ def test_start_mesh_follows_the_bending_wavelength() -> None:
 def test_scaled_standard_problem_equals_the_general_dense_one() -> None:
     """The production eigensolve (node scaling to a standard problem, a subset of
     eigenpairs) gives the same frequencies as scipy.linalg.eigh of the assembled K and
-    M on the same mesh, every eigenpair (the benchmark's reference path)."""
+    M on the same mesh, every eigenpair (the benchmark's reference path).
+    """
     bar = BarGeometry(0.32, 0.055, 0.012, StationUndercut(
         (0.060, 0.100, 0.160, 0.220, 0.260), (0.012, 0.0082, 0.0050, 0.0082, 0.012)))
     res = solve_bar(bar, AL)
@@ -140,7 +143,8 @@ def test_scaled_standard_problem_equals_the_general_dense_one() -> None:
 def test_lateral_and_torsional_modes_settle_on_the_mesh_of_the_partials() -> None:
     """Refinement tracks the vertical partials; the lateral and torsional modes are
     solved once on the mesh that settles them.  On every bar of both demo ranges
-    they are then within the same 0.01 % of a fine mesh (48 elements of degree 6)."""
+    they are then within the same 0.01 % of a fine mesh (48 elements of degree 6).
+    """
     from synth.physics.instrument import load_instrument
 
     worst = 0.0

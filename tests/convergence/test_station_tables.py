@@ -70,7 +70,8 @@ def test_station_tables_stay_within_the_interpolation_bound(differences) -> None
 
 def test_station_tables_converge_at_second_order(differences) -> None:
     """The exponent of dx fitted between 41 and 241 and between 241 and 2001 stations
-    is 2 (linear interpolation error, O(dx**2))."""
+    is 2 (linear interpolation error, O(dx**2)).
+    """
     for a, b in ((41, 241), (241, 2001)):
         (dx_a, d_a, r_a), (dx_b, d_b, r_b) = differences[a], differences[b]
         rate = np.log(d_a / d_b) / np.log(dx_a / dx_b)
@@ -86,7 +87,8 @@ def test_station_tables_converge_at_second_order(differences) -> None:
 
 def test_a_dense_table_meshes_like_the_smooth_arch() -> None:
     """Cost follows the bar's waves, not its stations: 100 000 stations get no more
-    elements than 41 do (18 on this bar, the arch itself 10)."""
+    elements than 41 do (18 on this bar, the arch itself 10).
+    """
     dense = solve_bar(table(100_000), AL, n_lateral=1, n_torsional=1)
     few = solve_bar(table(41), AL, n_lateral=1, n_torsional=1)
     arch = solve_bar(ARCH, AL, n_lateral=1, n_torsional=1)
@@ -101,7 +103,8 @@ def test_a_dense_table_meshes_like_the_smooth_arch() -> None:
 
 def test_caliper_stations_each_keep_their_node() -> None:
     """A coarse table's kinks are strong: every station is an element edge, as the
-    profile's corners must be for the elements' full convergence rate."""
+    profile's corners must be for the elements' full convergence rate.
+    """
     bar = table(11)
     edges = make_mesh(bar, 12, 6).edges_m
     x = np.asarray(bar.undercut.x_m)
@@ -113,7 +116,8 @@ def test_241_stations_of_a_thin_arched_bar_solve() -> None:
     """The 0.32 x 0.055 x 0.012 m bar with a 7 mm parabolic arch as 241 stations
     once failed the rigid-body check (its rounding floor grew with the unknowns of
     a mesh with one element per station).  It solves, like its arch: within the
-    refinement's 1e-4 of each and the interpolation bound."""
+    refinement's 1e-4 of each and the interpolation bound.
+    """
     arch = BarGeometry(0.32, 0.055, 0.012, ArchUndercut(0.007, 0.2, 2.0))
     x = np.linspace(0.06, 0.26, 241)
     bar = BarGeometry(0.32, 0.055, 0.012, StationUndercut(tuple(x), tuple(arch.thickness_at(x))))

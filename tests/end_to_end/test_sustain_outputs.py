@@ -134,7 +134,8 @@ def _t60_with_offset(tmp_path: Path, note: str, offset: float, motor_rate: float
 def _check_suggestions(tmp_path: Path, motor_rate: float) -> int:
     """Check every row: a printed offset lands in tolerance when re-solved; a row that
     says no offset reaches the target misses it at 0, 50 and 100 cents alike.
-    Returns the number of printed offsets."""
+    Returns the number of printed offsets.
+    """
     printed = 0
     for note, offset, text in _suggestions(motor_rate):
         if offset is None:
@@ -169,5 +170,6 @@ def test_suggested_offsets_reach_the_target_with_the_motor_running(tmp_path) -> 
     row's own voice (discs included).  Measured: C5 +13 c gives 30.00 s; F3 and G3
     ring 52-91 s at every offset from 0 to 100 c, and the report says so instead of
     printing an offset (the old advice, solved without the discs, gave 61.9 / 60.4 /
-    40.4 s for its F3 / G3 / C5 offsets)."""
+    40.4 s for its F3 / G3 / C5 offsets).
+    """
     assert _check_suggestions(tmp_path, 3.0) >= 1

@@ -12,7 +12,7 @@ import importlib
 import numpy as np
 import pytest
 
-from synth.engine import ModePair, ModeBank, Voice, render
+from synth.engine import ModeBank, ModePair, Voice, render
 
 FS = 48000.0
 N = int(2 * FS)

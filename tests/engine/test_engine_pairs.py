@@ -14,7 +14,7 @@ import scipy.linalg
 from engine_fits import prony_one_mode
 from scipy.integrate import solve_ivp
 
-from synth.engine import ModePair, ModeBank, Voice, render
+from synth.engine import ModeBank, ModePair, Voice, render
 from synth.errors import ModelError
 from synth.pitch import cents
 

@@ -8,8 +8,8 @@ import numpy as np
 import pytest
 
 from synth.engine import (
-    ModePair,
     ModeBank,
+    ModePair,
     Voice,
     constant_power_pan,
     measure_peak,

@@ -20,8 +20,8 @@ import pytest
 
 from synth.engine import (
     RETIRE_EVERY,
-    ModePair,
     ModeBank,
+    ModePair,
     Voice,
     constant_power_pan,
     peak_bound,

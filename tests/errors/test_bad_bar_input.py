@@ -57,12 +57,14 @@ def test_non_positive_sizes(tmp_path: Path, change, key: str) -> None:
 
 
 def test_undercut_reaching_zero(tmp_path: Path) -> None:
-    p = write(tmp_path, GOOD + "[undercut]\nx_m = [0.1, 0.16, 0.22]\nthickness_m = [0.012, 0.0, 0.012]\n")
+    p = write(tmp_path, GOOD + "[undercut]\nx_m = [0.1, 0.16, 0.22]\n"
+              "thickness_m = [0.012, 0.0, 0.012]\n")
     assert_one_line_error(run("partials", p), str(p), "undercut.thickness_m")
 
 
 def test_undercut_thicker_than_blank(tmp_path: Path) -> None:
-    p = write(tmp_path, GOOD + "[undercut]\nx_m = [0.1, 0.16, 0.22]\nthickness_m = [0.012, 0.015, 0.012]\n")
+    p = write(tmp_path, GOOD + "[undercut]\nx_m = [0.1, 0.16, 0.22]\n"
+              "thickness_m = [0.012, 0.015, 0.012]\n")
     assert_one_line_error(run("partials", p), str(p), "undercut.thickness_m", "exceeds")
 
 
@@ -81,7 +83,8 @@ def test_stations_outside_or_unordered(tmp_path: Path) -> None:
 
 def test_too_many_stations(tmp_path: Path) -> None:
     """A table is read up to MAX_STATIONS (100 000) stations; one more is refused
-    at load, naming the key and the bound, before any number is checked."""
+    at load, naming the key and the bound, before any number is checked.
+    """
     from synth.physics.geometry import MAX_STATIONS
 
     n = MAX_STATIONS + 1

@@ -263,8 +263,8 @@ def test_a_note_outside_the_instrument_names_the_event_file() -> None:
     voicer = Voicer(load_design(DEMO), channels=1)
     score = Score((Strike(0.0, "C9", velocity=0.5, key="strike[0]"),), source="tune.toml")
     refused(lambda: voicer.score_voices(score),
-            "tune.toml: strike[0].note = 'C9': not in the range of lantern-street-bars.toml; allowed: "
-            "F3 to F6")
+            "tune.toml: strike[0].note = 'C9': not in the range of lantern-street-bars.toml; "
+            "allowed: F3 to F6")
 
 
 # --------------------------------------------------------------------------- MIDI

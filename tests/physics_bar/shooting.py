@@ -49,7 +49,7 @@ def timoshenko_free_free(h_of_x, length, width, E, nu, rho, f_max, *, breakpoint
     grid = np.linspace(f_max / n_scan, f_max, n_scan)
     vals = [end_det(f) for f in grid]
     roots = []
-    for (f0, d0), (f1, d1) in zip(zip(grid[:-1], vals[:-1]), zip(grid[1:], vals[1:]), strict=True):
+    for f0, d0, f1, d1 in zip(grid[:-1], vals[:-1], grid[1:], vals[1:], strict=True):
         if d0 * d1 < 0:
             roots.append(brentq(end_det, f0, f1, xtol=1e-10, rtol=1e-13))
     return np.array(roots)
@@ -103,7 +103,7 @@ def coupled_free_free(h_of_x, length, width, blank, E, nu, rho, f_max, *, breakp
     grid = np.linspace(f_max / n_scan, f_max, n_scan)
     vals = [end_det(f) for f in grid]
     roots = []
-    for (f0, d0), (f1, d1) in zip(zip(grid[:-1], vals[:-1]), zip(grid[1:], vals[1:]), strict=True):
+    for f0, d0, f1, d1 in zip(grid[:-1], vals[:-1], grid[1:], vals[1:], strict=True):
         if d0 * d1 < 0:
             roots.append(brentq(end_det, f0, f1, xtol=1e-10, rtol=1e-13))
     return np.array(roots)

@@ -58,7 +58,8 @@ def test_quartic_arch_matches_shooting_with_the_centroid_shift(al6061, fe_roundi
 
 def test_uniform_bar_has_no_coupling(al6061) -> None:
     """A uniform bar keeps its centroid on the reference line: Timoshenko shooting
-    without coupling is reproduced exactly (see test_uniform_reference)."""
+    without coupling is reproduced exactly (see test_uniform_reference).
+    """
     bar = BarGeometry(0.3, 0.05, 0.02)
     res = solve_bar(bar, al6061, n_elements=FINE, degree=6, n_lateral=0, n_torsional=0)
     got = [m.frequency_hz for m in res.vertical[:3]]
@@ -83,7 +84,8 @@ def test_symmetric_undercut_gives_symmetric_nodes(al6061) -> None:
 
 def test_arch_moves_mode1_nodes_toward_the_ends(al6061) -> None:
     """Deepening the arch moves the cord holes from 0.2242 L toward the ends
-    (physics.md section 1: 0.2030 L for the section 3.4 bar)."""
+    (physics.md section 1: 0.2030 L for the section 3.4 bar).
+    """
     nodes = []
     for depth in (0.0, 0.004, 0.008, 0.0116):
         uc = ArchUndercut(depth, 0.18, 4.0) if depth else None
@@ -96,7 +98,8 @@ def test_arch_moves_mode1_nodes_toward_the_ends(al6061) -> None:
 def test_too_slender_a_bar_is_refused_in_its_own_terms(al6061) -> None:
     """A 0.3 m bar 0.1 mm thick (3000 thicknesses long) drowns its partials in
     rounding (lambda_max / lambda_1 grows as the square of the slenderness); the
-    message names the bar's proportions, not the eigensolver's."""
+    message names the bar's proportions, not the eigensolver's.
+    """
     from synth.errors import ModelError
 
     with pytest.raises(ModelError, match=r"too slender to model: length 0\.3 m over its "

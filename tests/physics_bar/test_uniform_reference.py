@@ -45,7 +45,8 @@ def test_slender_uniform_bar_matches_euler_bernoulli(al6061) -> None:
     """h/L = 0.0025: Timoshenko corrections below 2e-4 for modes 1-3 (shear and
     rotary inertia lower mode n by about (beta_n r)**2 (1 + E / kG) / 2, r**2 = h**2/12:
     2.4e-5, 6.6e-5, 1.3e-4), so the FE, refined to 1e-4, lands within 3e-4 of
-    Euler-Bernoulli, and the ratios too."""
+    Euler-Bernoulli, and the ratios too.
+    """
     L, b, h = 0.8, 0.04, 0.002
     res = solve_bar(BarGeometry(L, b, h), al6061, n_lateral=0, n_torsional=0)
     E, rho = al6061.youngs_modulus_pa, al6061.density_kg_m3

@@ -37,7 +37,10 @@ AL = load_material("aluminium-6061-t6")
 RATIOS = (1.0, 4.0, 2 ** (40 / 12))  # 1 : 4 : 10.08, common practice, no source
 
 
-def spec(note="A4", f=442.0, family=UndercutFamily("power", 4.0), ratios=RATIOS, w=0.05,
+POWER_4 = UndercutFamily("power", 4.0)
+
+
+def spec(note="A4", f=442.0, family=POWER_4, ratios=RATIOS, w=0.05,
          h=0.012):
     return TuneSpec(note, f, ratios, w, h, 0.0025, family, AL)
 

@@ -1,7 +1,5 @@
-"""Plans shared by the real-time pool tests.
-
-Imported by name: a module of its own, since every test folder's conftest is
-called ``conftest``.
+"""Plans shared by the real-time pool tests (imported by name: a module of its own,
+since every test folder's conftest is called ``conftest``).
 """
 
 from __future__ import annotations

@@ -136,7 +136,8 @@ def test_designs_are_loudness_matched_when_played():
     from synth.live import level_scales, plan_notes
     from synth.reports.compare import default_passage, fade_out
 
-    voicers = [demo_voicer(0.0), demo_voicer(0.0, preset=DEMO.with_name("lantern-street-bars-7075.toml"))]
+    voicers = [demo_voicer(0.0),
+               demo_voicer(0.0, preset=DEMO.with_name("lantern-street-bars-7075.toml"))]
     scales = level_scales(voicers)
     passage = default_passage(voicers[0].instrument.notes, voicers[1].instrument.notes)
     notes = sorted({s.note for s in passage.score.strikes})

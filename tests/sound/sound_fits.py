@@ -1,5 +1,6 @@
 """Fits shared by the sound tests (imported by name: a module of its own, since every
-test folder's conftest is called ``conftest``)."""
+test folder's conftest is called ``conftest``).
+"""
 
 from __future__ import annotations
 
