@@ -30,8 +30,8 @@ import importlib
 __version__ = "0.1.0"
 
 _LAZY = {
-    "load_design": "synth.physics.instrument",
-    "load_instrument": "synth.physics.instrument",
+    "load_design": "synth.settings.instrument",
+    "load_instrument": "synth.settings.instrument",
     "read_events": "synth.engine.score",
     "read_audio": "synth.io",
     "solve_partials": "synth.api",

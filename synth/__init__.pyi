@@ -9,11 +9,11 @@ from synth.errors import ConfigError as ConfigError
 from synth.errors import ModelError as ModelError
 from synth.errors import SynthError as SynthError
 from synth.io import read_audio as read_audio
-from synth.physics.instrument import load_design as load_design
-from synth.physics.instrument import load_instrument as load_instrument
 from synth.reports.sustain import sustain_report as sustain_report
 from synth.reports.sweep import parse_vary as parse_vary
 from synth.reports.sweep import run_sweep as run_sweep
+from synth.settings.instrument import load_design as load_design
+from synth.settings.instrument import load_instrument as load_instrument
 from synth.voicing import Voicer as Voicer
 
 __version__: str

@@ -152,7 +152,7 @@ class Voicer:
     Parameters
     ----------
     instrument : Instrument
-        The preset, as read by :func:`synth.physics.instrument.load_instrument`.
+        The preset, as read by :func:`synth.settings.instrument.load_instrument`.
     sample_rate : float
         Hz.
     tubes : bool

@@ -1,8 +1,8 @@
 """The package layers import only downward (design outline, DEVELOPERS.md).
 
 bottom (errors, constants, pitch, config, numerics) <- physics; engine (generic, beside physics)
-<- voicing (physics onto engine voices); io <- output (engine + io); analysis (arrays
-only) <- reports <- cli.  The engine must never import physics, so it
+<- settings (files -> physics and engine dataclasses) <- voicing (physics onto engine
+voices); io <- output (engine + io); analysis (arrays only) <- reports <- cli.  The engine must never import physics, so it
 cannot learn about bars; physics must never import audio or the engine.
 """
 
@@ -17,21 +17,31 @@ ROOT = Path(__file__).resolve().parent.parent / "synth"
 
 # For each layer, the synth subpackages/modules it must not import.
 FORBIDDEN = {
-    "errors": {"physics", "engine", "voicing", "io", "analysis", "reports", "cli", "bench"},
-    "constants": {"physics", "engine", "voicing", "io", "analysis", "reports", "cli", "bench"},
-    "pitch": {"physics", "engine", "voicing", "io", "analysis", "reports", "cli", "bench"},
-    "config": {"physics", "engine", "voicing", "io", "analysis", "reports", "cli", "bench"},
-    "numerics": {"physics", "engine", "voicing", "io", "analysis", "reports", "cli", "bench"},
-    "executor": {"physics", "engine", "voicing", "io", "analysis", "reports", "cli", "bench"},
-    "plan_cache": {"physics", "engine", "voicing", "io", "analysis", "reports", "cli", "bench"},
-    "physics": {"engine", "voicing", "io", "analysis", "reports", "cli", "bench"},
-    "engine": {"physics", "voicing", "io", "output", "analysis", "reports", "cli", "bench",
-               "instrument"},
-    "analysis": {"physics", "engine", "voicing", "output", "reports", "cli", "bench",
-                 "instrument"},
-    "io": {"physics", "engine", "voicing", "output", "analysis", "reports", "cli", "bench"},
+    "errors": {"physics", "engine", "settings", "voicing", "io", "analysis", "reports", "cli",
+               "bench"},
+    "constants": {"physics", "engine", "settings", "voicing", "io", "analysis", "reports",
+                  "cli", "bench"},
+    "pitch": {"physics", "engine", "settings", "voicing", "io", "analysis", "reports", "cli",
+              "bench"},
+    "config": {"physics", "engine", "settings", "voicing", "io", "analysis", "reports", "cli",
+               "bench"},
+    "numerics": {"physics", "engine", "settings", "voicing", "io", "analysis", "reports", "cli",
+                 "bench"},
+    "executor": {"physics", "engine", "settings", "voicing", "io", "analysis", "reports", "cli",
+                 "bench"},
+    "plan_cache": {"physics", "engine", "settings", "voicing", "io", "analysis", "reports",
+                   "cli", "bench"},
+    "physics": {"engine", "settings", "voicing", "io", "analysis", "reports", "cli", "bench"},
+    "engine": {"physics", "settings", "voicing", "io", "output", "analysis", "reports", "cli",
+               "bench"},
+    "settings": {"voicing", "io", "output", "analysis", "reports", "live", "api", "cli",
+                 "bench"},
+    "analysis": {"physics", "engine", "settings", "voicing", "output", "reports", "cli",
+                 "bench"},
+    "io": {"physics", "engine", "settings", "voicing", "output", "analysis", "reports", "cli",
+           "bench"},
     "voicing": {"analysis", "reports", "cli", "bench", "io", "output"},
-    "output": {"physics", "voicing", "analysis", "reports", "cli", "bench", "instrument"},
+    "output": {"physics", "settings", "voicing", "analysis", "reports", "cli", "bench"},
     "reports": {"cli", "bench"},
     "api": {"cli", "bench"},
     "live": {"cli", "bench"},

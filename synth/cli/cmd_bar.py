@@ -36,9 +36,10 @@ from synth.cli.common import (
 )
 from synth.errors import ConfigError
 from synth.physics.bar_fe import BarModes, solve_bar
-from synth.physics.instrument import BarFile, Instrument, load_design
+from synth.physics.instrument import BarFile, Instrument
 from synth.physics.solid_correction import correction_of
 from synth.pitch import nearest_note
+from synth.settings.instrument import load_design
 from synth.voicing import design_budget
 
 FileArg = Annotated[Path, typer.Argument(help="A single-bar file or an instrument preset (TOML).",
@@ -282,8 +283,8 @@ def tune_command(
 
     from synth import io
     from synth.cli.common import Progress
-    from synth.physics.instrument import load_instrument
     from synth.physics.tuning import temperature_shift_cents, tune_instrument, tuned_preset
+    from synth.settings.instrument import load_instrument
 
     target = _parse_ratios(ratios)
     inst = load_instrument(preset)
@@ -517,9 +518,9 @@ def cutlist_command(
     """
     from synth import io
     from synth.cli.common import Progress
-    from synth.physics.instrument import load_instrument
     from synth.reports.cutlist import SAFETY, cut_rows, cutlist_csv
     from synth.reports.plots import profile_sheet_png
+    from synth.settings.instrument import load_instrument
 
     inst = load_instrument(preset)
     folder = out or default_output(preset, "")

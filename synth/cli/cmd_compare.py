@@ -46,7 +46,7 @@ REMINDER = ("Fix the number of trials before listening and score every one of th
 
 def _voicer(preset: Path, *, sample_rate: int, no_tubes: bool, motor_rate: float | None):
     from synth.io import SAMPLE_RATES_HZ
-    from synth.physics.instrument import load_instrument
+    from synth.settings.instrument import load_instrument
     from synth.voicing import Voicer
 
     if sample_rate not in SAMPLE_RATES_HZ:

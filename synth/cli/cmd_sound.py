@@ -80,7 +80,7 @@ DurationOpt = Annotated[float, typer.Option(min=0.05, max=600.0, metavar="second
 
 def _voicer(preset: Path, opts: RenderOptions):
     from synth.io import SAMPLE_RATES_HZ
-    from synth.physics.instrument import load_instrument
+    from synth.settings.instrument import load_instrument
     from synth.voicing import Voicer
 
     if opts.sample_rate not in SAMPLE_RATES_HZ:

@@ -49,13 +49,13 @@ def tubecal_command(
     and gain. Copy both into the preset's [tubes] table.
     """
     from synth.errors import ConfigError
-    from synth.physics.instrument import load_instrument
     from synth.reports.measure import (
         calibrate_tube,
         measure_file,
         tube_model_hz,
         tube_resonance,
     )
+    from synth.settings.instrument import load_instrument
 
     if (tube_hz is None) == (tube_recording is None):
         raise ConfigError("give either --tube-hz or --tube-recording (one of them)",

@@ -93,7 +93,7 @@ def run_demo(out: Path, *, say: Say, compare: Callable[[Path, Path, Path], None]
     steps : callable(total, label), optional
         Progress bars for the long steps.
     """
-    from synth.physics.instrument import load_instrument
+    from synth.settings.instrument import load_instrument
 
     path = demo_preset_path()
     inst = load_instrument(path)

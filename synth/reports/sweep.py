@@ -4,7 +4,7 @@ A sweep varies preset keys by their dotted names (``tubes.offset_cents``,
 ``tubes.inner_radius_m``, ``motor.rate_rev_per_s``, ``sound.mallet``,
 ``material``, ``blank.thickness_m``...) over the grid of every combination.  Each
 variant is the preset's TOML table with those values set, read by the same
-reader as a file (:func:`synth.physics.instrument.design_from_table`), so every
+reader as a file (:func:`synth.settings.instrument.design_from_table`), so every
 range check applies and a bad key or value stops the sweep before any work.
 
 Per variant it reports what a maker chooses on, each computed in about a second:
@@ -172,7 +172,8 @@ def variant_tables(preset: str | Path, varies: Sequence[Vary]) -> list[tuple[tup
     ConfigError
         A bad key or value, naming the variant (before any work starts).
     """
-    from synth.physics.instrument import Instrument, design_from_table
+    from synth.physics.instrument import Instrument
+    from synth.settings.instrument import design_from_table
 
     if not varies:
         raise ConfigError("give at least one --vary KEY=V1,V2,...", source="--vary")
@@ -248,9 +249,9 @@ def evaluate_variant(settings: tuple, data: dict, source: str) -> VariantResult:
 def _evaluate(settings: tuple, data: dict, source: str) -> VariantResult:
     from synth.analysis import integrated_loudness
     from synth.engine.render import render
-    from synth.physics.instrument import design_from_table
     from synth.physics.tuning import tune_instrument
     from synth.pitch import cents, note_to_midi
+    from synth.settings.instrument import design_from_table
     from synth.voicing import Voicer
 
     inst = design_from_table(data, source)

@@ -11,7 +11,7 @@ SAMPLE_RATE = 48000.0
 
 def demo_voicer(motor_rate: float, *, tubes: bool = True, preset: Path = DEMO):
     """Return the demo preset's voice plan at 48 kHz in stereo, the motor at ``motor_rate``."""
-    from synth.physics.instrument import load_instrument
+    from synth.settings.instrument import load_instrument
     from synth.voicing import Voicer
 
     return Voicer(load_instrument(preset), sample_rate=SAMPLE_RATE, tubes=tubes,

@@ -119,7 +119,7 @@ def test_midi_file_to_wav_equals_render(tmp_path, block):
     from synth.engine.score import read_midi
     from synth.io import read_audio
     from synth.live import level_scales
-    from synth.physics.instrument import load_instrument
+    from synth.settings.instrument import load_instrument
     from synth.voicing import Voicer
 
     m = mido.Message

@@ -27,8 +27,8 @@ from measure_signals import (
 )
 
 from synth.errors import ConfigError
-from synth.physics.instrument import load_instrument
 from synth.physics.losses import TERMS, Calibration, parse_calibration
+from synth.settings.instrument import load_instrument
 from synth.voicing import Voicer
 
 

@@ -28,10 +28,10 @@ from typer.testing import CliRunner
 
 from synth.cli import app
 from synth.errors import ConfigError
-from synth.physics.instrument import load_instrument
 from synth.reports import sweep
 from synth.reports.demo import demo_preset_path
 from synth.reports.sustain import sustain_report
+from synth.settings.instrument import load_instrument
 from synth.voicing import Voicer
 
 PRESET = demo_preset_path()
