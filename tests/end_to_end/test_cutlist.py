@@ -33,7 +33,7 @@ from e2e_common import DEMO, assert_png, read_csv, run_json
 
 from synth.physics.bar_fe import solve_bar
 from synth.physics.geometry import ArchUndercut, BarGeometry
-from synth.physics.materials import load_material
+from synth.settings.material import load_material
 
 RAW = tomllib.loads(DEMO.read_text(encoding="utf-8"))
 NOTES = list(RAW["bars"])

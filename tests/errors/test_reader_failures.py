@@ -19,8 +19,8 @@ from synth.config import LIMITS, MAX_EVENTS, Limit, load_toml
 from synth.engine.score import Score, Strike, read_events, read_midi
 from synth.errors import ConfigError
 from synth.physics.mallet import load_mallet
-from synth.physics.materials import load_material
 from synth.settings.instrument import load_design
+from synth.settings.material import load_material
 from synth.voicing import Voicer
 
 ROOT = Path(__file__).resolve().parents[2]
@@ -320,12 +320,12 @@ def test_every_range_is_finite_and_ordered() -> None:
         assert math.isfinite(lim.lo) and math.isfinite(lim.hi) and lim.lo < lim.hi, name
 
 
-READERS = ["synth/settings/instrument.py", "synth/physics/materials.py", "synth/physics/mallet.py",
+READERS = ["synth/settings/instrument.py", "synth/settings/material.py", "synth/physics/mallet.py",
            "synth/physics/losses.py", "synth/physics/tube.py", "synth/physics/motor.py",
-           "synth/physics/geometry.py", "synth/engine/score.py"]
+           "synth/settings/geometry.py", "synth/engine/score.py"]
 # Station lists of measured undercuts are bounded by the bar they lie in (checked
 # against its length and thickness after reading), not by a range of their own.
-UNNAMED = {("synth/physics/geometry.py", "x_m"), ("synth/physics/geometry.py", "thickness_m")}
+UNNAMED = {("synth/settings/geometry.py", "x_m"), ("synth/settings/geometry.py", "thickness_m")}
 
 
 @pytest.mark.parametrize("module", READERS)

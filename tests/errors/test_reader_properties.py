@@ -24,9 +24,10 @@ from synth.engine.score import Score, read_events, read_midi
 from synth.errors import ConfigError
 from synth.physics.instrument import BarFile, Instrument
 from synth.physics.mallet import Mallet, load_mallet
-from synth.physics.materials import Material, load_material
+from synth.physics.materials import Material
 from synth.pitch import HIGHEST_MIDI, LOWEST_MIDI, note_to_midi
 from synth.settings.instrument import load_design
+from synth.settings.material import load_material
 
 CASES = settings(max_examples=250, deadline=None, derandomize=True, database=None,
                  suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large])
