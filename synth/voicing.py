@@ -59,13 +59,7 @@ from synth.physics.losses import (
     parse_calibration,
     parse_supports,
 )
-from synth.physics.mallet import (
-    Mallet,
-    SoundSettings,
-    load_mallet,
-    parse_sound,
-    simulate_contact,
-)
+from synth.physics.mallet import Mallet, SoundSettings, simulate_contact
 from synth.physics.materials import Material
 from synth.physics.motor import (
     DiscModulation,
@@ -86,6 +80,7 @@ from synth.physics.tube import (
     tube_length_for_bar,
     with_file_calibration,
 )
+from synth.settings.mallet import load_mallet, parse_sound
 
 # --------------------------------------------------------------------------------------
 # Preset sections

@@ -14,12 +14,12 @@ from synth.errors import ConfigError
 from synth.physics.geometry import DEFAULT_MIN_THICKNESS_M, BarGeometry
 from synth.physics.instrument import DEFAULT_RATIOS, BarFile, Blank, Instrument
 from synth.physics.losses import parse_calibration, parse_supports
-from synth.physics.mallet import parse_sound
 from synth.physics.motor import parse_motor
 from synth.physics.solid_correction import parse_correction
 from synth.physics.tube import parse_tube_override, parse_tubes
 from synth.pitch import DEFAULT_REFERENCE_HZ, canonical_note, note_range, note_to_midi
 from synth.settings.geometry import parse_family, parse_geometry
+from synth.settings.mallet import parse_sound
 from synth.settings.material import load_material
 
 EXTRA_SECTIONS = ("tubes", "motor", "supports", "damping", "sound")

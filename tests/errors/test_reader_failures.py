@@ -18,8 +18,8 @@ import pytest
 from synth.config import LIMITS, MAX_EVENTS, Limit, load_toml
 from synth.engine.score import Score, Strike, read_events, read_midi
 from synth.errors import ConfigError
-from synth.physics.mallet import load_mallet
 from synth.settings.instrument import load_design
+from synth.settings.mallet import load_mallet
 from synth.settings.material import load_material
 from synth.voicing import Voicer
 
@@ -320,7 +320,7 @@ def test_every_range_is_finite_and_ordered() -> None:
         assert math.isfinite(lim.lo) and math.isfinite(lim.hi) and lim.lo < lim.hi, name
 
 
-READERS = ["synth/settings/instrument.py", "synth/settings/material.py", "synth/physics/mallet.py",
+READERS = ["synth/settings/instrument.py", "synth/settings/material.py", "synth/settings/mallet.py",
            "synth/physics/losses.py", "synth/physics/tube.py", "synth/physics/motor.py",
            "synth/settings/geometry.py", "synth/engine/score.py"]
 # Station lists of measured undercuts are bounded by the bar they lie in (checked
