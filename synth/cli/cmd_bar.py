@@ -539,11 +539,9 @@ def cutlist_command(
         [(r.note, inst.bar(r.note), r.cord_holes_m) for r in rows],
         title=f"{inst.name}: bar profiles (circles: cord holes)"), force=force)
     commit_outputs()
-    from synth.physics.losses import parse_calibration
-    from synth.physics.tube import parse_tubes, with_file_calibration
+    from synth.physics.tube import with_file_calibration
 
-    ts = with_file_calibration(parse_tubes(inst.section("tubes")),
-                               parse_calibration(inst.section("damping")))
+    ts = with_file_calibration(inst.tables.tubes, inst.tables.damping)
     gap_open = ts is not None and "gap_calibration" in ts.uncalibrated()
     if json_out:
         print_json({"bars": [r.__dict__ for r in rows], "csv": str(csv_path),

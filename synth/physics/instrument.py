@@ -41,9 +41,10 @@ An **instrument preset** describes a range of bars::
 
 The files are read by :mod:`synth.settings.instrument`, which reads every table
 (``[tubes]``, ``[motor]``, ``[supports]``, ``[damping]``, ``[sound]``) once at load,
-so a bad value is refused before any work starts; this module holds the dataclasses.  A bar's own ``tube = { length_m = ... }``
-sets the cut length of its tube.  Note keys may use either spelling (``[bars.Bb3]``
-is ``[bars."A#3"]``) and are kept in the sharp spelling.  Every number has its
+so a bad value is refused before any work starts; this module holds the
+dataclasses.  A bar's own ``tube = { length_m = ... }`` sets the cut length of its
+tube.  Note keys may use either spelling (``[bars.Bb3]`` is ``[bars."A#3"]``) and
+are kept in the sharp spelling.  Every number has its
 range in :data:`synth.config.LIMITS`.
 """
 
@@ -51,14 +52,18 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 
-from synth.config import Section
 from synth.errors import ConfigError
 from synth.physics.geometry import (
     DEFAULT_MIN_THICKNESS_M,
     BarGeometry,
     UndercutFamily,
 )
+from synth.physics.losses import Calibration, Supports
+from synth.physics.mallet import SoundSettings
 from synth.physics.materials import Material
+from synth.physics.motor import MotorSpec
+from synth.physics.solid_correction import CorrectionTable
+from synth.physics.tube import TubeSettings
 from synth.pitch import canonical_note, note_to_hz, note_to_midi
 
 DEFAULT_RATIOS = (1.0, 4.0, 2.0 ** (40.0 / 12.0))
@@ -93,6 +98,24 @@ class Blank:
 
 
 @dataclass(frozen=True)
+class PresetTables:
+    """The optional tables of a bar file or preset, read and checked at load.
+
+    ``motor`` is ``(MotorSpec, phase_step_deg)`` as ``[motor]`` gives them;
+    ``damping_factors_given`` names the factors the preset's own ``[damping]``
+    sets (the rest may come from its calibration file).
+    """
+
+    supports: Supports = field(default_factory=Supports)
+    damping: Calibration = field(default_factory=Calibration)
+    damping_factors_given: frozenset[str] = frozenset()
+    tubes: TubeSettings | None = None
+    motor: tuple[MotorSpec, float] = field(default_factory=lambda: (MotorSpec(), 0.0))
+    sound: SoundSettings = field(default_factory=SoundSettings)
+    solid_correction: CorrectionTable | None = None
+
+
+@dataclass(frozen=True)
 class Instrument:
     """A range of bars and how they are to be tuned, mounted and played."""
 
@@ -108,7 +131,7 @@ class Instrument:
     blank: Blank | None
     undercut_family: UndercutFamily | None
     bars: dict[str, BarGeometry]
-    sections: dict[str, Section] = field(default_factory=dict, compare=False)
+    tables: PresetTables = field(default_factory=PresetTables, compare=False)
     tube_lengths: dict[str, float] = field(default_factory=dict, compare=False)
     raw: dict = field(default_factory=dict, compare=False, repr=False)
 
@@ -153,10 +176,6 @@ class Instrument:
             )
         return self.bars[name]
 
-    def section(self, name: str) -> Section | None:
-        """One of the extra tables ([tubes], [motor], ...), or None."""
-        return self.sections.get(name)
-
 
 @dataclass(frozen=True)
 class BarFile:
@@ -169,6 +188,6 @@ class BarFile:
     reference_pitch_hz: float
     temperature_c: float
     note: str | None
-    sections: dict[str, Section] = field(default_factory=dict, compare=False)
+    tables: PresetTables = field(default_factory=PresetTables, compare=False)
 
 

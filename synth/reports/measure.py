@@ -992,11 +992,7 @@ def _sig6(value: float) -> float:
 
 
 def _explicit_factors(instrument: Instrument) -> set[str]:
-    sec = instrument.section("damping")
-    if sec is None:
-        return set()
-    f = sec.data.get("factors", {})
-    return set(f) if isinstance(f, dict) else set()
+    return set(instrument.tables.damping_factors_given)
 
 
 def _sha256_16(path: str) -> str:
@@ -1282,9 +1278,7 @@ def calibrate(measurement: Measurement, instrument: Instrument, note: str, *,
 
 def parse_motor_rate(instrument: Instrument) -> float:
     """Return the preset's motor rate in rev/s (0 without a [motor] table)."""
-    from synth.voicing import parse_motor
-
-    return parse_motor(instrument.section("motor"))[0].rate_rev_per_s
+    return instrument.tables.motor[0].rate_rev_per_s
 
 
 def _solve(rows, y, terms, base, sensitivity_limit, warnings):

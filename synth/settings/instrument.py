@@ -12,15 +12,15 @@ from pathlib import Path
 from synth.config import Section, key_text, load_toml
 from synth.errors import ConfigError
 from synth.physics.geometry import DEFAULT_MIN_THICKNESS_M, BarGeometry
-from synth.physics.instrument import DEFAULT_RATIOS, BarFile, Blank, Instrument
-from synth.physics.losses import parse_calibration, parse_supports
-from synth.physics.motor import parse_motor
-from synth.physics.solid_correction import parse_correction
-from synth.physics.tube import parse_tube_override, parse_tubes
+from synth.physics.instrument import DEFAULT_RATIOS, BarFile, Blank, Instrument, PresetTables
 from synth.pitch import DEFAULT_REFERENCE_HZ, canonical_note, note_range, note_to_midi
+from synth.settings.correction import parse_correction
+from synth.settings.damping import parse_calibration, parse_supports
 from synth.settings.geometry import parse_family, parse_geometry
 from synth.settings.mallet import parse_sound
 from synth.settings.material import load_material
+from synth.settings.motor import parse_motor
+from synth.settings.tubes import parse_tube_override, parse_tubes
 
 EXTRA_SECTIONS = ("tubes", "motor", "supports", "damping", "sound")
 
@@ -35,21 +35,24 @@ INSTRUMENT_KEYS = ("name", "description", "material", "reference_pitch_hz", "tem
                    "workshop", "client", "solid_correction", *EXTRA_SECTIONS)
 
 
-def _extra_sections(sec: Section, notes: tuple[str, ...] | None,
-                    instrument: bool = False) -> dict[str, Section]:
-    out = {}
-    for name in (*EXTRA_SECTIONS, "solid_correction") if instrument else EXTRA_SECTIONS:
-        s = sec.section(name, None)
-        if s is not None:
-            out[name] = s
-    # Read every table once now, so that a bad value stops the load, not a render.
-    parse_supports(out.get("supports"))
-    parse_calibration(out.get("damping"), notes)
-    parse_tubes(out.get("tubes"))
-    parse_motor(out.get("motor"))
-    parse_sound(out.get("sound"))
-    parse_correction(out.get("solid_correction"), notes)
-    return out
+def _tables(sec: Section, notes: tuple[str, ...] | None,
+            instrument: bool = False) -> PresetTables:
+    """Read the optional tables once now, so that a bad value stops the load, not a render."""
+    def table(name: str) -> Section | None:
+        return sec.section(name, None)
+
+    damping = table("damping")
+    factors = damping.data.get("factors") if damping is not None else None
+    return PresetTables(
+        supports=parse_supports(table("supports")),
+        damping=parse_calibration(damping, notes),
+        damping_factors_given=frozenset(factors) if isinstance(factors, dict) else frozenset(),
+        tubes=parse_tubes(table("tubes")),
+        motor=parse_motor(table("motor")),
+        sound=parse_sound(table("sound")),
+        solid_correction=parse_correction(table("solid_correction") if instrument else None,
+                                          notes),
+    )
 
 
 def load_design(path: str | Path) -> Instrument | BarFile:
@@ -97,7 +100,7 @@ def _bar_file(sec: Section) -> BarFile:
             raise sec.error("note", exc.detail) from None
     return BarFile(sec.source, sec.string("name", Path(sec.source).stem), geometry, material,
                    _reference(sec), _temperature(sec), note,
-                   _extra_sections(sec, None if note is None else (note,)))
+                   _tables(sec, None if note is None else (note,)))
 
 
 def _missing(sec: Section, key: str):
@@ -188,7 +191,7 @@ def _instrument(sec: Section, data: dict) -> Instrument:
         blank=blank,
         undercut_family=family,
         bars=bars,
-        sections=_extra_sections(sec, tuple(notes), instrument=True),
+        tables=_tables(sec, tuple(notes), instrument=True),
         tube_lengths=tube_lengths,
         raw=data,
     )

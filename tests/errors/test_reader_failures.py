@@ -321,7 +321,7 @@ def test_every_range_is_finite_and_ordered() -> None:
 
 
 READERS = ["synth/settings/instrument.py", "synth/settings/material.py", "synth/settings/mallet.py",
-           "synth/physics/losses.py", "synth/physics/tube.py", "synth/physics/motor.py",
+           "synth/settings/damping.py", "synth/settings/tubes.py", "synth/settings/motor.py",
            "synth/settings/geometry.py", "synth/engine/score.py"]
 # Station lists of measured undercuts are bounded by the bar they lie in (checked
 # against its length and thickness after reading), not by a range of their own.
