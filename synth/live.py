@@ -13,7 +13,7 @@ program change picks the design the next strike uses, so a ringing note keeps
 its own design.
 
 MIDI mapping (:meth:`LivePlayer.handle`), following the offline reader
-(:func:`synth.engine.score.read_midi`):
+(:func:`synth.settings.score.read_midi`):
 
 * note-on with velocity > 0 starts a strike (a key struck again while held is
   released first); note-off, or note-on with velocity 0, releases it: from then
@@ -352,7 +352,7 @@ def midi_file_events(path, sample_rate: float) -> list[tuple[int, object]]:
     """Messages of a standard MIDI file with their output samples.
 
     Times follow the file's tempo map exactly (integer ticks times
-    microseconds, as :func:`synth.engine.score.read_midi` reads them) and become
+    microseconds, as :func:`synth.settings.score.read_midi` reads them) and become
     samples through :func:`seconds_to_sample`, so each event lands on the sample
     an offline render of the file puts it on.
     """

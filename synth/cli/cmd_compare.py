@@ -223,7 +223,7 @@ def compare_command(
         warn(f"A and B are the same file ({design_a}): the two renders are identical, so any "
              "difference heard is imagined and a blind test can only score by chance")
     if events is not None:
-        from synth.engine.score import read_events
+        from synth.settings.score import read_events
 
         passage = cmp.events_passage(read_events(events), tail_s=tail)
     elif notes is not None:

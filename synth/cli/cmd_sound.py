@@ -302,7 +302,7 @@ def render_command(
     from dataclasses import replace
 
     from synth.api import score_length_s
-    from synth.engine.score import read_events
+    from synth.settings.score import read_events
 
     v = _voicer(preset, render)
     score = read_events(events)

@@ -212,7 +212,7 @@ def _render_list(inst, stereo):
     """Return the renders of step 4: (file, voices, seconds, what)."""
     from dataclasses import replace
 
-    from synth.engine.score import read_events
+    from synth.settings.score import read_events
 
     spinning = replace(stereo, motor_rate_rev_per_s=3.0)
     bare = replace(stereo, tubes=False)

@@ -16,11 +16,12 @@ import mido
 import pytest
 
 from synth.config import LIMITS, MAX_EVENTS, Limit, load_toml
-from synth.engine.score import Score, Strike, read_events, read_midi
+from synth.engine.score import Score, Strike
 from synth.errors import ConfigError
 from synth.settings.instrument import load_design
 from synth.settings.mallet import load_mallet
 from synth.settings.material import load_material
+from synth.settings.score import read_events, read_midi
 from synth.voicing import Voicer
 
 ROOT = Path(__file__).resolve().parents[2]
@@ -322,7 +323,7 @@ def test_every_range_is_finite_and_ordered() -> None:
 
 READERS = ["synth/settings/instrument.py", "synth/settings/material.py", "synth/settings/mallet.py",
            "synth/settings/damping.py", "synth/settings/tubes.py", "synth/settings/motor.py",
-           "synth/settings/geometry.py", "synth/engine/score.py"]
+           "synth/settings/geometry.py", "synth/settings/score.py"]
 # Station lists of measured undercuts are bounded by the bar they lie in (checked
 # against its length and thickness after reading), not by a range of their own.
 UNNAMED = {("synth/settings/geometry.py", "x_m"), ("synth/settings/geometry.py", "thickness_m")}

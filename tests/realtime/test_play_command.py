@@ -116,10 +116,10 @@ def test_midi_file_to_wav_equals_render(tmp_path, block):
     plus the -150 dBFS below which the pool frees voices, plus rounding.
     """
     from synth.engine import render
-    from synth.engine.score import read_midi
     from synth.io import read_audio
     from synth.live import level_scales
     from synth.settings.instrument import load_instrument
+    from synth.settings.score import read_midi
     from synth.voicing import Voicer
 
     m = mido.Message
