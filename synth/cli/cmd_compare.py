@@ -63,7 +63,8 @@ def _cell(x: float, fmt: str) -> str:
 
 def _score(key_path: Path, answers: str | None, answers_file: Path | None,
            json_out: bool) -> None:
-    from synth.reports.compare import parse_answers, read_answers_file, read_key, score_answers
+    from synth.reports.compare import parse_answers, score_answers
+    from synth.settings.comparison import read_answers_file, read_key
 
     key = read_key(key_path)
     given = (read_answers_file(answers_file, key) if answers_file is not None
