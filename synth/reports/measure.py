@@ -922,9 +922,9 @@ class CalibrationFit:
 
     def to_toml(self) -> str:
         """Return the calibration file: header comment and a ``[damping]`` table."""
-        import tomllib
-
         import tomli_w
+
+        from synth.settings.damping import check_calibration_text
 
         modes = ", ".join(m.label for m in self.modes)
         lines = [
@@ -956,7 +956,7 @@ class CalibrationFit:
         table = {"damping": self.calibration().to_table()}
         body = tomli_w.dumps(table)
         text = "\n".join(lines) + body
-        tomllib.loads(text)  # the file must read back
+        check_calibration_text(text, "calibration file")  # the file must read back
         return text
 
 

@@ -6,7 +6,7 @@ They become :class:`~synth.physics.losses.Supports` and
 
 from __future__ import annotations
 
-from synth.config import Section
+from synth.config import Section, parse_toml
 from synth.errors import ConfigError
 from synth.physics.losses import DEFAULT_CORD_LOSS_N_S_M, TERMS, Calibration, Supports
 from synth.pitch import canonical_note
@@ -128,3 +128,14 @@ def _parse_damping(sec: Section, notes: tuple[str, ...] | None = None) -> Calibr
                    osec.integer("order", limit="damping.order"))] = osec.number(
                        "q", limit="damping.q")
     return Calibration(factors, overrides, sec.source)
+
+
+def check_calibration_text(text: str, source: str) -> None:
+    """Check that a calibration file about to be written reads back as TOML.
+
+    Raises
+    ------
+    ConfigError
+        One line naming ``source`` when the text is not TOML that this reader takes.
+    """
+    parse_toml(text, source)

@@ -95,6 +95,7 @@ from synth.config import (
     one_line,
 )
 from synth.engine.score import PedalChange, Score, Strike
+from synth.engine.voice import seconds_to_sample
 from synth.errors import ConfigError
 from synth.pitch import HIGHEST_MIDI, LOWEST_MIDI, midi_to_note, note_to_midi
 
@@ -328,3 +329,30 @@ def read_events(path: str | os.PathLike[str]) -> Score:
         f"unknown event file type {suffix or '(none)'!r}: use a .toml event list or a "
         ".mid standard MIDI file", source=str(path)
     )
+
+
+def midi_file_events(path, sample_rate: float) -> list[tuple[int, object]]:
+    """Messages of a standard MIDI file with their output samples.
+
+    Times follow the file's tempo map exactly (integer ticks times
+    microseconds, as :func:`synth.settings.score.read_midi` reads them) and become
+    samples through :func:`seconds_to_sample`, so each event lands on the sample
+    an offline render of the file puts it on.
+    """
+    import mido
+
+    midi = mido.MidiFile(path)
+    tpq = midi.ticks_per_beat
+    tick, seg_tick, seg_us, tempo = 0, 0, 0, 500_000
+    out = []
+    for msg in mido.merge_tracks(midi.tracks):
+        tick += msg.time
+        if msg.type == "set_tempo":
+            seg_us += (tick - seg_tick) * tempo
+            seg_tick, tempo = tick, msg.tempo
+            continue
+        if msg.is_meta:
+            continue
+        seconds = (seg_us + (tick - seg_tick) * tempo) / (tpq * 1e6)
+        out.append((seconds_to_sample(seconds, sample_rate), msg))
+    return out

@@ -135,7 +135,7 @@ def test_midi_file_to_wav_equals_render(tmp_path, block):
     result = run("play", DEMO, "--midi-file", midi, "--to-wav", wav, "--format", "float32",
                  "--layers", 2, "--block", block, "--gain-db", -6, "--record", rec)
     assert result.exit_code == 0, result.stderr
-    from synth.live import midi_file_events
+    from synth.settings.score import midi_file_events
     played = [(t, str(x.copy(time=0))) for t, x in midi_file_events(rec, 48000.0)]
     assert played == [(t, str(x.copy(time=0))) for t, x in events]
     got, fs = read_audio(wav)
@@ -266,7 +266,7 @@ def test_port_input_is_played_and_recorded(monkeypatch, tmp_path):
     result = run("play", DEMO, "--port", "Keys 1", "--layers", 1, "--block", 256,
                  "--record", rec)
     assert result.exit_code == 0, result.stderr
-    from synth.live import midi_file_events
+    from synth.settings.score import midi_file_events
 
     got = midi_file_events(rec, 48000.0)
     assert [str(x.copy(time=0)) for _, x in got] == [str(x) for x in sent]
