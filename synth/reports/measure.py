@@ -129,7 +129,6 @@ References
 from __future__ import annotations
 
 import datetime as _dt
-import hashlib
 import math
 from dataclasses import dataclass, replace
 from pathlib import Path
@@ -995,17 +994,6 @@ def _explicit_factors(instrument: Instrument) -> set[str]:
     return set(instrument.tables.damping_factors_given)
 
 
-def _sha256_16(path: str) -> str:
-    p = Path(path)
-    if not p.is_file():
-        return ""
-    h = hashlib.sha256()
-    with p.open("rb") as fh:
-        for block in iter(lambda: fh.read(1 << 20), b""):
-            h.update(block)
-    return h.hexdigest()[:16]
-
-
 def _match(measurement: Measurement, model_modes, tolerance: float, warnings: list[str]):
     """Pair model modes with measured partials: nearest first, each partial once."""
     unmatched: list[str] = []
@@ -1266,10 +1254,12 @@ def calibrate(measurement: Measurement, instrument: Instrument, note: str, *,
     hint = None
     if "tube" in fit_terms and abs(state["tube"] - 1.0) > 1e-3 and ("vertical", 1) in keys:
         hint = _coupling_hint(after, after_cal, warnings)
+    from synth.io import file_sha256_16
+
     return CalibrationFit(
         note=note, preset=instrument.source, recording=measurement.recording,
         measured_at=_dt.datetime.now(_dt.UTC).isoformat(timespec="seconds"),
-        recording_sha256=_sha256_16(measurement.recording), tubes=coupled,
+        recording_sha256=file_sha256_16(measurement.recording), tubes=coupled,
         fitted_terms=tuple(fit_terms), held_terms=tuple(held), factors=file_factors,
         overrides=overrides, modes=tuple(fits), unmatched=tuple(unmatched),
         sensitivity=sens_out, condition_number=cond, fallback=fallback,
