@@ -1,7 +1,8 @@
-"""TOML reading with validation that names the file and the key.
+"""TOML primitives with validation that names the file and the key.
 
 Everything a user writes (bar files, instrument presets, material, mallet and event
-files) is read through :class:`Section`, which checks type, range and unknown keys
+files) is read by the settings layer (:mod:`synth.settings`, the only caller of
+:func:`load_toml`) through :class:`Section`, which checks type, range and unknown keys
 and raises :class:`~synth.errors.ConfigError` with one line of the form
 ``file: key = value: what is wrong; allowed: lo to hi unit``.
 
@@ -10,7 +11,8 @@ with its unit and where the bound comes from; readers name the range they apply
 (``sec.number("length_m", limit="bar.length_m")``).
 
 The typed dataclasses built from these sections live next to the models that use
-them (for example :mod:`synth.physics.geometry`); this module only knows TOML.
+them (for example :mod:`synth.physics.geometry`), the readers that build them in
+:mod:`synth.settings`; this module only knows TOML.
 """
 
 from __future__ import annotations
