@@ -38,20 +38,18 @@ INSTRUMENT_KEYS = ("name", "description", "material", "reference_pitch_hz", "tem
 def _tables(sec: Section, notes: tuple[str, ...] | None,
             instrument: bool = False) -> PresetTables:
     """Read the optional tables once now, so that a bad value stops the load, not a render."""
-    def table(name: str) -> Section | None:
-        return sec.section(name, None)
-
-    damping = table("damping")
+    names = (*EXTRA_SECTIONS, "solid_correction") if instrument else EXTRA_SECTIONS
+    table = {name: sec.section(name, None) for name in names}
+    damping = table["damping"]
     factors = damping.data.get("factors") if damping is not None else None
     return PresetTables(
-        supports=parse_supports(table("supports")),
+        supports=parse_supports(table["supports"]),
         damping=parse_calibration(damping, notes),
         damping_factors_given=frozenset(factors) if isinstance(factors, dict) else frozenset(),
-        tubes=parse_tubes(table("tubes")),
-        motor=parse_motor(table("motor")),
-        sound=parse_sound(table("sound")),
-        solid_correction=parse_correction(table("solid_correction") if instrument else None,
-                                          notes),
+        tubes=parse_tubes(table["tubes"]),
+        motor=parse_motor(table["motor"]),
+        sound=parse_sound(table["sound"]),
+        solid_correction=parse_correction(table.get("solid_correction"), notes),
     )
 
 
