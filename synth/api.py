@@ -1,7 +1,7 @@
 """The Python API: solve, plan, render and analyse without the command line.
 
 Every function here takes settings read by the one reader
-(:func:`synth.physics.instrument.load_design`, :func:`synth.engine.score.read_events`)
+(:func:`synth.settings.instrument.load_design`, :func:`synth.settings.score.read_events`)
 or plain arrays, and returns arrays or frozen dataclasses; nothing prints or
 writes a file.  The names are re-exported by :mod:`synth` (lazily: ``import
 synth`` loads neither numba nor scipy until a function needs them).

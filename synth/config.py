@@ -1,7 +1,8 @@
-"""TOML reading with validation that names the file and the key.
+"""TOML primitives with validation that names the file and the key.
 
 Everything a user writes (bar files, instrument presets, material, mallet and event
-files) is read through :class:`Section`, which checks type, range and unknown keys
+files) is read by the settings layer (:mod:`synth.settings`, the only caller of
+:func:`load_toml`) through :class:`Section`, which checks type, range and unknown keys
 and raises :class:`~synth.errors.ConfigError` with one line of the form
 ``file: key = value: what is wrong; allowed: lo to hi unit``.
 
@@ -10,11 +11,13 @@ with its unit and where the bound comes from; readers name the range they apply
 (``sec.number("length_m", limit="bar.length_m")``).
 
 The typed dataclasses built from these sections live next to the models that use
-them (for example :mod:`synth.physics.geometry`); this module only knows TOML.
+them (for example :mod:`synth.physics.geometry`), the readers that build them in
+:mod:`synth.settings`; this module only knows TOML.
 """
 
 from __future__ import annotations
 
+import hashlib
 import math
 import os
 import re
@@ -205,12 +208,18 @@ def load_toml(path: str | os.PathLike[str]) -> dict[str, Any]:
     Refuses files over :data:`MAX_FILE_BYTES` and nesting deeper than
     :data:`MAX_DEPTH`, so no later reader can run out of memory or recursion.
     """
+    return load_toml_digest(path)[0]
+
+
+def load_toml_digest(path: str | os.PathLike[str]) -> tuple[dict[str, Any], str]:
+    """Read a TOML file as :func:`load_toml` does; also return the SHA-256 of its bytes."""
     p = Path(path)
     try:
         if p.is_file() and p.stat().st_size > MAX_FILE_BYTES:
             raise ConfigError(f"is {p.stat().st_size} bytes; allowed: up to {MAX_FILE_BYTES} "
                               "bytes", source=str(p))
-        text = p.read_bytes().decode("utf-8")
+        raw = p.read_bytes()
+        text = raw.decode("utf-8")
     except FileNotFoundError:
         raise ConfigError("file not found", source=str(p)) from None
     except IsADirectoryError:
@@ -221,7 +230,7 @@ def load_toml(path: str | os.PathLike[str]) -> dict[str, Any]:
         raise ConfigError(f"cannot be read ({exc.strerror})", source=str(p)) from None
     except ValueError:   # a NUL byte in the name
         raise ConfigError("is not a usable file name", source=repr(str(p))) from None
-    return parse_toml(text, str(p))
+    return parse_toml(text, str(p)), hashlib.sha256(raw).hexdigest()
 
 
 def parse_toml(text: str, source: str) -> dict[str, Any]:

@@ -781,6 +781,20 @@ def audio_info(path: str | os.PathLike[str]) -> tuple[int, int, int]:
     return int(info.frames), int(info.samplerate), int(info.channels)
 
 
+def file_sha256_16(path: str | os.PathLike[str]) -> str:
+    """Return the first 16 hex digits of a file's SHA-256 ("" when it is not a file)."""
+    import hashlib
+
+    p = Path(path)
+    if not p.is_file():
+        return ""
+    h = hashlib.sha256()
+    with p.open("rb") as fh:
+        for block in iter(lambda: fh.read(1 << 20), b""):
+            h.update(block)
+    return h.hexdigest()[:16]
+
+
 # --------------------------------------------------------------------------- playback
 def play(samples: np.ndarray, sample_rate: int, *, blocking: bool = True) -> None:
     """Play samples on the default output device.

@@ -13,7 +13,7 @@ program change picks the design the next strike uses, so a ringing note keeps
 its own design.
 
 MIDI mapping (:meth:`LivePlayer.handle`), following the offline reader
-(:func:`synth.engine.score.read_midi`):
+(:func:`synth.settings.score.read_midi`):
 
 * note-on with velocity > 0 starts a strike (a key struck again while held is
   released first); note-off, or note-on with velocity 0, releases it: from then
@@ -42,7 +42,6 @@ from typing import Any, Final
 import numpy as np
 
 from synth.engine.realtime import DEFAULT_VOICES, LiveVoice, Rotor, RotorLaw, VoicePool
-from synth.engine.voice import seconds_to_sample
 from synth.errors import ConfigError, ModelError
 from synth.physics.motor import disc_modulation
 from synth.pitch import note_to_midi
@@ -349,28 +348,3 @@ def recorded_midi(events: Iterable[tuple[int, Any]], sample_rate: float):
     return midi
 
 
-def midi_file_events(path, sample_rate: float) -> list[tuple[int, object]]:
-    """Messages of a standard MIDI file with their output samples.
-
-    Times follow the file's tempo map exactly (integer ticks times
-    microseconds, as :func:`synth.engine.score.read_midi` reads them) and become
-    samples through :func:`seconds_to_sample`, so each event lands on the sample
-    an offline render of the file puts it on.
-    """
-    import mido
-
-    midi = mido.MidiFile(path)
-    tpq = midi.ticks_per_beat
-    tick, seg_tick, seg_us, tempo = 0, 0, 0, 500_000
-    out = []
-    for msg in mido.merge_tracks(midi.tracks):
-        tick += msg.time
-        if msg.type == "set_tempo":
-            seg_us += (tick - seg_tick) * tempo
-            seg_tick, tempo = tick, msg.tempo
-            continue
-        if msg.is_meta:
-            continue
-        seconds = (seg_us + (tick - seg_tick) * tempo) / (tpq * 1e6)
-        out.append((seconds_to_sample(seconds, sample_rate), msg))
-    return out

@@ -6,9 +6,9 @@ plan asks :func:`cached` for each piece with the settings it depends on; the key
 is a SHA-256 over
 
 * a format tag and the package version,
-* the source text of the modules that compute plans (``synth/physics/*.py``,
-  ``synth/voicing.py``, ``synth/numerics.py``, ``synth/config.py``), so an edited
-  model never reads a plan made by the old one,
+* the source text of the modules that compute plans (``synth/physics/*.py``, the
+  readers in ``synth/settings/*.py``, ``synth/voicing.py``, ``synth/numerics.py``,
+  ``synth/config.py``), so an edited model never reads a plan made by the old one,
 * the pickled settings (frozen dataclasses, floats, strings, arrays): change any
   value that matters and the key changes.
 
@@ -38,7 +38,8 @@ CACHE_ENV = "BARWRIGHT_CACHE"
 
 _FORMAT = "plan-1"
 _PROTOCOL = 5
-_SOURCES = ("physics/*.py", "voicing.py", "numerics.py", "config.py", "plan_cache.py")
+_SOURCES = ("physics/*.py", "settings/*.py", "voicing.py", "numerics.py", "config.py",
+            "plan_cache.py")
 
 T = TypeVar("T")
 

@@ -35,7 +35,6 @@ hold): it rings while the dampers are lifted and stops when they come down.
 
 from __future__ import annotations
 
-import hashlib
 import math
 from dataclasses import dataclass, field, replace
 from functools import cached_property, lru_cache
@@ -60,29 +59,10 @@ from synth.errors import ConfigError, ModelError
 from synth.physics.bar_fe import BarModes, solve_bar
 from synth.physics.coupling import BarMode, BarTubeCoupling, couple, pressure_weight
 from synth.physics.instrument import BarFile, Instrument
-from synth.physics.losses import (
-    Calibration,
-    ModeLoss,
-    Supports,
-    loss_budget,
-    parse_calibration,
-    parse_supports,
-)
-from synth.physics.mallet import (
-    Mallet,
-    SoundSettings,
-    load_mallet,
-    parse_sound,
-    simulate_contact,
-)
+from synth.physics.losses import Calibration, ModeLoss, Supports, loss_budget
+from synth.physics.mallet import Mallet, SoundSettings, simulate_contact
 from synth.physics.materials import Material
-from synth.physics.motor import (
-    DiscModulation,
-    MotorSpec,
-    disc_modulation,
-    parse_motor,
-    steady_bar_decay_per_s,
-)
+from synth.physics.motor import DiscModulation, MotorSpec, disc_modulation, steady_bar_decay_per_s
 from synth.physics.solid_correction import corrected_modes, correction_of
 from synth.physics.tube import (
     TubeSettings,
@@ -90,19 +70,19 @@ from synth.physics.tube import (
     air_density,
     bar_area_over_mouth,
     bar_cover_fraction,
-    parse_tubes,
     speed_of_sound,
     tube_length_for_bar,
     with_file_calibration,
 )
+from synth.settings.mallet import load_mallet
 
 # --------------------------------------------------------------------------------------
 # Preset sections
 # --------------------------------------------------------------------------------------
 
 
-# The [sound], [tubes] and [motor] readers live beside their models (mallet, tube,
-# motor) so that a preset is checked whole when it is loaded.
+# The [sound], [tubes], [motor], [supports] and [damping] tables are read by
+# synth.settings.instrument when the preset is loaded (Instrument.tables).
 
 
 # --------------------------------------------------------------------------------------
@@ -161,7 +141,7 @@ class Voicer:
     Parameters
     ----------
     instrument : Instrument
-        The preset, as read by :func:`synth.physics.instrument.load_instrument`.
+        The preset, as read by :func:`synth.settings.instrument.load_instrument`.
     sample_rate : float
         Hz.
     tubes : bool
@@ -201,20 +181,20 @@ class Voicer:
     @cached_property
     def sound(self) -> SoundSettings:
         """The preset's ``[sound]`` table, with this plan's default mallet."""
-        sound = parse_sound(self.instrument.section("sound"))
+        sound = self.instrument.tables.sound
         return sound if self.mallet is None else replace(sound, mallet=self.mallet)
 
     @cached_property
     def supports(self) -> Supports:
         """The preset's ``[supports]`` table."""
-        return parse_supports(self.instrument.section("supports"))
+        return self.instrument.tables.supports
 
     @cached_property
     def loss_calibration(self) -> Calibration:
         """The calibration in use: the override, else the preset's ``[damping]``."""
         if self.calibration is not None:
             return self.calibration
-        return parse_calibration(self.instrument.section("damping"))
+        return self.instrument.tables.damping
 
     @cached_property
     def tube_settings(self) -> TubeSettings | None:
@@ -222,12 +202,12 @@ class Voicer:
 
         None: no tubes.
         """
-        return with_file_calibration(parse_tubes(self.instrument.section("tubes")),
+        return with_file_calibration(self.instrument.tables.tubes,
                                      self.loss_calibration)
 
     @cached_property
     def _motor_table(self) -> tuple[MotorSpec, float]:
-        return parse_motor(self.instrument.section("motor"))
+        return self.instrument.tables.motor
 
     @cached_property
     def motor(self) -> MotorSpec:
@@ -417,15 +397,10 @@ class Voicer:
 
     def plan_settings(self) -> dict:
         """Return what every voice of this plan shares: rate, channels, tubes, motor, preset."""
-        source = Path(self.instrument.source)
-        try:
-            digest = hashlib.sha256(source.read_bytes()).hexdigest()
-        except OSError:
-            digest = None
         return {"sample_rate_hz": self.sample_rate, "channels": self.channels,
                 "tubes": self.tubes_active,
                 "motor_rate_rev_per_s": float(self.motor.rate_rev_per_s),
-                "preset_sha256": digest}
+                "preset_sha256": self.instrument.sha256}
 
     def _excite(self, model: NoteModel, head: Mallet, speed: float, pos: float, acr: float):
         key = (model.note, head, round(speed, 6), round(pos, 6), round(acr, 6))
@@ -678,8 +653,7 @@ def design_budget(design: Instrument | BarFile, label: str,
                 if model.coupling is not None and model.tube is not None else "no tube")
         return budget, (f"cords at the mode-1 nodes; {tube}; air and bar at "
                         f"{design.temperature_c:g} C")
-    sections = design.sections
-    budget = loss_budget(result, supports=parse_supports(sections.get("supports")),
-                         calibration=parse_calibration(sections.get("damping")),
+    budget = loss_budget(result, supports=design.tables.supports,
+                         calibration=design.tables.damping,
                          temperature_c=design.temperature_c)
     return budget, "cords at the mode-1 nodes; bare bar (no tube)"

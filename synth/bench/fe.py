@@ -29,7 +29,7 @@ from synth.physics.bar_fe import (
     start_mesh,
 )
 from synth.physics.geometry import BarGeometry, StationUndercut
-from synth.physics.materials import load_material
+from synth.settings.material import load_material
 
 
 def bench_bar() -> BarGeometry:

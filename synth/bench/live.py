@@ -37,7 +37,7 @@ from synth.config import presets_dir
 _READY = """
 import time
 t0 = time.perf_counter()
-from synth.physics.instrument import load_instrument
+from synth.settings.instrument import load_instrument
 from synth.voicing import Voicer
 from synth.live import LivePlayer
 v = Voicer(load_instrument({preset!r}), sample_rate=48000.0, channels=2)
@@ -59,8 +59,8 @@ def _callback_loads(quick: bool) -> tuple[np.ndarray, np.ndarray]:
     import mido
 
     from synth.live import LivePlayer
-    from synth.physics.instrument import load_instrument
     from synth.pitch import note_to_midi
+    from synth.settings.instrument import load_instrument
     from synth.voicing import Voicer
 
     fs, block = 48000.0, 64

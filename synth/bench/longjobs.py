@@ -50,7 +50,7 @@ import numpy as np
 
 from synth.config import presets_dir
 from synth.io import write_wav
-from synth.physics.instrument import load_instrument
+from synth.settings.instrument import load_instrument
 
 PASSAGE_TARGET_MB = 300.0
 MEASURE_TARGET_MB = 500.0

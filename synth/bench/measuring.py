@@ -55,6 +55,7 @@ from pathlib import Path
 import numpy as np
 
 from synth.bench import median_time
+from synth.constants import LN_1000
 
 FS = 48000
 SECONDS = 10.0
@@ -83,7 +84,7 @@ def recording(note: str, seed: int = 0) -> np.ndarray:
         if f > 0.45 * FS:
             continue
         phase = rng.uniform(-math.pi, math.pi)
-        x[lead:] += a * np.exp(-t * math.log(1000.0) / t60) * np.sin(2 * math.pi * f * t
+        x[lead:] += a * np.exp(-t * LN_1000 / t60) * np.sin(2 * math.pi * f * t
                                                                       + phase)
     x = 0.5 * x / np.max(np.abs(x))
     return x + 10 ** (-70 / 20) * rng.standard_normal(n)

@@ -30,8 +30,8 @@ from concurrent.futures import ProcessPoolExecutor
 
 from synth.config import presets_dir
 from synth.executor import Job, run_jobs
-from synth.physics.instrument import load_instrument
 from synth.physics.solid import solve_bar_3d, solve_level
+from synth.settings.instrument import load_instrument
 
 VERTICAL = (("vertical", 1), ("vertical", 2), ("vertical", 3))
 

@@ -30,8 +30,8 @@ import time
 from pathlib import Path
 
 from synth.config import presets_dir
-from synth.physics.instrument import load_instrument
 from synth.reports.sustain import sustain_report
+from synth.settings.instrument import load_instrument
 from synth.voicing import Voicer
 
 

@@ -21,8 +21,8 @@ import time
 import numpy as np
 
 from synth.config import presets_dir
-from synth.physics.instrument import load_instrument
 from synth.physics.tuning import tune_instrument
+from synth.settings.instrument import load_instrument
 
 
 def run(quick: bool = False) -> dict[str, float]:

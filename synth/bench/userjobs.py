@@ -103,8 +103,8 @@ from synth.config import presets_dir
 from synth.engine.voice import Voice
 from synth.executor import Job, run_jobs
 from synth.output import render_to_wav
-from synth.physics.instrument import load_instrument
 from synth.plan_cache import CACHE_ENV
+from synth.settings.instrument import load_instrument
 from synth.voicing import Voicer
 
 FS = 48000

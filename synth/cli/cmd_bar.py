@@ -36,9 +36,10 @@ from synth.cli.common import (
 )
 from synth.errors import ConfigError
 from synth.physics.bar_fe import BarModes, solve_bar
-from synth.physics.instrument import BarFile, Instrument, load_design
+from synth.physics.instrument import BarFile, Instrument
 from synth.physics.solid_correction import correction_of
 from synth.pitch import nearest_note
+from synth.settings.instrument import load_design
 from synth.voicing import design_budget
 
 FileArg = Annotated[Path, typer.Argument(help="A single-bar file or an instrument preset (TOML).",
@@ -305,8 +306,8 @@ def tune_command(
 
     from synth import io
     from synth.cli.common import Progress
-    from synth.physics.instrument import load_instrument
     from synth.physics.tuning import temperature_shift_cents, tune_instrument, tuned_preset
+    from synth.settings.instrument import load_instrument
 
     target = _parse_ratios(ratios)
     inst = load_instrument(preset)
@@ -324,7 +325,7 @@ def tune_command(
     if correction_table and note:
         raise ConfigError("= true: builds the table from the whole range; drop --note",
                           source="--correction-table")
-    from synth.physics.stiffness import stiffness_of
+    from synth.settings.damping import stiffness_of
 
     stiffness = stiffness_of(inst, calibration)
     changes = None
@@ -566,9 +567,9 @@ def cutlist_command(
     """
     from synth import io
     from synth.cli.common import Progress
-    from synth.physics.instrument import load_instrument
     from synth.reports.cutlist import SAFETY, cut_rows, cutlist_csv
     from synth.reports.plots import profile_sheet_png
+    from synth.settings.instrument import load_instrument
 
     inst = load_instrument(preset)
     folder = out or default_output(preset, "")
@@ -587,11 +588,9 @@ def cutlist_command(
         [(r.note, inst.bar(r.note), r.cord_holes_m) for r in rows],
         title=f"{inst.name}: bar profiles (circles: cord holes)"), force=force)
     commit_outputs()
-    from synth.physics.losses import parse_calibration
-    from synth.physics.tube import parse_tubes, with_file_calibration
+    from synth.physics.tube import with_file_calibration
 
-    ts = with_file_calibration(parse_tubes(inst.section("tubes")),
-                               parse_calibration(inst.section("damping")))
+    ts = with_file_calibration(inst.tables.tubes, inst.tables.damping)
     gap_open = ts is not None and "gap_calibration" in ts.uncalibrated()
     if json_out:
         print_json({"bars": [r.__dict__ for r in rows], "csv": str(csv_path),

@@ -46,7 +46,7 @@ REMINDER = ("Fix the number of trials before listening and score every one of th
 
 def _voicer(preset: Path, *, sample_rate: int, no_tubes: bool, motor_rate: float | None):
     from synth.io import SAMPLE_RATES_HZ
-    from synth.physics.instrument import load_instrument
+    from synth.settings.instrument import load_instrument
     from synth.voicing import Voicer
 
     if sample_rate not in SAMPLE_RATES_HZ:
@@ -63,7 +63,8 @@ def _cell(x: float, fmt: str) -> str:
 
 def _score(key_path: Path, answers: str | None, answers_file: Path | None,
            json_out: bool) -> None:
-    from synth.reports.compare import parse_answers, read_answers_file, read_key, score_answers
+    from synth.reports.compare import parse_answers, score_answers
+    from synth.settings.comparison import read_answers_file, read_key
 
     key = read_key(key_path)
     given = (read_answers_file(answers_file, key) if answers_file is not None
@@ -223,7 +224,7 @@ def compare_command(
         warn(f"A and B are the same file ({design_a}): the two renders are identical, so any "
              "difference heard is imagined and a blind test can only score by chance")
     if events is not None:
-        from synth.engine.score import read_events
+        from synth.settings.score import read_events
 
         passage = cmp.events_passage(read_events(events), tail_s=tail)
     elif sequence is not None:  # --notes

@@ -188,11 +188,11 @@ def measure_command(
         if note is None or out is None:
             raise ConfigError("needs --note (the note recorded) and --out (the calibration "
                               "file to write)", source="--calibrate")
-        from synth.reports.measure import calibration_target
+        from synth.settings.damping import calibration_target
 
         target = calibration_target(out, ("damping", "stiffness"), force=force)
         plan_outputs([(out, "calibration file")], force=force or target is not None)
-        from synth.physics.instrument import load_instrument
+        from synth.settings.instrument import load_instrument
 
         instrument = load_instrument(calibrate)
         note = instrument.check_note(note)
@@ -206,7 +206,7 @@ def measure_command(
         if calibrate is not None:
             raise ConfigError("names the preset already given by --calibrate; give one of "
                               "them", source="--preset")
-        from synth.physics.instrument import load_instrument
+        from synth.settings.instrument import load_instrument
 
         instrument = load_instrument(preset)
         if note is not None:
@@ -332,7 +332,7 @@ def _measure_folder(folder: Path, *, preset, reference_hz, max_partials, channel
     ref = reference_hz or DEFAULT_REFERENCE_HZ
     ref_from = "--reference-hz" if reference_hz else "default, ISO 16"
     if preset is not None:
-        from synth.physics.instrument import load_instrument
+        from synth.settings.instrument import load_instrument
 
         inst = load_instrument(preset)
         ratios = tuple(inst.target_ratios[:3])

@@ -231,8 +231,7 @@ def play_command(
                           + ", ".join(str(r) for r in io.SAMPLE_RATES_HZ), source="--sample-rate")
     events = None
     if midi_file is not None:
-        from synth.engine.score import read_midi
-        from synth.live import midi_file_events
+        from synth.settings.score import midi_file_events, read_midi
 
         read_midi(midi_file)   # the offline reader's checks: one line for a bad file
         events = midi_file_events(midi_file, float(sample_rate))

@@ -88,7 +88,6 @@ def sustain_command(
     """
     from synth import io
     from synth.errors import ConfigError
-    from synth.physics.instrument import load_instrument
     from synth.reports.sustain import (
         TARGETS,
         parse_target_curve,
@@ -97,6 +96,7 @@ def sustain_command(
         sustain_png,
         sustain_report,
     )
+    from synth.settings.instrument import load_instrument
     from synth.voicing import Voicer
 
     if target not in TARGETS:

@@ -76,10 +76,10 @@ def retune_command(
     the command says so first and exits with code 3. Wear eye, face and hearing
     protection at the grinder; keep aluminium dust apart from steel grinding.
     """
-    from synth.physics.instrument import load_instrument
     from synth.physics.retune import retune_plan
     from synth.physics.tuning import instrument_spec
     from synth.reports.cutlist import SAFETY
+    from synth.settings.instrument import load_instrument
 
     if (recording is None) == (partials_hz is None):
         raise ConfigError("give either --recording or --partials-hz (one of them)",

@@ -86,7 +86,6 @@ def solid_command(
     """
     from synth.cli.cmd_bar import resolve_bar
     from synth.physics.bar_fe import solve_bar
-    from synth.physics.instrument import load_design
     from synth.physics.solid import (
         MAX_LEVEL,
         cached_solver,
@@ -94,6 +93,7 @@ def solid_command(
         solve_levels,
         watched_error,
     )
+    from synth.settings.instrument import load_design
 
     wanted = check_level_accuracy(level, accuracy)
     design = load_design(file)

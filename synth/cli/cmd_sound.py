@@ -78,7 +78,7 @@ DurationOpt = Annotated[float | None, typer.Option(
 
 def _voicer(preset: Path, opts: RenderOptions):
     from synth.io import SAMPLE_RATES_HZ
-    from synth.physics.instrument import load_instrument
+    from synth.settings.instrument import load_instrument
     from synth.voicing import Voicer
 
     if opts.sample_rate not in SAMPLE_RATES_HZ:
@@ -312,7 +312,7 @@ def render_command(
     """Render a passage from an event file (TOML events or MIDI) to WAV."""
     from dataclasses import replace
 
-    from synth.engine.score import read_events
+    from synth.settings.score import read_events
 
     v = _voicer(preset, render)
     score = read_events(events)

@@ -53,20 +53,20 @@ def tubecal_command(
     and gain. Copy both into the preset's [tubes] table.
     """
     from synth.errors import ConfigError
-    from synth.physics.instrument import load_instrument
     from synth.reports.measure import (
         calibrate_tube,
         measure_file,
         tube_model_hz,
         tube_resonance,
     )
+    from synth.settings.instrument import load_instrument
 
     if (tube_hz is None) == (tube_recording is None):
         raise ConfigError("give either --tube-hz or --tube-recording (one of them)",
                           source="--tube-hz")
     target = None
     if out is not None:
-        from synth.reports.measure import calibration_target
+        from synth.settings.damping import calibration_target
 
         target = calibration_target(out, ("tubes",), force=force)
         plan_outputs([(out, "tube calibration")], force=force or target is not None)

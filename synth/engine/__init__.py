@@ -5,8 +5,8 @@ turns a note and a strike into :class:`Voice` objects; this package renders
 them.  :mod:`synth.engine.voice` defines the types and the clock,
 :mod:`synth.engine.render` streams, guards and plans the gain,
 :mod:`synth.engine.kernels` holds the compiled loops and
-:mod:`synth.engine.score` reads event lists (our TOML format and standard MIDI
-files) into note events for the voice plan.
+:mod:`synth.engine.score` defines the note events the voice plan turns into voices
+(files are read by :mod:`synth.settings.score`).
 """
 
 from synth.engine.render import (

@@ -70,15 +70,15 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from synth.config import Section
-from synth.errors import ConfigError, ModelError
+from synth.errors import ModelError
 
 N_PARTIALS = 3
 """Vertical partials the calibration fits (1-3)."""
 
 SECTION = "stiffness"
 
-_KEYS = ("youngs_modulus_scale", "factors", "youngs_modulus_pa", "scale_uncertainty", "note",
+STIFFNESS_KEYS = ("youngs_modulus_scale", "factors", "youngs_modulus_pa", "scale_uncertainty",
+                  "note",
          "recording", "model_hz", "measured_hz", "tolerance_hz", "residual_cents")
 
 
@@ -211,52 +211,3 @@ def fit_stiffness(model_hz, measured_hz, tolerance_hz) -> StiffnessFit:
         residual_cents=tuple(float(v) for v in 1200.0 * r / math.log(2.0)),
         scale_uncertainty=float(2.0 * np.mean(rel)),
         factor_uncertainty=tuple(float(v) for v in rel + np.mean(rel)))
-
-
-def parse_stiffness(sec: Section | None) -> StiffnessCalibration | None:
-    """Read a calibration file's ``[stiffness]`` table (None without one)."""
-    if sec is None:
-        return None
-    sec.check_keys(set(_KEYS))
-    scale = sec.number("youngs_modulus_scale", limit="stiffness.scale")
-    factors = tuple(sec.numbers("factors", limit="stiffness.factor", length=N_PARTIALS))
-    # the record of the measurement: checked, not used by the model
-    sec.number("youngs_modulus_pa", None, limit="material.youngs_modulus_pa")
-    sec.number("scale_uncertainty", None, limit="stiffness.uncertainty")
-    sec.string("note", None)
-    sec.string("recording", None)
-    for key in ("model_hz", "measured_hz"):
-        sec.numbers(key, None, limit="stiffness.frequency_hz", length=N_PARTIALS)
-    sec.numbers("tolerance_hz", None, limit="stiffness.tolerance_hz", length=N_PARTIALS)
-    sec.numbers("residual_cents", None, limit="stiffness.residual_cents", length=N_PARTIALS)
-    return StiffnessCalibration(float(scale), tuple(float(c) for c in factors), sec.source)
-
-
-def stiffness_of(instrument, path=None) -> StiffnessCalibration | None:
-    """Return the stiffness calibration to tune ``instrument`` with.
-
-    Parameters
-    ----------
-    instrument : Instrument
-        The preset; without ``path`` its ``[damping] calibration_file`` is used
-        (None when it names none or the file has no ``[stiffness]`` table).
-    path : str or Path, optional
-        A calibration file given explicitly; it must hold ``[stiffness]``.
-
-    Raises
-    ------
-    ConfigError
-        ``path`` cannot be read or holds no ``[stiffness]`` table.
-    """
-    from synth.config import load_toml
-    from synth.physics.losses import calibration_from_table, parse_calibration
-
-    notes = tuple(instrument.notes)
-    if path is None:
-        return parse_calibration(instrument.section("damping"), notes).stiffness
-    cal = calibration_from_table(load_toml(path), str(path), notes)
-    if cal.stiffness is None:
-        raise ConfigError("has no [stiffness] table: write one with `barwright measure "
-                          "RECORDING --calibrate PRESET --note N --out FILE`",
-                          source=str(path))
-    return cal.stiffness

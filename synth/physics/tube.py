@@ -80,7 +80,7 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
-from synth.config import Section, checked_number
+from synth.config import checked_number
 from synth.constants import (
     CENTS_PER_NEPER,
     END_CORRECTION_FLANGED,
@@ -147,32 +147,6 @@ class TubeSettings:
         return lo * (hi / lo) ** fraction
 
 
-def parse_tubes(sec: Section | None) -> TubeSettings | None:
-    """Read a preset's ``[tubes]`` table (None without one)."""
-    if sec is None:
-        return None
-    sec.check_keys({"inner_radius_m", "gap_m", "offset_cents", "flanged",
-                    "coupling_calibration", "gap_calibration", "enabled", "ka_correction"})
-    raw = sec.data.get("inner_radius_m")
-    if isinstance(raw, list):
-        r_low, r_high = sec.numbers("inner_radius_m", limit="tubes.inner_radius_m", length=2)
-        radii = (r_low, r_high)
-    else:
-        r = sec.number("inner_radius_m", limit="tubes.inner_radius_m")
-        radii = (r, r)
-    return TubeSettings(
-        inner_radius_m=radii,
-        gap_m=sec.number("gap_m", limit="tubes.gap_m"),
-        offset_cents=sec.number("offset_cents", 0.0, limit="tubes.offset_cents"),
-        flanged=sec.boolean("flanged", False),
-        coupling_calibration=sec.number("coupling_calibration", 1.0, limit="tubes.calibration"),
-        gap_calibration=sec.number("gap_calibration", 1.0, limit="tubes.calibration"),
-        enabled=sec.boolean("enabled", True),
-        ka_correction=sec.boolean("ka_correction", True),
-        given=frozenset(sec.data),
-    )
-
-
 def with_file_calibration(settings: TubeSettings | None, calibration) -> TubeSettings | None:
     """Return the tube settings with a calibration file's ``[tubes]`` values merged in.
 
@@ -185,12 +159,6 @@ def with_file_calibration(settings: TubeSettings | None, calibration) -> TubeSet
     if settings is None or not extra:
         return settings
     return replace(settings, **extra, given=settings.given | frozenset(extra))
-
-
-def parse_tube_override(sec: Section) -> float:
-    """Read a bar's own ``tube = { length_m = ... }`` table: the cut length, m."""
-    sec.check_keys({"length_m"})
-    return sec.number("length_m", limit="tubes.length_m")
 
 
 # --------------------------------------------------------------------------- air

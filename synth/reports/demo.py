@@ -93,7 +93,7 @@ def run_demo(out: Path, *, say: Say, compare: Callable[[Path, Path, Path], None]
     steps : callable(total, label), optional
         Progress bars for the long steps.
     """
-    from synth.physics.instrument import load_instrument
+    from synth.settings.instrument import load_instrument
 
     path = demo_preset_path()
     inst = load_instrument(path)
@@ -212,7 +212,7 @@ def _render_list(inst, stereo):
     """Return the renders of step 4: (file, voices, seconds, what)."""
     from dataclasses import replace
 
-    from synth.engine.score import read_events
+    from synth.settings.score import read_events
 
     spinning = replace(stereo, motor_rate_rev_per_s=3.0)
     bare = replace(stereo, tubes=False)

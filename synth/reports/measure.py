@@ -148,7 +148,6 @@ References
 from __future__ import annotations
 
 import datetime as _dt
-import hashlib
 import math
 from dataclasses import dataclass, replace
 from pathlib import Path
@@ -162,9 +161,10 @@ from synth.analysis.onset import find_fade_out
 from synth.constants import LN_1000
 from synth.errors import AudioError, ConfigError, ModelError
 from synth.physics.instrument import Instrument
-from synth.physics.losses import CALIBRATION_TABLES, TERMS, Calibration
+from synth.physics.losses import TERMS, Calibration
 from synth.physics.stiffness import StiffnessFit, fit_stiffness
 from synth.pitch import DEFAULT_REFERENCE_HZ, cents, nearest_note, note_to_hz
+from synth.settings.damping import CalibrationTarget
 
 MATCH_TOLERANCE = 0.03
 """Largest relative frequency difference between a model mode and the measured
@@ -1050,22 +1050,7 @@ def _sig6(value: float) -> float:
 
 
 def _explicit_factors(instrument: Instrument) -> set[str]:
-    sec = instrument.section("damping")
-    if sec is None:
-        return set()
-    f = sec.data.get("factors", {})
-    return set(f) if isinstance(f, dict) else set()
-
-
-def _sha256_16(path: str) -> str:
-    p = Path(path)
-    if not p.is_file():
-        return ""
-    h = hashlib.sha256()
-    with p.open("rb") as fh:
-        for block in iter(lambda: fh.read(1 << 20), b""):
-            h.update(block)
-    return h.hexdigest()[:16]
+    return set(instrument.tables.damping_factors_given)
 
 
 def _match(measurement: Measurement, model_modes, tolerance: float, warnings: list[str]):
@@ -1329,10 +1314,12 @@ def calibrate(measurement: Measurement, instrument: Instrument, note: str, *,
     if "tube" in fit_terms and abs(state["tube"] - 1.0) > 1e-3 and ("vertical", 1) in keys:
         hint = _coupling_hint(after, after_cal, warnings)
     stiffness = _stiffness_fit(measurement, matched, raw, budget_raw, warnings)
+    from synth.io import file_sha256_16
+
     return CalibrationFit(
         note=note, preset=instrument.source, recording=measurement.recording,
         measured_at=_dt.datetime.now(_dt.UTC).isoformat(timespec="seconds"),
-        recording_sha256=_sha256_16(measurement.recording), tubes=coupled,
+        recording_sha256=file_sha256_16(measurement.recording), tubes=coupled,
         fitted_terms=tuple(fit_terms), held_terms=tuple(held), factors=file_factors,
         overrides=overrides, modes=tuple(fits), unmatched=tuple(unmatched),
         sensitivity=sens_out, condition_number=cond, fallback=fallback,
@@ -1369,9 +1356,7 @@ def _stiffness_fit(measurement: Measurement, matched: dict, raw, budget_raw: dic
 
 def parse_motor_rate(instrument: Instrument) -> float:
     """Return the preset's motor rate in rev/s (0 without a [motor] table)."""
-    from synth.voicing import parse_motor
-
-    return parse_motor(instrument.section("motor"))[0].rate_rev_per_s
+    return instrument.tables.motor[0].rate_rev_per_s
 
 
 def _solve(rows, y, terms, base, sensitivity_limit, warnings):
@@ -1461,9 +1446,9 @@ def _coupling_hint(after, after_cal: Calibration, warnings: list[str]) -> float 
 def calibration_text(header: list[str], tables: dict, kept: dict | None = None,
                      kept_header: list[str] | None = None) -> str:
     """Return a calibration file: header comments, then ``tables`` and the ``kept`` ones."""
-    import tomllib
-
     import tomli_w
+
+    from synth.settings.damping import check_calibration_text
 
     lines = list(header)
     if kept:
@@ -1472,69 +1457,8 @@ def calibration_text(header: list[str], tables: dict, kept: dict | None = None,
     body = tomli_w.dumps({**{k: v for k, v in kept.items() if k not in tables},
                           **tables} if kept else tables)
     text = "\n".join(lines) + "\n\n" + body
-    tomllib.loads(text)  # the file must read back
+    check_calibration_text(text, "calibration file")  # the file must read back
     return text
-
-
-@dataclass(frozen=True)
-class CalibrationTarget:
-    """An existing calibration file that a command writes its tables into.
-
-    Attributes
-    ----------
-    path : Path
-    kept : dict
-        The file's tables this command does not write (kept as they are).
-    header : list of str
-        The file's comment lines (kept with those tables).
-    replaced : tuple of str
-        Tables of the file this command replaces (only with ``force``).
-    """
-
-    path: Path
-    kept: dict
-    header: list[str]
-    replaced: tuple[str, ...]
-
-
-def calibration_target(path, writes: tuple[str, ...], *,
-                       force: bool = False) -> CalibrationTarget | None:
-    """Check a calibration file about to be written; None when it does not exist yet.
-
-    One calibration file holds ``[damping]``, ``[stiffness]`` (``measure --calibrate``)
-    and ``[tubes]`` (``tubecal``): a command writing some of them into an existing
-    file keeps the others.  A table the file already holds is replaced only with
-    ``force``.  A file that is not a calibration file gives None too: the output
-    plan then refuses it as an existing file unless ``force`` (and replaces it
-    whole with ``force``).
-
-    Raises
-    ------
-    ConfigError
-        The file holds one of ``writes`` and ``force`` is not given.
-    """
-    import tomllib
-
-    p = Path(path)
-    try:
-        if not p.is_file():
-            return None
-        text = p.read_text(encoding="utf-8")
-        data = tomllib.loads(text)
-    except (OSError, UnicodeDecodeError, tomllib.TOMLDecodeError):
-        return None
-    if not data or any(k not in CALIBRATION_TABLES or not isinstance(v, dict)
-                       for k, v in data.items()):
-        return None
-    replaced = tuple(k for k in writes if k in data)
-    if replaced and not force:
-        raise ConfigError("exists and already holds [" + "], [".join(replaced)
-                          + "]; use --force to replace " + ("it" if len(replaced) == 1 else
-                                                              "them")
-                          + " (the file's other tables are kept)", source=str(p))
-    kept = {k: v for k, v in data.items() if k not in writes}
-    header = [ln for ln in text.splitlines() if ln.startswith("#")] if kept else []
-    return CalibrationTarget(p, kept, header, replaced)
 
 
 def write_calibration(path, fit: CalibrationFit, *, target: CalibrationTarget | None = None,

@@ -312,7 +312,7 @@ def analyse_offcut(measurements, inputs: OffcutInputs, *, alloy: str = "aluminiu
     """
     from synth.physics.bar_fe import solve_bar
     from synth.physics.geometry import BarGeometry
-    from synth.physics.materials import load_material
+    from synth.settings.material import load_material
 
     L, b, t, m = inputs.length_m, inputs.width_m, inputs.thickness_m, inputs.mass_kg
     if b < t:
@@ -397,7 +397,8 @@ def analyse_offcut(measurements, inputs: OffcutInputs, *, alloy: str = "aluminiu
 
 def material_toml(result: OffcutResult, *, name: str) -> str:
     """Return the batch's material file: the base alloy with E, nu and density measured."""
-    from synth.physics.materials import OPTIONAL, REQUIRED, load_material
+    from synth.physics.materials import OPTIONAL, REQUIRED
+    from synth.settings.material import load_material
 
     base = load_material(result.base_alloy)
     when = _dt.datetime.now(_dt.UTC).isoformat(timespec="seconds")

@@ -29,13 +29,8 @@ from collections.abc import Sequence
 from importlib import resources
 from typing import Any, Final
 
-from synth.reports.compare import (
-    ANSWERS_FORMAT,
-    DESIGNS,
-    JND_LEVEL_DB,
-    KEY_FILE,
-    Comparison,
-)
+from synth.reports.compare import DESIGNS, JND_LEVEL_DB, KEY_FILE, Comparison
+from synth.settings.comparison import ANSWERS_FORMAT
 
 START_VOLUME: Final[float] = 0.3
 """Volume every player starts at (0..1); the listener raises it."""

@@ -4,7 +4,7 @@ A sweep varies preset keys by their dotted names (``tubes.offset_cents``,
 ``tubes.inner_radius_m``, ``motor.rate_rev_per_s``, ``sound.mallet``,
 ``material``, ``blank.thickness_m``...) over the grid of every combination.  Each
 variant is the preset's TOML table with those values set, read by the same
-reader as a file (:func:`synth.physics.instrument.design_from_table`), so every
+reader as a file (:func:`synth.settings.variants.read_variants`), so every
 range check applies and a bad key or value stops the sweep before any work.
 
 Per variant it reports what a maker chooses on, each computed in about a second:
@@ -33,18 +33,20 @@ thread, so every engine computes the same numbers.
 
 from __future__ import annotations
 
-import copy
 import itertools
 import math
 from collections.abc import Callable, Sequence
 from dataclasses import asdict, dataclass
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 
-from synth.config import load_toml
 from synth.errors import ConfigError
 from synth.executor import Job, JobResult, run_jobs
+
+if TYPE_CHECKING:
+    from synth.physics.instrument import Instrument
 
 SWEEP_SAMPLE_RATE = 48000.0
 """Sample rate of the plans, Hz (the sustain report's)."""
@@ -141,38 +143,22 @@ def parse_vary(text: str) -> Vary:
     return Vary(key, items)
 
 
-def _set(data: dict, key: str, value, source: str) -> None:
-    *parents, last = key.split(".")
-    table = data
-    for i, name in enumerate(parents):
-        table = table.setdefault(name, {})
-        if not isinstance(table, dict):
-            raise ConfigError(f"= {value!r}: {'.'.join(parents[:i + 1])} is not a table",
-                              source=source, key=key)
-    old = table.get(last)
-    if isinstance(old, dict):
-        raise ConfigError(f"= {value!r}: is a table; vary one of its keys",
-                          source=source, key=key)
-    if isinstance(old, list) and not isinstance(value, list):
-        value = [value] * len(old)
-    table[last] = value
-
-
-def variant_tables(preset: str | Path, varies: Sequence[Vary]) -> list[tuple[tuple, dict]]:
-    """Build the TOML table of every variant and check it with the preset reader.
+def variant_tables(preset: str | Path, varies: Sequence[Vary]) -> list[tuple[tuple, Instrument]]:
+    """Read every variant of the preset (:func:`synth.settings.variants.read_variants`).
 
     Returns
     -------
-    list of (settings, table)
+    list of (settings, instrument)
         In grid order (the last axis varies fastest); ``settings`` is a tuple of
-        (key, value) pairs.
+        (key, value) pairs, ``instrument`` the preset read with them set.
 
     Raises
     ------
     ConfigError
         A bad key or value, naming the variant (before any work starts).
     """
-    from synth.physics.instrument import Instrument, design_from_table
+    from synth.physics.instrument import Instrument
+    from synth.settings.variants import read_variants
 
     if not varies:
         raise ConfigError("give at least one --vary KEY=V1,V2,...", source="--vary")
@@ -183,22 +169,14 @@ def variant_tables(preset: str | Path, varies: Sequence[Vary]) -> list[tuple[tup
     if count > MAX_VARIANTS:
         raise ConfigError(f"= {count} variants: allowed: up to {MAX_VARIANTS}",
                           source="--vary")
-    base = load_toml(preset)
+    grid = [tuple(zip(keys, combo, strict=True))
+            for combo in itertools.product(*(v.values for v in varies))]
     out = []
-    for combo in itertools.product(*(v.values for v in varies)):
-        settings = tuple(zip(keys, combo, strict=True))
-        data = copy.deepcopy(base)
-        for key, value in settings:
-            _set(data, key, value, str(preset))
-        try:
-            design = design_from_table(data, str(preset))
-        except ConfigError as exc:
-            label = ", ".join(f"{k}={v}" for k, v in settings)
-            raise ConfigError(f"variant {label}: {exc}", source="--vary") from None
+    for settings, design in zip(grid, read_variants(preset, grid), strict=True):
         if not isinstance(design, Instrument):
             raise ConfigError("is a single-bar file; a sweep needs an instrument preset",
                               source=str(preset))
-        out.append((settings, data))
+        out.append((settings, design))
     return out
 
 
@@ -223,17 +201,15 @@ def evenness_percent(semitones: Sequence[float], t60_s: Sequence[float]) -> floa
     return float(100.0 * math.expm1(math.sqrt(float(np.mean(resid**2)))))
 
 
-def evaluate_variant(settings: tuple, data: dict, source: str) -> VariantResult:
+def evaluate_variant(settings: tuple, inst: Instrument) -> VariantResult:
     """Compute the figures of one variant (a sweep job; see the module docstring).
 
     Parameters
     ----------
     settings : tuple of (key, value)
         The variant's swept values (carried into the result).
-    data : dict
-        The variant's TOML table.
-    source : str
-        The preset's file name, for messages.
+    inst : Instrument
+        The variant, as :func:`variant_tables` read it.
 
     Returns
     -------
@@ -242,21 +218,16 @@ def evaluate_variant(settings: tuple, data: dict, source: str) -> VariantResult:
     from synth.physics.bar_fe import one_blas_thread
 
     with one_blas_thread():
-        return _evaluate(settings, data, source)
+        return _evaluate(settings, inst)
 
 
-def _evaluate(settings: tuple, data: dict, source: str) -> VariantResult:
+def _evaluate(settings: tuple, inst: Instrument) -> VariantResult:
     from synth.analysis import integrated_loudness
     from synth.engine.render import render
-    from synth.physics.instrument import Instrument, design_from_table
     from synth.physics.tuning import tune_instrument
     from synth.pitch import cents, note_to_midi
     from synth.voicing import Voicer
 
-    inst = design_from_table(data, source)
-    if not isinstance(inst, Instrument):  # variant_tables refuses these before any work
-        raise ConfigError("is a single-bar file; a sweep needs an instrument preset",
-                          source=source)
     notes = list(inst.notes)
     registers = _sample_notes(notes)
     low, mid, high = registers
@@ -315,14 +286,15 @@ def run_sweep(preset: str | Path, varies: Sequence[Vary | str], *, workers: int 
                         scheduler=scheduler, progress=progress)
 
 
-def run_variants(preset: str | Path, varies: Sequence[Vary], tables: list[tuple[tuple, dict]],
+def run_variants(preset: str | Path, varies: Sequence[Vary],
+                 tables: list[tuple[tuple, Instrument]],
                  *, workers: int | None = None, scheduler: str | None = None,
                  progress: Callable[[JobResult], None] | None = None) -> SweepReport:
     """Run variants already built by :func:`variant_tables` (see :func:`run_sweep`)."""
     from synth.executor import describe
 
-    jobs = [Job(i, evaluate_variant, (settings, data, str(preset)))
-            for i, (settings, data) in enumerate(tables)]
+    jobs = [Job(i, evaluate_variant, (settings, inst))
+            for i, (settings, inst) in enumerate(tables)]
     results = run_jobs(jobs, workers=workers, scheduler=scheduler, progress=progress)
     return SweepReport(
         preset=str(preset), varies=tuple(varies), variants=tuple(s for s, _ in tables),

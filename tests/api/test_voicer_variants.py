@@ -21,8 +21,8 @@ import dataclasses
 import numpy as np
 import pytest
 
-from synth.physics.instrument import load_instrument
 from synth.reports.demo import demo_preset_path
+from synth.settings.instrument import load_instrument
 from synth.voicing import Voicer
 
 DEMO = demo_preset_path()

@@ -39,7 +39,7 @@ def write_inputs(folder: Path) -> dict[str, Path]:
     """Write the inputs some commands read: an event list and a recorded strike."""
     from synth.engine.render import render
     from synth.io import write_wav
-    from synth.physics.instrument import load_instrument
+    from synth.settings.instrument import load_instrument
     from synth.voicing import Voicer
 
     folder.mkdir(parents=True, exist_ok=True)

@@ -68,8 +68,9 @@ def test_strike_attack_rises_from_zero_with_the_contact_force(tmp_path):
     monotonic rise is not asked: partials 2 and 3 (periods 0.57 and 0.22 ms) turn
     within the window; the largest fall between neighbours is 0.4 % of the peak.
     """
-    from synth.physics.instrument import load_instrument
-    from synth.physics.mallet import load_mallet, simulate_contact
+    from synth.physics.mallet import simulate_contact
+    from synth.settings.instrument import load_instrument
+    from synth.settings.mallet import load_mallet
     from synth.voicing import Voicer
 
     out = tmp_path / "a4.wav"

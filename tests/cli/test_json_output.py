@@ -34,7 +34,7 @@ def take(tmp_path_factory) -> Path:
     """Write a recorded strike of A4 (simulated: 0.2 s lead-in, noise at -85 dBFS, seeded)."""
     from synth.engine.render import render
     from synth.io import write_wav
-    from synth.physics.instrument import load_instrument
+    from synth.settings.instrument import load_instrument
     from synth.voicing import Voicer
 
     fs = 48000

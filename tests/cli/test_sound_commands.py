@@ -82,7 +82,7 @@ def test_midi_file_renders_notes_at_their_times(tmp_path: Path) -> None:
     # silence before nothing; C5 starts exactly at sample 24000: the signal there
     # jumps from the A4 alone to A4 + C5
     from synth.engine.render import render
-    from synth.physics.instrument import load_instrument
+    from synth.settings.instrument import load_instrument
     from synth.voicing import Voicer
 
     v = Voicer(load_instrument(DEMO), sample_rate=float(fs), channels=1)

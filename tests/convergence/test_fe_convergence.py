@@ -145,7 +145,7 @@ def test_lateral_and_torsional_modes_settle_on_the_mesh_of_the_partials() -> Non
     solved once on the mesh that settles them.  On every bar of both demo ranges
     they are then within the same 0.01 % of a fine mesh (48 elements of degree 6).
     """
-    from synth.physics.instrument import load_instrument
+    from synth.settings.instrument import load_instrument
 
     worst = 0.0
     for name in ("lantern-street-bars", "lantern-street-bars-7075"):

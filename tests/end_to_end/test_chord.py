@@ -23,7 +23,7 @@ import soundfile as sf
 from e2e_common import DEMO, assert_png, run_json, run_ok
 
 from synth.analysis import find_partials
-from synth.physics.instrument import load_instrument
+from synth.settings.instrument import load_instrument
 from synth.voicing import Voicer
 
 NOTES = ("F3", "A4", "C5")

@@ -33,7 +33,7 @@ from e2e_common import DEMO, assert_png, read_csv, run_json
 
 from synth.physics.bar_fe import solve_bar
 from synth.physics.geometry import ArchUndercut, BarGeometry
-from synth.physics.materials import load_material
+from synth.settings.material import load_material
 
 RAW = tomllib.loads(DEMO.read_text(encoding="utf-8"))
 NOTES = list(RAW["bars"])
@@ -116,8 +116,8 @@ def test_lengths_sound_the_notes(fresh) -> None:
     (1 : 4 : 2^(40/12)); the fresh solve refines its own mesh to 0.01 % (0.17 cents),
     inside those margins.
     """
-    from synth.physics.instrument import load_instrument
     from synth.physics.solid_correction import corrected_modes, correction_of
+    from synth.settings.instrument import load_instrument
 
     table = correction_of(load_instrument(DEMO))
     assert table is not None

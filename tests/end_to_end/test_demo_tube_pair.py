@@ -48,8 +48,8 @@ def test_demo_tube_pair_shares_one_gain(tmp_path):
 
     from synth.engine.render import render
     from synth.output import fade_seconds
-    from synth.physics.instrument import load_instrument
     from synth.reports import demo
+    from synth.settings.instrument import load_instrument
     from synth.voicing import Voicer
 
     inst = load_instrument(demo.demo_preset_path())

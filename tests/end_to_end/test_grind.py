@@ -14,7 +14,7 @@ from e2e_common import DEMO, assert_png, run_json
 
 from synth.physics.bar_fe import solve_bar
 from synth.physics.geometry import BarGeometry, GroundUndercut
-from synth.physics.instrument import load_instrument
+from synth.settings.instrument import load_instrument
 
 NOTE = "C5"
 FD_ELEMENTS = 48

@@ -24,7 +24,7 @@ import soundfile as sf
 from e2e_common import DEMO, assert_png, read_csv, run_json, run_ok
 
 from synth.analysis import fit_decay
-from synth.physics.instrument import load_instrument
+from synth.settings.instrument import load_instrument
 from synth.voicing import Voicer
 
 NOTES = ("F3", "G3", "A4", "C5", "C6")

@@ -23,9 +23,9 @@ import pytest
 from e2e_common import DEMO, run_json
 
 from synth.physics.bar_fe import solve_bar
-from synth.physics.instrument import load_instrument
-from synth.physics.materials import load_material
 from synth.physics.solid_correction import corrected_modes, correction_of
+from synth.settings.instrument import load_instrument
+from synth.settings.material import load_material
 
 NOTES = ("F3", "A4", "F6")
 TARGETS_HZ = {"F3": 442.0 * 2 ** (-16 / 12), "A4": 442.0, "F6": 442.0 * 2 ** (20 / 12)}

@@ -14,15 +14,17 @@ import mido
 import numpy as np
 import pytest
 
-from synth.engine import ModeBank, Voice, render, score, seconds_to_sample
-from synth.engine.score import PedalChange, Strike, read_events, read_midi
+from synth.engine import ModeBank, Voice, render, seconds_to_sample
+from synth.engine.score import PedalChange, Strike
 from synth.errors import ConfigError
+from synth.settings import score
+from synth.settings.score import read_events, read_midi
 
 FS = 48000
 
 
 def docstring_example() -> str:
-    """Return the TOML example printed in synth.engine.score's docstring."""
+    """Return the TOML example printed in synth.settings.score's docstring."""
     doc = score.__doc__
     block = doc.split("in any order (events are sorted by time)::\n", 1)[1]
     block = block.split("Keys of ``[[strike]]``", 1)[0]

@@ -72,8 +72,8 @@ def test_render_refuses_bad_event_lists(change) -> None:
 @given(mutate.midi_bytes())
 def test_render_reads_or_refuses_midi(data: bytes) -> None:
     """Drawn MIDI bytes the reader refuses are refused in one line by the command too."""
-    from synth.engine.score import read_midi
     from synth.errors import ConfigError
+    from synth.settings.score import read_midi
 
     file = _DIR / "passage.mid"
     file.write_bytes(data)

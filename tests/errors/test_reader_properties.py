@@ -20,12 +20,16 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from synth.config import MAX_EVENTS, MAX_SCORE_S
-from synth.engine.score import Score, read_events, read_midi
+from synth.engine.score import Score
 from synth.errors import ConfigError
-from synth.physics.instrument import BarFile, Instrument, load_design
-from synth.physics.mallet import Mallet, load_mallet
-from synth.physics.materials import Material, load_material
+from synth.physics.instrument import BarFile, Instrument
+from synth.physics.mallet import Mallet
+from synth.physics.materials import Material
 from synth.pitch import HIGHEST_MIDI, LOWEST_MIDI, note_to_midi
+from synth.settings.instrument import load_design
+from synth.settings.mallet import load_mallet
+from synth.settings.material import load_material
+from synth.settings.score import read_events, read_midi
 
 CASES = settings(max_examples=250, deadline=None, derandomize=True, database=None,
                  suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large])

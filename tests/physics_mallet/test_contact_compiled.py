@@ -11,7 +11,8 @@ import numpy as np
 import pytest
 
 from synth.engine.contact import run_contact
-from synth.physics.mallet import load_mallet, simulate_contact
+from synth.physics.mallet import simulate_contact
+from synth.settings.mallet import load_mallet
 
 EPS = np.finfo(float).eps
 FIELDS = ("amplitude_m", "phase_rad", "force_n", "time_s", "modal_displacement_m",

@@ -19,11 +19,10 @@ from synth.physics.mallet import (
     Mallet,
     free_vibration,
     hertz_stiffness,
-    load_mallet,
-    mallet_names,
     rigid_contact,
     simulate_contact,
 )
+from synth.settings.mallet import load_mallet, mallet_names
 
 # physics.md section 10 worked example: m 0.03 kg, R 0.015 m, head E 20 MPa, nu 0.45,
 # on 6061 (E 68.9 GPa, nu 0.33): K = 4.094e6 N/m^1.5.

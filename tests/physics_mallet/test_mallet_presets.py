@@ -11,7 +11,8 @@ import pytest
 
 from synth.config import presets_dir
 from synth.errors import ConfigError
-from synth.physics.mallet import Mallet, load_mallet, mallet_names, rigid_contact
+from synth.physics.mallet import Mallet, rigid_contact
+from synth.settings.mallet import load_mallet, mallet_names
 
 GOOD = """\
 description = "test head"

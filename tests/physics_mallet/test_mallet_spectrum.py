@@ -14,10 +14,10 @@ from synth.physics.mallet import (
     Mallet,
     force_spectrum,
     force_transform,
-    load_mallet,
     mode_excitation,
     simulate_contact,
 )
+from synth.settings.mallet import load_mallet
 
 # A lossless linear spring on an immovable target gives an exact half-sine pulse of
 # duration T = pi sqrt(m/K) (mass on a spring for half a period).

@@ -24,10 +24,10 @@ from synth.cli import app
 from synth.config import presets_dir
 from synth.physics.bar_fe import solve_bar
 from synth.physics.geometry import BarGeometry, GroundUndercut
-from synth.physics.instrument import load_instrument
-from synth.physics.materials import load_material
 from synth.physics.retune import apply_plan, retune_plan, trimmed
 from synth.physics.tuning import instrument_spec
+from synth.settings.instrument import load_instrument
+from synth.settings.material import load_material
 
 PRESET = presets_dir() / "instruments" / "lantern-street-bars.toml"
 

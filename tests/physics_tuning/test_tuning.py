@@ -23,7 +23,6 @@ import pytest
 
 from synth.physics.bar_fe import solve_bar
 from synth.physics.geometry import BarGeometry, GroundUndercut, UndercutFamily
-from synth.physics.materials import load_material
 from synth.physics.tuning import (
     CENTS_PER_LN,
     TuneSpec,
@@ -32,6 +31,7 @@ from synth.physics.tuning import (
     temperature_shift_cents,
     tune_bar,
 )
+from synth.settings.material import load_material
 
 AL = load_material("aluminium-6061-t6")
 RATIOS = (1.0, 4.0, 2 ** (40 / 12))  # 1 : 4 : 10.08, common practice, no source

@@ -16,7 +16,7 @@ def demo_voicer(motor_rate: float, *, tubes: bool = True, preset: Path = DEMO):
     Planned as the live player plans (no contact onset: the pool starts every mode in
     its free form), so offline references render what the pool renders.
     """
-    from synth.physics.instrument import load_instrument
+    from synth.settings.instrument import load_instrument
     from synth.voicing import Voicer
 
     return Voicer(load_instrument(preset), sample_rate=SAMPLE_RATE, tubes=tubes,

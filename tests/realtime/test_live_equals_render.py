@@ -4,7 +4,7 @@ A scripted MIDI stream (strikes at two velocities, note-offs, a key struck
 again while held, pedal down, half pedal, up) goes through a live player and
 its audio callback in blocks of 32 to 1024 samples; the player records what it
 was given as a standard MIDI file, which the offline reader
-(:func:`synth.engine.score.read_midi`), the voice plan and
+(:func:`synth.settings.score.read_midi`), the voice plan and
 :func:`synth.engine.render` turn into samples independently.  Both at one gain,
 before any normalisation and with no voice retired, they agree to the rounding
 bound of the recursions (``rt_helpers.rounding_bound``, about 1.3e-9 here) and
@@ -20,8 +20,8 @@ import pytest
 from rt_helpers import rounding_bound, run_pool, set_gain_now
 
 from synth.engine import render
-from synth.engine.score import read_midi
 from synth.live import recorded_midi
+from synth.settings.score import read_midi
 
 N_SAMPLES = 70_000
 PEAK = 0.5   # the live output's peak, full scale: well under the -1 dBFS ceiling

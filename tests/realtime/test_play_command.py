@@ -116,10 +116,10 @@ def test_midi_file_to_wav_equals_render(tmp_path, block):
     plus the -150 dBFS below which the pool frees voices, plus rounding.
     """
     from synth.engine import render
-    from synth.engine.score import read_midi
     from synth.io import read_audio
     from synth.live import level_scales
-    from synth.physics.instrument import load_instrument
+    from synth.settings.instrument import load_instrument
+    from synth.settings.score import read_midi
     from synth.voicing import Voicer
 
     m = mido.Message
@@ -135,7 +135,7 @@ def test_midi_file_to_wav_equals_render(tmp_path, block):
     result = run("play", DEMO, "--midi-file", midi, "--to-wav", wav, "--format", "float32",
                  "--layers", 2, "--block", block, "--gain-db", -6, "--record", rec)
     assert result.exit_code == 0, result.stderr
-    from synth.live import midi_file_events
+    from synth.settings.score import midi_file_events
     played = [(t, str(x.copy(time=0))) for t, x in midi_file_events(rec, 48000.0)]
     assert played == [(t, str(x.copy(time=0))) for t, x in events]
     got, fs = read_audio(wav)
@@ -267,7 +267,7 @@ def test_port_input_is_played_and_recorded(monkeypatch, tmp_path):
     result = run("play", DEMO, "--port", "Keys 1", "--layers", 1, "--block", 256,
                  "--record", rec)
     assert result.exit_code == 0, result.stderr
-    from synth.live import midi_file_events
+    from synth.settings.score import midi_file_events
 
     got = midi_file_events(rec, 48000.0)
     assert [str(x.copy(time=0)) for _, x in got] == [str(x) for x in sent]

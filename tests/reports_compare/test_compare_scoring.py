@@ -20,9 +20,9 @@ from synth.reports.compare import (
     binomial_p_value,
     key_toml,
     parse_answers,
-    read_key,
     score_answers,
 )
+from synth.settings.comparison import read_key
 
 KEY_16 = tuple("ABBABAABBBAABABA")
 

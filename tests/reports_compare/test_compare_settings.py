@@ -14,7 +14,7 @@ import pyloudnorm
 import pytest
 from compare_helpers import DESIGN_A, DESIGN_B, RATE, read, run
 
-from synth.physics.instrument import load_instrument
+from synth.settings.instrument import load_instrument
 from synth.voicing import Voicer
 
 

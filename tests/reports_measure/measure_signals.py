@@ -20,8 +20,8 @@ from synth.cli import app
 from synth.config import presets_dir
 from synth.engine.render import render
 from synth.io import write_wav
-from synth.physics.instrument import load_instrument
 from synth.physics.losses import Calibration
+from synth.settings.instrument import load_instrument
 from synth.voicing import Voicer
 
 FS = 48000

@@ -27,8 +27,8 @@ from measure_signals import (
 )
 
 from synth.errors import ConfigError
-from synth.physics.instrument import load_instrument
-from synth.physics.losses import TERMS, Calibration, parse_calibration
+from synth.physics.losses import TERMS, Calibration
+from synth.settings.instrument import load_instrument
 from synth.voicing import Voicer
 
 
@@ -72,7 +72,7 @@ def test_preset_loads_the_file_and_the_budget_changes_as_fitted(fitted) -> None:
     d, _, cal = fitted
     preset = preset_with(d, 'calibration_file = "calib/a4.toml"')
     inst = load_instrument(preset)
-    loaded = parse_calibration(inst.section("damping"))
+    loaded = inst.tables.damping
     assert loaded.factors == pytest.approx(cal["factors"])
     raw = Voicer(inst, sample_rate=FS, channels=1, calibration=Calibration()).model("A4")
     model = Voicer(inst, sample_rate=FS, channels=1).model("A4")
@@ -99,7 +99,7 @@ def test_preset_entries_win_over_the_file(fitted) -> None:
                             'factors = { internal = 2.0 }\n'
                             '[[damping.override]]\nnote = "A4"\nkind = "vertical"\n'
                             'order = 3\nq = 1234.0')
-    loaded = parse_calibration(load_instrument(preset).section("damping"))
+    loaded = load_instrument(preset).tables.damping
     assert loaded.factor("internal") == 2.0
     assert loaded.factor("cords") == pytest.approx(cal["factors"]["cords"])
     model = Voicer(load_instrument(preset), channels=1).model("A4")
@@ -130,7 +130,7 @@ def test_bad_calibration_file_is_one_line(tmp_path) -> None:
     """A missing or malformed calibration file: one line naming the key."""
     preset = preset_with(tmp_path, 'calibration_file = "missing.toml"')
     with pytest.raises(ConfigError, match="damping.calibration_file"):
-        parse_calibration(load_instrument(preset).section("damping"))
+        load_instrument(preset)
     assert_one_line_error(run("partials", preset, "--note", "A4"), "damping.calibration_file",
                           "missing.toml", "file not found")
     (tmp_path / "other.toml").write_text("[damping]\nfactors = { friction = 2.0 }\n",

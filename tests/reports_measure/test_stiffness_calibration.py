@@ -38,11 +38,10 @@ from measure_signals import FS, PRESET, assert_one_line_error, run, run_json, wa
 
 from synth.engine.render import render
 from synth.physics.bar_fe import solve_bar
-from synth.physics.instrument import design_from_table, load_instrument
-from synth.physics.losses import parse_calibration
 from synth.physics.solid_correction import correction_of
 from synth.physics.stiffness import fit_stiffness
 from synth.pitch import cents
+from synth.settings.instrument import design_from_table, load_instrument
 from synth.voicing import Voicer
 
 HIDDEN_SCALE = 1.02
@@ -159,7 +158,7 @@ def test_file_records_the_measurement_and_loads_from_a_preset(calibrated) -> Non
     preset.write_text(PRESET.read_text(encoding="utf-8")
                       + '\n[damping]\ncalibration_file = "cal.toml"\n', encoding="utf-8")
     inst = load_instrument(preset)
-    loaded = parse_calibration(inst.section("damping"), tuple(inst.notes)).stiffness
+    loaded = inst.tables.damping.stiffness
     assert loaded.youngs_scale == pytest.approx(st["youngs_modulus_scale"], rel=1e-8)
     assert loaded.factors == pytest.approx(st["factors"], rel=1e-8)
 
@@ -234,7 +233,8 @@ def test_tubes_table_is_kept_and_tables_are_not_overwritten(calibrated, tmp_path
     run_json(*args, "--force")
     assert tomllib.loads(out.read_text(encoding="utf-8"))["tubes"]["gap_calibration"] == 1.25
     # and tubecal's direction: [tubes] into a file that holds [damping] and [stiffness]
-    from synth.reports.measure import calibration_target, calibration_text
+    from synth.reports.measure import calibration_text
+    from synth.settings.damping import calibration_target
 
     target = calibration_target(out, ("tubes",), force=True)
     text = calibration_text(["# tubes again"], {"tubes": {"gap_calibration": 1.5}},

@@ -52,7 +52,7 @@ def test_cutlist_marks_uncalibrated_tube_lengths(tmp_path):
 
 def test_calibration_file_tubes_reach_the_voice_plan(tmp_path):
     """A calibration file's [tubes] (tubecal --out) is used by renders and sustain, unmarked."""
-    from synth.physics.instrument import load_instrument
+    from synth.settings.instrument import load_instrument
     from synth.voicing import Voicer
 
     (tmp_path / "tubes.toml").write_text(

@@ -30,9 +30,9 @@ from typer.testing import CliRunner
 from synth.cli import app
 from synth.physics.bar_fe import solve_bar
 from synth.physics.geometry import BarGeometry
-from synth.physics.materials import load_material
 from synth.reports.measure import measure_signal
 from synth.reports.offcut import OffcutInputs, analyse_offcut, impulse_moduli, uncertainties
+from synth.settings.material import load_material
 
 FS = 48000
 GAPS = [((0.3, 0.04, 0.01), 0.0019), ((0.2, 0.025, 0.006), 0.0015),

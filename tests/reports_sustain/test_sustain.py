@@ -16,9 +16,9 @@ import math
 import pytest
 
 from synth.config import presets_dir
-from synth.physics.instrument import load_instrument
 from synth.reports.chord import chord_decay
 from synth.reports.sustain import parse_target_curve, sustain_report
+from synth.settings.instrument import load_instrument
 from synth.voicing import Voicer
 
 DEMO = presets_dir() / "instruments" / "lantern-street-bars.toml"

@@ -21,9 +21,9 @@ from typer.testing import CliRunner
 from synth.cli import app
 from synth.config import presets_dir
 from synth.physics.coupling import suggest_tube_offset
-from synth.physics.instrument import load_instrument
 from synth.pitch import midi_to_note
 from synth.reports.sustain import trend_targets
+from synth.settings.instrument import load_instrument
 from synth.voicing import Voicer
 
 DEMO = presets_dir() / "instruments" / "lantern-street-bars.toml"

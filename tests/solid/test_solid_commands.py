@@ -18,9 +18,9 @@ from cli_helpers import DEMO, assert_one_line_error, run
 
 from synth.executor import Job, run_jobs
 from synth.physics.geometry import ArchUndercut, BarGeometry
-from synth.physics.instrument import load_instrument
 from synth.physics.solid import SolidMode, solve_level, solve_levels
 from synth.pitch import cents
+from synth.settings.instrument import load_instrument
 
 
 @pytest.fixture(scope="module")

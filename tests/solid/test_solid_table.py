@@ -16,10 +16,10 @@ import tomli_w
 from cli_helpers import DEMO, assert_one_line_error, run
 
 from synth.config import load_toml
-from synth.physics.instrument import load_instrument
 from synth.physics.solid import solve_levels
 from synth.physics.solid_correction import anchor_notes, correction_of
 from synth.pitch import cents
+from synth.settings.instrument import load_instrument
 
 
 @pytest.fixture(scope="module")

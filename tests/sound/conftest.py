@@ -5,7 +5,7 @@ from __future__ import annotations
 import pytest
 
 from synth.config import presets_dir
-from synth.physics.instrument import load_instrument
+from synth.settings.instrument import load_instrument
 
 
 @pytest.fixture(scope="session")

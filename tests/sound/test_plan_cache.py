@@ -103,7 +103,7 @@ def test_contact_key_changes_with_the_strike(demo) -> None:
 def test_key_is_the_same_in_another_process(demo) -> None:
     """A key made in a fresh interpreter equals this one (no addresses or hash seeds in it)."""
     code = ("from synth.config import presets_dir\n"
-            "from synth.physics.instrument import load_instrument\n"
+            "from synth.settings.instrument import load_instrument\n"
             "from synth.voicing import Voicer\n"
             "inst = load_instrument(presets_dir() / 'instruments' / 'lantern-street-bars.toml')\n"
             "print(Voicer(inst)._plan_key('note-model', 'A4'))\n")

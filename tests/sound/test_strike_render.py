@@ -61,7 +61,7 @@ def test_strike_at_a_node_leaves_that_mode_silent(demo) -> None:
 
 
 def v_mallet():
-    from synth.physics.mallet import load_mallet
+    from synth.settings.mallet import load_mallet
 
     return load_mallet("medium")
 

@@ -28,10 +28,10 @@ from typer.testing import CliRunner
 
 from synth.cli import app
 from synth.errors import ConfigError
-from synth.physics.instrument import load_instrument
 from synth.reports import sweep
 from synth.reports.demo import demo_preset_path
 from synth.reports.sustain import sustain_report
+from synth.settings.instrument import load_instrument
 from synth.voicing import Voicer
 
 PRESET = demo_preset_path()
@@ -114,8 +114,8 @@ def test_parse_vary_values_and_lists() -> None:
     assert sweep.parse_vary("motor.rate_rev_per_s=0,3").values == (0, 3)
     assert sweep.parse_vary("tubes.enabled=true,false").values == (True, False)
     tables = sweep.variant_tables(PRESET, [v])
-    assert tables[0][1]["blank"]["thickness_m"] == [0.013, 0.011]
-    assert tables[1][1]["blank"]["thickness_m"] == [0.012, 0.012]  # a scalar fills the list
+    assert tables[0][1].blank.thickness_m == (0.013, 0.011)
+    assert tables[1][1].blank.thickness_m == (0.012, 0.012)  # a scalar fills the list
     for bad in ("offset_cents", "=1,2", "tubes..gap_m=1", "tubes.gap_m=1,,2",
                 "tubes.gap_m=nan"):
         with pytest.raises(ConfigError, match="--vary"):
@@ -141,10 +141,10 @@ def test_failed_variant_is_reported_and_the_rest_complete(tmp_path, monkeypatch)
     """Exit 3 with the failure said first; the other variants are in the table."""
     real = sweep._evaluate
 
-    def sometimes(settings, data, source):
+    def sometimes(settings, inst):
         if dict(settings)["tubes.offset_cents"] == 20:
             raise ConfigError("= 20: made to fail by the test", source="tubes.offset_cents")
-        return real(settings, data, source)
+        return real(settings, inst)
 
     monkeypatch.setattr(sweep, "_evaluate", sometimes)
     out = tmp_path / "o"
