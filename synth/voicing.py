@@ -36,6 +36,7 @@ hold): it rings while the dampers are lifted and stops when they come down.
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
 from dataclasses import dataclass, field, replace
 from functools import cached_property, lru_cache
 from pathlib import Path
@@ -47,7 +48,7 @@ from synth.constants import LN_1000
 from synth.engine.contact import run_contact
 from synth.engine.score import Score, Strike
 from synth.engine.voice import ModeBank, ModePair, Voice, constant_power_pan, seconds_to_sample
-from synth.errors import ConfigError
+from synth.errors import ConfigError, ModelError
 from synth.physics.bar_fe import BarModes, solve_bar
 from synth.physics.coupling import BarMode, BarTubeCoupling, couple, pressure_weight
 from synth.physics.instrument import BarFile, Instrument
@@ -505,8 +506,15 @@ class Voicer:
 
     # -- scores --------------------------------------------------------------------
     def score_voices(self, score: Score, *, default_pedal: float = 1.0,
-                     progress=None) -> list[Voice]:
-        """Voices for every strike of a score (pedal changes applied)."""
+                     progress=None, workers: int | None = 1) -> list[Voice]:
+        """Voices for every strike of a score (pedal changes applied).
+
+        ``workers``: processes the strikes are planned on, the strikes of each
+        note one independent job of :func:`synth.executor.run_jobs` (so each
+        note's bar is solved once); 1 plans them here, None on every core.  The
+        voices are the same whichever number planned them.  ``progress(done,
+        total)`` counts strikes (a note's strikes when its job is back).
+        """
         pedal = ((0.0, default_pedal),) + tuple((p.time_s, p.value) for p in score.pedal)
         notes = self.instrument.notes
         for st in score.strikes:   # every note checked before any work starts
@@ -515,12 +523,34 @@ class Voicer:
                     f"= {st.note!r}: not in the range of {Path(self.instrument.source).name}; "
                     f"allowed: {notes[0]} to {notes[-1]}",
                     source=score.source or None, key=f"{st.key}.note" if st.key else "note")
-        voices = []
+        if workers == 1:
+            voices = []
+            for k, st in enumerate(score.strikes):
+                voices.append(self._strike_of(st, pedal))
+                if progress is not None:
+                    progress(k + 1, len(score.strikes))
+            return voices
+        from synth.executor import Job, run_jobs
+
+        by_note: dict[str, list[int]] = {}
         for k, st in enumerate(score.strikes):
-            voices.append(self._strike_of(st, pedal))
+            by_note.setdefault(st.note, []).append(k)
+        jobs = [Job(note, plan_strikes, (self, tuple(score.strikes[k] for k in ks), pedal))
+                for note, ks in by_note.items()]
+        count = [0]
+
+        def done(res) -> None:
+            count[0] += len(by_note[res.key])
             if progress is not None:
-                progress(k + 1, len(score.strikes))
-        return voices
+                progress(count[0], len(score.strikes))
+
+        out: list[Voice | None] = [None] * len(score.strikes)
+        for res in run_jobs(jobs, workers=workers, progress=done):
+            if not res.ok:
+                raise ModelError(f"planning {res.key}: {res.error}")
+            for k, voice in zip(by_note[res.key], res.value, strict=True):
+                out[k] = voice
+        return out
 
     def _strike_of(self, st: Strike, pedal) -> Voice:
         # A bar has no key to hold: a strike without a release of its own is free at
@@ -530,6 +560,14 @@ class Voicer:
                                  speed_m_s=st.mallet_speed_m_s, mallet=st.mallet,
                                  position=st.position, across=st.across,
                                  release_s=release, pedal=pedal)
+
+
+def plan_strikes(voicer: Voicer, strikes: Sequence[Strike], pedal) -> list[Voice]:
+    """Return the voices of ``strikes`` under the pedal curve ``pedal``.
+
+    One job of :meth:`Voicer.score_voices` (module level, picklable).
+    """
+    return [voicer._strike_of(st, pedal) for st in strikes]
 
 
 @lru_cache(maxsize=64)

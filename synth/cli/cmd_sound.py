@@ -32,6 +32,7 @@ from synth.cli.options import (  # noqa: F401  (cmd_compare reads the aliases fr
     RenderOptions,
     TubesOpt,
     render_options,
+    workers_option,
 )
 from synth.errors import ConfigError
 
@@ -295,6 +296,7 @@ def render_command(
     mallet: MalletOpt = None,
     pedal: ScorePedalOpt = 0.0,
     tail: TailOpt = None,
+    workers: workers_option("planning the strikes (one job per note)") = None,
     *,
     render: RenderOptions,
 ) -> None:
@@ -316,7 +318,13 @@ def render_command(
         score = replace(score, strikes=tuple(replace(s, mallet=s.mallet or mallet)
                                              for s in score.strikes))
     with Progress(len(score.strikes), "planning") as step:
-        voices = v.score_voices(score, default_pedal=pedal, progress=lambda k, n: step(1))
+        last = [0]
+
+        def planned(done: int, total: int) -> None:
+            step(done - last[0])
+            last[0] = done
+
+        voices = v.score_voices(score, default_pedal=pedal, progress=planned, workers=workers)
     if score.length_s is None and tail is not None:
         seconds = score.last_event_s + tail
     else:

@@ -148,18 +148,19 @@ def solid_tune_job(spec: TuneSpec, level: int | None, accuracy: float | None,
 
 
 def tune_with_table(instrument, notes: list[str], table, *, ratios=None,
-                    progress=None) -> list[TuneResult]:
+                    progress=None, workers: int | None = 1) -> list[TuneResult]:
     """Tune ``notes`` in 1-D to target / (the table's interpolated factors).
 
     The results carry the original specs; ``frequencies_hz`` are the table's predicted
     3-D frequencies (1-D times factor), ``residual_cents`` and ``reachable`` refer to them.
+    ``workers``: as :func:`synth.physics.tuning.tune_instrument`.
     """
+    from functools import partial
+
     from synth.physics.tuning import tune_instrument
 
-    def aim(spec: TuneSpec) -> TuneSpec:
-        return corrected_spec(spec, np.asarray(table.vertical(spec.note, len(spec.ratios))))
-
-    raw = tune_instrument(instrument, notes, ratios=ratios, progress=progress, aim=aim)
+    raw = tune_instrument(instrument, notes, ratios=ratios, progress=progress,
+                          aim=partial(aim_through_table, table), workers=workers)
     out = []
     for r in raw:
         original = replace(r.spec, fundamental_hz=instrument.target_hz(r.spec.note),
@@ -173,6 +174,11 @@ def tune_with_table(instrument, notes: list[str], table, *, ratios=None,
         out.append(replace(r, spec=original, frequencies_hz=predicted, residual_cents=miss,
                            reachable=r.reachable and ok, message=msg))
     return out
+
+
+def aim_through_table(table, spec: TuneSpec) -> TuneSpec:
+    """Return the 1-D spec that lands ``spec`` in 3-D through the table (picklable)."""
+    return corrected_spec(spec, np.asarray(table.vertical(spec.note, len(spec.ratios))))
 
 
 def anchor_job(geometry, material, level: int | None, accuracy: float | None,
