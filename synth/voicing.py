@@ -262,11 +262,21 @@ class Voicer:
     def _plan_key(self, kind: str, note: str, *more) -> str:
         """Disk-cache key: every setting :meth:`_solve_model` reads, and ``more``."""
         inst = self.instrument
+        return plan_cache.plan_key(kind, note, inst.bars.get(note),
+                                   inst.tube_lengths.get(note), self._settings_key, *more)
+
+    @cached_property
+    def _settings_key(self) -> str:
+        """Return the key of the settings every note's plan shares.
+
+        Hashed once per plan, not per strike: a strike's key then costs a hash of
+        its own few settings.
+        """
+        inst = self.instrument
         return plan_cache.plan_key(
-            kind, note, inst.bars.get(note), inst.notes[0], inst.notes[-1], self.material,
+            "plan-settings", inst.notes[0], inst.notes[-1], self.material,
             self.temperature_c, self.supports, self.loss_calibration, self.sound,
-            self.channels, self.tubes_active, self.tube_settings, inst.tube_lengths.get(note),
-            self.correction, *more)
+            self.channels, self.tubes_active, self.tube_settings, self.correction)
 
     def _solve_model(self, note: str) -> NoteModel:
         geo = self.instrument.bar(note)
