@@ -29,6 +29,9 @@ frequencies and decays).  When the whole job would take numpy more than a few
 seconds, numpy evaluates an evenly spaced subset of the blocks across the whole
 length, and its rate is the mode-samples of those blocks over their time.
 
+The speed-up of two workers over one (range render, sustain, tune) is the
+``workers`` suite's (:mod:`synth.bench.workers`).
+
 Figures
 -------
 userjobs.strike_mode_samples,
@@ -75,9 +78,6 @@ userjobs.warm_strike_wall_s, userjobs.warm_strike_cpu_s
     filled, start to WAV: median wall time and the process's CPU time (target < 1 s).
 userjobs.help_wall_s
     ``barwright --help`` in a new process, median wall time (target < 0.3 s).
-
-The speed-up of two workers over one (range render, sustain, tune) is the
-``workers`` suite's (:mod:`synth.bench.workers`).
 """
 
 from __future__ import annotations

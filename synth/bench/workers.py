@@ -21,9 +21,13 @@ Figures
 -------
 workers.range_2_over_1, workers.sustain_2_over_1, workers.tune_2_over_1
     Wall-time speed-up of two workers over one (medians of interleaved runs).
-workers.range_wall_1_s, workers.range_wall_2_s (and sustain, tune)
+workers.range_wall_1_s, workers.range_wall_2_s,
+workers.sustain_wall_1_s, workers.sustain_wall_2_s,
+workers.tune_wall_1_s, workers.tune_wall_2_s
     The median wall times, s.
-workers.range_cpu_1_s, workers.range_cpu_2_s (and sustain, tune)
+workers.range_cpu_1_s, workers.range_cpu_2_s,
+workers.sustain_cpu_1_s, workers.sustain_cpu_2_s,
+workers.tune_cpu_1_s, workers.tune_cpu_2_s
     Median CPU time of a run, s (pool start and pickling included on two).
 """
 
