@@ -48,7 +48,7 @@ from synth.constants import LN_1000
 from synth.engine.contact import run_contact
 from synth.engine.score import Score, Strike
 from synth.engine.voice import ModeBank, ModePair, Voice, constant_power_pan, seconds_to_sample
-from synth.errors import ConfigError, ModelError
+from synth.errors import ConfigError
 from synth.physics.bar_fe import BarModes, solve_bar
 from synth.physics.coupling import BarMode, BarTubeCoupling, couple, pressure_weight
 from synth.physics.instrument import BarFile, Instrument
@@ -540,7 +540,7 @@ class Voicer:
                 if progress is not None:
                     progress(k + 1, len(score.strikes))
             return voices
-        from synth.executor import Job, run_jobs
+        from synth.executor import Job, run_jobs, values_or_raise
 
         by_note: dict[str, list[int]] = {}
         for k, st in enumerate(score.strikes):
@@ -554,11 +554,11 @@ class Voicer:
             if progress is not None:
                 progress(count[0], len(score.strikes))
 
+        planned = values_or_raise(jobs, run_jobs(jobs, workers=workers, progress=done),
+                                  "planning")
         out: list[Voice | None] = [None] * len(score.strikes)
-        for res in run_jobs(jobs, workers=workers, progress=done):
-            if not res.ok:
-                raise ModelError(f"planning {res.key}: {res.error}")
-            for k, voice in zip(by_note[res.key], res.value, strict=True):
+        for ks, voices in zip(by_note.values(), planned, strict=True):
+            for k, voice in zip(ks, voices, strict=True):
                 out[k] = voice
         return out
 

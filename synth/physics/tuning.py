@@ -567,7 +567,7 @@ def tune_instrument(instrument: Instrument, notes: list[str] | None = None, *,
     module-level function or a :func:`functools.partial` of one) when
     ``workers`` is not 1.
     """
-    from synth.executor import Job, run_jobs
+    from synth.executor import Job, run_jobs, values_or_raise
 
     notes = list(notes or instrument.notes)
     order = sorted(notes, key=instrument.note_fraction)
@@ -580,11 +580,8 @@ def tune_instrument(instrument: Instrument, notes: list[str] | None = None, *,
             for r in res.value:
                 progress(r.spec.note)
 
-    results: dict[str, TuneResult] = {}
-    for res in run_jobs(jobs, workers=workers, progress=done):
-        if not res.ok:
-            raise ModelError(f"tuning {res.key}: {res.error}")
-        results.update((r.spec.note, r) for r in res.value)
+    done_runs = values_or_raise(jobs, run_jobs(jobs, workers=workers, progress=done), "tuning")
+    results = {r.spec.note: r for run in done_runs for r in run}
     return [results[n] for n in notes]
 
 

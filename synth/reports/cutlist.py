@@ -14,8 +14,7 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
-from synth.errors import ModelError
-from synth.executor import Job, run_jobs
+from synth.executor import Job, run_jobs, values_or_raise
 from synth.physics.bar_fe import solve_bar
 from synth.physics.instrument import Instrument
 from synth.physics.solid_correction import corrected_modes, correction_of
@@ -80,12 +79,9 @@ def cut_rows(instrument: Instrument, notes: list[str] | None = None, progress=No
     jobs = [Job(n, _cut_row, (instrument, n, tubes)) for n in notes]
     done = run_jobs(jobs, workers=workers,
                     progress=None if progress is None else (lambda r: progress(r.key)))
-    failed = [r for r in done if not r.ok]
-    if failed:
-        raise ModelError(f"cut list of {failed[0].key}: {failed[0].error}")
     given = tube_lengths or {}
-    return [replace(r.value, tube_length_m=given[r.key]) if r.key in given else r.value
-            for r in done]
+    return [replace(r, tube_length_m=given[r.note]) if r.note in given else r
+            for r in values_or_raise(jobs, done, "cut list of")]
 
 
 def _cut_row(instrument: Instrument, note: str, tubes: bool) -> CutRow:

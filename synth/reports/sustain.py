@@ -39,8 +39,8 @@ import numpy as np
 from synth.analysis import band_envelope, fit_envelope_decay
 from synth.constants import LN_1000
 from synth.engine.render import render
-from synth.errors import ConfigError, ModelError
-from synth.executor import Job, run_jobs
+from synth.errors import ConfigError
+from synth.executor import Job, run_jobs, values_or_raise
 from synth.numerics import bracketed_root
 from synth.physics.coupling import coupling_at_offset
 from synth.physics.motor import disc_modulation, steady_bar_decay_per_s
@@ -201,13 +201,10 @@ def sustain_report(voicer: Voicer, notes: list[str] | None = None, *,
                           source="--max-offset-cents")
     inst = voicer.instrument
     notes = list(notes or inst.notes)
-    done = run_jobs([Job(n, _measure_note, (voicer, n, max_render_s)) for n in notes],
-                    workers=workers,
+    jobs = [Job(n, _measure_note, (voicer, n, max_render_s)) for n in notes]
+    done = run_jobs(jobs, workers=workers,
                     progress=None if progress is None else (lambda r: progress(r.key)))
-    failed = [r for r in done if not r.ok]
-    if failed:
-        raise ModelError(f"sustain of {failed[0].key}: {failed[0].error}")
-    measured = {r.key: r.value for r in done}
+    measured = dict(zip(notes, values_or_raise(jobs, done, "sustain of"), strict=True))
     fund = {n: measured[n].fundamental for n in notes}
     if target_curve is not None:
         targets = target_curve

@@ -81,3 +81,28 @@ def test_passage_planned_on_two_workers_renders_the_same(inst) -> None:
                   n, sample_rate=48000.0, channels=2)
     assert np.max(np.abs(here)) > 0
     np.testing.assert_array_equal(pool, here)
+
+
+def test_bad_strike_raises_its_own_error_on_any_number_of_workers(inst) -> None:
+    """A strike naming no mallet preset fails with the same ConfigError on 2 processes.
+
+    The same type (exit code 2) and line as here: the failed job is run again in
+    this process.
+    """
+    from dataclasses import replace
+
+    from synth.engine.score import read_events
+    from synth.errors import ConfigError
+    from synth.voicing import Voicer
+
+    score = read_events(presets_dir() / "events" / "harbour-waltz.toml")
+    strikes = list(score.strikes[:6])
+    strikes[3] = replace(strikes[3], mallet="no-such-mallet")
+    score = replace(score, strikes=tuple(strikes))
+    messages = []
+    for workers in (1, 2):
+        with pytest.raises(ConfigError) as caught:
+            Voicer(inst, sample_rate=48000.0).score_voices(score, workers=workers)
+        messages.append(str(caught.value))
+    assert messages[0] == messages[1]
+    assert "no-such-mallet" in messages[0]
