@@ -10,7 +10,7 @@ interleaved so that both meet the same load:
 * ``sustain``: :func:`synth.reports.sustain.sustain_report` over the range, plan
   cache filled;
 * ``tune``: :func:`synth.physics.tuning.tune_instrument` over the range (1-D, runs
-  of six neighbouring bars).
+  of ten neighbouring bars).
 
 The speed-up is the median wall time on one worker over the median on two
 (target >= 1.7 on two free cores).  On a shared machine the other processes take

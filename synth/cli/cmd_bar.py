@@ -271,7 +271,7 @@ def tune_command(
     residuals shown are from that re-solve. Targets: +-1 cent for the fundamental,
     +-3 cents above. A bar that cannot reach its targets is reported with the
     constraint that binds; the command then says so first and exits with code 3,
-    and writes --out only with --keep-best. Bars are warm-started in runs of six
+    and writes --out only with --keep-best. Bars are warm-started in runs of ten
     neighbours, the runs spread over --workers processes (the same bars on any
     number). With --solid the residuals are those of
     the 3-D model (Richardson-extrapolated over its mesh levels); --level, --accuracy,
