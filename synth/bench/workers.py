@@ -15,12 +15,20 @@ interleaved so that both meet the same load:
 The speed-up is the median wall time on one worker over the median on two
 (target >= 1.7 on two free cores).  On a shared machine the other processes take
 cores away from the pool, so the CPU time of each run is reported beside it: this
-process and its finished worker processes, user + system.
+process and its finished worker processes, user + system; and a reference job,
+interleaved with the others, shows what two workers can gain at all at that
+moment: twelve jobs that each only count for 0.1 s of thread CPU time (no memory
+traffic, no pickling to speak of).  A job's share of the reference is its
+speed-up over the reference's.
 
 Figures
 -------
 workers.range_2_over_1, workers.sustain_2_over_1, workers.tune_2_over_1
     Wall-time speed-up of two workers over one (medians of interleaved runs).
+workers.reference_2_over_1
+    The same for the reference job (CPU only): what the machine allowed.
+workers.range_of_reference, workers.sustain_of_reference, workers.tune_of_reference
+    Each job's speed-up over the reference's.
 workers.range_wall_1_s, workers.range_wall_2_s,
 workers.sustain_wall_1_s, workers.sustain_wall_2_s,
 workers.tune_wall_1_s, workers.tune_wall_2_s
@@ -88,6 +96,24 @@ def two_over_one(run: Callable[[int, int], object], repeats: int) -> dict[str, f
             "cpu_1_s": statistics.median(cpu[1]), "cpu_2_s": statistics.median(cpu[2])}
 
 
+REFERENCE_JOBS = 12
+REFERENCE_CPU_S = 0.1
+
+
+def spin(cpu_s: float) -> int:
+    """Count until ``cpu_s`` of this thread's CPU time has passed (the reference job)."""
+    t0 = time.thread_time()
+    n = 0
+    while time.thread_time() - t0 < cpu_s:
+        n += 1
+    return n
+
+
+def _reference(workers: int, r: int) -> None:
+    run_jobs([Job(k, spin, (REFERENCE_CPU_S,)) for k in range(REFERENCE_JOBS)],
+             workers=workers)
+
+
 def _range_runner(folder: Path, notes: tuple[str, ...]) -> Callable[[int, int], object]:
     from synth.bench.userjobs import _cache_in
 
@@ -115,6 +141,7 @@ def run(quick: bool = False) -> dict[str, float]:
         d = Path(tmp)
         picked = inst.notes[::3] if quick else inst.notes
         jobs = {
+            "reference": _reference,
             "range": _range_runner(d, picked),
             "sustain": lambda w, r: sustain_report(Voicer(inst, channels=1), workers=w),
             "tune": lambda w, r: tune_instrument(inst, workers=w),
@@ -123,5 +150,9 @@ def run(quick: bool = False) -> dict[str, float]:
             sustain_report(Voicer(inst, channels=1), workers=1)   # fills the plan cache
             for name, call in jobs.items():
                 for key, value in two_over_one(call, repeats).items():
-                    figures[f"workers.{name}_{key}"] = value
+                    if name != "reference" or key == "2_over_1":
+                        figures[f"workers.{name}_{key}"] = value
+    for name in ("range", "sustain", "tune"):
+        figures[f"workers.{name}_of_reference"] = (figures[f"workers.{name}_2_over_1"]
+                                                   / figures["workers.reference_2_over_1"])
     return figures
