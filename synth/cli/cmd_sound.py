@@ -296,7 +296,7 @@ def render_command(
     mallet: MalletOpt = None,
     pedal: ScorePedalOpt = 0.0,
     tail: TailOpt = None,
-    workers: workers_option("planning the strikes (one job per note)") = None,
+    workers: workers_option("planning the strikes, one job per note") = None,
     *,
     render: RenderOptions,
 ) -> None:
