@@ -33,7 +33,7 @@ from concurrent.futures.process import BrokenProcessPool
 from dataclasses import dataclass
 from typing import Any
 
-from synth.errors import ConfigError, SynthError
+from synth.errors import ConfigError, ModelError, SynthError
 
 SCHEDULER_ENV = "BARWRIGHT_SCHEDULER"
 """Environment variable holding a Dask scheduler address (used when none is given)."""
@@ -120,6 +120,21 @@ def run_jobs(jobs: Sequence[Job], *, workers: int | None = None, scheduler: str 
     if n == 1:
         return _run_here(jobs, progress)
     return _run_pool(jobs, n, progress)
+
+
+def values_or_raise(jobs: Sequence[Job], results: Sequence[JobResult], what: str) -> list:
+    """Return the values of ``results`` in job order, or raise the first job's error.
+
+    A job that failed is run once more in this process, so that its own exception
+    (its type, hence the exit code, and its message) is raised just as with one
+    worker; a job that fails only in a worker raises :class:`ModelError` naming
+    ``what`` and its key.
+    """
+    for job, result in zip(jobs, results, strict=True):
+        if not result.ok:
+            job.func(*job.args)
+            raise ModelError(f"{what} {result.key}: {result.error}")
+    return [r.value for r in results]
 
 
 def _call(job: Job) -> JobResult:

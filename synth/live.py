@@ -157,7 +157,31 @@ def level_scales(voicers: Sequence[Voicer], *, ceiling_dbtp: float = -1.0) -> li
     first design's range and the second's shared); one design is put with its
     true peak at ``ceiling_dbtp``, two are matched to equal integrated loudness
     with the louder true peak there (:func:`synth.reports.compare.match_levels`).
+
+    The gains are a pure function of the designs' settings, so they are kept in
+    the plan cache (:mod:`synth.plan_cache`), keyed on every setting of each
+    voice plan (the mallet file's values too) and on the source of the modules
+    the match runs through (the engine, the analysis, ``compare`` and this
+    module): a warm start renders and measures nothing, and imports neither
+    scipy's signal package nor the loudness code.
     """
+    from synth import plan_cache
+    from synth.settings.mallet import load_mallet
+
+    voicers = tuple(voicers)
+    heads = tuple(load_mallet(v.sound.mallet) for v in voicers)   # the files' values
+    key = plan_cache.plan_key("level-scales", voicers, heads, float(ceiling_dbtp),
+                              plan_cache.source_fingerprint(_LEVEL_SOURCES))
+    return list(plan_cache.cached(key, lambda: _match_scales(voicers, ceiling_dbtp)))
+
+
+_LEVEL_SOURCES: Final[tuple[str, ...]] = ("engine/*.py", "analysis/*.py", "reports/compare.py",
+                                          "live.py")
+"""Modules the level match runs through besides the planning ones (its cache key)."""
+
+
+def _match_scales(voicers: Sequence[Voicer], ceiling_dbtp: float) -> tuple[float, ...]:
+    """Render ``compare``'s phrase for each design and match levels (see level_scales)."""
     from synth.engine.render import render
     from synth.reports.compare import default_passage, fade_out, match_levels
 
@@ -172,7 +196,7 @@ def level_scales(voicers: Sequence[Voicer], *, ceiling_dbtp: float = -1.0) -> li
     a, b = renders[0], renders[-1]
     _, _, plan = match_levels(a, b, voicers[0].sample_rate, ceiling_dbtp=ceiling_dbtp)
     gains = [10.0 ** (g / 20.0) for g in plan.output_gain_db]
-    return gains[:len(voicers)]
+    return tuple(gains[:len(voicers)])
 
 
 @dataclass

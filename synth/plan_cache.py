@@ -55,12 +55,21 @@ def cache_dir() -> Path | None:
     return Path(base) / "barwright"
 
 
-@cache
 def code_fingerprint() -> str:
     """Return a hash of the source of every module that computes a plan."""
+    return source_fingerprint(_SOURCES)
+
+
+@cache
+def source_fingerprint(patterns: tuple[str, ...]) -> str:
+    """Return a hash of the source of the package modules matching ``patterns``.
+
+    A plan that also depends on modules outside the planning set (the engine's
+    render, a loudness measure) puts their fingerprint among its settings.
+    """
     root = Path(__file__).resolve().parent
     digest = hashlib.sha256()
-    for pattern in _SOURCES:
+    for pattern in patterns:
         for path in sorted(root.glob(pattern)):
             digest.update(path.relative_to(root).as_posix().encode())
             digest.update(path.read_bytes())

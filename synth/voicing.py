@@ -36,6 +36,7 @@ hold): it rings while the dampers are lifted and stops when they come down.
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
 from dataclasses import dataclass, field, replace
 from functools import cached_property, lru_cache
 from pathlib import Path
@@ -257,11 +258,21 @@ class Voicer:
     def _plan_key(self, kind: str, note: str, *more) -> str:
         """Disk-cache key: every setting :meth:`_solve_model` reads, and ``more``."""
         inst = self.instrument
+        return plan_cache.plan_key(kind, note, inst.bars.get(note),
+                                   inst.tube_lengths.get(note), self._settings_key, *more)
+
+    @cached_property
+    def _settings_key(self) -> str:
+        """Return the key of the settings every note's plan shares.
+
+        Hashed once per plan, not per strike: a strike's key then costs a hash of
+        its own few settings.
+        """
+        inst = self.instrument
         return plan_cache.plan_key(
-            kind, note, inst.bars.get(note), inst.notes[0], inst.notes[-1], self.material,
+            "plan-settings", inst.notes[0], inst.notes[-1], self.material,
             self.temperature_c, self.supports, self.loss_calibration, self.sound,
-            self.channels, self.tubes_active, self.tube_settings, inst.tube_lengths.get(note),
-            self.correction, *more)
+            self.channels, self.tubes_active, self.tube_settings, self.correction)
 
     def _solve_model(self, note: str) -> NoteModel:
         geo = self.instrument.bar(note)
@@ -535,8 +546,15 @@ class Voicer:
 
     # -- scores --------------------------------------------------------------------
     def score_voices(self, score: Score, *, default_pedal: float = 1.0,
-                     progress=None) -> list[Voice]:
-        """Voices for every strike of a score (pedal changes applied)."""
+                     progress=None, workers: int | None = 1) -> list[Voice]:
+        """Voices for every strike of a score (pedal changes applied).
+
+        ``workers``: processes the strikes are planned on, the strikes of each
+        note one independent job of :func:`synth.executor.run_jobs` (so each
+        note's bar is solved once); 1 plans them here, None on every core.  The
+        voices are the same whichever number planned them.  ``progress(done,
+        total)`` counts strikes (a note's strikes when its job is back).
+        """
         pedal = ((0.0, default_pedal),) + tuple((p.time_s, p.value) for p in score.pedal)
         notes = self.instrument.notes
         for st in score.strikes:   # every note checked before any work starts
@@ -545,12 +563,37 @@ class Voicer:
                     f"= {st.note!r}: not in the range of {Path(self.instrument.source).name}; "
                     f"allowed: {notes[0]} to {notes[-1]}",
                     source=score.source or None, key=f"{st.key}.note" if st.key else "note")
-        voices = []
+        if workers == 1:
+            voices = []
+            for k, st in enumerate(score.strikes):
+                voices.append(self._strike_of(st, pedal))
+                if progress is not None:
+                    progress(k + 1, len(score.strikes))
+            return voices
+        from synth.executor import Job, run_jobs, values_or_raise
+
+        by_note: dict[str, list[int]] = {}
         for k, st in enumerate(score.strikes):
-            voices.append(self._strike_of(st, pedal))
+            by_note.setdefault(st.note, []).append(k)
+        jobs = [Job(note, plan_strikes, (self, tuple(score.strikes[k] for k in ks), pedal))
+                for note, ks in by_note.items()]
+        count = [0]
+
+        def done(res) -> None:
+            count[0] += len(by_note[res.key])
             if progress is not None:
-                progress(k + 1, len(score.strikes))
-        return voices
+                progress(count[0], len(score.strikes))
+
+        planned = values_or_raise(jobs, run_jobs(jobs, workers=workers, progress=done),
+                                  "planning")
+        out: list[Voice | None] = [None] * len(score.strikes)
+        for ks, voices in zip(by_note.values(), planned, strict=True):
+            for k, voice in zip(ks, voices, strict=True):
+                out[k] = voice
+        placed = [v for v in out if v is not None]
+        if len(placed) != len(out):
+            raise ModelError(f"{len(out) - len(placed)} strike(s) came back unplanned")
+        return placed
 
     def _strike_of(self, st: Strike, pedal) -> Voice:
         # A bar has no key to hold: a strike without a release of its own is free at
@@ -609,6 +652,12 @@ def _from_zero(voice: Voice) -> Voice:
                           decay_2_curve=shifted(p.decay_2_curve)) for p in voice.pairs)
     return replace(voice, start_sample=0, channel_gains=(1.0,), stop_sample=None, damping=(),
                    gain_curve=shifted(voice.gain_curve), pairs=pairs, onset=None)
+def plan_strikes(voicer: Voicer, strikes: Sequence[Strike], pedal) -> list[Voice]:
+    """Return the voices of ``strikes`` under the pedal curve ``pedal``.
+
+    One job of :meth:`Voicer.score_voices` (module level, picklable).
+    """
+    return [voicer._strike_of(st, pedal) for st in strikes]
 
 
 @lru_cache(maxsize=64)

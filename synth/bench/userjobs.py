@@ -29,6 +29,9 @@ frequencies and decays).  When the whole job would take numpy more than a few
 seconds, numpy evaluates an evenly spaced subset of the blocks across the whole
 length, and its rate is the mode-samples of those blocks over their time.
 
+The speed-up of two workers over one (range render, sustain, tune) is the
+``workers`` suite's (:mod:`synth.bench.workers`).
+
 Figures
 -------
 userjobs.strike_mode_samples,
@@ -75,12 +78,6 @@ userjobs.warm_strike_wall_s, userjobs.warm_strike_cpu_s
     filled, start to WAV: median wall time and the process's CPU time (target < 1 s).
 userjobs.help_wall_s
     ``barwright --help`` in a new process, median wall time (target < 0.3 s).
-userjobs.range_workers_2_over_1
-    A range render (an 8 s stereo strike of each of the 37 notes, every third note
-    with ``--quick``, one WAV each, plan cache empty) run through
-    :func:`synth.executor.run_jobs` on one worker over the same on two workers:
-    wall-time speed-up, medians of interleaved runs (target >= 1.7 on two free
-    cores).
 """
 
 from __future__ import annotations
@@ -101,7 +98,6 @@ from threadpoolctl import threadpool_limits
 from synth.bench import bank_kernel_call, median_time
 from synth.config import presets_dir
 from synth.engine.voice import Voice
-from synth.executor import Job, run_jobs
 from synth.output import render_to_wav
 from synth.plan_cache import CACHE_ENV
 from synth.settings.instrument import load_instrument
@@ -229,36 +225,6 @@ def _subprocess_s(args: list[str], env: dict[str, str]) -> tuple[float, float]:
     return wall, usage.ru_utime + usage.ru_stime
 
 
-RANGE_SECONDS = 8
-"""Length of each note's WAV in the range render, s."""
-
-
-def _range_note(preset: str, note: str, out: str) -> float:
-    """One job of the range render: plan and render one strike (module level: picklable)."""
-    v = Voicer(load_instrument(preset), sample_rate=float(FS))
-    report = render_to_wav(out, [v.strike_voice(note)], RANGE_SECONDS * FS, sample_rate=FS,
-                           force=True)
-    return report.plan.peak
-
-
-def _range_ratio(folder: Path, notes: tuple[str, ...], quick: bool, repeats: int) -> float:
-    """Median wall time on one worker over the median on two, runs interleaved."""
-    picked = notes[::3] if quick else notes
-    walls: dict[int, list[float]] = {1: [], 2: []}
-    for r in range(repeats):
-        for workers in (1, 2):
-            with _cache_in(folder / f"range-cache-{workers}-{r}"):
-                jobs = [Job(n, _range_note, (str(_preset()), n, str(folder / f"r{n}.wav")))
-                        for n in picked]
-                t0 = time.perf_counter()
-                results = run_jobs(jobs, workers=workers)
-                walls[workers].append(time.perf_counter() - t0)
-            bad = [res for res in results if not res.ok]
-            if bad:
-                raise RuntimeError(f"range render: {bad[0].key}: {bad[0].error}")
-    return statistics.median(walls[1]) / statistics.median(walls[2])
-
-
 def run(quick: bool = False) -> dict[str, float]:
     """Run the suite; return figures keyed by dotted name."""
     inst = load_instrument(_preset())
@@ -305,7 +271,4 @@ def run(quick: bool = False) -> dict[str, float]:
         figures["userjobs.warm_strike_cpu_s"] = statistics.median(r[1] for r in runs)
         figures["userjobs.help_wall_s"] = statistics.median(
             _subprocess_s(["--help"], env)[0] for _ in range(repeats))
-    with tempfile.TemporaryDirectory() as tmp:
-        figures["userjobs.range_workers_2_over_1"] = _range_ratio(Path(tmp), inst.notes, quick,
-                                                                   repeats)
     return figures

@@ -14,7 +14,6 @@ from synth.cli.cmd_solid import (
     CacheOption,
     LevelOption,
     SchedulerOption,
-    WorkersOption,
     build_correction_table,
     check_level_accuracy,
     corrected_rows,
@@ -34,6 +33,7 @@ from synth.cli.common import (
     plan_outputs,
     print_json,
 )
+from synth.cli.options import workers_option
 from synth.errors import ConfigError
 from synth.physics.bar_fe import BarModes, solve_bar
 from synth.physics.instrument import BarFile, Instrument
@@ -279,7 +279,8 @@ def tune_command(
         help="Anchor spacing of --correction-table (both ends are always anchors).")] = 6,
     level: LevelOption = None,
     accuracy: AccuracyOption = None,
-    workers: WorkersOption = None,
+    workers: int | None = workers_option(
+        "the runs of neighbouring bars (1-D) and the 3-D solves"),
     scheduler: SchedulerOption = None,
     cache: CacheOption = True,
     json_out: Annotated[bool, typer.Option("--json", help="Print JSON on stdout.")] = False,
@@ -291,9 +292,11 @@ def tune_command(
     residuals shown are from that re-solve. Targets: +-1 cent for the fundamental,
     +-3 cents above. A bar that cannot reach its targets is reported with the
     constraint that binds; the command then says so first and exits with code 3,
-    and writes --out only with --keep-best. With --solid the residuals are those of
+    and writes --out only with --keep-best. Bars are warm-started in runs of ten
+    neighbours, the runs spread over --workers processes (the same bars on any
+    number). With --solid the residuals are those of
     the 3-D model (Richardson-extrapolated over its mesh levels); --level, --accuracy,
-    --workers, --scheduler and --cache apply to the 3-D solves of --solid and
+    --scheduler and --cache apply to the 3-D solves of --solid and
     --correction-table. A preset with a [solid_correction] table is tuned through it
     (1-D targets divided by the interpolated 3-D/1-D factors), and the residuals are
     the table's predictions; the command says so. With a stiffness calibration
@@ -340,7 +343,7 @@ def tune_command(
 
         with Progress(2 * len(notes), "tuning") as step:
             results, changes = tune_calibrated(inst, notes, table, stiffness, ratios=target,
-                                               progress=lambda n: step(1, n))
+                                               progress=lambda n: step(1, n), workers=workers)
     elif correction_table:
         results, table, anchor_miss = build_correction_table(
             inst, ratios=target, step=anchor_step, level=level, accuracy=wanted,
@@ -350,7 +353,7 @@ def tune_command(
 
         with Progress(len(notes), "tuning") as step:
             results = tune_with_table(inst, notes, table, ratios=target,
-                                      progress=lambda n: step(1, n))
+                                      progress=lambda n: step(1, n), workers=workers)
     elif solid:
         results, solid_runs = tune_against_solid(
             inst, notes, ratios=target, level=level, accuracy=wanted, workers=workers,
@@ -358,7 +361,7 @@ def tune_command(
     else:
         with Progress(len(notes), "tuning") as step:
             results = tune_instrument(inst, notes, ratios=target,
-                                      progress=lambda n: step(1, n))
+                                      progress=lambda n: step(1, n), workers=workers)
     elapsed = time.perf_counter() - t0
     shop = {}
     mat = inst.material.at_temperature(inst.temperature_c)
@@ -558,6 +561,8 @@ def cutlist_command(
     out: Annotated[Path | None, typer.Option(
         help="Folder for cutlist.csv and profiles.png (default renders/<preset>/).")] = None,
     force: Annotated[bool, typer.Option(help="Overwrite existing files.")] = False,
+    workers: int | None = workers_option(
+        "the bars' solves"),
     json_out: Annotated[bool, typer.Option("--json", help="Print JSON on stdout.")] = False,
 ) -> None:
     """Write the build sheet: length, undercut stations and cord holes for every bar.
@@ -579,10 +584,8 @@ def cutlist_command(
     if missing:
         raise ConfigError(f"bars.{missing[0]}: {len(missing)} bar(s) have no geometry; run "
                           "`barwright tune` with --out first", source=inst.source)
-    from synth.voicing import tube_cut_lengths
-
     with Progress(len(inst.notes), "solving") as step:
-        rows = cut_rows(inst, progress=lambda n: step(1, n), tube_lengths=tube_cut_lengths(inst))
+        rows = cut_rows(inst, progress=lambda n: step(1, n), tubes=True, workers=workers)
     io.write_bytes(csv_path, cutlist_csv(rows).encode("utf-8"), force=force)
     io.write_bytes(png_path, profile_sheet_png(
         [(r.note, inst.bar(r.note), r.cord_holes_m) for r in rows],

@@ -17,6 +17,7 @@ import typer
 
 from synth.cli import app
 from synth.cli.common import Progress, commit_outputs, handle_errors, info, plan_outputs
+from synth.cli.options import workers_option
 from synth.reports.demo import (  # noqa: F401  (the demo's names, for callers of this module)
     DEMO_PRESET,
     DEMO_TRIALS,
@@ -31,12 +32,15 @@ from synth.reports.demo import (  # noqa: F401  (the demo's names, for callers o
 def demo_command(
     out: Annotated[Path, typer.Option(help="Folder for the demo's files (replaced on each run).")
                    ] = Path("renders/demo"),
+    workers: int | None = workers_option(
+        "the tuning runs, bar solves, strikes and sustain notes"),
 ) -> None:
     """Run the main job on the bundled demo instrument and say where every file went."""
     from synth.reports.demo import run_demo
 
     plan_outputs(demo_outputs(out), force=True)
-    run_demo(out, say=typer.echo, compare=_compare, calibrate=_calibrate, steps=Progress)
+    run_demo(out, say=typer.echo, compare=_compare, calibrate=_calibrate, steps=Progress,
+             workers=workers)
     commit_outputs()
     info(f"demo done: files in {out}")
 

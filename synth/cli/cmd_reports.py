@@ -19,6 +19,7 @@ from synth.cli.common import (
     plan_outputs,
     print_json,
 )
+from synth.cli.options import workers_option
 
 if TYPE_CHECKING:  # annotations only: the report module loads when the command runs
     from synth.reports.chord import ChordDecay
@@ -76,6 +77,7 @@ def sustain_command(
     out: Annotated[Path | None, typer.Option(
         help="Folder for sustain.csv and sustain.png (default renders/<preset>/).")] = None,
     force: Annotated[bool, typer.Option(help="Overwrite existing files.")] = False,
+    workers: int | None = workers_option("the notes' budgets and rendered strikes"),
     json_out: Annotated[bool, typer.Option("--json", help="Print JSON on stdout.")] = False,
 ) -> None:
     """Sustain across the range: T60 per note and partial, mismatch against the target.
@@ -122,7 +124,7 @@ def sustain_command(
                              target=target, trend_order=trend_order,
                              tolerance_percent=tolerance, at_time_s=at_time,
                              min_gain_db=min_gain, max_offset_cents=max_offset_cents,
-                             progress=lambda n: step(1, n))
+                             progress=lambda n: step(1, n), workers=workers)
     lengths = {r.note: r.suggested_length_m for r in rep.rows
                if r.suggested_length_m is not None}
     preset_data = preset_with_tubes(inst, lengths) if out_preset is not None else None

@@ -248,9 +248,11 @@ def build_correction_table(inst, *, ratios, step: int, level: int | None,
     for round_no in range(1, TABLE_PASSES + 1):
         with Progress(len(notes), f"tuning, round {round_no}") as step_bar:
             tick = lambda n: step_bar(1, n)  # noqa: E731
-            results = (tune_instrument(inst, notes, ratios=ratios, progress=tick)
+            results = (tune_instrument(inst, notes, ratios=ratios, progress=tick,
+                                       workers=workers)
                        if table is None else
-                       tune_with_table(inst, notes, table, ratios=ratios, progress=tick))
+                       tune_with_table(inst, notes, table, ratios=ratios, progress=tick,
+                                       workers=workers))
         by_note = {r.spec.note: r for r in results}
         jobs = [Job(a, anchor_job, (by_note[a].geometry, mat, level, accuracy, cache))
                 for a in anchors]

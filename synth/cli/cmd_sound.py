@@ -34,6 +34,7 @@ from synth.cli.options import (  # noqa: F401  (cmd_compare reads the aliases fr
     TubesOpt,
     VelocityHelp,
     render_options,
+    workers_option,
 )
 from synth.defaults import RENDER_DEFAULTS
 from synth.errors import ConfigError
@@ -306,6 +307,7 @@ def render_command(
     mallet: MalletOpt = None,
     pedal: PedalOpt = RENDER_DEFAULTS.pedal,
     tail: TailOpt = None,
+    workers: int | None = workers_option("planning the strikes, one job per note"),
     *,
     render: RenderOptions,
 ) -> None:
@@ -326,7 +328,13 @@ def render_command(
         score = replace(score, strikes=tuple(replace(s, mallet=s.mallet or mallet)
                                              for s in score.strikes))
     with Progress(len(score.strikes), "planning") as step:
-        voices = v.score_voices(score, default_pedal=pedal, progress=lambda k, n: step(1))
+        last = [0]
+
+        def planned(done: int, total: int) -> None:
+            step(done - last[0])
+            last[0] = done
+
+        voices = v.score_voices(score, default_pedal=pedal, progress=planned, workers=workers)
     if score.length_s is not None:
         seconds = score.length_s
     elif tail is not None:

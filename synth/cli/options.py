@@ -102,3 +102,21 @@ def render_options(command: Callable) -> Callable:
         parameters=params + _SHARED)
     wrapper.__annotations__ = {p.name: p.annotation for p in params + _SHARED}
     return wrapper
+
+
+MAX_WORKERS = 256
+"""Most local worker processes a --workers option takes."""
+
+
+def workers_option(what: str):
+    """Return the ``--workers`` option of a command whose independent jobs are ``what``.
+
+    Every such option goes through :func:`synth.executor.run_jobs`: default one
+    process per core, 1 runs the jobs in this process; the results are the same
+    whichever number ran them.
+    """
+    # a default value, not an Annotated type: a call is no type to a type checker
+    return typer.Option(
+        None, min=1, max=MAX_WORKERS, metavar="processes",
+        help=f"Local worker processes for {what} (default: one per core; 1 runs them in "
+             "this process, one after the other). The output is the same either way.")

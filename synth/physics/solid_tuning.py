@@ -148,7 +148,8 @@ def solid_tune_job(spec: TuneSpec, level: int | None, accuracy: float | None,
 
 
 def tune_with_table(instrument, notes: list[str], table, *, ratios=None,
-                    progress=None, stiffness=None) -> list[TuneResult]:
+                    progress=None, stiffness=None,
+                    workers: int | None = 1) -> list[TuneResult]:
     """Tune ``notes`` in 1-D to target / (the table's interpolated factors).
 
     With ``stiffness`` (a :class:`~synth.physics.stiffness.StiffnessCalibration`) the
@@ -156,21 +157,20 @@ def tune_with_table(instrument, notes: list[str], table, *, ratios=None,
     table (``table`` may then be None: ``k3D_n = 1``).  The results carry the
     original specs; ``frequencies_hz`` are the predicted frequencies (1-D times the
     factors), ``residual_cents`` and ``reachable`` refer to them.
+    ``workers``: as :func:`synth.physics.tuning.tune_instrument`.
     """
+    from functools import partial
+
     from synth.physics.tuning import tune_instrument
 
     def factors(note: str, n: int) -> np.ndarray:
-        k = np.ones(n) if table is None else np.asarray(table.vertical(note, n))
-        if stiffness is not None:
-            k = k * np.asarray(stiffness.frequency_factors(n))
-        return k
-
-    def aim(spec: TuneSpec) -> TuneSpec:
-        return corrected_spec(spec, factors(spec.note, len(spec.ratios)))
+        return table_factors(table, stiffness, note, n)
 
     what = ", ".join(w for w, on in (("3-D table", table is not None),
                                      ("calibrated stiffness", stiffness is not None)) if on)
-    raw = tune_instrument(instrument, notes, ratios=ratios, progress=progress, aim=aim)
+    raw = tune_instrument(instrument, notes, ratios=ratios, progress=progress,
+                          aim=partial(aim_through_table, table, stiffness=stiffness),
+                          workers=workers)
     out = []
     for r in raw:
         original = replace(r.spec, fundamental_hz=instrument.target_hz(r.spec.note),
@@ -222,7 +222,8 @@ def _depth_m(result: TuneResult) -> float:
 
 
 def tune_calibrated(instrument, notes: list[str], table, stiffness, *, ratios=None,
-                    progress=None) -> tuple[list[TuneResult], list[CalibrationChange]]:
+                    progress=None, workers: int | None = 1
+                    ) -> tuple[list[TuneResult], list[CalibrationChange]]:
     """Re-tune ``notes`` with a stiffness calibration and compare with the uncalibrated design.
 
     Both designs are solved here the same way (through ``table`` when given, else the
@@ -242,16 +243,35 @@ def tune_calibrated(instrument, notes: list[str], table, stiffness, *, ratios=No
             progress(note)
 
     if table is None:
-        before = tune_instrument(instrument, notes, ratios=ratios, progress=half)
+        before = tune_instrument(instrument, notes, ratios=ratios, progress=half,
+                                 workers=workers)
     else:
-        before = tune_with_table(instrument, notes, table, ratios=ratios, progress=half)
+        before = tune_with_table(instrument, notes, table, ratios=ratios, progress=half,
+                                 workers=workers)
     after = tune_with_table(instrument, notes, table, ratios=ratios, progress=half,
-                            stiffness=stiffness)
+                            stiffness=stiffness, workers=workers)
     changes = [CalibrationChange(
         b.spec.note, 1e3 * (a.geometry.length_m - b.geometry.length_m),
         1e3 * (_depth_m(a) - _depth_m(b)), 1e3 * (a.thinnest_m - b.thinnest_m), b, a)
         for b, a in zip(before, after, strict=True)]
     return after, changes
+
+
+def table_factors(table, stiffness, note: str, n: int) -> np.ndarray:
+    """Return the factors from 1-D to predicted partials 1..n.
+
+    The 3-D table's, times a stiffness calibration's ``sqrt(s) c_n`` when given
+    (either may be None).
+    """
+    k = np.ones(n) if table is None else np.asarray(table.vertical(note, n))
+    if stiffness is not None:
+        k = k * np.asarray(stiffness.frequency_factors(n))
+    return k
+
+
+def aim_through_table(table, spec: TuneSpec, stiffness=None) -> TuneSpec:
+    """Return the 1-D spec that lands ``spec`` on target through the factors (picklable)."""
+    return corrected_spec(spec, table_factors(table, stiffness, spec.note, len(spec.ratios)))
 
 
 def anchor_job(geometry, material, level: int | None, accuracy: float | None,

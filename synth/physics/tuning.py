@@ -540,20 +540,62 @@ def instrument_spec(instrument: Instrument, note: str,
     )
 
 
+TUNE_SEGMENT = 10
+"""Bars per chain of warm starts in :func:`tune_instrument`.
+
+The range is cut into runs of this many neighbouring bars, fixed by the notes
+alone (not by the number of workers), so the bars come out the same to the bit
+on any number of processes.  The first bar of each run starts cold: on the
+37-bar demo range (four runs) that costs 10 % more solves than one chain over
+the whole range (1033 against 939) and moves the solved lengths by at most
+0.6 um (residuals by at most 0.002 cents), far inside the tuning targets.  Four
+runs keep two or four workers evenly busy; shorter runs would add cold starts,
+longer ones leave a worker idle.
+"""
+
+
 def tune_instrument(instrument: Instrument, notes: list[str] | None = None, *,
                     ratios: tuple[float, ...] | None = None, progress=None,
-                    aim=None) -> list[TuneResult]:
+                    aim=None, workers: int | None = 1) -> list[TuneResult]:
     """Tune every note (or ``notes``) from the lowest up, warm-starting each bar.
 
-    Each bar starts from its lower neighbour's solution.
-    ``progress(note)`` is called after each bar. ``aim(spec) -> spec``, when given,
-    turns each bar's spec into the one the 1-D model is tuned to (a 3-D correction).
+    Each bar starts from its lower neighbour's solution, within runs of
+    :data:`TUNE_SEGMENT` neighbouring bars; the runs are independent jobs of
+    :func:`synth.executor.run_jobs` on ``workers`` processes (1: here, one after
+    the other; None: every core), and the results are the same on any number.
+    ``progress(note)`` is called after each bar (a run's bars when the run is
+    done).  ``aim(spec) -> spec``, when given, turns each bar's spec into the one
+    the 1-D model is tuned to (a 3-D correction); it must be picklable (a
+    module-level function or a :func:`functools.partial` of one) when
+    ``workers`` is not 1.
     """
+    from synth.executor import Job, run_jobs, values_or_raise
+
     notes = list(notes or instrument.notes)
     order = sorted(notes, key=instrument.note_fraction)
-    results: dict[str, TuneResult] = {}
+    runs = [order[k:k + TUNE_SEGMENT] for k in range(0, len(order), TUNE_SEGMENT)]
+    jobs = [Job(f"{run[0]}-{run[-1]}", tune_run, (instrument, run, ratios, aim))
+            for run in runs]
+
+    def done(res) -> None:
+        if progress is not None and res.ok:
+            for r in res.value:
+                progress(r.spec.note)
+
+    done_runs = values_or_raise(jobs, run_jobs(jobs, workers=workers, progress=done), "tuning")
+    results = {r.spec.note: r for run in done_runs for r in run}
+    return [results[n] for n in notes]
+
+
+def tune_run(instrument: Instrument, notes: list[str], ratios: tuple[float, ...] | None,
+             aim=None) -> list[TuneResult]:
+    """Tune neighbouring bars in the order given, each warm-started from the last reached.
+
+    One job of :func:`tune_instrument` (module level, picklable).
+    """
+    out: list[TuneResult] = []
     previous: TuneResult | None = None
-    for note in order:
+    for note in notes:
         spec = instrument_spec(instrument, note, ratios)
         if aim is not None:
             spec = aim(spec)
@@ -566,12 +608,10 @@ def tune_instrument(instrument: Instrument, notes: list[str] | None = None, *,
                 cold = replace(cold, n_solves=cold.n_solves + res.n_solves,
                                seconds=cold.seconds + res.seconds)
                 res = cold
-        results[note] = res
+        out.append(res)
         if res.reachable:
             previous = res
-        if progress is not None:
-            progress(note)
-    return [results[n] for n in notes]
+    return out
 
 
 def worst_miss(results: list[TuneResult]) -> tuple[str, int, float] | None:

@@ -10,10 +10,11 @@ from __future__ import annotations
 
 import csv
 import io
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
+from synth.executor import Job, run_jobs, values_or_raise
 from synth.physics.bar_fe import solve_bar
 from synth.physics.instrument import Instrument
 from synth.physics.solid_correction import corrected_modes, correction_of
@@ -51,33 +52,65 @@ class CutRow:
 
 
 def cut_rows(instrument: Instrument, notes: list[str] | None = None, progress=None,
-             tube_lengths: dict[str, float] | None = None) -> list[CutRow]:
-    """Solve every bar of the preset and collect what the shop needs to cut it."""
-    rows = []
+             tube_lengths: dict[str, float] | None = None, *, tubes: bool = False,
+             workers: int | None = 1) -> list[CutRow]:
+    """Solve every bar of the preset and collect what the shop needs to cut it.
+
+    Parameters
+    ----------
+    instrument : Instrument
+        A tuned preset (every note in ``[bars]``).
+    notes : list of str, optional
+        Default: the whole range.
+    progress : callable(note), optional
+        Called as each bar is done (in completion order).
+    tube_lengths : dict, optional
+        Tube cut length per note, m, given by the caller.
+    tubes : bool
+        Work out each bar's tube cut length with its solve
+        (:func:`synth.voicing.tube_cut_lengths`, note by note); ``tube_lengths``
+        wins where both give one.
+    workers : int, optional
+        Processes the bars are solved on, each bar an independent job of
+        :func:`synth.executor.run_jobs` (1: here; None: every core).  The rows are
+        the same whichever number solved them.
+    """
+    notes = list(notes or instrument.notes)
+    jobs = [Job(n, _cut_row, (instrument, n, tubes)) for n in notes]
+    done = run_jobs(jobs, workers=workers,
+                    progress=None if progress is None else (lambda r: progress(r.key)))
+    given = tube_lengths or {}
+    return [replace(r, tube_length_m=given[r.note]) if r.note in given else r
+            for r in values_or_raise(jobs, done, "cut list of")]
+
+
+def _cut_row(instrument: Instrument, note: str, tubes: bool) -> CutRow:
+    """One bar of the cut list (an independent job: module level, picklable)."""
     material = instrument.material.at_temperature(instrument.temperature_c)
-    table = correction_of(instrument)
-    for note in notes or instrument.notes:
-        geo = instrument.bar(note)
-        res = corrected_modes(solve_bar(geo, material, n_vertical=3, n_lateral=0,
-                                        n_torsional=0), table, note)
-        stations = geo.thickness_at(np.array(STATION_FRACTIONS) * geo.length_m)
-        rows.append(CutRow(
-            note=note,
-            target_hz=instrument.target_hz(note),
-            length_m=geo.length_m,
-            width_m=geo.width_m,
-            thickness_m=geo.thickness_m,
-            undercut=geo.undercut.describe() if geo.undercut else "none",
-            thinnest_m=geo.thinnest_m(),
-            station_thickness_m=tuple(float(v) for v in stations),
-            cord_holes_m=res.vertical[0].nodes_m,
-            mass_kg=res.mass_kg,
-            fundamental_hz=res.fundamental_hz,
-            tube_length_m=(tube_lengths or {}).get(note),
-        ))
-        if progress is not None:
-            progress(note)
-    return rows
+    geo = instrument.bar(note)
+    res = corrected_modes(solve_bar(geo, material, n_vertical=3, n_lateral=0,
+                                    n_torsional=0), correction_of(instrument), note)
+    stations = geo.thickness_at(np.array(STATION_FRACTIONS) * geo.length_m)
+    tube = None
+    if tubes:   # as synth.voicing.tube_cut_lengths gives it, for this note alone
+        from synth.voicing import Voicer
+
+        spec = Voicer(instrument, channels=1).tube_spec(note)
+        tube = None if spec is None else spec.length_m
+    return CutRow(
+        note=note,
+        target_hz=instrument.target_hz(note),
+        length_m=geo.length_m,
+        width_m=geo.width_m,
+        thickness_m=geo.thickness_m,
+        undercut=geo.undercut.describe() if geo.undercut else "none",
+        thinnest_m=geo.thinnest_m(),
+        station_thickness_m=tuple(float(v) for v in stations),
+        cord_holes_m=res.vertical[0].nodes_m,
+        mass_kg=res.mass_kg,
+        fundamental_hz=res.fundamental_hz,
+        tube_length_m=tube,
+    )
 
 
 def cutlist_csv(rows: list[CutRow]) -> str:

@@ -77,7 +77,7 @@ def demo_outputs(out: Path) -> list[tuple[Path, str]]:
 
 def run_demo(out: Path, *, say: Say, compare: Callable[[Path, Path, Path], None],
              calibrate: Callable[[Path, Path, Path], None],
-             steps: Steps = no_progress) -> None:
+             steps: Steps = no_progress, workers: int | None = 1) -> None:
     """Run the demo into ``out`` (files planned by the caller; see :func:`demo_outputs`).
 
     Parameters
@@ -92,6 +92,11 @@ def run_demo(out: Path, *, say: Say, compare: Callable[[Path, Path, Path], None]
         Step 7: measure the recording of the A4 bar and fit the loss model.
     steps : callable(total, label), optional
         Progress bars for the long steps.
+    workers : int, optional
+        Processes for the independent work of steps 2-5 (tuning runs, bar solves
+        of the build sheet, the passage's strikes, the sustain notes), through
+        :func:`synth.executor.run_jobs`: 1 here, None every core.  The files are
+        the same either way.
     """
     from synth.settings.instrument import load_instrument
 
@@ -103,10 +108,10 @@ def run_demo(out: Path, *, say: Say, compare: Callable[[Path, Path, Path], None]
         f"{inst.material.name}, A4 = {inst.reference_pitch_hz:g} Hz at "
         f"{inst.temperature_c:g} C\n")
     _partials(inst, say, steps)
-    _tuning(inst, say, steps)
-    _build_sheet(inst, out, say)
-    stereo = _sounds(inst, out, say, steps)
-    _reports(inst, stereo, out, say, steps)
+    _tuning(inst, say, steps, workers)
+    _build_sheet(inst, out, say, workers)
+    stereo = _sounds(inst, out, say, steps, workers)
+    _reports(inst, stereo, out, say, steps, workers)
     say("6. for the client: 6061-T6 (A) against 7075-T6 (B), loudness-matched")
     compare(path, presets_dir() / "instruments" / DEMO_OPTION, out / "compare")
     say("")
@@ -173,13 +178,13 @@ def _solid_check(inst, material, say: Say) -> None:
         "reads a little sharp; `barwright solid` refines it)\n")
 
 
-def _tuning(inst, say: Say, steps: Steps) -> None:
+def _tuning(inst, say: Say, steps: Steps, workers: int | None = 1) -> None:
     """Step 2: design to target, every bar re-solved from its blank."""
     from synth.physics.tuning import tune_instrument
 
     t0 = time.perf_counter()
     with steps(len(inst.notes), "tuning") as step:
-        tuned = tune_instrument(inst, progress=lambda n: step(1, n))
+        tuned = tune_instrument(inst, progress=lambda n: step(1, n), workers=workers)
     worst = np.max([np.abs(r.residual_cents) for r in tuned], axis=0)
     say("2. design to target: length and arch solved per bar from the blank")
     say(f"   {sum(r.reachable for r in tuned)}/{len(tuned)} bars on target in "
@@ -189,14 +194,13 @@ def _tuning(inst, say: Say, steps: Steps) -> None:
         + ", ".join(f"p{i + 1} {w:.3f}" for i, w in enumerate(worst)) + "\n")
 
 
-def _build_sheet(inst, out: Path, say: Say) -> None:
+def _build_sheet(inst, out: Path, say: Say, workers: int | None = 1) -> None:
     """Step 3: the build sheet (cut list and profile drawings)."""
     from synth import io
     from synth.reports.cutlist import SAFETY, cut_rows, cutlist_csv
     from synth.reports.plots import profile_sheet_png
-    from synth.voicing import tube_cut_lengths
 
-    cut = cut_rows(inst, tube_lengths=tube_cut_lengths(inst))
+    cut = cut_rows(inst, tubes=True, workers=workers)
     csv_path, png_path = out / "cutlist.csv", out / "profiles.png"
     io.write_bytes(csv_path, cutlist_csv(cut).encode("utf-8"), force=True)
     io.write_bytes(png_path, profile_sheet_png([(r.note, inst.bar(r.note), r.cord_holes_m)
@@ -208,7 +212,7 @@ def _build_sheet(inst, out: Path, say: Say) -> None:
     say(f"   {SAFETY}\n")
 
 
-def _render_list(inst, stereo):
+def _render_list(inst, stereo, workers: int | None = 1):
     """Return the renders of step 4: (file, voices, seconds, what)."""
     from dataclasses import replace
 
@@ -228,12 +232,13 @@ def _render_list(inst, stereo):
                  for k, n in enumerate(CHORD)], 6.0, "F major-seventh spread, rolled 60 ms"),
     ]
     score = read_events(presets_dir() / "events" / "harbour-waltz.toml")
-    renders.append((waltz, stereo.score_voices(score), score.last_event_s + 1.0,
+    renders.append((waltz, stereo.score_voices(score, workers=workers),
+                    score.last_event_s + 1.0,
                     "a short passage (presets/events/harbour-waltz.toml)"))
     return renders
 
 
-def _sounds(inst, out: Path, say: Say, steps: Steps):
+def _sounds(inst, out: Path, say: Say, steps: Steps, workers: int | None = 1):
     """Step 4: strikes, a chord and a passage to WAV; return the stereo plan.
 
     The A4 pair (with and without its tube) shares one gain, that of the tubed
@@ -248,7 +253,7 @@ def _sounds(inst, out: Path, say: Say, steps: Steps):
         "quietly)")
     fs = DEMO_SAMPLE_RATE
     stereo = Voicer(inst, sample_rate=float(fs), channels=2)
-    renders = _render_list(inst, stereo)
+    renders = _render_list(inst, stereo, workers)
     pair_gain = None
     with steps(len(renders), "rendering") as step:
         for name, voices, seconds, what in renders:
@@ -281,7 +286,8 @@ def _tube_loudness_db(renders, fs: int) -> float:
     return level[0] - level[1]
 
 
-def _reports(inst, stereo, out: Path, say: Say, steps: Steps) -> None:
+def _reports(inst, stereo, out: Path, say: Say, steps: Steps,
+             workers: int | None = 1) -> None:
     """Step 5: sustain across the range and the decay of a chord."""
     from dataclasses import replace
 
@@ -290,7 +296,8 @@ def _reports(inst, stereo, out: Path, say: Say, steps: Steps) -> None:
     from synth.reports.sustain import sustain_csv, sustain_png, sustain_report
 
     with steps(len(inst.notes), "sustain") as step:
-        sus = sustain_report(replace(stereo, channels=1), progress=lambda n: step(1, n))
+        sus = sustain_report(replace(stereo, channels=1), progress=lambda n: step(1, n),
+                             workers=workers)
     io.write_bytes(out / "sustain.csv", sustain_csv(sus).encode("utf-8"), force=True)
     io.write_bytes(out / "sustain.png", sustain_png(sus, f"{inst.name}: sustain"), force=True)
     worst = max(abs(r.render_agreement_percent) for r in sus.rows)

@@ -40,6 +40,7 @@ from synth.analysis import band_envelope, fit_envelope_decay
 from synth.constants import LN_1000
 from synth.engine.render import render
 from synth.errors import ConfigError, ModelError
+from synth.executor import Job, run_jobs, values_or_raise
 from synth.numerics import bracketed_root
 from synth.physics.coupling import coupling_at_offset
 from synth.physics.motor import disc_modulation, steady_bar_decay_per_s
@@ -158,7 +159,8 @@ def sustain_report(voicer: Voicer, notes: list[str] | None = None, *,
                    target: str = "trend", trend_order: int = DEFAULT_TREND_ORDER,
                    tolerance_percent: float = 15.0, at_time_s: float = 2.0,
                    min_gain_db: float = 3.0, max_offset_cents: float = DEFAULT_MAX_OFFSET_CENTS,
-                   max_render_s: float = 12.0, progress=None) -> SustainReport:
+                   max_render_s: float = 12.0, progress=None,
+                   workers: int | None = 1) -> SustainReport:
     """Build the sustain report (see the module docstring).
 
     Parameters
@@ -185,6 +187,11 @@ def sustain_report(voicer: Voicer, notes: list[str] | None = None, *,
     max_render_s : float
         Longest strike rendered for the measured T60.
     progress : callable(note), optional
+        Called as each note is measured (in completion order).
+    workers : int, optional
+        Processes the notes are measured on, each note an independent job of
+        :func:`synth.executor.run_jobs` (1: here, one after the other; None:
+        every core).  The rows are the same whichever number measured them.
     """
     if target not in TARGETS:
         raise ConfigError(f"= {target!r}: must be one of " + ", ".join(TARGETS),
@@ -194,7 +201,11 @@ def sustain_report(voicer: Voicer, notes: list[str] | None = None, *,
                           source="--max-offset-cents")
     inst = voicer.instrument
     notes = list(notes or inst.notes)
-    fund = {n: voicer.fundamental(n) for n in notes}
+    jobs = [Job(n, _measure_note, (voicer, n, max_render_s)) for n in notes]
+    done = run_jobs(jobs, workers=workers,
+                    progress=None if progress is None else (lambda r: progress(r.key)))
+    measured = dict(zip(notes, values_or_raise(jobs, done, "sustain of"), strict=True))
+    fund = {n: measured[n].fundamental for n in notes}
     if target_curve is not None:
         targets = target_curve
         label = "curve through the given notes"
@@ -210,33 +221,14 @@ def sustain_report(voicer: Voicer, notes: list[str] | None = None, *,
         label = (f"the range's own trend (order-{min(trend_order, len(notes) - 1)} fit of "
                  f"ln T60 on note number): {targets[notes[0]]:.1f} s at {notes[0]} to "
                  f"{targets[notes[-1]]:.1f} s at {notes[-1]}")
-    fs = voicer.sample_rate
     rows = []
     t_render = t_analysis = audio = 0.0
     for note in notes:
-        model = voicer.model(note)
-        f1, q1, t1 = fund[note]
-        vertical = [b for b in model.budget if b.kind == "vertical"][:3]
-        qs = (q1, *[b.q for b in vertical[1:]])
-        t60s = (t1, *[b.t60_s for b in vertical[1:]])
-        # measure the rendered strike: long enough for ~25 dB of decay
-        motor = voicer.motor
-        spinning = model.coupling is not None and motor.rate_rev_per_s > 0
-        fit_from = (motor.start_time_s + 5.0 * motor.spin_up_s + 0.5) if spinning else 0.2
-        seconds = float(min(max(0.42 * t1, 1.5), max_render_s) + fit_from)
-        t0 = time.perf_counter()
-        x = render([voicer.strike_voice(note, mono=True)], int(seconds * fs), sample_rate=fs,
-                   channels=1)[:, 0]
-        t_render += time.perf_counter() - t0
-        audio += seconds
-        t0 = time.perf_counter()
-        # Under the discs, a smoothing window of exactly one pulse period removes the
-        # pulsing and leaves the decay.  A render has no noise: a floor far below the
-        # signal lets the fit use all of it.
-        times, env = band_envelope(x, fs, f1, start_s=fit_from,
-                                   bandwidth_hz=2.0 * motor.rate_rev_per_s if spinning else None)
-        fit = fit_envelope_decay(times, env, f1, noise_floor=1e-9 * float(env.max()))
-        t_analysis += time.perf_counter() - t0
+        m = measured[note]
+        t1 = m.fundamental[2]
+        t_render += m.render_s
+        t_analysis += m.analysis_s
+        audio += m.audio_s
         goal = targets[note]
         mismatch = 100.0 * (t1 - goal) / goal
         level = -60.0 * at_time_s * (1.0 / t1 - 1.0 / goal)
@@ -245,20 +237,60 @@ def sustain_report(voicer: Voicer, notes: list[str] | None = None, *,
         if flagged:
             suggestion, offset, length, t_new = _suggest(voicer, note, goal, min_gain_db,
                                                          max_offset_cents)
+        f1 = m.fundamental[0]
         rows.append(SustainRow(
             note=note, target_hz=inst.target_hz(note), frequency_hz=f1,
-            cents=float(cents(f1, inst.target_hz(note))), q=qs, t60_s=t60s,
-            t60_rendered_s=fit.t60_s,
-            render_agreement_percent=100.0 * (fit.t60_s - t1) / t1,
+            cents=float(cents(f1, inst.target_hz(note))), q=m.q, t60_s=m.t60_s,
+            t60_rendered_s=m.t60_rendered_s,
+            render_agreement_percent=100.0 * (m.t60_rendered_s - t1) / t1,
             target_t60_s=goal, mismatch_percent=mismatch, level_difference_db=level,
             flagged=flagged, suggestion=suggestion, suggested_offset_cents=offset,
-            warnings=tuple(fit.warnings), suggested_length_m=length, suggested_t60_s=t_new))
-        if progress is not None:
-            progress(note)
+            warnings=m.warnings, suggested_length_m=length, suggested_t60_s=t_new))
     rows = verify_suggestions(voicer, rows, tolerance_percent)
     return SustainReport(tuple(rows), tolerance_percent, at_time_s, label, voicer.tubes_active,
                          voicer.motor.rate_rev_per_s, t_render, t_analysis, audio,
                          max_offset_cents)
+
+
+@dataclass(frozen=True)
+class _Measured:
+    """What one note contributes before the targets are known."""
+
+    fundamental: tuple[float, float, float]
+    q: tuple[float, ...]
+    t60_s: tuple[float, ...]
+    t60_rendered_s: float
+    warnings: tuple[str, ...]
+    render_s: float
+    analysis_s: float
+    audio_s: float
+
+
+def _measure_note(voicer: Voicer, note: str, max_render_s: float) -> _Measured:
+    """Budget and rendered T60 of one note (an independent job: module level, picklable)."""
+    f1, q1, t1 = voicer.fundamental(note)
+    model = voicer.model(note)
+    vertical = [b for b in model.budget if b.kind == "vertical"][:3]
+    fs = voicer.sample_rate
+    # measure the rendered strike: long enough for ~25 dB of decay
+    motor = voicer.motor
+    spinning = model.coupling is not None and motor.rate_rev_per_s > 0
+    fit_from = (motor.start_time_s + 5.0 * motor.spin_up_s + 0.5) if spinning else 0.2
+    seconds = float(min(max(0.42 * t1, 1.5), max_render_s) + fit_from)
+    t0 = time.perf_counter()
+    x = render([voicer.strike_voice(note, mono=True)], int(seconds * fs), sample_rate=fs,
+               channels=1)[:, 0]
+    t_render = time.perf_counter() - t0
+    t0 = time.perf_counter()
+    # Under the discs, a smoothing window of exactly one pulse period removes the
+    # pulsing and leaves the decay.  A render has no noise: a floor far below the
+    # signal lets the fit use all of it.
+    times, env = band_envelope(x, fs, f1, start_s=fit_from,
+                               bandwidth_hz=2.0 * motor.rate_rev_per_s if spinning else None)
+    fit = fit_envelope_decay(times, env, f1, noise_floor=1e-9 * float(env.max()))
+    return _Measured((f1, q1, t1), (q1, *[b.q for b in vertical[1:]]),
+                     (t1, *[b.t60_s for b in vertical[1:]]), fit.t60_s, tuple(fit.warnings),
+                     t_render, time.perf_counter() - t0, seconds)
 
 
 def voice_at_offset(voicer: Voicer, note: str, offset_cents: float) -> tuple[float, float, float]:

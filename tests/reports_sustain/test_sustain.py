@@ -81,3 +81,19 @@ def test_chord_decay_rates_match_the_notes_t60(inst) -> None:
         else:
             assert all(math.isnan(n.balance_db[k]) for n in res.notes)
     assert math.isfinite(res.spread_db_per_s)
+
+
+def test_two_workers_give_the_same_report(inst) -> None:
+    """Notes measured on two processes give the rows measured here, to the bit.
+
+    Independent path: the same report with ``workers=1`` (every note in this process).
+    The notes include a flagged one (F6 against a 20 s target), so suggestions are
+    compared too.
+    """
+    notes = ["F3", "C4", "A4", "E5", "F6"]
+    v = Voicer(inst, sample_rate=48000, channels=1)
+    here = sustain_report(v, notes, target_curve={n: 20.0 for n in notes}, workers=1)
+    pool = sustain_report(Voicer(inst, sample_rate=48000, channels=1), notes,
+                          target_curve={n: 20.0 for n in notes}, workers=2)
+    assert any(r.flagged for r in here.rows)
+    assert pool.rows == here.rows
