@@ -1,4 +1,4 @@
-"""Shared fixtures: seeded random numbers and one BLAS thread for the whole test run."""
+"""Shared fixtures: seeded random numbers, one BLAS thread and one Dask cluster for the run."""
 
 from __future__ import annotations
 
@@ -25,6 +25,20 @@ def _plan_cache_in_tmp(tmp_path_factory):
     with pytest.MonkeyPatch.context() as mp:
         mp.setenv("BARWRIGHT_CACHE", str(tmp_path_factory.mktemp("plan-cache")))
         yield
+
+
+@pytest.fixture(scope="session")
+def dask_cluster():
+    """One Dask LocalCluster with two worker processes, shared by every test that needs one.
+
+    Starting a cluster and importing the stack in its workers takes seconds; the
+    executor, 3-D and sweep tests each used to start their own.  A worker killed by a
+    test is restarted by its nanny (tests/executor checks exactly that).
+    """
+    distributed = pytest.importorskip("distributed")
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
+                                  dashboard_address=None, silence_logs=40) as lc:
+        yield lc
 
 
 @pytest.fixture

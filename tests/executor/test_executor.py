@@ -90,15 +90,13 @@ def test_bad_settings_are_one_line_errors() -> None:
 
 
 @pytest.fixture(scope="module")
-def cluster():
-    distributed = pytest.importorskip("distributed")
+def cluster(dask_cluster):
+    """Lend the session's Dask cluster (tests/conftest.py), sent this module by value."""
     import cloudpickle
 
     # Workers cannot import this test module by name: send its functions by value.
     cloudpickle.register_pickle_by_value(sys.modules[__name__])
-    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
-                                  dashboard_address=None, silence_logs=40) as lc:
-        yield lc
+    yield dask_cluster
     cloudpickle.unregister_pickle_by_value(sys.modules[__name__])
 
 
