@@ -1,4 +1,4 @@
-"""Shared fixtures: seeded random numbers, one BLAS thread and one Dask cluster for the run."""
+"""Shared fixtures: seeded random numbers, one BLAS thread, one Dask cluster, one build sheet."""
 
 from __future__ import annotations
 
@@ -39,6 +39,24 @@ def dask_cluster():
     with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
                                   dashboard_address=None, silence_logs=40) as lc:
         yield lc
+
+
+@pytest.fixture(scope="session")
+def demo_cutlist(tmp_path_factory):
+    """One ``barwright cutlist`` of the demo preset with ``--json``: (result, folder).
+
+    The build sheet solves all 37 bars; the end-to-end sheet checks, the demo's
+    sheet, the strict-JSON check and the trust marks read this one run.
+    """
+    from typer.testing import CliRunner
+
+    from synth.cli import app
+    from synth.config import presets_dir
+
+    folder = tmp_path_factory.mktemp("demo-cutlist")
+    preset = presets_dir() / "instruments" / "lantern-street-bars.toml"
+    result = CliRunner().invoke(app, ["cutlist", str(preset), "--out", str(folder), "--json"])
+    return result, folder
 
 
 @pytest.fixture
