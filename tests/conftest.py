@@ -1,4 +1,4 @@
-"""Shared fixtures: seeded random numbers, one BLAS thread, one Dask cluster, one build sheet."""
+"""Shared fixtures: seeded random numbers, one BLAS thread and one build sheet for the run."""
 
 from __future__ import annotations
 
@@ -25,20 +25,6 @@ def _plan_cache_in_tmp(tmp_path_factory):
     with pytest.MonkeyPatch.context() as mp:
         mp.setenv("BARWRIGHT_CACHE", str(tmp_path_factory.mktemp("plan-cache")))
         yield
-
-
-@pytest.fixture(scope="session")
-def dask_cluster():
-    """One Dask LocalCluster with two worker processes, shared by every test that needs one.
-
-    Starting a cluster and importing the stack in its workers takes seconds; the
-    executor, 3-D and sweep tests each used to start their own.  A worker killed by a
-    test is restarted by its nanny (tests/executor checks exactly that).
-    """
-    distributed = pytest.importorskip("distributed")
-    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
-                                  dashboard_address=None, silence_logs=40) as lc:
-        yield lc
 
 
 @pytest.fixture(scope="session")

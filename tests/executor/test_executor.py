@@ -90,13 +90,15 @@ def test_bad_settings_are_one_line_errors() -> None:
 
 
 @pytest.fixture(scope="module")
-def cluster(dask_cluster):
-    """Lend the session's Dask cluster (tests/conftest.py), sent this module by value."""
+def cluster():
+    distributed = pytest.importorskip("distributed")
     import cloudpickle
 
     # Workers cannot import this test module by name: send its functions by value.
     cloudpickle.register_pickle_by_value(sys.modules[__name__])
-    yield dask_cluster
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
+                                  dashboard_address=None, silence_logs=40) as lc:
+        yield lc
     cloudpickle.unregister_pickle_by_value(sys.modules[__name__])
 
 

@@ -86,9 +86,12 @@ def _freqs(bar: BarGeometry, mat) -> list[float]:
 
 
 @pytest.fixture(scope="module")
-def cluster(dask_cluster):
-    """Lend the session's real Dask cluster, two worker processes (tests/conftest.py)."""
-    return dask_cluster
+def cluster():
+    """Start a real Dask LocalCluster with two worker processes."""
+    distributed = pytest.importorskip("distributed")
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
+                                  dashboard_address=None) as lc:
+        yield lc
 
 
 def test_dask_and_local_pool_agree(cluster) -> None:

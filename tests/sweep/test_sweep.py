@@ -163,9 +163,12 @@ def test_failed_variant_is_reported_and_the_rest_complete(tmp_path, monkeypatch)
 
 
 @pytest.fixture(scope="module")
-def cluster(dask_cluster):
-    """Lend the session's Dask cluster: two worker processes here (tests/conftest.py)."""
-    return dask_cluster
+def cluster():
+    """Start a Dask LocalCluster with two worker processes on this machine."""
+    distributed = pytest.importorskip("distributed")
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
+                                  dashboard_address=None, silence_logs=40) as lc:
+        yield lc
 
 
 def test_dask_cluster_and_local_pool_give_identical_tables(cluster) -> None:
