@@ -522,7 +522,10 @@ class Voicer:
         rate = LN_1000 / self.sound.damper_t60_s
         fs = self.sample_rate
         rel = max(seconds_to_sample(release_s, fs), start)
-        curve = sorted(pedal)
+        # By time only, and stably: at equal times the later entry wins, so a score's
+        # own change at t = 0 overrides the default put first, and equal-time changes
+        # of a file act in file order (sorting by value let the larger one win).
+        curve = sorted(pedal, key=lambda p: p[0])
 
         def value_at(t):
             v = 1.0

@@ -1,4 +1,4 @@
-"""Shared fixtures: seeded random numbers and one BLAS thread for the whole test run."""
+"""Shared fixtures: seeded random numbers, one BLAS thread and one build sheet for the run."""
 
 from __future__ import annotations
 
@@ -25,6 +25,24 @@ def _plan_cache_in_tmp(tmp_path_factory):
     with pytest.MonkeyPatch.context() as mp:
         mp.setenv("BARWRIGHT_CACHE", str(tmp_path_factory.mktemp("plan-cache")))
         yield
+
+
+@pytest.fixture(scope="session")
+def demo_cutlist(tmp_path_factory):
+    """One ``barwright cutlist`` of the demo preset with ``--json``: (result, folder).
+
+    The build sheet solves all 37 bars; the end-to-end sheet checks, the demo's
+    sheet, the strict-JSON check and the trust marks read this one run.
+    """
+    from typer.testing import CliRunner
+
+    from synth.cli import app
+    from synth.config import presets_dir
+
+    folder = tmp_path_factory.mktemp("demo-cutlist")
+    preset = presets_dir() / "instruments" / "lantern-street-bars.toml"
+    result = CliRunner().invoke(app, ["cutlist", str(preset), "--out", str(folder), "--json"])
+    return result, folder
 
 
 @pytest.fixture

@@ -46,7 +46,7 @@ def take(tmp_path_factory) -> Path:
     return write_wav(tmp_path_factory.mktemp("take") / "a4.wav", x, sample_rate=fs)
 
 
-def test_partials_tune_grind_cutlist(tmp_path: Path) -> None:
+def test_partials_tune_grind_cutlist(tmp_path: Path, demo_cutlist) -> None:
     """The bar commands on the demo preset and the bundled parabolic bar."""
     doc = parse(run("partials", DEMO, "--note", "A4", "--json"))
     assert doc["bar"] == "A4" and doc["partials"]
@@ -54,7 +54,7 @@ def test_partials_tune_grind_cutlist(tmp_path: Path) -> None:
     assert [b["note"] for b in doc["bars"]] == ["A4"] and doc["missed"] == 0
     doc = parse(run("grind", BAR, "--out", tmp_path / "g.png", "--json"))
     assert Path(doc["plot"]).exists()
-    doc = parse(run("cutlist", DEMO, "--out", tmp_path / "cut", "--json"))
+    doc = parse(demo_cutlist[0])  # `cutlist DEMO --out FOLDER --json`, run once (conftest)
     assert len(doc["bars"]) == 37
 
 

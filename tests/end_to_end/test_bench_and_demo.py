@@ -157,10 +157,9 @@ def test_demo_tube_makes_the_note_louder(demo) -> None:
                                                           bare["peak_dbfs"])
 
 
-def test_demo_build_sheet_is_the_cutlist_command(demo, tmp_path) -> None:
+def test_demo_build_sheet_is_the_cutlist_command(demo, demo_cutlist) -> None:
     """The demo's cutlist.csv is what `barwright cutlist` writes for the same preset."""
     folder, _ = demo
-    from e2e_common import DEMO
-
-    run_ok("cutlist", DEMO, "--out", tmp_path)
-    assert read_csv(folder / "cutlist.csv") == read_csv(tmp_path / "cutlist.csv")
+    result, sheet = demo_cutlist  # one `cutlist` run of the demo preset (tests/conftest.py)
+    assert result.exit_code == 0, (result.exit_code, result.stderr[-2000:])
+    assert read_csv(folder / "cutlist.csv") == read_csv(sheet / "cutlist.csv")

@@ -22,6 +22,7 @@ not compute itself:
 
 from __future__ import annotations
 
+import json
 import math
 import sys
 import tomllib
@@ -29,7 +30,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from e2e_common import DEMO, assert_png, read_csv, run_json
+from e2e_common import DEMO, assert_png, read_csv
 
 from synth.physics.bar_fe import solve_bar
 from synth.physics.geometry import ArchUndercut, BarGeometry
@@ -59,10 +60,12 @@ def _arch_thickness(bar: dict, x: np.ndarray) -> np.ndarray:
 
 
 @pytest.fixture(scope="module")
-def sheet(tmp_path_factory):
-    """Run the build sheet once: (JSON records by note, CSV rows by note, folder)."""
-    folder = tmp_path_factory.mktemp("cutlist")
-    data = run_json("cutlist", DEMO, "--out", folder)
+def sheet(demo_cutlist):
+    """Read the build sheet run once (tests/conftest.py): (JSON, CSV rows by note, folder)."""
+    result, folder = demo_cutlist
+    assert result.exit_code == 0, (result.exit_code, result.stdout[-2000:], result.stderr[-2000:])
+    assert "Traceback" not in result.stdout + result.stderr
+    data = json.loads(result.stdout)
     records = {r["note"]: r for r in data["bars"]}
     rows = {r["note"]: r for r in read_csv(folder / "cutlist.csv")}
     return records, rows, folder

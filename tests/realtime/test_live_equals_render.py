@@ -82,11 +82,6 @@ def test_motor_stopped_matches_render(still_player, tmp_path, scheme):
     assert diff <= min(bound, 1e-9), f"{diff:.3g} > {min(bound, 1e-9):.3g}"
 
 
-@pytest.mark.xfail(strict=True, raises=AssertionError,
-                   reason="the offline voice plan sorts the pedal curve by (time, value), so "
-                          "render's default pedal (1.0) wins over a file's pedal change at "
-                          "time 0; live, the file's change acts (measured difference 0.18 "
-                          "of full scale for this phrase with the pedal down at sample 0)")
 def test_pedal_at_time_zero(motor_player, tmp_path):
     """A pedal change at sample 0 acts from the first sample, live and offline alike."""
     motor_player.reset(gain_db=0.0)

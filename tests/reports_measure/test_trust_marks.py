@@ -40,9 +40,9 @@ def test_sustain_marks_uncalibrated_t60_and_level(tmp_path):
     assert json.loads(r.stdout)["uncalibrated"]["t60_s"] == []
 
 
-def test_cutlist_marks_uncalibrated_tube_lengths(tmp_path):
+def test_cutlist_marks_uncalibrated_tube_lengths(tmp_path, demo_cutlist):
     """Demo: tube lengths rest on the gap correction; calibrated preset: no mark."""
-    r = run("cutlist", PRESET, "--out", tmp_path / "a", "--json")
+    r, _ = demo_cutlist  # `cutlist` of the demo preset with --json, run once (tests/conftest.py)
     assert r.exit_code == 0, r.stderr
     assert json.loads(r.stdout)["uncalibrated"]["tube_length_m"] == ["gap_calibration"]
     r = run("cutlist", calibrated_preset(tmp_path), "--out", tmp_path / "b")
