@@ -55,7 +55,9 @@ import json
 import math
 import os
 import re
+import signal
 import tempfile
+import threading
 from collections.abc import Iterable, Mapping
 from pathlib import Path
 from typing import Any, Final
@@ -183,6 +185,25 @@ def _temp_prefix(target: Path) -> str:
     return f".{name}.{_owner_tag()}-"
 
 
+@contextlib.contextmanager
+def _signals_held():
+    """Hold SIGINT and SIGTERM while a temporary changes hands; they act on leaving.
+
+    Between creating a temporary and recording who removes it, a signal would leave
+    the file behind; held here, it is delivered (and its exception raised) only once
+    the file is owned by a ``try`` that removes it or by the open plan.
+    """
+    if not hasattr(signal, "pthread_sigmask") or \
+            threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    old = signal.pthread_sigmask(signal.SIG_BLOCK, {signal.SIGINT, signal.SIGTERM})
+    try:
+        yield
+    finally:
+        signal.pthread_sigmask(signal.SIG_SETMASK, old)
+
+
 def _new_temp(target: Path, suffix: str) -> Path:
     """Create an empty temporary beside ``target``, named for it and for this process."""
     try:
@@ -201,13 +222,15 @@ def _new_temp(target: Path, suffix: str) -> Path:
 
 def _probe(folder: Path) -> None:
     """Create and remove a temporary in ``folder``: raise unless files can be made there."""
-    try:
-        fd, name = tempfile.mkstemp(prefix=f".write-test.{_owner_tag()}-", suffix=TEMP_MARK,
-                                    dir=folder)
-    except OSError as exc:
-        raise AudioError(f"{folder}: cannot write in this folder ({_os_reason(exc)})") from None
-    os.close(fd)
-    os.unlink(name)
+    with _signals_held():  # never left behind by a signal
+        try:
+            fd, name = tempfile.mkstemp(prefix=f".write-test.{_owner_tag()}-",
+                                        suffix=TEMP_MARK, dir=folder)
+        except OSError as exc:
+            raise AudioError(f"{folder}: cannot write in this folder "
+                             f"({_os_reason(exc)})") from None
+        os.close(fd)
+        os.unlink(name)
 
 
 def _os_reason(exc: OSError) -> str:
@@ -228,16 +251,19 @@ def _atomic_write(target: Path, suffix: str, write, *, force: bool) -> Path:
     if plan is not None:
         return plan._stage(target, suffix, write)
     check_writable(target, force=force)
-    tmp = _new_temp(target, suffix)
+    tmp: Path | None = None
     try:
+        with _signals_held():
+            tmp = _new_temp(target, suffix)
         _run_write(write, tmp, target)
         if force:
             _replace(tmp, target)
         else:
             _move_without_overwrite(tmp, target)
     except BaseException:
-        with contextlib.suppress(OSError):
-            tmp.unlink()
+        if tmp is not None:
+            with contextlib.suppress(OSError):
+                tmp.unlink()
         raise
     return target
 
@@ -438,18 +464,23 @@ class OutputPlan:
         key = self._key(target)
         if key not in self.targets:
             raise AudioError(f"{target}: not among the files planned for this run")
-        tmp = _new_temp(target, suffix)
+        tmp: Path | None = None
         try:
+            with _signals_held():
+                tmp = _new_temp(target, suffix)
             _run_write(write, tmp, target)
+            with _signals_held():  # the plan owns it from here: its abort removes it
+                old = self._staged.pop(key, None)
+                self._staged[key] = tmp
+                tmp = None
+                if old is not None:
+                    with contextlib.suppress(OSError):
+                        old.unlink()
         except BaseException:
-            with contextlib.suppress(OSError):
-                tmp.unlink()
+            if tmp is not None:
+                with contextlib.suppress(OSError):
+                    tmp.unlink()
             raise
-        old = self._staged.pop(key, None)
-        if old is not None:
-            with contextlib.suppress(OSError):
-                old.unlink()
-        self._staged[key] = tmp
         return target
 
     def staged(self, path: str | os.PathLike[str]) -> Path | None:
