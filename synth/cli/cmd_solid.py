@@ -292,8 +292,8 @@ def _predict(result, table):
                    reachable=ok, message=msg)
 
 
-def corrected_rows(rows: list[dict], design, label: str, reference_hz: float) -> str | None:
-    """Apply an instrument's correction table to `partials` rows; return what was done."""
+def corrected_rows(rows: list[dict], design, label: str, reference_hz: float):
+    """Apply an instrument's correction table to `partials` rows; return the table (or None)."""
     from synth.physics.instrument import Instrument
     from synth.physics.solid_correction import correction_of
     from synth.pitch import nearest_note
@@ -311,7 +311,7 @@ def corrected_rows(rows: list[dict], design, label: str, reference_hz: float) ->
     for r in rows:
         r["ratio"] = r["frequency_hz"] / f1 if f1 else None
     rows.sort(key=lambda r: r["frequency_hz"])
-    return table.describe()
+    return table
 
 
 def report_failed_jobs(results: list, runs: dict) -> None:

@@ -20,6 +20,7 @@ from synth.cli.common import (
     parse_field,
     plan_outputs,
     print_json,
+    say_correction,
     warn,
     wav_targets,
 )
@@ -102,9 +103,11 @@ def _check_format(fmt: str) -> None:
 def _render(path: Path, voices, seconds: float, voicer, opts: RenderOptions, settings: dict):
     """Render to the planned WAV with a progress bar; return the render's report."""
     from synth.output import render_to_wav
+    from synth.physics.solid_correction import correction_record
 
     settings = {"tubes": voicer.tubes_active,
-                "motor_rate_rev_per_s": voicer.motor.rate_rev_per_s, **settings}
+                "motor_rate_rev_per_s": voicer.motor.rate_rev_per_s,
+                "solid_correction": correction_record(voicer.correction), **settings}
     with Progress(100, "rendering") as step:
         last = [0]
 
@@ -138,6 +141,7 @@ def _print(record: dict, rep, opts: RenderOptions) -> None:
     if opts.json_out:
         print_json(record)
         return
+    say_correction(record["solid_correction"])
     how = ("normalised to -1 dBFS peak" if plan.mode == "normalise"
            else f"fixed gain {plan.gain_db:+.1f} dB")
     typer.echo(f"wrote {rep.path} ({rep.seconds:.2f} s, {opts.sample_rate} Hz, "
@@ -173,7 +177,9 @@ def _finish(preset: Path, name: str, voices, seconds: float, *, voicer, opts: Re
     if also_write is not None:
         also_write()
     commit_outputs()
-    record = _say(rep, opts)
+    from synth.physics.solid_correction import correction_record
+
+    record = {**_say(rep, opts), "solid_correction": correction_record(voicer.correction)}
     if report:
         _print(record, rep, opts)
     if opts.play:

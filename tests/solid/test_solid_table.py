@@ -48,7 +48,7 @@ def test_table_predicts_a_bar_between_the_anchors(tuned) -> None:
     result = run("partials", tuned, "--note", "C5", "--json", "--no-losses")
     assert result.exit_code == 0, result.stderr
     data = json.loads(result.stdout)
-    assert "[solid_correction]" in data["solid_correction"]
+    assert "[solid_correction]" in data["solid_correction"]["description"]
     rows = {(r["kind"], r["order"]): r["frequency_hz"] for r in data["partials"]}
     predicted = np.array([rows[("vertical", n)] for n in (1, 2, 3)])
     solid = solve_levels(inst.bar("C5"), inst.material.at_temperature(inst.temperature_c),
