@@ -230,6 +230,7 @@ def build_correction_table(inst, *, ratios, step: int, level: int | None,
     its 3-D residuals in cents.
     """
     from synth.executor import Job, run_jobs
+    from synth.physics.solid import unknowns
     from synth.physics.solid_correction import anchor_notes, correction_of
     from synth.physics.solid_tuning import anchor_job, table_from_anchors, tune_with_table
     from synth.physics.tuning import tune_instrument
@@ -248,8 +249,8 @@ def build_correction_table(inst, *, ratios, step: int, level: int | None,
                        if table is None else
                        tune_with_table(inst, notes, table, ratios=ratios, progress=tick))
         by_note = {r.spec.note: r for r in results}
-        jobs = [Job(a, anchor_job, (by_note[a].geometry, mat, level, accuracy, cache))
-                for a in anchors]
+        jobs = [Job(a, anchor_job, (by_note[a].geometry, mat, level, accuracy, cache),
+                    cost=float(unknowns(by_note[a].geometry, 1))) for a in anchors]
         with Progress(len(jobs), f"3-D anchors, round {round_no}") as step_bar:
             done = run_jobs(jobs, workers=workers, scheduler=scheduler,
                             progress=lambda r: step_bar(1, str(r.key)))
