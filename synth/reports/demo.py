@@ -236,6 +236,7 @@ def _render_list(inst, stereo):
 def _sounds(inst, out: Path, say: Say, steps: Steps):
     """Step 4: strikes, a chord and a passage to WAV; return the stereo plan."""
     from synth.output import render_to_wav
+    from synth.physics.solid_correction import correction_record
     from synth.voicing import Voicer
 
     say("4. sound (peak-normalised to -1 dBFS; start playback quietly)")
@@ -247,7 +248,9 @@ def _sounds(inst, out: Path, say: Say, steps: Steps):
             rep = render_to_wav(out / name, voices, int(seconds * fs), sample_rate=fs,
                                 channels=2, force=True,
                                 settings={"command": "demo", "what": what,
-                                          "preset": str(demo_preset_path())})
+                                          "preset": str(demo_preset_path()),
+                                          "solid_correction": correction_record(
+                                              stereo.correction)})
             say(f"   {rep.path}   ({what}; {rep.seconds:.1f} s, gain "
                 f"{rep.plan.gain_db:+.1f} dB)")
             step(1, name)
