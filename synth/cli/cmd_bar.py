@@ -181,8 +181,7 @@ def partials_command(
     moved = "by less than 0.0001 %" if change < 1e-4 else f"by {change:.4f} %"
     typer.echo(f"A4 = {ref:g} Hz; mesh {result.n_elements} elements of degree {degree}, last "
                f"refinement moved the vertical partials {moved}")
-    if corrected is not None:
-        say_correction(correction_record(corrected))
+    say_correction(correction_record(corrected))
     if losses:
         budget, note_txt = design_budget(design, label, result)
         typer.echo("")
@@ -504,8 +503,7 @@ def grind_command(
     typer.echo(f"{label}: cents per {removal_mm:g} mm removed over a {band_mm:g} mm band; "
                + ", ".join(f"{gm.modes[j][0]} {gm.modes[j][1]} {freqs[j]:.2f} Hz" for j in keep))
     typer.echo(format_table(heads, rows))
-    if table is not None:
-        say_correction(correction_record(table))
+    say_correction(correction_record(table))
     typer.echo(f"plot: {png}")
 
 
@@ -579,8 +577,7 @@ def cutlist_command(
             "-" if r.tube_length_m is None else f"{r.tube_length_m * 1e3:.1f}",
         ])
     typer.echo(format_table(heads, sheet))
-    if table is not None:
-        say_correction(correction_record(table))
+    say_correction(correction_record(table))
     typer.echo(f"wrote {csv_path} and {png_path}")
     if any(r.tube_length_m is not None for r in rows):
         typer.echo(f"tube lengths: closed end to mouth rim, for the [tubes] offset at "
