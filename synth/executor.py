@@ -7,13 +7,19 @@ runs them
 - in this process when one worker is asked for (simplest to debug, and what a
   single job needs),
 - on a local :class:`concurrent.futures.ProcessPoolExecutor` by default, one
-  process per core, each held to one BLAS thread (two processes with two BLAS
-  threads each only fight over the cores),
+  process per core, each held to one BLAS / OpenMP thread (two processes with two
+  threads each only fight over the cores): the thread pools already loaded are
+  limited when the worker starts (threadpoolctl), and ``OPENBLAS_NUM_THREADS``,
+  ``OMP_NUM_THREADS`` and ``MKL_NUM_THREADS`` are set to 1 in the worker before it
+  imports anything more, so a library it loads later (scipy carries its own
+  OpenBLAS) starts with one thread too,
 - on an existing Dask distributed cluster when a scheduler address is given
   (``scheduler="tcp://host:8786"`` or the ``BARWRIGHT_SCHEDULER`` environment
   variable); ``dask.distributed`` is imported only then.
 
-Results come back in job order whichever engine ran them.  A job that raises is
+Jobs of unequal size go to the workers longest first (``Job.cost``, an estimate in
+any unit): the pool then does not end with one worker busy on a long job while the
+other idles.  Results come back in job order whichever engine ran them.  A job that raises is
 reported with its key and the error, and the other jobs complete.  A local worker
 process that dies (killed, out of memory) breaks a process pool; the jobs that had
 not finished are then run once more, each in a process of its own, and a job that
@@ -41,11 +47,21 @@ SCHEDULER_ENV = "BARWRIGHT_SCHEDULER"
 
 @dataclass(frozen=True)
 class Job:
-    """One independent job: ``func(*args)``, known to the user by ``key``."""
+    """One independent job: ``func(*args)``, known to the user by ``key``.
+
+    ``cost`` estimates its work (any unit shared by the jobs of one run); a pool or
+    cluster starts the costliest first.
+    """
 
     key: Hashable
     func: Callable[..., Any]
     args: tuple = ()
+    cost: float = 0.0
+
+
+def longest_first(jobs: Sequence[Job]) -> list[int]:
+    """Return the job indices by falling cost (equal costs keep their order)."""
+    return sorted(range(len(jobs)), key=lambda i: -jobs[i].cost)
 
 
 @dataclass(frozen=True)
@@ -156,7 +172,15 @@ def _run_here(jobs: list[Job], progress) -> list[JobResult]:
     return out
 
 
+THREAD_ENV = ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS")
+"""Environment variables a BLAS or OpenMP library reads for its thread count when it
+loads."""
+
+
 def _one_blas_thread() -> None:
+    """Hold a worker to one thread: libraries loaded now and those it loads later."""
+    for name in THREAD_ENV:
+        os.environ[name] = "1"
     from threadpoolctl import threadpool_limits
 
     threadpool_limits(1)
@@ -166,7 +190,7 @@ def _run_pool(jobs: list[Job], n: int, progress) -> list[JobResult]:
     results: dict[int, JobResult] = {}
     broken: list[int] = []
     with ProcessPoolExecutor(max_workers=n, initializer=_one_blas_thread) as pool:
-        futures = {pool.submit(_call, job): i for i, job in enumerate(jobs)}
+        futures = {pool.submit(_call, jobs[i]): i for i in longest_first(jobs)}
         try:
             waiting = set(futures)
             while waiting:
@@ -214,8 +238,10 @@ def _run_dask(jobs: list[Job], address: str, progress) -> list[JobResult]:
         raise ConfigError(f"= {address!r}: no Dask scheduler answers there ({exc})",
                           source="--scheduler") from None
     try:
-        futures = [client.submit(_call, job, pure=False) for job in jobs]
-        index = {fut.key: i for i, fut in enumerate(futures)}
+        order = longest_first(jobs)
+        futures = [client.submit(_call, jobs[i], pure=False, priority=len(jobs) - rank)
+                   for rank, i in enumerate(order)]
+        index = {fut.key: i for i, fut in zip(order, futures, strict=True)}
         results: dict[int, JobResult] = {}
         for fut in as_completed(futures, loop=client.loop):
             i = index[fut.key]

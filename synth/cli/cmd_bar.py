@@ -32,12 +32,17 @@ from synth.cli.common import (
     missed,
     plan_outputs,
     print_json,
+    say_correction,
 )
 from synth.cli.options import workers_option
 from synth.errors import ConfigError
 from synth.physics.bar_fe import BarModes, solve_bar
 from synth.physics.instrument import BarFile, Instrument
-from synth.physics.solid_correction import correction_of
+from synth.physics.solid_correction import (
+    corrected_frequencies,
+    correction_of,
+    correction_record,
+)
 from synth.pitch import nearest_note
 from synth.settings.instrument import load_design
 from synth.voicing import design_budget
@@ -155,7 +160,7 @@ def partials_command(
             "mesh_elements": result.n_elements,
             "mesh_change": result.change,
             "partials": rows,
-            "solid_correction": corrected,
+            "solid_correction": correction_record(corrected),
             **({"plot": str(png)} if png is not None else {}),
         })
         return
@@ -177,8 +182,7 @@ def partials_command(
     moved = "by less than 0.0001 %" if change < 1e-4 else f"by {change:.4f} %"
     typer.echo(f"A4 = {ref:g} Hz; mesh {result.n_elements} elements of degree {degree}, last "
                f"refinement moved the vertical partials {moved}")
-    if corrected:
-        typer.echo(_sentence(corrected))
+    say_correction(correction_record(corrected))
     if losses:
         budget, note_txt = design_budget(design, label, result)
         typer.echo("")
@@ -403,7 +407,8 @@ def tune_command(
             "note": r.spec.note, "target_hz": float(r.spec.fundamental_hz),
             "length_m": g.length_m, "width_m": g.width_m, "thickness_m": g.thickness_m,
             "undercut": g.undercut.to_table() if g.undercut else None,
-            "thinnest_m": r.thinnest_m, "residual_cents": [float(c) for c in r.residual_cents],
+            "thinnest_m": r.thinnest_m, "frequencies_hz": [float(f) for f in r.frequencies_hz],
+            "residual_cents": [float(c) for c in r.residual_cents],
             "reachable": r.reachable, "message": r.message, "solves": r.n_solves,
             "seconds": r.seconds, "drift_cents_per_k": drift[r.spec.note],
             **({"shop_reading_cents": [float(c) for c in shop[r.spec.note]]}
@@ -414,8 +419,7 @@ def tune_command(
     if json_out:
         print_json({"bars": records, "seconds": elapsed, "out": str(out) if write else None,
                     "missed": n_missed,
-                    **({"solid_correction": table.to_table()}
-                       if table is not None and not solid else {}),
+                    "solid_correction": None if solid else correction_record(table),
                     **({"anchor_residual_cents": {a: list(v) for a, v in anchor_miss.items()}}
                        if anchor_miss else {}),
                     **({"stiffness_calibration": {
@@ -463,11 +467,12 @@ def tune_command(
     if changes and stiffness is not None:
         typer.echo("")
         typer.echo(_changes_table(changes))
-        typer.echo(_sentence(stiffness.describe()))
+        text = stiffness.describe()
+        typer.echo(text[:1].upper() + text[1:] + ".")
     if solid:
         typer.echo(solid_summary(solid_runs))
     elif table is not None:
-        typer.echo(_sentence(table.describe()))
+        say_correction(correction_record(table))
         if anchor_miss:
             typer.echo("anchors in 3-D, cents off target: " + "; ".join(
                 f"{a} " + " ".join(f"{c:+.1f}" for c in v) for a, v in anchor_miss.items()))
@@ -509,7 +514,10 @@ def grind_command(
 
     Negative: that partial goes flat (metal removed where the bar bends most);
     positive: it goes sharp (metal removed where it mainly moves, near the ends).
-    First-order Rayleigh-quotient sensitivities of the finite-element modes.
+    First-order Rayleigh-quotient sensitivities of the finite-element modes. A preset
+    with a [solid_correction] table gives the 3-D-corrected frequencies (the command
+    says so); the cents are the 1-D model's, the table's factor being constant over a
+    grind this small.
     Wear eye, face and hearing protection at the grinder; keep aluminium dust apart
     from steel grinding.
     """
@@ -526,6 +534,8 @@ def grind_command(
     kinds = ("vertical", "torsional") if torsion else ("vertical",)
     gm = grind_map(res, n_stations=stations, band_m=band_mm * 1e-3, removal_m=removal_mm * 1e-3,
                    kinds=kinds, max_order=partials)
+    table = correction_of(design) if isinstance(design, Instrument) else None
+    freqs = corrected_frequencies(table, label, gm.modes, gm.frequencies_hz)
     keep = [j for j, (k, o) in enumerate(gm.modes) if k == "vertical" or o == 1]
     io.write_bytes(png, grind_map_png(gm, geometry, title=f"{label}: grind map",
                                       cord_holes_m=res.vertical[0].nodes_m), force=force)
@@ -533,7 +543,8 @@ def grind_command(
     if json_out:
         print_json({"bar": label, "band_m": gm.band_m, "removal_m": gm.removal_m,
                     "modes": [{"kind": gm.modes[j][0], "order": gm.modes[j][1],
-                               "frequency_hz": gm.frequencies_hz[j]} for j in keep],
+                               "frequency_hz": float(freqs[j])} for j in keep],
+                    "solid_correction": correction_record(table),
                     "stations": [{"x_m": x, "thickness_m": t,
                                   "cents": [gm.cents[i, j] for j in keep]}
                                  for i, (x, t) in enumerate(zip(gm.x_m, gm.thickness_m,
@@ -543,8 +554,10 @@ def grind_command(
     heads = ["x mm", "thick mm"] + [f"{gm.modes[j][0][:4]} {gm.modes[j][1]} c" for j in keep]
     rows = [[f"{x * 1e3:.1f}", f"{t * 1e3:.2f}", *[f"{gm.cents[i, j]:+.3f}" for j in keep]]
             for i, (x, t) in enumerate(zip(gm.x_m, gm.thickness_m, strict=True))]
-    typer.echo(f"{label}: cents per {removal_mm:g} mm removed over a {band_mm:g} mm band")
+    typer.echo(f"{label}: cents per {removal_mm:g} mm removed over a {band_mm:g} mm band; "
+               + ", ".join(f"{gm.modes[j][0]} {gm.modes[j][1]} {freqs[j]:.2f} Hz" for j in keep))
     typer.echo(format_table(heads, rows))
+    say_correction(correction_record(table))
     typer.echo(f"plot: {png}")
 
 
@@ -595,18 +608,19 @@ def cutlist_command(
 
     ts = with_file_calibration(inst.tables.tubes, inst.tables.damping)
     gap_open = ts is not None and "gap_calibration" in ts.uncalibrated()
+    table = correction_of(inst)
     if json_out:
         print_json({"bars": [r.__dict__ for r in rows], "csv": str(csv_path),
-                    "png": str(png_path),
+                    "png": str(png_path), "solid_correction": correction_record(table),
                     "uncalibrated": {"tube_length_m": ["gap_calibration"] if gap_open else []}})
         return
     heads = ["note", "length mm", "w x t mm", "thinnest", "t@20%", "t@30%", "t@40%", "t@50%",
              "cord holes mm from each end", "cord %L", "mass g",
              "tube mm ~" if gap_open else "tube mm"]
-    table = []
+    sheet = []
     for r in rows:
         st = r.station_thickness_m
-        table.append([
+        sheet.append([
             r.note, f"{r.length_m * 1e3:.1f}",
             f"{r.width_m * 1e3:.1f} x {r.thickness_m * 1e3:.2f}", f"{r.thinnest_m * 1e3:.2f}",
             *[f"{st[i] * 1e3:.2f}" for i in (2, 3, 4, 5)],
@@ -614,10 +628,8 @@ def cutlist_command(
             f"{r.cord_fraction * 100:.2f}", f"{r.mass_kg * 1e3:.0f}",
             "-" if r.tube_length_m is None else f"{r.tube_length_m * 1e3:.1f}",
         ])
-    typer.echo(format_table(heads, table))
-    correction = correction_of(inst)
-    if correction is not None:
-        typer.echo(_sentence(correction.describe()))
+    typer.echo(format_table(heads, sheet))
+    say_correction(correction_record(table))
     typer.echo(f"wrote {csv_path} and {png_path}")
     if any(r.tube_length_m is not None for r in rows):
         typer.echo(f"tube lengths: closed end to mouth rim, for the [tubes] offset at "
@@ -658,7 +670,3 @@ def _override(inst, family: str | None, venue_c: float | None):
         raw["temperature_c"] = venue_c
         inst = replace(inst, temperature_c=venue_c)
     return replace(inst, raw=raw)
-
-
-def _sentence(text: str) -> str:
-    return text[:1].upper() + text[1:] + "."

@@ -25,6 +25,7 @@ from synth.cli.common import (
     info,
     plan_outputs,
     print_json,
+    say_correction,
     warn,
 )
 from synth.errors import ConfigError
@@ -331,6 +332,8 @@ def _print_report(comp, names, files) -> None:
     typer.echo(format_table(["", "design", "tubes", "motor", "mallet", "gain dB re 1/Pa"],
                             _design_rows(comp, names, files), align="llllll",
                             title="what each design was rendered with"))
+    for d, st in zip(("A", "B"), comp.designs, strict=True):
+        say_correction(st.get("solid_correction"), prefix=f"{d}: ")
     typer.echo(f"passage: {comp.passage.label}")
     typer.echo(f"render length {comp.length_s:.2f} s per design at {comp.sample_rate} Hz, "
                "stereo, onsets aligned (integrated loudness of ringing notes depends on the "

@@ -234,6 +234,7 @@ def build_correction_table(inst, *, ratios, step: int, level: int | None,
     its 3-D residuals in cents.
     """
     from synth.executor import Job, run_jobs
+    from synth.physics.solid import unknowns
     from synth.physics.solid_correction import anchor_notes, correction_of
     from synth.physics.solid_tuning import anchor_job, table_from_anchors, tune_with_table
     from synth.physics.tuning import tune_instrument
@@ -254,8 +255,8 @@ def build_correction_table(inst, *, ratios, step: int, level: int | None,
                        tune_with_table(inst, notes, table, ratios=ratios, progress=tick,
                                        workers=workers))
         by_note = {r.spec.note: r for r in results}
-        jobs = [Job(a, anchor_job, (by_note[a].geometry, mat, level, accuracy, cache))
-                for a in anchors]
+        jobs = [Job(a, anchor_job, (by_note[a].geometry, mat, level, accuracy, cache),
+                    cost=float(unknowns(by_note[a].geometry, 1))) for a in anchors]
         with Progress(len(jobs), f"3-D anchors, round {round_no}") as step_bar:
             done = run_jobs(jobs, workers=workers, scheduler=scheduler,
                             progress=lambda r: step_bar(1, str(r.key)))
@@ -298,8 +299,8 @@ def _predict(result, table):
                    reachable=ok, message=msg)
 
 
-def corrected_rows(rows: list[dict], design, label: str, reference_hz: float) -> str | None:
-    """Apply an instrument's correction table to `partials` rows; return what was done."""
+def corrected_rows(rows: list[dict], design, label: str, reference_hz: float):
+    """Apply an instrument's correction table to `partials` rows; return the table (or None)."""
     from synth.physics.instrument import Instrument
     from synth.physics.solid_correction import correction_of
     from synth.pitch import nearest_note
@@ -317,7 +318,7 @@ def corrected_rows(rows: list[dict], design, label: str, reference_hz: float) ->
     for r in rows:
         r["ratio"] = r["frequency_hz"] / f1 if f1 else None
     rows.sort(key=lambda r: r["frequency_hz"])
-    return table.describe()
+    return table
 
 
 def report_failed_jobs(results: list, runs: dict) -> None:

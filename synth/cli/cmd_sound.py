@@ -20,6 +20,7 @@ from synth.cli.common import (
     parse_field,
     plan_outputs,
     print_json,
+    say_correction,
     warn,
     wav_targets,
 )
@@ -105,11 +106,13 @@ def _render(path: Path, voices, seconds: float | None, voicer, opts: RenderOptio
     ``seconds=None`` rings out to the end level; a length is cut there with a fade.
     """
     from synth.output import render_to_wav, ring_out_length
+    from synth.physics.solid_correction import correction_record
 
     ring = seconds is None
     n = (int(round(seconds * opts.sample_rate)) if seconds is not None
          else ring_out_length(voices, sample_rate=opts.sample_rate, end_level_db=opts.end_level))
-    settings = {**voicer.plan_settings(), "requested_seconds": seconds, **settings}
+    settings = {**voicer.plan_settings(), "requested_seconds": seconds,
+                "solid_correction": correction_record(voicer.correction), **settings}
     with Progress(100, "rendering") as step:
         last = [0]
 
@@ -144,6 +147,7 @@ def _print(record: dict, rep, opts: RenderOptions) -> None:
     if opts.json_out:
         print_json(record)
         return
+    say_correction(record["solid_correction"])
     how = ("normalised to -1 dBFS peak" if plan.mode == "normalise"
            else f"fixed gain {plan.gain_db:+.1f} dB")
     typer.echo(f"wrote {rep.path} ({rep.seconds:.2f} s, {opts.sample_rate} Hz, "
@@ -180,7 +184,9 @@ def _finish(preset: Path, name: str, voices, seconds: float | None, *, voicer, o
     if also_write is not None:
         also_write()
     commit_outputs()
-    record = _say(rep, opts)
+    from synth.physics.solid_correction import correction_record
+
+    record = {**_say(rep, opts), "solid_correction": correction_record(voicer.correction)}
     if report:
         _print(record, rep, opts)
     if opts.play:

@@ -205,6 +205,18 @@ def info(message: str) -> None:
     typer.echo(message, err=True)
 
 
+def say_correction(record: dict | None, prefix: str = "") -> None:
+    """Print the line saying a preset's 3-D correction table was applied (none: nothing).
+
+    ``record`` is the ``solid_correction`` field of the command's JSON output
+    (:func:`synth.physics.solid_correction.correction_record`); ``prefix`` names the
+    design when there are several.
+    """
+    if record is not None:
+        text = record["description"]
+        typer.echo(prefix + text[:1].upper() + text[1:] + ".")
+
+
 def default_output(file: Path, name: str) -> Path:
     """Where an output goes unless the user names it: renders/<file stem>/<name>."""
     return Path("renders") / file.stem / name

@@ -16,8 +16,11 @@ A tuned preset stores it as::
     vertical_1 = [1.0070, ...]      # one per anchor
     ...
 
-and every command that predicts frequencies from the preset (partials, tune, cutlist,
-the voice plan) multiplies the 1-D frequencies by the interpolated factors and says so.
+and every command that predicts frequencies from the preset (partials, tune, grind,
+cutlist, strike, chord, render, sustain, compare: the voice plan) multiplies the 1-D
+frequencies by the interpolated factors and says so: a line of human output
+(:meth:`CorrectionTable.describe`) and a ``solid_correction`` field in JSON output and
+WAV sidecars (:func:`correction_record`; null without a table).
 """
 
 from __future__ import annotations
@@ -78,10 +81,14 @@ class CorrectionTable:
         return tuple(self.factor(note, "vertical", k) for k in range(1, n + 1))
 
     def describe(self) -> str:
-        """Say in a line what the table is."""
-        return (f"frequencies corrected by the preset's [{SECTION}] table (3-D solves at "
-                f"{', '.join(self.anchors)}, mesh level {self.mesh_level}, estimated error "
-                f"{self.estimated_error * 100:.3f} %)")
+        """Say in a line what the table is (the announcement every command prints)."""
+        return (f"partials corrected by the preset's 3-D [{SECTION}] table: anchors "
+                f"{self.anchors[0]}..{self.anchors[-1]} ({', '.join(self.anchors)}), mesh "
+                f"level {self.mesh_level}, est. error {self.estimated_error * 100:.3f} %")
+
+    def record(self) -> dict:
+        """Return the table with its announcement: the field of JSON output and sidecars."""
+        return {**self.to_table(), "description": self.describe()}
 
     def to_table(self) -> dict:
         """Return the TOML table."""
@@ -97,6 +104,14 @@ def correction_of(instrument) -> CorrectionTable | None:
     return None if tables is None else tables.solid_correction
 
 
+def correction_record(table: CorrectionTable | None) -> dict | None:
+    """Return the ``solid_correction`` field of a command's JSON or a WAV sidecar.
+
+    None when the preset has no table (its frequencies are the 1-D model's).
+    """
+    return None if table is None else table.record()
+
+
 def corrected_modes(modes: BarModes, table: CorrectionTable | None, note: str) -> BarModes:
     """Return ``modes`` with each tabled mode's frequency multiplied by its factor."""
     if table is None:
@@ -104,6 +119,16 @@ def corrected_modes(modes: BarModes, table: CorrectionTable | None, note: str) -
     out = tuple(replace(m, frequency_hz=m.frequency_hz * table.factor(note, m.kind, m.order))
                 for m in modes.modes)
     return replace(modes, modes=out)
+
+
+def corrected_frequencies(table: CorrectionTable | None, note: str,
+                          modes: tuple[tuple[str, int], ...] | list[tuple[str, int]],
+                          frequencies_hz) -> np.ndarray:
+    """Return ``frequencies_hz`` of ``modes`` (kind, order) at ``note`` times their factors."""
+    f = np.asarray(frequencies_hz, dtype=float)
+    if table is None:
+        return f
+    return f * np.array([table.factor(note, kind, order) for kind, order in modes])
 
 
 def anchor_notes(notes: tuple[str, ...] | list[str], step: int = 6) -> list[str]:

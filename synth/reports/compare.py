@@ -77,6 +77,7 @@ from synth.engine.render import render
 from synth.engine.score import Score, Strike
 from synth.errors import AudioError, ConfigError
 from synth.output import fade_seconds
+from synth.physics.solid_correction import correction_record
 from synth.pitch import canonical_note, midi_to_note, note_to_midi, ratio_to_cents
 from synth.settings.comparison import DESIGNS, BlindKey
 from synth.voicing import Voicer
@@ -733,14 +734,16 @@ def design_settings(voicer: Voicer, mallet: str | None = None) -> dict[str, Any]
     dict
         ``name``, ``tubes`` (fitted and on), ``motor_rate_rev_per_s`` (0 =
         stopped), ``motor_resting``, ``mallet``, ``calibration`` (factor per
-        loss mechanism).
+        loss mechanism), ``solid_correction`` (the preset's 3-D correction table
+        applied to the partials, None without one).
     """
     cal = voicer.loss_calibration
     factors = getattr(cal, "factors", None)
     return {"name": voicer.instrument.name, "tubes": voicer.tubes_active,
             "motor_rate_rev_per_s": float(voicer.motor.rate_rev_per_s),
             "motor_resting": voicer.motor.resting, "mallet": mallet or voicer.sound.mallet,
-            "calibration": dict(factors) if factors else {}}
+            "calibration": dict(factors) if factors else {},
+            "solid_correction": correction_record(voicer.correction)}
 
 
 def compare_designs(voicer_a: Voicer, voicer_b: Voicer, passage: Passage, *,

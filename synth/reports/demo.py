@@ -247,6 +247,7 @@ def _sounds(inst, out: Path, say: Say, steps: Steps, workers: int | None = 1):
     at its length with the closing fade of :func:`synth.output.render_to_wav`.
     """
     from synth.output import render_to_wav
+    from synth.physics.solid_correction import correction_record
     from synth.voicing import Voicer
 
     say("4. sound (peak-normalised to -1 dBFS; the A4 pair at one gain; start playback "
@@ -262,6 +263,8 @@ def _sounds(inst, out: Path, say: Say, steps: Steps, workers: int | None = 1):
                                 channels=2, force=True, gain_db=pair_gain if bare else None,
                                 settings={"command": "demo", "what": what,
                                           "preset": str(demo_preset_path()),
+                                          "solid_correction": correction_record(
+                                              stereo.correction),
                                           **({"gain_shared_with": DEMO_WAVS[0]} if bare
                                              else {})})
             if name == DEMO_WAVS[0]:

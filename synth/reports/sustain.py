@@ -44,6 +44,7 @@ from synth.executor import Job, run_jobs, values_or_raise
 from synth.numerics import bracketed_root
 from synth.physics.coupling import coupling_at_offset
 from synth.physics.motor import disc_modulation, steady_bar_decay_per_s
+from synth.physics.solid_correction import correction_record
 from synth.physics.tube import tube_length_for_bar
 from synth.pitch import cents, note_to_midi
 from synth.voicing import Voicer
@@ -100,6 +101,8 @@ class SustainReport:
     analysis_seconds: float
     audio_seconds: float
     max_offset_cents: float = DEFAULT_MAX_OFFSET_CENTS
+    solid_correction: dict | None = None
+    """The preset's 3-D correction table applied to every row (``correction_record``)."""
 
 
 def parse_target_curve(text: str, notes: list[str]) -> dict[str, float]:
@@ -249,7 +252,7 @@ def sustain_report(voicer: Voicer, notes: list[str] | None = None, *,
     rows = verify_suggestions(voicer, rows, tolerance_percent)
     return SustainReport(tuple(rows), tolerance_percent, at_time_s, label, voicer.tubes_active,
                          voicer.motor.rate_rev_per_s, t_render, t_analysis, audio,
-                         max_offset_cents)
+                         max_offset_cents, correction_record(voicer.correction))
 
 
 @dataclass(frozen=True)

@@ -123,3 +123,37 @@ def test_scheduler_from_the_environment(cluster, monkeypatch) -> None:
     monkeypatch.setenv("BARWRIGHT_SCHEDULER", cluster.scheduler_address)
     assert describe() == f"Dask cluster at {cluster.scheduler_address}"
     assert [r.value for r in run_jobs(JOBS[:2])] == EXPECTED[:2]
+
+
+def _threads(_: int) -> tuple[dict, list[int]]:
+    """Return the thread variables of a worker's environment and its BLAS pools' sizes."""
+    import scipy.linalg  # noqa: F401  (scipy carries its own OpenBLAS: loaded by now)
+    from threadpoolctl import threadpool_info
+
+    from synth.executor import THREAD_ENV
+
+    return ({name: os.environ.get(name) for name in THREAD_ENV},
+            [lib["num_threads"] for lib in threadpool_info()])
+
+
+def test_pool_workers_hold_one_blas_thread() -> None:
+    """Each pool worker runs one BLAS / OpenMP thread, libraries loaded later included.
+
+    Two workers with a BLAS pool of one thread per core each only fight over the cores
+    (threadpoolctl documents the oversubscription this avoids).
+    """
+    results = run_jobs([Job(i, _threads, (i,)) for i in range(2)], workers=2)
+    for r in results:
+        env, threads = r.value
+        assert set(env.values()) == {"1"}, env
+        assert threads and all(n == 1 for n in threads), threads
+
+
+def test_costliest_jobs_start_first_and_results_keep_job_order() -> None:
+    """Longest first (equal costs keep their order); results still come in job order."""
+    from synth.executor import longest_first
+
+    jobs = [Job(f"bar {i}", _work, (0.1 * i,), cost=c)
+            for i, c in enumerate([1.0, 5.0, 3.0, 5.0, 0.0, 2.0])]
+    assert longest_first(jobs) == [1, 3, 2, 5, 0, 4]
+    assert [r.value for r in run_jobs(jobs, workers=2)] == EXPECTED

@@ -91,8 +91,8 @@ def test_bad_strike_raises_its_own_error_on_any_number_of_workers(inst) -> None:
     """
     from dataclasses import replace
 
-    from synth.settings.score import read_events
     from synth.errors import ConfigError
+    from synth.settings.score import read_events
     from synth.voicing import Voicer
 
     score = read_events(presets_dir() / "events" / "harbour-waltz.toml")
