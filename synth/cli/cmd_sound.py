@@ -304,6 +304,25 @@ def _chord_voices(v, items, velocity: float, roll_ms: float, mallet: str | None)
     return voices
 
 
+def _score_for(v, events: Path, mallet: str | None):
+    """Read an event file, check its notes against the preset, apply a default mallet."""
+    from dataclasses import replace
+
+    from synth.settings.score import read_events
+
+    score = read_events(events)
+    for k, st in enumerate(score.strikes):
+        try:
+            v.instrument.check_note(st.note, option="note")
+        except ConfigError as exc:
+            raise ConfigError(f"strike {k + 1} at {st.time_s:.3f} s: {exc.detail}",
+                              source=str(events)) from None
+    if mallet is not None:
+        score = replace(score, strikes=tuple(replace(s, mallet=s.mallet or mallet)
+                                             for s in score.strikes))
+    return score
+
+
 @app.command("render")
 @handle_errors
 @render_options
@@ -318,21 +337,8 @@ def render_command(
     render: RenderOptions,
 ) -> None:
     """Render a passage from an event file (TOML events or MIDI) to WAV."""
-    from dataclasses import replace
-
-    from synth.settings.score import read_events
-
     v = _voicer(preset, render)
-    score = read_events(events)
-    for k, st in enumerate(score.strikes):
-        try:
-            v.instrument.check_note(st.note, option="note")
-        except ConfigError as exc:
-            raise ConfigError(f"strike {k + 1} at {st.time_s:.3f} s: {exc.detail}",
-                              source=str(events)) from None
-    if mallet is not None:
-        score = replace(score, strikes=tuple(replace(s, mallet=s.mallet or mallet)
-                                             for s in score.strikes))
+    score = _score_for(v, events, mallet)
     with Progress(len(score.strikes), "planning") as step:
         last = [0]
 
