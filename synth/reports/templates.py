@@ -261,7 +261,7 @@ def _draw_page(ax, row: CutRow, geometry: BarGeometry, page: TemplatePage,
 
 
 def _rectangle(x: float, y: float, w: float, h: float):
-    """A filled black rectangle, mm."""
+    """Return a filled black rectangle, mm."""
     from matplotlib.patches import Rectangle
 
     return Rectangle((x, y), w, h, facecolor="black", edgecolor="none")

@@ -245,7 +245,7 @@ def test_bars_put_together_have_their_length_holes_and_stations(templates) -> No
         strip = by_note[note]
         n = len(strip)
         tol_pt = 2 * n * ROUND_PT
-        shift, ends, holes, ticks = 0.0, [], [], []
+        shift, ends, holes, ticks, previous = 0.0, [], [], [], []
         for k, page in enumerate(strip):
             marks = sorted(x for x, lo, hi in _verticals(page, ALIGN_COLOUR))
             if k > 0:   # this page's first two marks on the previous page's last two
