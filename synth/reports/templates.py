@@ -34,8 +34,8 @@ MM_PER_INCH = 25.4
 """Millimetres per inch, exact by definition (international yard and pound, 1959)."""
 
 PAPER_MM: dict[str, tuple[float, float]] = {
-    "a4": (297.0, 210.0),       # ISO 216 A4, landscape
-    "letter": (279.4, 215.9),   # US Letter 8.5 x 11 in (ANSI/ASME Y14.1), landscape
+    "a4": (297.0, 210.0),       # ISO 216 A4, landscape (from memory)
+    "letter": (279.4, 215.9),   # US Letter 8.5 x 11 in (ANSI/ASME Y14.1, from memory), landscape
 }
 """Sheet sizes, width x height in mm, landscape."""
 

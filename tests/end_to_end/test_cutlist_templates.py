@@ -2,12 +2,12 @@
 
 The templates are read back from the PDF's own bytes, as a printer would: the page
 size from each page's MediaBox and the drawing from its content stream (the path
-operators m, l, c and re, in PDF points).  A point is 1/72 inch and an inch
-25.4 mm exactly (PDF 32000-1:2008 section 8.3.2.3, default user space unit; the
-inch by the international yard and pound agreement of 1959), so a drawing at
-1:1 puts 72 / 25.4 pt on the page for every millimetre of bar.  ISO 216 gives A4
-as 210 x 297 mm; US Letter is 8.5 x 11 in (ANSI/ASME Y14.1), i.e. 612 x 792 pt
-exactly.
+operators m, l, c and re, in PDF points).  A point is 1/72 inch (ISO 32000-1:2008
+section 8.3.2.3, the default user space unit; section number from memory) and an
+inch 25.4 mm exactly (the international yard and pound agreement of 1959), so a
+drawing at 1:1 puts 72 / 25.4 pt on the page for every millimetre of bar.  ISO 216
+gives A4 as 210 x 297 mm; US Letter is 8.5 x 11 in (ANSI/ASME Y14.1), i.e. 612 x 792
+pt exactly (both sizes from memory).
 
 Bounds: matplotlib's PDF writer prints path coordinates with 6 decimals (at most
 5e-7 pt off each) and the page size with 10; the transform from mm to points is a
