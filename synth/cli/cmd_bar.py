@@ -572,8 +572,15 @@ def cutlist_command(
     preset: Annotated[Path, typer.Argument(help="Tuned instrument preset (with [bars]).",
                                            show_default=False)],
     out: Annotated[Path | None, typer.Option(
-        help="Folder for cutlist.csv and profiles.png (default renders/<preset>/).")] = None,
+        help="Folder for cutlist.csv, profiles.png and templates.pdf (default "
+             "renders/<preset>/).")] = None,
     force: Annotated[bool, typer.Option(help="Overwrite existing files.")] = False,
+    templates: Annotated[bool, typer.Option(
+        "--templates", help="Also write templates.pdf: every bar's side profile at 1:1 for "
+        "printing and cutting (long bars over several overlapping pages with alignment "
+        "marks; a 100 mm check bar on every page).")] = False,
+    paper: Annotated[str, typer.Option(
+        metavar="a4|letter", help="Paper of --templates, printed landscape.")] = "a4",
     workers: int | None = workers_option(
         "the bars' solves"),
     json_out: Annotated[bool, typer.Option("--json", help="Print JSON on stdout.")] = False,
@@ -587,12 +594,16 @@ def cutlist_command(
     from synth.cli.common import Progress
     from synth.reports.cutlist import SAFETY, cut_rows, cutlist_csv
     from synth.reports.plots import profile_sheet_png
+    from synth.reports.templates import PRINT_AT_SIZE, printable_mm, templates_pdf
     from synth.settings.instrument import load_instrument
 
+    printable_mm(paper)   # a bad --paper stops before any file is read
     inst = load_instrument(preset)
     folder = out or default_output(preset, "")
     csv_path, png_path = folder / "cutlist.csv", folder / "profiles.png"
-    plan_outputs([(csv_path, "cut list"), (png_path, "profile sheet")], force=force)
+    pdf_path = folder / "templates.pdf" if templates else None
+    plan_outputs([(csv_path, "cut list"), (png_path, "profile sheet")]
+                 + ([(pdf_path, "cutting templates")] if pdf_path else []), force=force)
     missing = [n for n in inst.notes if n not in inst.bars]
     if missing:
         raise ConfigError(f"bars.{missing[0]}: {len(missing)} bar(s) have no geometry; run "
@@ -603,6 +614,10 @@ def cutlist_command(
     io.write_bytes(png_path, profile_sheet_png(
         [(r.note, inst.bar(r.note), r.cord_holes_m) for r in rows],
         title=f"{inst.name}: bar profiles (circles: cord holes)"), force=force)
+    if pdf_path is not None:
+        io.write_bytes(pdf_path, templates_pdf(
+            rows, {r.note: inst.bar(r.note) for r in rows}, paper=paper, title=inst.name,
+            workshop=inst.raw.get("workshop", ""), safety=SAFETY), force=force)
     commit_outputs()
     from synth.physics.tube import with_file_calibration
 
@@ -612,6 +627,7 @@ def cutlist_command(
     if json_out:
         print_json({"bars": [r.__dict__ for r in rows], "csv": str(csv_path),
                     "png": str(png_path), "solid_correction": correction_record(table),
+                    "pdf": None if pdf_path is None else str(pdf_path),
                     "uncalibrated": {"tube_length_m": ["gap_calibration"] if gap_open else []}})
         return
     heads = ["note", "length mm", "w x t mm", "thinnest", "t@20%", "t@30%", "t@40%", "t@50%",
@@ -631,6 +647,8 @@ def cutlist_command(
     typer.echo(format_table(heads, sheet))
     say_correction(correction_record(table))
     typer.echo(f"wrote {csv_path} and {png_path}")
+    if pdf_path is not None:
+        typer.echo(f"wrote {pdf_path} (cutting templates on {paper}: {PRINT_AT_SIZE})")
     if any(r.tube_length_m is not None for r in rows):
         typer.echo(f"tube lengths: closed end to mouth rim, for the [tubes] offset at "
                    f"{inst.temperature_c:g} C with the bar in place; cut long and trim to pitch.")

@@ -22,9 +22,10 @@ from synth.physics.solid_correction import corrected_modes, correction_of
 STATION_FRACTIONS = tuple(i / 10 for i in range(11))
 
 SAFETY = (
-    "Workshop safety: eye, face and hearing protection; clamp the work; blades and wheels "
-    "rated for non-ferrous metal; keep aluminium dust apart from steel grinding (fire and "
-    "explosion risk); deburr edges and holes. Local codes and licensed practice take precedence."
+    "Workshop safety when cutting and grinding: eye, face and hearing protection; clamp the "
+    "work; blades and wheels rated for non-ferrous metal; dust extraction for aluminium, "
+    "whose fine dust can burn (keep it apart from steel grinding); follow local codes and "
+    "the machine maker's instructions."
 )
 
 

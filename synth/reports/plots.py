@@ -104,33 +104,46 @@ def grind_map_png(gm: GrindMap, geometry: BarGeometry, *, title: str = "",
 
 def profile_sheet_png(bars: list[tuple[str, BarGeometry, tuple[float, ...]]], *,
                       title: str = "", columns: int = 4) -> bytes:
-    """Draw a sheet of bar side views (note, geometry, cord holes) to one length scale."""
+    """Return :func:`profile_sheet_figure` as PNG bytes."""
+    return figure_png(profile_sheet_figure(bars, title=title, columns=columns))
+
+
+def profile_sheet_figure(bars: list[tuple[str, BarGeometry, tuple[float, ...]]], *,
+                         title: str = "", columns: int = 4):
+    """Draw a sheet of bar side views (note, geometry, cord holes) to one length scale.
+
+    Each panel is titled with the bar's length, thinnest point and cord-hole
+    positions in mm from the left end; both axes are in mm, and the figure's title
+    says how many times the thickness is stretched against the length.
+    """
     plt = pyplot()
     n = len(bars)
     rows = max(1, int(np.ceil(n / columns)))
-    fig, axes = plt.subplots(rows, columns, figsize=(3.2 * columns, 0.9 * rows + 0.6),
+    fig, axes = plt.subplots(rows, columns, figsize=(3.4 * columns, 1.25 * rows + 0.6),
                              squeeze=False)
     longest = max(g.length_m for _, g, _ in bars) * 1e3
     thickest = max(g.thickness_m for _, g, _ in bars) * 1e3
     for ax, (note, geo, holes) in zip(axes.ravel(), bars, strict=False):
+        where = " and ".join(f"{x * 1e3:.1f}" for x in holes)
         draw_profile(ax, geo, cord_holes_m=holes,
-                     label=f"{note}  L {geo.length_m * 1e3:.1f} mm  min "
-                           f"{geo.thinnest_m() * 1e3:.2f} mm")
+                     label=f"{note}: length {geo.length_m * 1e3:.1f} mm, thinnest "
+                           f"{geo.thinnest_m() * 1e3:.2f} mm\ncord holes {where} mm from "
+                           "left end")
         ax.set_xlim(-2, longest + 2)
         ax.set_ylim(-1, thickest + 1)
-        ax.tick_params(labelsize=7)
+        ax.tick_params(labelsize=7.5)
     for ax in axes.ravel()[n:]:
         ax.axis("off")
-    for ax in axes[-1, :]:
-        ax.set_xlabel("length, mm", fontsize=7)
+    for column in range(min(n, columns)):   # the lowest drawing of each column
+        axes[(n - 1 - column) // columns, column].set_xlabel("mm from left end", fontsize=8)
     for ax in axes[:, 0]:
-        ax.set_ylabel("thickness, mm", fontsize=7)
+        ax.set_ylabel("thickness, mm", fontsize=8)
     fig.tight_layout(rect=(0, 0, 1, 0.97) if title else None)
     k = exaggeration(axes[0, 0])
     note = (f" (thickness drawn {k:.0f} x the length scale; open circles: cord holes)"
             if k > 1.5 else " (open circles: cord holes)")
     fig.suptitle((title or "bar profiles") + note, fontsize=10)
-    return figure_png(fig)
+    return fig
 
 
 def mode_shapes_png(result: BarModes, *, title: str = "", reference_hz: float = 440.0) -> bytes:
