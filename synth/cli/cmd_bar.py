@@ -32,12 +32,15 @@ from synth.cli.common import (
     missed,
     plan_outputs,
     print_json,
+    say_stiffness,
+    stiffness_in_use,
+    stiffness_record,
 )
 from synth.cli.options import workers_option
 from synth.errors import ConfigError
 from synth.physics.bar_fe import BarModes, solve_bar
 from synth.physics.instrument import BarFile, Instrument
-from synth.physics.solid_correction import correction_of
+from synth.physics.solid_correction import correction_of, model_correction
 from synth.pitch import nearest_note
 from synth.settings.instrument import load_design
 from synth.voicing import design_budget
@@ -140,6 +143,7 @@ def partials_command(
         commit_outputs()
     rows = partial_rows(result, ref)
     corrected = corrected_rows(rows, design, label, ref)
+    stiffness = stiffness_in_use(design)
     if json_out and losses:
         budget, _ = design_budget(design, label, result)
         by_mode = {(b.kind, b.order): b for b in budget}
@@ -156,6 +160,7 @@ def partials_command(
             "mesh_change": result.change,
             "partials": rows,
             "solid_correction": corrected,
+            "stiffness_calibration": stiffness_record(stiffness),
             **({"plot": str(png)} if png is not None else {}),
         })
         return
@@ -179,6 +184,7 @@ def partials_command(
                f"refinement moved the vertical partials {moved}")
     if corrected:
         typer.echo(_sentence(corrected))
+    say_stiffness(stiffness)
     if losses:
         budget, note_txt = design_budget(design, label, result)
         typer.echo("")
@@ -527,13 +533,22 @@ def grind_command(
     gm = grind_map(res, n_stations=stations, band_m=band_mm * 1e-3, removal_m=removal_mm * 1e-3,
                    kinds=kinds, max_order=partials)
     keep = [j for j, (k, o) in enumerate(gm.modes) if k == "vertical" or o == 1]
+    # The predicted frequencies carry the preset's composed correction (3-D table x
+    # stiffness calibration); the cents per mm are relative changes, which a constant
+    # factor on a mode's frequency leaves as they are.
+    correction = model_correction(design) if isinstance(design, Instrument) else None
+    predicted_hz = [gm.frequencies_hz[j] * (1.0 if correction is None else
+                                            correction.factor(label, *gm.modes[j]))
+                    for j in range(len(gm.modes))]
+    stiffness = stiffness_in_use(design)
     io.write_bytes(png, grind_map_png(gm, geometry, title=f"{label}: grind map",
                                       cord_holes_m=res.vertical[0].nodes_m), force=force)
     commit_outputs()
     if json_out:
         print_json({"bar": label, "band_m": gm.band_m, "removal_m": gm.removal_m,
                     "modes": [{"kind": gm.modes[j][0], "order": gm.modes[j][1],
-                               "frequency_hz": gm.frequencies_hz[j]} for j in keep],
+                               "frequency_hz": predicted_hz[j]} for j in keep],
+                    "stiffness_calibration": stiffness_record(stiffness),
                     "stations": [{"x_m": x, "thickness_m": t,
                                   "cents": [gm.cents[i, j] for j in keep]}
                                  for i, (x, t) in enumerate(zip(gm.x_m, gm.thickness_m,
@@ -545,6 +560,7 @@ def grind_command(
             for i, (x, t) in enumerate(zip(gm.x_m, gm.thickness_m, strict=True))]
     typer.echo(f"{label}: cents per {removal_mm:g} mm removed over a {band_mm:g} mm band")
     typer.echo(format_table(heads, rows))
+    say_stiffness(stiffness)
     typer.echo(f"plot: {png}")
 
 
@@ -598,6 +614,7 @@ def cutlist_command(
     if json_out:
         print_json({"bars": [r.__dict__ for r in rows], "csv": str(csv_path),
                     "png": str(png_path),
+                    "stiffness_calibration": stiffness_record(stiffness_in_use(inst)),
                     "uncalibrated": {"tube_length_m": ["gap_calibration"] if gap_open else []}})
         return
     heads = ["note", "length mm", "w x t mm", "thinnest", "t@20%", "t@30%", "t@40%", "t@50%",
@@ -618,6 +635,7 @@ def cutlist_command(
     correction = correction_of(inst)
     if correction is not None:
         typer.echo(_sentence(correction.describe()))
+    say_stiffness(stiffness_in_use(inst))
     typer.echo(f"wrote {csv_path} and {png_path}")
     if any(r.tube_length_m is not None for r in rows):
         typer.echo(f"tube lengths: closed end to mouth rim, for the [tubes] offset at "

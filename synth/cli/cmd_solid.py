@@ -299,25 +299,32 @@ def _predict(result, table):
 
 
 def corrected_rows(rows: list[dict], design, label: str, reference_hz: float) -> str | None:
-    """Apply an instrument's correction table to `partials` rows; return what was done."""
+    """Apply an instrument's composed correction to `partials` rows.
+
+    The 3-D table and the stiffness calibration of the preset's calibration file
+    (:func:`synth.physics.solid_correction.model_correction`).  Returns the 3-D
+    table's description (None without one); the stiffness calibration announces
+    itself separately (:func:`synth.cli.common.stiffness_line`).
+    """
     from synth.physics.instrument import Instrument
-    from synth.physics.solid_correction import correction_of
+    from synth.physics.solid_correction import model_correction
     from synth.pitch import nearest_note
 
     if not isinstance(design, Instrument):
         return None
-    table = correction_of(design)
-    if table is None:
+    correction = model_correction(design)
+    if correction is None:
         return None
+    table = correction.table
     for r in rows:
-        r["frequency_hz"] *= table.factor(label, r["kind"], r["order"])
+        r["frequency_hz"] *= correction.factor(label, r["kind"], r["order"])
         r["note"], r["cents"] = nearest_note(r["frequency_hz"], reference_hz)
     f1 = next((r["frequency_hz"] for r in rows if r["kind"] == "vertical" and r["order"] == 1),
               None)
     for r in rows:
         r["ratio"] = r["frequency_hz"] / f1 if f1 else None
     rows.sort(key=lambda r: r["frequency_hz"])
-    return table.describe()
+    return None if table is None else table.describe()
 
 
 def report_failed_jobs(results: list, runs: dict) -> None:

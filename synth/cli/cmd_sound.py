@@ -20,6 +20,8 @@ from synth.cli.common import (
     parse_field,
     plan_outputs,
     print_json,
+    say_stiffness,
+    stiffness_record,
     warn,
     wav_targets,
 )
@@ -181,8 +183,11 @@ def _finish(preset: Path, name: str, voices, seconds: float | None, *, voicer, o
         also_write()
     commit_outputs()
     record = _say(rep, opts)
+    record["stiffness_calibration"] = stiffness_record(voicer.stiffness)
     if report:
         _print(record, rep, opts)
+        if not opts.json_out:
+            say_stiffness(voicer.stiffness)
     if opts.play:
         _play(rep.path)
     return record

@@ -102,9 +102,25 @@ class StiffnessCalibration:
 
     def frequency_factors(self, n: int) -> tuple[float, ...]:
         """Return ``sqrt(s) c_k`` for vertical partials 1..n (``c_k = 1`` beyond 3)."""
+        return tuple(self.mode_factor("vertical", k) for k in range(1, n + 1))
+
+    def mode_factor(self, kind: str, order: int) -> float:
+        """Return the frequency factor of one mode: ``sqrt(s) c_n``.
+
+        ``c_n`` applies to vertical partials 1-3 only; every other mode (higher
+        vertical ones, lateral, torsional) gets ``sqrt(s)``: a modulus scale at a
+        fixed Poisson ratio scales the shear modulus too, so every elastic mode's
+        eigenvalue scales by ``s`` (module docstring).
+        """
         root = math.sqrt(self.youngs_scale)
-        return tuple(root * (self.factors[k] if k < len(self.factors) else 1.0)
-                     for k in range(n))
+        k = order - 1
+        return root * (self.factors[k] if kind == "vertical" and 0 <= k < len(self.factors)
+                       else 1.0)
+
+    def to_dict(self) -> dict:
+        """Plain values for JSON and sidecars."""
+        return {"source": self.source, "youngs_modulus_scale": self.youngs_scale,
+                "factors": list(self.factors)}
 
     def describe(self) -> str:
         """Say in a line what the calibration does."""
