@@ -177,13 +177,17 @@ class StiffnessFit:
                 "scale_uncertainty": self.scale_uncertainty,
                 "factor_uncertainty": list(self.factor_uncertainty)}
 
+    def as_written(self, source: str = "") -> StiffnessCalibration:
+        """Return the calibration as a file written by :meth:`to_table` reads back."""
+        return StiffnessCalibration(_sig(self.youngs_scale),
+                                    tuple(_sig(c) for c in self.factors), source)
+
     def to_table(self, *, youngs_modulus_pa: float, note: str, recording: str) -> dict:
         """Return the ``[stiffness]`` table of a calibration file (see the module doc)."""
-        def sig(v):
-            return float(f"{float(v):.9g}")
-
-        return {"youngs_modulus_scale": sig(self.youngs_scale),
-                "factors": [sig(c) for c in self.factors],
+        sig = _sig
+        written = self.as_written()
+        return {"youngs_modulus_scale": written.youngs_scale,
+                "factors": list(written.factors),
                 "youngs_modulus_pa": sig(youngs_modulus_pa * self.youngs_scale),
                 "scale_uncertainty": sig(self.scale_uncertainty),
                 "note": note, "recording": recording,
@@ -191,6 +195,11 @@ class StiffnessFit:
                 "measured_hz": [sig(f) for f in self.measured_hz],
                 "tolerance_hz": [sig(f) for f in self.tolerance_hz],
                 "residual_cents": [sig(c) for c in self.residual_cents]}
+
+
+def _sig(v) -> float:
+    """``v`` to the 9 significant digits a calibration file holds."""
+    return float(f"{float(v):.9g}")
 
 
 def fit_stiffness(model_hz, measured_hz, tolerance_hz) -> StiffnessFit:
