@@ -291,8 +291,8 @@ def stiffness_record(stiffness) -> dict | None:
     return None if stiffness is None else stiffness.to_dict()
 
 
-def say_stiffness(stiffness) -> None:
+def say_stiffness(stiffness, prefix: str = "") -> None:
     """Print the line that names the stiffness calibration in use (nothing without one)."""
     if stiffness is not None:
         text = stiffness.describe()
-        typer.echo(text[:1].upper() + text[1:] + ".")
+        typer.echo(prefix + (text if prefix else text[:1].upper() + text[1:]) + ".")
