@@ -122,7 +122,9 @@ def partials_command(
     centre; torsion with the section's warping), refined until the vertical
     partials settle to 0.01 %; the lateral and torsional modes, smoother, are solved
     on that mesh. Nodes are measured from the bar's left end; the two nodes of
-    vertical mode 1 are where the cord holes go.
+    vertical mode 1 are where the cord holes go. A preset's frequencies are
+    multiplied by its [solid_correction] table and by the stiffness calibration of
+    the calibration file it names (each said in a line of its own).
     """
     from synth import io
 
@@ -584,7 +586,9 @@ def cutlist_command(
     """Write the build sheet: length, undercut stations and cord holes for every bar.
 
     Cord holes sit at the nodes of vertical mode 1 of the actual undercut bar.
-    Station thicknesses are every 10 % of the length from the left end.
+    Station thicknesses are every 10 % of the length from the left end. The
+    predicted partials (JSON partials_hz) carry the preset's 3-D table and the
+    stiffness calibration of the file it names.
     """
     from synth import io
     from synth.cli.common import Progress

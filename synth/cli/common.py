@@ -287,7 +287,7 @@ def stiffness_in_use(design):
 
 
 def stiffness_record(stiffness) -> dict | None:
-    """The ``stiffness_calibration`` value of a JSON document (None: uncalibrated)."""
+    """Return the ``stiffness_calibration`` value of a JSON document (None: uncalibrated)."""
     return None if stiffness is None else stiffness.to_dict()
 
 

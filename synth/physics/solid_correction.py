@@ -165,7 +165,7 @@ def model_correction(instrument, stiffness=_PRESET) -> ModelCorrection | None:
         stiffness = getattr(getattr(tables, "damping", None), "stiffness", None)
     if table is None and stiffness is None:
         return None
-    return ModelCorrection(table, stiffness)  # type: ignore[arg-type]
+    return ModelCorrection(table, stiffness)
 
 
 def corrected_modes(modes: BarModes, table: CorrectionTable | ModelCorrection | None,

@@ -91,7 +91,7 @@ def test_partials_are_one_d_times_the_composed_factors(named) -> None:
 
 
 def test_human_output_names_the_calibration(named) -> None:
-    """partials and grind say which calibration they predict with, in a line of its own."""
+    """The partials and grind commands name the calibration, in a line of its own."""
     d, preset = named
     for args in (("partials", preset, "--note", NOTE, "--no-losses"),
                  ("grind", preset, "--note", NOTE, "--out", d / "grind.png", "--force")):
@@ -103,7 +103,7 @@ def test_human_output_names_the_calibration(named) -> None:
 
 
 def test_grind_frequencies_are_composed(named) -> None:
-    """grind's mode frequencies carry the calibration; its cents per mm do not move."""
+    """The grind map's mode frequencies carry the calibration; its cents per mm do not move."""
     d, preset = named
     cal = run_json("grind", preset, "--note", NOTE, "--out", d / "g1.png", "--force", "--json")
     raw = run_json("grind", PRESET, "--note", NOTE, "--out", d / "g2.png", "--force", "--json")
@@ -117,7 +117,7 @@ def test_grind_frequencies_are_composed(named) -> None:
 
 
 def test_cutlist_of_the_retuned_preset_is_on_target(named) -> None:
-    """tune --out with the named file, then cutlist: on target within residual + 0.01 c."""
+    """Re-tuned with the named file, then cutlist: on target within residual + 0.01 c."""
     d, preset = named
     tuned = d / "named-tuned.toml"
     notes = [a for n in RETUNED for a in ("--note", n)]
@@ -152,7 +152,7 @@ def test_cutlist_of_the_retuned_preset_is_on_target(named) -> None:
 
 
 def test_rendered_strike_sounds_the_calibrated_fundamental(named) -> None:
-    """strike + measure: fundamental x sqrt(1.02) c_1 against the uncalibrated render.
+    """Struck and measured: fundamental x sqrt(1.02) c_1 against the uncalibrated render.
 
     Bare bars (no tube pull), motor stopped, mono.  The measured ratio must match
     within the measurement's frequency resolution 1/T of each record (measured
@@ -185,7 +185,7 @@ BEFORE = {  # tune --calibration as run before the consumers took the calibratio
 
 
 def test_tune_is_unchanged(tmp_path) -> None:
-    """tune --calibration gives the designs it gave before the composition moved.
+    """A calibrated tune gives the designs it gave before the composition moved.
 
     Lengths and undercut depths pinned from the run before this change (``BEFORE``),
     to 1 nm: the calibration itself moves these bars by about 6 mm of length, a
