@@ -64,7 +64,7 @@ from synth.physics.losses import Calibration, ModeLoss, Supports, loss_budget
 from synth.physics.mallet import Mallet, SoundSettings, simulate_contact
 from synth.physics.materials import Material
 from synth.physics.motor import DiscModulation, MotorSpec, disc_modulation, steady_bar_decay_per_s
-from synth.physics.solid_correction import corrected_modes, correction_of
+from synth.physics.solid_correction import ModelCorrection, corrected_modes, model_correction
 from synth.physics.tube import (
     TubeSettings,
     TubeSpec,
@@ -229,9 +229,19 @@ class Voicer:
         return self.instrument.temperature_c
 
     @cached_property
-    def correction(self):
-        """The preset's ``[solid_correction]`` table: 3-D / 1-D factors (None: none)."""
-        return correction_of(self.instrument)
+    def correction(self) -> ModelCorrection | None:
+        """What the 1-D frequencies are multiplied by (None: nothing).
+
+        The preset's ``[solid_correction]`` table composed with the stiffness
+        calibration of the calibration in use (:attr:`loss_calibration`; an explicit
+        ``calibration`` without ``[stiffness]`` plans the uncalibrated model).
+        """
+        return model_correction(self.instrument, stiffness=self.loss_calibration.stiffness)
+
+    @property
+    def stiffness(self):
+        """The stiffness calibration the plan predicts with (None: none)."""
+        return None if self.correction is None else self.correction.stiffness
 
     @cached_property
     def material(self) -> Material:
@@ -411,7 +421,9 @@ class Voicer:
         return {"sample_rate_hz": self.sample_rate, "channels": self.channels,
                 "tubes": self.tubes_active,
                 "motor_rate_rev_per_s": float(self.motor.rate_rev_per_s),
-                "preset_sha256": self.instrument.sha256}
+                "preset_sha256": self.instrument.sha256,
+                "stiffness_calibration": (None if self.stiffness is None
+                                          else self.stiffness.to_dict())}
 
     def _excite(self, model: NoteModel, head: Mallet, speed: float, pos: float, acr: float):
         key = (model.note, head, round(speed, 6), round(pos, 6), round(acr, 6))

@@ -33,6 +33,9 @@ from synth.cli.common import (
     plan_outputs,
     print_json,
     say_correction,
+    say_stiffness,
+    stiffness_in_use,
+    stiffness_record,
 )
 from synth.cli.options import workers_option
 from synth.errors import ConfigError
@@ -42,6 +45,7 @@ from synth.physics.solid_correction import (
     corrected_frequencies,
     correction_of,
     correction_record,
+    model_correction,
 )
 from synth.pitch import nearest_note
 from synth.settings.instrument import load_design
@@ -124,7 +128,9 @@ def partials_command(
     centre; torsion with the section's warping), refined until the vertical
     partials settle to 0.01 %; the lateral and torsional modes, smoother, are solved
     on that mesh. Nodes are measured from the bar's left end; the two nodes of
-    vertical mode 1 are where the cord holes go.
+    vertical mode 1 are where the cord holes go. A preset's frequencies are
+    multiplied by its [solid_correction] table and by the stiffness calibration of
+    the calibration file it names (each said in a line of its own).
     """
     from synth import io
 
@@ -145,6 +151,7 @@ def partials_command(
         commit_outputs()
     rows = partial_rows(result, ref)
     corrected = corrected_rows(rows, design, label, ref)
+    stiffness = stiffness_in_use(design)
     if json_out and losses:
         budget, _ = design_budget(design, label, result)
         by_mode = {(b.kind, b.order): b for b in budget}
@@ -161,6 +168,7 @@ def partials_command(
             "mesh_change": result.change,
             "partials": rows,
             "solid_correction": correction_record(corrected),
+            "stiffness_calibration": stiffness_record(stiffness),
             **({"plot": str(png)} if png is not None else {}),
         })
         return
@@ -183,6 +191,7 @@ def partials_command(
     typer.echo(f"A4 = {ref:g} Hz; mesh {result.n_elements} elements of degree {degree}, last "
                f"refinement moved the vertical partials {moved}")
     say_correction(correction_record(corrected))
+    say_stiffness(stiffness)
     if losses:
         budget, note_txt = design_budget(design, label, result)
         typer.echo("")
@@ -535,8 +544,13 @@ def grind_command(
     gm = grind_map(res, n_stations=stations, band_m=band_mm * 1e-3, removal_m=removal_mm * 1e-3,
                    kinds=kinds, max_order=partials)
     table = correction_of(design) if isinstance(design, Instrument) else None
-    freqs = corrected_frequencies(table, label, gm.modes, gm.frequencies_hz)
+    # The predicted frequencies carry the preset's composed correction (3-D table x
+    # stiffness calibration); the cents per mm are relative changes, which a constant
+    # factor on a mode's frequency leaves as they are.
+    correction = model_correction(design) if isinstance(design, Instrument) else None
+    freqs = corrected_frequencies(correction, label, gm.modes, gm.frequencies_hz)
     keep = [j for j, (k, o) in enumerate(gm.modes) if k == "vertical" or o == 1]
+    stiffness = stiffness_in_use(design)
     io.write_bytes(png, grind_map_png(gm, geometry, title=f"{label}: grind map",
                                       cord_holes_m=res.vertical[0].nodes_m), force=force)
     commit_outputs()
@@ -545,6 +559,7 @@ def grind_command(
                     "modes": [{"kind": gm.modes[j][0], "order": gm.modes[j][1],
                                "frequency_hz": float(freqs[j])} for j in keep],
                     "solid_correction": correction_record(table),
+                    "stiffness_calibration": stiffness_record(stiffness),
                     "stations": [{"x_m": x, "thickness_m": t,
                                   "cents": [gm.cents[i, j] for j in keep]}
                                  for i, (x, t) in enumerate(zip(gm.x_m, gm.thickness_m,
@@ -558,6 +573,7 @@ def grind_command(
                + ", ".join(f"{gm.modes[j][0]} {gm.modes[j][1]} {freqs[j]:.2f} Hz" for j in keep))
     typer.echo(format_table(heads, rows))
     say_correction(correction_record(table))
+    say_stiffness(stiffness)
     typer.echo(f"plot: {png}")
 
 
@@ -588,7 +604,9 @@ def cutlist_command(
     """Write the build sheet: length, undercut stations and cord holes for every bar.
 
     Cord holes sit at the nodes of vertical mode 1 of the actual undercut bar.
-    Station thicknesses are every 10 % of the length from the left end.
+    Station thicknesses are every 10 % of the length from the left end. The
+    predicted partials (JSON partials_hz) carry the preset's 3-D table and the
+    stiffness calibration of the file it names.
     """
     from synth import io
     from synth.cli.common import Progress
@@ -627,6 +645,7 @@ def cutlist_command(
     if json_out:
         print_json({"bars": [r.__dict__ for r in rows], "csv": str(csv_path),
                     "png": str(png_path), "solid_correction": correction_record(table),
+                    "stiffness_calibration": stiffness_record(stiffness_in_use(inst)),
                     "pdf": None if pdf_path is None else str(pdf_path),
                     "uncalibrated": {"tube_length_m": ["gap_calibration"] if gap_open else []}})
         return
@@ -646,6 +665,7 @@ def cutlist_command(
         ])
     typer.echo(format_table(heads, sheet))
     say_correction(correction_record(table))
+    say_stiffness(stiffness_in_use(inst))
     typer.echo(f"wrote {csv_path} and {png_path}")
     if pdf_path is not None:
         typer.echo(f"wrote {pdf_path} (cutting templates on {paper}: {PRINT_AT_SIZE})")

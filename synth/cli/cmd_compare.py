@@ -26,6 +26,7 @@ from synth.cli.common import (
     plan_outputs,
     print_json,
     say_correction,
+    say_stiffness,
     warn,
 )
 from synth.errors import ConfigError
@@ -294,6 +295,8 @@ def compare_command(
                         "key": str(key_path)}})
     else:
         _print_report(comp, names, files)
+        for letter, v in (("A", va), ("B", vb)):
+            say_stiffness(v.stiffness, prefix=f"design {letter}: ")
         typer.echo("")
         typer.echo(f"wrote {directory}/: A.wav, B.wav, AB.wav (A, gap, B, gap, A, gap, B; "
                    f"gap {gap_samples / sample_rate:g} s), a .json sidecar beside each, "

@@ -256,6 +256,9 @@ def play_command(
                        for d, g in zip("AB", player.scales, strict=False))
     info(f"barwright: planned {player.pool.n_templates} strikes of {len(presets)} design(s) "
          f"in {time.perf_counter() - t0:.1f} s; output gain re 1 Pa: {levels}")
+    for letter, v in zip("AB", player.voicers, strict=False):
+        if v.stiffness is not None:
+            info(f"barwright: design {letter}: {v.stiffness.describe()}")
     if record is not None:
         player.start_recording()
     if to_wav is not None:

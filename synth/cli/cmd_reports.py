@@ -19,6 +19,8 @@ from synth.cli.common import (
     plan_outputs,
     print_json,
     say_correction,
+    say_stiffness,
+    stiffness_record,
 )
 from synth.cli.options import workers_option
 
@@ -150,6 +152,7 @@ def sustain_command(
             "csv": str(csv_path), "png": str(png_path),
             "max_offset_cents": rep.max_offset_cents,
             "solid_correction": rep.solid_correction,
+            "stiffness_calibration": stiffness_record(v.stiffness),
             "preset": None if out_preset is None else str(out_preset),
             "notes": [{"note": r.note, "frequency_hz": r.frequency_hz, "cents": r.cents,
                        "q": list(r.q), "t60_s": r.t60_s[0], "t60_partials_s": list(r.t60_s),
@@ -176,6 +179,7 @@ def sustain_command(
                f"+-{tolerance:g} %; tubes {'on' if rep.tubes else 'off'}, motor "
                f"{rep.motor_rate_rev_per_s:g} rev/s")
     say_correction(rep.solid_correction)
+    say_stiffness(v.stiffness)
     if open_terms:
         typer.echo("~ uncalibrated: the fundamental's T60 and level under its tube rest on "
                    + " and ".join(open_terms) + " (derived, not measured); fit them with "

@@ -300,18 +300,25 @@ def _predict(result, table):
 
 
 def corrected_rows(rows: list[dict], design, label: str, reference_hz: float):
-    """Apply an instrument's correction table to `partials` rows; return the table (or None)."""
+    """Apply an instrument's composed correction to `partials` rows; return its 3-D table.
+
+    The 3-D table and the stiffness calibration of the preset's calibration file
+    (:func:`synth.physics.solid_correction.model_correction`).  Returns the 3-D
+    table (None without one); the stiffness calibration announces itself
+    separately (:func:`synth.cli.common.say_stiffness`).
+    """
     from synth.physics.instrument import Instrument
-    from synth.physics.solid_correction import correction_of
+    from synth.physics.solid_correction import model_correction
     from synth.pitch import nearest_note
 
     if not isinstance(design, Instrument):
         return None
-    table = correction_of(design)
-    if table is None:
+    correction = model_correction(design)
+    if correction is None:
         return None
+    table = correction.table
     for r in rows:
-        r["frequency_hz"] *= table.factor(label, r["kind"], r["order"])
+        r["frequency_hz"] *= correction.factor(label, r["kind"], r["order"])
         r["note"], r["cents"] = nearest_note(r["frequency_hz"], reference_hz)
     f1 = next((r["frequency_hz"] for r in rows if r["kind"] == "vertical" and r["order"] == 1),
               None)

@@ -21,6 +21,8 @@ from synth.cli.common import (
     plan_outputs,
     print_json,
     say_correction,
+    say_stiffness,
+    stiffness_record,
     warn,
     wav_targets,
 )
@@ -186,9 +188,12 @@ def _finish(preset: Path, name: str, voices, seconds: float | None, *, voicer, o
     commit_outputs()
     from synth.physics.solid_correction import correction_record
 
-    record = {**_say(rep, opts), "solid_correction": correction_record(voicer.correction)}
+    record = {**_say(rep, opts), "solid_correction": correction_record(voicer.correction),
+              "stiffness_calibration": stiffness_record(voicer.stiffness)}
     if report:
         _print(record, rep, opts)
+        if not opts.json_out:
+            say_stiffness(voicer.stiffness)
     if opts.play:
         _play(rep.path)
     return record

@@ -281,3 +281,30 @@ class Progress:
             sys.stderr.write("\n")
             sys.stderr.flush()
         return False
+
+
+def stiffness_in_use(design):
+    """Return the stiffness calibration an instrument preset predicts with (None: none).
+
+    The ``[stiffness]`` table of the calibration file the preset names; a single-bar
+    file predicts uncalibrated.
+    """
+    from synth.physics.instrument import Instrument
+    from synth.physics.solid_correction import model_correction
+
+    if not isinstance(design, Instrument):
+        return None
+    correction = model_correction(design)
+    return None if correction is None else correction.stiffness
+
+
+def stiffness_record(stiffness) -> dict | None:
+    """Return the ``stiffness_calibration`` value of a JSON document (None: uncalibrated)."""
+    return None if stiffness is None else stiffness.to_dict()
+
+
+def say_stiffness(stiffness, prefix: str = "") -> None:
+    """Print the line that names the stiffness calibration in use (nothing without one)."""
+    if stiffness is not None:
+        text = stiffness.describe()
+        typer.echo(prefix + (text if prefix else text[:1].upper() + text[1:]) + ".")

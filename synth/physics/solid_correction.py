@@ -21,6 +21,21 @@ cutlist, strike, chord, render, sustain, compare: the voice plan) multiplies the
 frequencies by the interpolated factors and says so: a line of human output
 (:meth:`CorrectionTable.describe`) and a ``solid_correction`` field in JSON output and
 WAV sidecars (:func:`correction_record`; null without a table).
+
+A stiffness calibration from a prototype bar (:mod:`synth.physics.stiffness`, the
+``[stiffness]`` table of the calibration file the preset names) multiplies on top;
+:func:`composed_factor` is the one place the two meet (:class:`ModelCorrection`,
+:func:`model_correction`)::
+
+    f = f_1D x k3D(note, kind, order) x sqrt(s) x c_n
+
+with ``c_n`` for vertical partials 1-3 only; higher vertical partials, lateral and
+torsional modes get ``sqrt(s)``: a modulus scale at fixed Poisson ratio scales the
+shear modulus ``G = E / (2 (1 + nu))`` by the same ``s``, so the whole stiffness
+matrix scales by ``s``, the mass matrix does not, and every elastic mode's
+eigenvalue ``omega^2`` scales by ``s`` (Bathe, Finite Element Procedures, 1996,
+section 10.2).  Commands announce the calibration on a line of its own and in a
+``stiffness_calibration`` field.
 """
 
 from __future__ import annotations
@@ -31,6 +46,7 @@ import numpy as np
 
 from synth.errors import ConfigError
 from synth.physics.bar_fe import BarModes
+from synth.physics.stiffness import StiffnessCalibration
 from synth.pitch import note_to_midi
 
 CORRECTED: tuple[tuple[str, int], ...] = (
@@ -104,16 +120,79 @@ def correction_of(instrument) -> CorrectionTable | None:
     return None if tables is None else tables.solid_correction
 
 
-def correction_record(table: CorrectionTable | None) -> dict | None:
+def composed_factor(table: CorrectionTable | None, stiffness: StiffnessCalibration | None,
+                    note: str, kind: str, order: int) -> float:
+    """Return the model's frequency factor of one mode: ``k3D x sqrt(s) x c_n``.
+
+    The one place the 3-D table and a stiffness calibration compose (module
+    docstring); either may be None (factor 1 for its part).
+    """
+    k = 1.0 if table is None else table.factor(note, kind, order)
+    if stiffness is None:
+        return k
+    return k * stiffness.mode_factor(kind, order)
+
+
+@dataclass(frozen=True)
+class ModelCorrection:
+    """Everything the model multiplies its 1-D frequencies by.
+
+    Attributes
+    ----------
+    table : CorrectionTable or None
+        The preset's ``[solid_correction]`` table.
+    stiffness : StiffnessCalibration or None
+        The stiffness calibration of a prototype bar.
+    """
+
+    table: CorrectionTable | None = None
+    stiffness: StiffnessCalibration | None = None
+
+    def factor(self, note: str, kind: str, order: int) -> float:
+        """Return the composed factor of one mode at ``note`` (:func:`composed_factor`)."""
+        return composed_factor(self.table, self.stiffness, note, kind, order)
+
+    def vertical(self, note: str, n: int) -> tuple[float, ...]:
+        """Return the composed factors of vertical partials 1..n at ``note``."""
+        return tuple(self.factor(note, "vertical", k) for k in range(1, n + 1))
+
+
+_PRESET = object()
+
+
+def model_correction(instrument, stiffness=_PRESET) -> ModelCorrection | None:
+    """Return the composed correction an instrument predicts with (None: neither part).
+
+    ``stiffness``: a :class:`~synth.physics.stiffness.StiffnessCalibration` or None
+    to use instead of the one the preset's calibration file holds
+    (``instrument.tables.damping.stiffness``, the default).
+    """
+    table = correction_of(instrument)
+    if stiffness is _PRESET:
+        tables = getattr(instrument, "tables", None)
+        stiffness = getattr(getattr(tables, "damping", None), "stiffness", None)
+    if table is None and stiffness is None:
+        return None
+    return ModelCorrection(table, stiffness)
+
+
+def correction_record(table: CorrectionTable | ModelCorrection | None) -> dict | None:
     """Return the ``solid_correction`` field of a command's JSON or a WAV sidecar.
 
-    None when the preset has no table (its frequencies are the 1-D model's).
+    None when the preset has no 3-D table (its frequencies are the 1-D model's, perhaps
+    times a stiffness calibration, which has its own field).
     """
+    if isinstance(table, ModelCorrection):
+        table = table.table
     return None if table is None else table.record()
 
 
-def corrected_modes(modes: BarModes, table: CorrectionTable | None, note: str) -> BarModes:
-    """Return ``modes`` with each tabled mode's frequency multiplied by its factor."""
+def corrected_modes(modes: BarModes, table: CorrectionTable | ModelCorrection | None,
+                    note: str) -> BarModes:
+    """Return ``modes`` with each mode's frequency multiplied by its factor.
+
+    ``table``: a 3-D table alone or the composed :class:`ModelCorrection`.
+    """
     if table is None:
         return modes
     out = tuple(replace(m, frequency_hz=m.frequency_hz * table.factor(note, m.kind, m.order))
@@ -121,7 +200,7 @@ def corrected_modes(modes: BarModes, table: CorrectionTable | None, note: str) -
     return replace(modes, modes=out)
 
 
-def corrected_frequencies(table: CorrectionTable | None, note: str,
+def corrected_frequencies(table: CorrectionTable | ModelCorrection | None, note: str,
                           modes: tuple[tuple[str, int], ...] | list[tuple[str, int]],
                           frequencies_hz) -> np.ndarray:
     """Return ``frequencies_hz`` of ``modes`` (kind, order) at ``note`` times their factors."""

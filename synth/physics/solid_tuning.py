@@ -23,6 +23,7 @@ import numpy as np
 
 from synth.errors import ModelError
 from synth.physics.solid import solve_bar_3d
+from synth.physics.solid_correction import ModelCorrection
 from synth.physics.tuning import TuneResult, TuneSpec, tune_bar
 from synth.pitch import cents
 
@@ -261,12 +262,10 @@ def table_factors(table, stiffness, note: str, n: int) -> np.ndarray:
     """Return the factors from 1-D to predicted partials 1..n.
 
     The 3-D table's, times a stiffness calibration's ``sqrt(s) c_n`` when given
-    (either may be None).
+    (either may be None), composed by
+    :func:`synth.physics.solid_correction.composed_factor`.
     """
-    k = np.ones(n) if table is None else np.asarray(table.vertical(note, n))
-    if stiffness is not None:
-        k = k * np.asarray(stiffness.frequency_factors(n))
-    return k
+    return np.asarray(ModelCorrection(table, stiffness).vertical(note, n), dtype=float)
 
 
 def aim_through_table(table, spec: TuneSpec, stiffness=None) -> TuneSpec:

@@ -102,9 +102,25 @@ class StiffnessCalibration:
 
     def frequency_factors(self, n: int) -> tuple[float, ...]:
         """Return ``sqrt(s) c_k`` for vertical partials 1..n (``c_k = 1`` beyond 3)."""
+        return tuple(self.mode_factor("vertical", k) for k in range(1, n + 1))
+
+    def mode_factor(self, kind: str, order: int) -> float:
+        """Return the frequency factor of one mode: ``sqrt(s) c_n``.
+
+        ``c_n`` applies to vertical partials 1-3 only; every other mode (higher
+        vertical ones, lateral, torsional) gets ``sqrt(s)``: a modulus scale at a
+        fixed Poisson ratio scales the shear modulus too, so every elastic mode's
+        eigenvalue scales by ``s`` (module docstring).
+        """
         root = math.sqrt(self.youngs_scale)
-        return tuple(root * (self.factors[k] if k < len(self.factors) else 1.0)
-                     for k in range(n))
+        k = order - 1
+        return root * (self.factors[k] if kind == "vertical" and 0 <= k < len(self.factors)
+                       else 1.0)
+
+    def to_dict(self) -> dict:
+        """Plain values for JSON and sidecars."""
+        return {"source": self.source, "youngs_modulus_scale": self.youngs_scale,
+                "factors": list(self.factors)}
 
     def describe(self) -> str:
         """Say in a line what the calibration does."""
@@ -161,13 +177,17 @@ class StiffnessFit:
                 "scale_uncertainty": self.scale_uncertainty,
                 "factor_uncertainty": list(self.factor_uncertainty)}
 
+    def as_written(self, source: str = "") -> StiffnessCalibration:
+        """Return the calibration as a file written by :meth:`to_table` reads back."""
+        return StiffnessCalibration(_sig(self.youngs_scale),
+                                    tuple(_sig(c) for c in self.factors), source)
+
     def to_table(self, *, youngs_modulus_pa: float, note: str, recording: str) -> dict:
         """Return the ``[stiffness]`` table of a calibration file (see the module doc)."""
-        def sig(v):
-            return float(f"{float(v):.9g}")
-
-        return {"youngs_modulus_scale": sig(self.youngs_scale),
-                "factors": [sig(c) for c in self.factors],
+        sig = _sig
+        written = self.as_written()
+        return {"youngs_modulus_scale": written.youngs_scale,
+                "factors": list(written.factors),
                 "youngs_modulus_pa": sig(youngs_modulus_pa * self.youngs_scale),
                 "scale_uncertainty": sig(self.scale_uncertainty),
                 "note": note, "recording": recording,
@@ -175,6 +195,11 @@ class StiffnessFit:
                 "measured_hz": [sig(f) for f in self.measured_hz],
                 "tolerance_hz": [sig(f) for f in self.tolerance_hz],
                 "residual_cents": [sig(c) for c in self.residual_cents]}
+
+
+def _sig(v) -> float:
+    """``v`` to the 9 significant digits a calibration file holds."""
+    return float(f"{float(v):.9g}")
 
 
 def fit_stiffness(model_hz, measured_hz, tolerance_hz) -> StiffnessFit:

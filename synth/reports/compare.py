@@ -735,15 +735,18 @@ def design_settings(voicer: Voicer, mallet: str | None = None) -> dict[str, Any]
         ``name``, ``tubes`` (fitted and on), ``motor_rate_rev_per_s`` (0 =
         stopped), ``motor_resting``, ``mallet``, ``calibration`` (factor per
         loss mechanism), ``solid_correction`` (the preset's 3-D correction table
-        applied to the partials, None without one).
+        applied to the partials, None without one), ``stiffness_calibration``
+        (None: uncalibrated).
     """
     cal = voicer.loss_calibration
     factors = getattr(cal, "factors", None)
+    stiffness = voicer.stiffness
     return {"name": voicer.instrument.name, "tubes": voicer.tubes_active,
             "motor_rate_rev_per_s": float(voicer.motor.rate_rev_per_s),
             "motor_resting": voicer.motor.resting, "mallet": mallet or voicer.sound.mallet,
             "calibration": dict(factors) if factors else {},
-            "solid_correction": correction_record(voicer.correction)}
+            "solid_correction": correction_record(voicer.correction),
+            "stiffness_calibration": None if stiffness is None else stiffness.to_dict()}
 
 
 def compare_designs(voicer_a: Voicer, voicer_b: Voicer, passage: Passage, *,

@@ -17,7 +17,7 @@ import numpy as np
 from synth.executor import Job, run_jobs, values_or_raise
 from synth.physics.bar_fe import solve_bar
 from synth.physics.instrument import Instrument
-from synth.physics.solid_correction import corrected_modes, correction_of
+from synth.physics.solid_correction import corrected_modes, model_correction
 
 STATION_FRACTIONS = tuple(i / 10 for i in range(11))
 
@@ -31,7 +31,12 @@ SAFETY = (
 
 @dataclass(frozen=True)
 class CutRow:
-    """One bar of the build sheet (SI units)."""
+    """One bar of the build sheet (SI units).
+
+    ``fundamental_hz`` and ``partials_hz`` (vertical 1-3) are the model's
+    predictions: 1-D times the preset's composed correction (3-D table x stiffness
+    calibration, :func:`synth.physics.solid_correction.model_correction`).
+    """
 
     note: str
     target_hz: float
@@ -45,6 +50,7 @@ class CutRow:
     mass_kg: float
     fundamental_hz: float
     tube_length_m: float | None = None
+    partials_hz: tuple[float, ...] = ()
 
     @property
     def cord_fraction(self) -> float:
@@ -90,7 +96,7 @@ def _cut_row(instrument: Instrument, note: str, tubes: bool) -> CutRow:
     material = instrument.material.at_temperature(instrument.temperature_c)
     geo = instrument.bar(note)
     res = corrected_modes(solve_bar(geo, material, n_vertical=3, n_lateral=0,
-                                    n_torsional=0), correction_of(instrument), note)
+                                    n_torsional=0), model_correction(instrument), note)
     stations = geo.thickness_at(np.array(STATION_FRACTIONS) * geo.length_m)
     tube = None
     if tubes:   # as synth.voicing.tube_cut_lengths gives it, for this note alone
@@ -111,6 +117,7 @@ def _cut_row(instrument: Instrument, note: str, tubes: bool) -> CutRow:
         mass_kg=res.mass_kg,
         fundamental_hz=res.fundamental_hz,
         tube_length_m=tube,
+        partials_hz=tuple(float(m.frequency_hz) for m in res.vertical[:3]),
     )
 
 

@@ -123,17 +123,19 @@ def run_demo(out: Path, *, say: Say, compare: Callable[[Path, Path, Path], None]
 def _partials(inst, say: Say, steps: Steps) -> None:
     """Step 1: partials of every bar from its geometry."""
     from synth.physics.bar_fe import solve_bar
-    from synth.physics.solid_correction import corrected_modes, correction_of
+    from synth.physics.solid_correction import corrected_modes, model_correction
     from synth.pitch import cents
     from synth.reports.tables import format_table
 
     material = inst.material.at_temperature(inst.temperature_c)
-    table = correction_of(inst)
+    correction = model_correction(inst)
+    table = None if correction is None else correction.table
+    stiffness = None if correction is None else correction.stiffness
     rows = []
     t0 = time.perf_counter()
     with steps(len(inst.notes), "partials") as step:
         for note in inst.notes:
-            res = corrected_modes(solve_bar(inst.bar(note), material), table, note)
+            res = corrected_modes(solve_bar(inst.bar(note), material), correction, note)
             v = res.vertical
             target = inst.target_hz(note)
             tors = res.of_kind("torsional")[0].frequency_hz
@@ -148,6 +150,8 @@ def _partials(inst, say: Say, steps: Steps) -> None:
     say("1. partials from geometry (1-D finite elements, mesh refined to 0.01 %"
         + ("; corrected by the preset's 3-D table, anchors "
            + " ".join(table.anchors) + ")" if table is not None else ")"))
+    if stiffness is not None:
+        say("   " + stiffness.describe())
     say(format_table(
         ["note", "f1 Hz", "cents", "f2/f1", "f3/f1", "torsion 1 Hz", "lateral 1 Hz",
          "cord hole mm"], rows))

@@ -1296,9 +1296,12 @@ def calibrate(measurement: Measurement, instrument: Instrument, note: str, *,
                         + ", ".join(f"{k[0]} {k[1]}" for k in keys)
                         + f"); wrote per-mode Q overrides for {note} instead")
 
-    # The model after: the file as a preset would load it (preset entries win).
+    # The model after: the file as a preset would load it (preset entries win), with
+    # the stiffness the file records (every command predicts with it).
+    stiffness = _stiffness_fit(measurement, matched, raw, budget_raw, warnings)
     after_cal = Calibration({**file_factors, **{t: base[t] for t in explicit}},
-                            {**overrides, **preset_cal.overrides})
+                            {**overrides, **preset_cal.overrides},
+                            stiffness=None if stiffness is None else stiffness.as_written())
     after = voicer(after_cal).model(note)
     fits = []
     for i, k in enumerate(keys):
@@ -1313,7 +1316,6 @@ def calibrate(measurement: Measurement, instrument: Instrument, note: str, *,
     hint = None
     if "tube" in fit_terms and abs(state["tube"] - 1.0) > 1e-3 and ("vertical", 1) in keys:
         hint = _coupling_hint(after, after_cal, warnings)
-    stiffness = _stiffness_fit(measurement, matched, raw, budget_raw, warnings)
     from synth.io import file_sha256_16
 
     return CalibrationFit(
