@@ -403,7 +403,10 @@ def tune_command(
         header = (f"# {inst.name}: tuned by barwright from {preset.name}\n"
                   f"# every [bars.*] table below is a solved bar; sizes in metres\n"
                   + (f"# tuned with the {stiffness.describe()}\n" if stiffness else ""))
-        tuned = tuned_preset(inst, results)
+        from synth.settings.damping import repoint_calibration_file
+
+        tuned = repoint_calibration_file(tuned_preset(inst, results), preset, out,
+                                         calibration if stiffness is not None else None)
         if table is not None and not solid:
             tuned["solid_correction"] = table.to_table()
         text = header + tomli_w.dumps(tuned)

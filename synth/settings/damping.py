@@ -6,6 +6,7 @@ They become :class:`~synth.physics.losses.Supports` and
 
 from __future__ import annotations
 
+import os
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -257,3 +258,30 @@ def calibration_target(path, writes: tuple[str, ...], *,
     kept = {k: v for k, v in data.items() if k not in writes}
     header = [ln for ln in text.splitlines() if ln.startswith("#")] if kept else []
     return CalibrationTarget(p, kept, header, replaced)
+
+
+def repoint_calibration_file(table: dict, preset: Path, out: Path,
+                             calibration: Path | None = None) -> dict:
+    """Return a preset table, about to be written to ``out``, naming the right calibration file.
+
+    ``[damping] calibration_file`` is relative to the preset that names it: written
+    to another folder, it is re-pointed from ``out``'s folder to the same file.  An
+    explicit ``calibration`` (what ``tune --calibration`` designed with) replaces it,
+    so that a preset designed for calibrated metal also predicts with that metal.
+    """
+    damping = dict(table.get("damping", {}))
+    if calibration is not None:
+        target = Path(calibration)
+    elif "calibration_file" in damping:
+        target = Path(damping["calibration_file"])
+        if not target.is_absolute():
+            target = Path(preset).parent / target
+    else:
+        return table
+    base = Path(out).parent.resolve()
+    try:
+        name = os.path.relpath(target.resolve(), base)
+    except ValueError:  # another drive: no relative path
+        name = str(target.resolve())
+    damping["calibration_file"] = Path(name).as_posix()
+    return {**table, "damping": damping}

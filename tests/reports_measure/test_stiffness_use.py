@@ -204,3 +204,23 @@ def test_tune_is_unchanged(tmp_path) -> None:
         assert b["undercut"]["depth_m"] == pytest.approx(depth, abs=1e-9), b["note"]
         assert np.all(np.abs(b["residual_cents"]) < 0.005), b["residual_cents"]
     assert [c["note"] for c in doc["stiffness_calibration"]["changes"]] == list(BEFORE)
+
+
+def test_tune_with_an_explicit_calibration_names_it_in_the_preset_it_writes(named) -> None:
+    """`tune --calibration FILE --out` on a preset naming no file: the written preset
+    names FILE (relative to its own folder), so its build sheet predicts on target.
+    """
+    d, _ = named
+    out = d / "sub" / "explicit-tuned.toml"
+    out.parent.mkdir()
+    doc = run_json("tune", PRESET, "--note", NOTE, "--calibration", d / "cal.toml",
+                   "--out", out, "--force")
+    residual = np.abs(next(b for b in doc["bars"] if b["note"] == NOTE)["residual_cents"])
+    assert 'calibration_file = "../cal.toml"' in out.read_text(encoding="utf-8")
+    sheet = run_json("cutlist", out, "--out", d / "cut-explicit", "--force", "--json")
+    assert sheet["stiffness_calibration"]["youngs_modulus_scale"] == HIDDEN_SCALE
+    inst = load_instrument(out)
+    row = next(b for b in sheet["bars"] if b["note"] == NOTE)
+    miss = cents(np.asarray(row["partials_hz"]),
+                 inst.target_hz(NOTE) * np.asarray(inst.target_ratios[:3]))
+    assert np.all(np.abs(miss) <= residual + 0.01), (miss, residual)
