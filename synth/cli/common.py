@@ -39,9 +39,30 @@ _RUN_PLANS: contextvars.ContextVar[list | None] = contextvars.ContextVar(
     "barwright_run_plans", default=None)
 
 
+_STOPPED: list[int] = []
+"""The signals that stopped this run.  A signal's exception can surface inside library
+code that catches it and raises another (seen: matplotlib, numpy's array printing);
+the run is still treated as stopped, with its exit code."""
+
+
 def _on_sigterm(signum, frame) -> None:
     signal.signal(signal.SIGTERM, signal.SIG_IGN)  # one is enough: let the cleanup finish
+    _STOPPED.append(signal.SIGTERM)
     raise Terminated
+
+
+def _on_sigint(signum, frame) -> None:
+    _STOPPED.append(signal.SIGINT)
+    raise KeyboardInterrupt
+
+
+def _stopped_by(exc: BaseException) -> int | None:
+    """Return the exit code of a run stopped by a signal (None: not stopped)."""
+    if isinstance(exc, Terminated) or signal.SIGTERM in _STOPPED:
+        return EXIT_TERMINATED
+    if isinstance(exc, KeyboardInterrupt) or signal.SIGINT in _STOPPED:
+        return EXIT_INTERRUPTED
+    return None
 
 
 def handle_errors(func: Callable) -> Callable:
@@ -57,30 +78,35 @@ def handle_errors(func: Callable) -> Callable:
         plans: list = []
         token = _RUN_PLANS.set(plans)
         previous = None
+        previous_int = None
+        if outermost:
+            _STOPPED.clear()
         if outermost and threading.current_thread() is threading.main_thread():
             previous = signal.signal(signal.SIGTERM, _on_sigterm)
+            if signal.getsignal(signal.SIGINT) is signal.default_int_handler:
+                previous_int = signal.signal(signal.SIGINT, _on_sigint)  # ignored stays so
         try:
             result = func(*args, **kwargs)
             _commit(plans)
             return result
-        except SynthError as exc:
+        except BaseException as exc:
             _discard(plans)
-            raise fail(str(exc)) from None
-        except KeyboardInterrupt:
-            _discard(plans)
-            typer.echo("barwright: interrupted; unfinished files removed", err=True)
-            raise typer.Exit(code=EXIT_INTERRUPTED) from None
-        except Terminated:
-            _discard(plans)
-            typer.echo("barwright: terminated; unfinished files removed", err=True)
-            raise typer.Exit(code=EXIT_TERMINATED) from None
-        except BaseException:
-            _discard(plans)
+            code = _stopped_by(exc)
+            if code == EXIT_INTERRUPTED:
+                typer.echo("barwright: interrupted; unfinished files removed", err=True)
+                raise typer.Exit(code=EXIT_INTERRUPTED) from None
+            if code == EXIT_TERMINATED:
+                typer.echo("barwright: terminated; unfinished files removed", err=True)
+                raise typer.Exit(code=EXIT_TERMINATED) from None
+            if isinstance(exc, SynthError):
+                raise fail(str(exc)) from None
             raise
         finally:
             _RUN_PLANS.reset(token)
             if previous is not None:
                 signal.signal(signal.SIGTERM, previous)
+            if previous_int is not None:
+                signal.signal(signal.SIGINT, previous_int)
 
     return wrapper
 
