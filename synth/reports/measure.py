@@ -1861,3 +1861,44 @@ def calibration_terms(terms: str | None) -> tuple[str, ...] | None:
     if terms is None:
         return None
     return tuple(t.strip() for t in terms.split(",") if t.strip())
+
+
+# --- the tubecal command's work: the tube's source, the measurements, the file ---
+
+def check_tube_source(tube_hz: float | None, tube_recording: Path | None) -> None:
+    """Refuse unless exactly one of --tube-hz and --tube-recording is given."""
+    if (tube_hz is None) == (tube_recording is None):
+        raise ConfigError("give either --tube-hz or --tube-recording (one of them)",
+                          source="--tube-hz")
+
+
+def tube_calibration(preset: Path, note: str, *, bare: Path, with_tube: Path,
+                     tube_hz: float | None, tube_recording: Path | None, out: Path | None,
+                     target: CalibrationTarget | None,
+                     force: bool) -> tuple[TubeCalibration, str, list[str]]:
+    """Measure the recordings, fit the tube and write --out; (fit, note, warnings)."""
+    from synth.settings.instrument import load_instrument
+
+    instrument = load_instrument(preset)
+    note = instrument.check_note(note)
+    ref = instrument.reference_pitch_hz
+    tube_q = None
+    extra = []
+    if tube_recording is not None:
+        m_t = measure_file(tube_recording, reference_hz=ref)
+        extra = list(m_t.warnings)
+        tube_hz, tube_q = tube_resonance(m_t, tube_model_hz(instrument, note))
+    if tube_hz is None:  # not reached: the check above asks for one of the two
+        raise ConfigError("give either --tube-hz or --tube-recording", source="--tube-hz")
+    m_bare = measure_file(bare, note=note, reference_hz=ref)
+    m_tube = measure_file(with_tube, note=note, reference_hz=ref)
+    cal = calibrate_tube(instrument, note, tube_hz=tube_hz, bare=m_bare, with_tube=m_tube,
+                         tube_q=tube_q)
+    if out is not None:
+        from synth.io import write_bytes
+
+        text = cal.to_toml(preset.name, (str(tube_recording) if tube_recording else
+                                         f"tube {tube_hz:g} Hz", str(bare), str(with_tube)),
+                           target)
+        write_bytes(out, text.encode("utf-8"), force=force or target is not None)
+    return cal, note, [*extra, *m_bare.warnings, *m_tube.warnings, *cal.warnings]
