@@ -145,25 +145,37 @@ def partials_command(
         commit_outputs()
     rows = partial_rows(result, ref)
     corrected = corrected_rows(rows, design, label, ref)
-    if json_out and losses:
+    if json_out:
+        _print_partials_json(design, label, material, ref, result, rows, corrected, png,
+                             losses=losses)
+        return
+    _print_partials(design, label, geometry, material, ref, result, rows, corrected, png,
+                    losses=losses)
+
+
+def _print_partials_json(design, label, material, ref, result, rows, corrected, png, *,
+                         losses: bool) -> None:
+    if losses:
         budget, _ = design_budget(design, label, result)
         by_mode = {(b.kind, b.order): b for b in budget}
         for r in rows:
             b = by_mode[(r["kind"], r["order"])]
             r.update({"q": b.q, "t60_s": b.t60_s, "loss_factors": dict(b.terms)})
-    if json_out:
-        print_json({
-            "bar": label,
-            "material": material.name,
-            "reference_pitch_hz": ref,
-            "mass_kg": result.mass_kg,
-            "mesh_elements": result.n_elements,
-            "mesh_change": result.change,
-            "partials": rows,
-            "solid_correction": correction_record(corrected),
-            **({"plot": str(png)} if png is not None else {}),
-        })
-        return
+    print_json({
+        "bar": label,
+        "material": material.name,
+        "reference_pitch_hz": ref,
+        "mass_kg": result.mass_kg,
+        "mesh_elements": result.n_elements,
+        "mesh_change": result.change,
+        "partials": rows,
+        "solid_correction": correction_record(corrected),
+        **({"plot": str(png)} if png is not None else {}),
+    })
+
+
+def _print_partials(design, label, geometry, material, ref, result, rows, corrected, png, *,
+                    losses: bool) -> None:
     uc = geometry.undercut.describe() if geometry.undercut else "no undercut"
     typer.echo(
         f"{label}: {material.name}, {geometry.length_m * 1e3:.1f} x {geometry.width_m * 1e3:.1f}"
