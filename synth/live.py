@@ -387,12 +387,8 @@ def check_play_options(*, motor_cc: int, switch_cc: int, to_wav, midi_file, fmt:
                           source="controllers")
     if to_wav is not None and midi_file is None:
         raise ConfigError("needs --midi-file FILE (the events to play)", source="--to-wav")
-    if fmt not in io.SAMPLE_FORMATS:
-        raise ConfigError(f"= {fmt!r}: must be one of " + ", ".join(io.SAMPLE_FORMATS),
-                          source="--format")
-    if sample_rate not in io.SAMPLE_RATES_HZ:
-        raise ConfigError(f"= {sample_rate}: must be one of "
-                          + ", ".join(str(r) for r in io.SAMPLE_RATES_HZ), source="--sample-rate")
+    io.check_sample_format(fmt)
+    io.check_sample_rate(sample_rate)
 
 
 def file_events(midi_file, sample_rate: int):

@@ -162,6 +162,7 @@ def compare_command(
     differences per note and over time; --page adds a listening page. With
     --score KEY --answers "..." (or --answers-file FILE) it scores a listener.
     """
+    from synth.io import check_sample_format
     from synth.reports import compare as cmp
 
     if score is not None or answers is not None or answers_file is not None:
@@ -171,7 +172,7 @@ def compare_command(
     for w in cmp.check_compare_options(design_a, design_b, notes, events, blind, seed):
         warn(w)
     assert design_a is not None and design_b is not None
-    cmp.check_sample_format(fmt)
+    check_sample_format(fmt)
     sequence = parse_chord(notes, "--notes") if notes is not None else None  # before reading files
     cmp.check_match(match)
     cmp.check_band_range(band_range)

@@ -1288,13 +1288,6 @@ def check_compare_options(design_a: Path | None, design_b: Path | None, notes: s
     return []
 
 
-def check_sample_format(fmt: str) -> None:
-    """Refuse an unknown sample format."""
-    if fmt not in io.SAMPLE_FORMATS:
-        raise ConfigError(f"= {fmt!r}: must be one of " + ", ".join(io.SAMPLE_FORMATS),
-                          source="--format")
-
-
 def check_match(match: str) -> None:
     """Refuse an unknown match mode."""
     if match not in MATCH_MODES:
@@ -1307,9 +1300,7 @@ def design_voicer(preset: Path, *, sample_rate: int, no_tubes: bool,
     """Plan the stereo voices of one design at a checked sample rate."""
     from synth.settings.instrument import load_instrument
 
-    if sample_rate not in io.SAMPLE_RATES_HZ:
-        raise ConfigError(f"= {sample_rate}: must be one of "
-                          + ", ".join(str(r) for r in io.SAMPLE_RATES_HZ), source="--sample-rate")
+    io.check_sample_rate(sample_rate)
     inst = load_instrument(preset)
     return Voicer(inst, sample_rate=float(sample_rate), tubes=not no_tubes,
                   motor_rate_rev_per_s=motor_rate, channels=2)
