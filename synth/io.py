@@ -64,7 +64,7 @@ from typing import Any, Final
 
 import numpy as np
 
-from synth.errors import AudioError
+from synth.errors import AudioError, ConfigError
 
 SAMPLE_RATES_HZ: Final[tuple[int, ...]] = (44100, 48000, 96000)
 """Sample rates a render may be written at, Hz."""
@@ -78,6 +78,21 @@ SAMPLE_FORMATS: Final[dict[str, str]] = {
     "float32": "FLOAT",
 }
 """Our sample-format names and the libsndfile subtypes they select."""
+
+
+def check_sample_format(fmt: str) -> None:
+    """Refuse a --format that is not one of :data:`SAMPLE_FORMATS`."""
+    if fmt not in SAMPLE_FORMATS:
+        raise ConfigError(f"= {fmt!r}: must be one of " + ", ".join(SAMPLE_FORMATS),
+                          source="--format")
+
+
+def check_sample_rate(sample_rate: int) -> None:
+    """Refuse a --sample-rate that is not one of :data:`SAMPLE_RATES_HZ`."""
+    if sample_rate not in SAMPLE_RATES_HZ:
+        raise ConfigError(f"= {sample_rate}: must be one of "
+                          + ", ".join(str(r) for r in SAMPLE_RATES_HZ), source="--sample-rate")
+
 
 DEFAULT_SAMPLE_FORMAT: Final[str] = "pcm24"
 """Default sample format: 24-bit PCM."""

@@ -372,3 +372,39 @@ def recorded_midi(events: Iterable[tuple[int, Any]], sample_rate: float):
     return midi
 
 
+
+
+# --- the play command's choices: option checks, a file's events, the recording ---
+
+def check_play_options(*, motor_cc: int, switch_cc: int, to_wav, midi_file, fmt: str,
+                       sample_rate: int) -> None:
+    """Refuse clashing controllers, --to-wav without a file, an unknown format or rate."""
+    from synth import io
+
+    if len({motor_cc, switch_cc, 64, 7}) < 4:
+        raise ConfigError(f"--motor-cc {motor_cc}, --switch-cc {switch_cc}: must differ from "
+                          "each other and from 64 (the sustain pedal) and 7 (volume)",
+                          source="controllers")
+    if to_wav is not None and midi_file is None:
+        raise ConfigError("needs --midi-file FILE (the events to play)", source="--to-wav")
+    io.check_sample_format(fmt)
+    io.check_sample_rate(sample_rate)
+
+
+def file_events(midi_file, sample_rate: int):
+    """Read a MIDI file to play (the offline reader's checks first); None without one."""
+    if midi_file is None:
+        return None
+    from synth.settings.score import midi_file_events, read_midi
+
+    read_midi(midi_file)   # the offline reader's checks: one line for a bad file
+    return midi_file_events(midi_file, float(sample_rate))
+
+
+def recorded_midi_bytes(events: Iterable[tuple[int, Any]], sample_rate: float) -> bytes:
+    """Return the bytes of :func:`recorded_midi`'s file."""
+    import io as _bytes_io
+
+    buf = _bytes_io.BytesIO()
+    recorded_midi(events, sample_rate).save(file=buf)
+    return buf.getvalue()

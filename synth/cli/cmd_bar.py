@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Annotated, Any
 
@@ -151,27 +152,38 @@ def partials_command(
         commit_outputs()
     rows = partial_rows(result, ref)
     corrected = corrected_rows(rows, design, label, ref)
-    stiffness = stiffness_in_use(design)
-    if json_out and losses:
+    if json_out:
+        _print_partials_json(design, label, material, ref, result, rows, corrected, png,
+                             losses=losses)
+        return
+    _print_partials(design, label, geometry, material, ref, result, rows, corrected, png,
+                    losses=losses)
+
+
+def _print_partials_json(design, label, material, ref, result, rows, corrected, png, *,
+                         losses: bool) -> None:
+    if losses:
         budget, _ = design_budget(design, label, result)
         by_mode = {(b.kind, b.order): b for b in budget}
         for r in rows:
             b = by_mode[(r["kind"], r["order"])]
             r.update({"q": b.q, "t60_s": b.t60_s, "loss_factors": dict(b.terms)})
-    if json_out:
-        print_json({
-            "bar": label,
-            "material": material.name,
-            "reference_pitch_hz": ref,
-            "mass_kg": result.mass_kg,
-            "mesh_elements": result.n_elements,
-            "mesh_change": result.change,
-            "partials": rows,
-            "solid_correction": correction_record(corrected),
-            "stiffness_calibration": stiffness_record(stiffness),
-            **({"plot": str(png)} if png is not None else {}),
-        })
-        return
+    print_json({
+        "bar": label,
+        "material": material.name,
+        "reference_pitch_hz": ref,
+        "mass_kg": result.mass_kg,
+        "mesh_elements": result.n_elements,
+        "mesh_change": result.change,
+        "partials": rows,
+        "solid_correction": correction_record(corrected),
+        "stiffness_calibration": stiffness_record(stiffness_in_use(design)),
+        **({"plot": str(png)} if png is not None else {}),
+    })
+
+
+def _print_partials(design, label, geometry, material, ref, result, rows, corrected, png, *,
+                    losses: bool) -> None:
     uc = geometry.undercut.describe() if geometry.undercut else "no undercut"
     typer.echo(
         f"{label}: {material.name}, {geometry.length_m * 1e3:.1f} x {geometry.width_m * 1e3:.1f}"
@@ -191,7 +203,7 @@ def partials_command(
     typer.echo(f"A4 = {ref:g} Hz; mesh {result.n_elements} elements of degree {degree}, last "
                f"refinement moved the vertical partials {moved}")
     say_correction(correction_record(corrected))
-    say_stiffness(stiffness)
+    say_stiffness(stiffness_in_use(design))
     if losses:
         budget, note_txt = design_budget(design, label, result)
         typer.echo("")
@@ -320,37 +332,72 @@ def tune_command(
     """
     import time
 
-    from synth import io
-    from synth.cli.common import Progress
-    from synth.physics.tuning import temperature_shift_cents, tune_instrument, tuned_preset
+    from synth.physics.tuning import worst_miss
+    from synth.reports import tune as rt
     from synth.settings.instrument import load_instrument
 
     target = _parse_ratios(ratios)
-    inst = load_instrument(preset)
-    inst = _override(inst, family, venue_c)
+    inst = _override(load_instrument(preset), family, venue_c)
     notes = [inst.check_note(n) for n in note] if note else list(inst.notes)
     if out is not None:
         plan_outputs([(out, "tuned preset")], force=force)
     t0 = time.perf_counter()
     wanted = check_level_accuracy(level, accuracy)
+    stiffness = rt.check_tune_options(inst, calibration, solid=solid,
+                                      correction_table=correction_table, note=note)
+    results, table, anchor_miss, changes, solid_runs = _tune(
+        inst, notes, target, stiffness, solid=solid, correction_table=correction_table,
+        anchor_step=anchor_step, level=level, wanted=wanted, workers=workers,
+        scheduler=scheduler, cache=cache)
+    elapsed = time.perf_counter() - t0
+    drift, shop = rt.temperature_readings(inst, results, shop_c)
+    worst = worst_miss(results)
+    write = out is not None and (worst is None or keep_best)
+    if worst is not None:
+        _say_missed(results, worst, out, write)
+    if solid:
+        report_failed_jobs(results, solid_runs)
+    if write and out is not None:
+        rt.write_tuned_preset(out, inst, preset, results, stiffness=stiffness,
+                              calibration=calibration, table=None if solid else table,
+                              force=force)
+        commit_outputs()
+    records = rt.tune_records(results, drift, shop,
+                              {n: solid_record(run) for n, run in solid_runs.items()})
+    tuned = _Tuned(results, records, drift, shop, table, anchor_miss, changes, stiffness,
+                   solid_runs, solid)
+    if json_out:
+        _print_tune_json(tuned, elapsed, out if write else None)
+    else:
+        _print_tune(tuned, inst, elapsed, shop_c, out if write else None)
+    _exit_if_missed(worst)
+
+
+@dataclass(frozen=True)
+class _Tuned:
+    """What one tune run found, for printing."""
+
+    results: list
+    records: list[dict[str, Any]]
+    drift: dict[str, float]
+    shop: dict[str, Any]
+    table: Any
+    anchor_miss: Any
+    changes: Any
+    stiffness: Any
+    solid_runs: dict[str, Any]
+    solid: bool
+
+
+def _tune(inst, notes, target, stiffness, *, solid, correction_table, anchor_step, level,
+          wanted, workers, scheduler, cache):
+    """Tune the bars the way the options ask; (results, table, anchors, changes, 3-D runs)."""
+    from synth.cli.common import Progress
+    from synth.physics.tuning import tune_instrument
+
     solid_runs: dict[str, Any] = {}
     table, anchor_miss = correction_of(inst), None
-    if solid and correction_table:
-        raise ConfigError("= true: give --solid or --correction-table, not both",
-                          source="--correction-table")
-    if correction_table and note:
-        raise ConfigError("= true: builds the table from the whole range; drop --note",
-                          source="--correction-table")
-    from synth.settings.damping import stiffness_of
-
-    stiffness = stiffness_of(inst, calibration)
     changes = None
-    if stiffness is not None and (solid or correction_table):
-        raise ConfigError(
-            f"= true: cannot be combined with a stiffness calibration ("
-            f"{'--calibration' if calibration else 'the preset names ' + stiffness.source}) "
-            "yet; tune with the calibration through the 3-D table instead",
-            source="--solid" if solid else "--correction-table")
     if stiffness is not None:
         from synth.physics.solid_tuning import tune_calibrated
 
@@ -375,72 +422,38 @@ def tune_command(
         with Progress(len(notes), "tuning") as step:
             results = tune_instrument(inst, notes, ratios=target,
                                       progress=lambda n: step(1, n), workers=workers)
-    elapsed = time.perf_counter() - t0
-    shop = {}
-    mat = inst.material.at_temperature(inst.temperature_c)
-    drift = {r.spec.note: float(temperature_shift_cents(r.geometry, mat, inst.temperature_c,
-                                                        inst.temperature_c + 1.0, 1)[0])
-             for r in results}
-    if shop_c is not None:
-        for r in results:
-            shop[r.spec.note] = temperature_shift_cents(r.geometry, mat, inst.temperature_c,
-                                                        shop_c, len(r.spec.ratios))
-    from synth.physics.tuning import worst_miss
+    return results, table, anchor_miss, changes, solid_runs
 
-    worst = worst_miss(results)
+
+def _say_missed(results, worst, out, write: bool) -> None:
     n_missed = sum(not r.reachable for r in results)
-    write = out is not None and (worst is None or keep_best)
-    if worst is not None:
-        what = ("" if out is None else f"; wrote {out} anyway (--keep-best)" if write
-                else "; nothing written (use --keep-best to write the best found)")
-        missed(f"{n_missed} of {len(results)} bars missed their targets (worst: partial "
-               f"{worst[1]} {worst[2]:+.0f} cents at {worst[0]}){what}")
-    if solid:
-        report_failed_jobs(results, solid_runs)
-    if write and out is not None:
-        import tomli_w
+    what = ("" if out is None else f"; wrote {out} anyway (--keep-best)" if write
+            else "; nothing written (use --keep-best to write the best found)")
+    missed(f"{n_missed} of {len(results)} bars missed their targets (worst: partial "
+           f"{worst[1]} {worst[2]:+.0f} cents at {worst[0]}){what}")
 
-        header = (f"# {inst.name}: tuned by barwright from {preset.name}\n"
-                  f"# every [bars.*] table below is a solved bar; sizes in metres\n"
-                  + (f"# tuned with the {stiffness.describe()}\n" if stiffness else ""))
-        from synth.settings.damping import repoint_calibration_file
 
-        tuned = repoint_calibration_file(tuned_preset(inst, results), preset, out,
-                                         calibration if stiffness is not None else None)
-        if table is not None and not solid:
-            tuned["solid_correction"] = table.to_table()
-        text = header + tomli_w.dumps(tuned)
-        io.write_bytes(out, text.encode("utf-8"), force=force)
-        commit_outputs()
-    records: list[dict[str, Any]] = []
-    for r in results:
-        g = r.geometry
-        records.append({
-            "note": r.spec.note, "target_hz": float(r.spec.fundamental_hz),
-            "length_m": g.length_m, "width_m": g.width_m, "thickness_m": g.thickness_m,
-            "undercut": g.undercut.to_table() if g.undercut else None,
-            "thinnest_m": r.thinnest_m, "frequencies_hz": [float(f) for f in r.frequencies_hz],
-            "residual_cents": [float(c) for c in r.residual_cents],
-            "reachable": r.reachable, "message": r.message, "solves": r.n_solves,
-            "seconds": r.seconds, "drift_cents_per_k": drift[r.spec.note],
-            **({"shop_reading_cents": [float(c) for c in shop[r.spec.note]]}
-               if r.spec.note in shop else {}),
-            **({"solid": solid_record(solid_runs[r.spec.note])}
-               if r.spec.note in solid_runs else {}),
-        })
-    if json_out:
-        print_json({"bars": records, "seconds": elapsed, "out": str(out) if write else None,
-                    "missed": n_missed,
-                    "solid_correction": None if solid else correction_record(table),
-                    **({"anchor_residual_cents": {a: list(v) for a, v in anchor_miss.items()}}
-                       if anchor_miss else {}),
-                    **({"stiffness_calibration": {
-                        "source": stiffness.source, "youngs_modulus_scale": stiffness.youngs_scale,
-                        "factors": list(stiffness.factors),
-                        "changes": [c.to_dict() for c in changes]}}
-                       if changes and stiffness is not None else {})})
-        _exit_if_missed(worst)
-        return
+def _print_tune_json(t: _Tuned, elapsed: float, written: Path | None) -> None:
+    stiffness, changes, anchor_miss = t.stiffness, t.changes, t.anchor_miss
+    n_missed = sum(not r.reachable for r in t.results)
+    print_json({"bars": t.records, "seconds": elapsed, "out": str(written) if written else None,
+                "missed": n_missed,
+                "solid_correction": None if t.solid else correction_record(t.table),
+                **({"anchor_residual_cents": {a: list(v) for a, v in anchor_miss.items()}}
+                   if anchor_miss else {}),
+                **({"stiffness_calibration": {
+                    "source": stiffness.source, "youngs_modulus_scale": stiffness.youngs_scale,
+                    "factors": list(stiffness.factors),
+                    "changes": [c.to_dict() for c in changes]}}
+                   if changes and stiffness is not None else {})})
+
+
+def _print_tune(t: _Tuned, inst, elapsed: float, shop_c: float | None,
+                written: Path | None) -> None:
+    import statistics
+
+    results, records, drift, shop = t.results, t.records, t.drift, t.shop
+    stiffness, changes, table, anchor_miss = t.stiffness, t.changes, t.table, t.anchor_miss
     n_p = max(len(r.spec.ratios) for r in results)
     heads = ["note", "target Hz", "length mm", "depth mm", "span mm", "thinnest mm"]
     heads += [f"p{i + 1} cents" for i in range(n_p)]
@@ -464,8 +477,6 @@ def tune_command(
         row.append(r.message)
         rows.append(row)
     typer.echo(format_table(heads, rows, align="l" + "r" * (len(heads) - 2) + "l"))
-    import statistics
-
     bad = sum(not r.reachable for r in results)
     typer.echo(
         f"{len(results)} bars in {elapsed:.2f} s (median "
@@ -481,16 +492,15 @@ def tune_command(
         typer.echo(_changes_table(changes))
         text = stiffness.describe()
         typer.echo(text[:1].upper() + text[1:] + ".")
-    if solid:
-        typer.echo(solid_summary(solid_runs))
+    if t.solid:
+        typer.echo(solid_summary(t.solid_runs))
     elif table is not None:
         say_correction(correction_record(table))
         if anchor_miss:
             typer.echo("anchors in 3-D, cents off target: " + "; ".join(
                 f"{a} " + " ".join(f"{c:+.1f}" for c in v) for a, v in anchor_miss.items()))
-    if write:
-        typer.echo(f"wrote {out}")
-    _exit_if_missed(worst)
+    if written:
+        typer.echo(f"wrote {written}")
 
 
 def _exit_if_missed(worst) -> None:
@@ -611,11 +621,9 @@ def cutlist_command(
     predicted partials (JSON partials_hz) carry the preset's 3-D table and the
     stiffness calibration of the file it names.
     """
-    from synth import io
     from synth.cli.common import Progress
-    from synth.reports.cutlist import SAFETY, cut_rows, cutlist_csv
-    from synth.reports.plots import profile_sheet_png
-    from synth.reports.templates import PRINT_AT_SIZE, printable_mm, templates_pdf
+    from synth.reports.cutlist import cut_rows, write_build_sheet
+    from synth.reports.templates import printable_mm
     from synth.settings.instrument import load_instrument
 
     printable_mm(paper)   # a bad --paper stops before any file is read
@@ -631,14 +639,7 @@ def cutlist_command(
                           "`barwright tune` with --out first", source=inst.source)
     with Progress(len(inst.notes), "solving") as step:
         rows = cut_rows(inst, progress=lambda n: step(1, n), tubes=True, workers=workers)
-    io.write_bytes(csv_path, cutlist_csv(rows).encode("utf-8"), force=force)
-    io.write_bytes(png_path, profile_sheet_png(
-        [(r.note, inst.bar(r.note), r.cord_holes_m) for r in rows],
-        title=f"{inst.name}: bar profiles (circles: cord holes)"), force=force)
-    if pdf_path is not None:
-        io.write_bytes(pdf_path, templates_pdf(
-            rows, {r.note: inst.bar(r.note) for r in rows}, paper=paper, title=inst.name,
-            workshop=inst.raw.get("workshop", ""), safety=SAFETY), force=force)
+    write_build_sheet(inst, rows, csv_path, png_path, pdf_path, paper=paper, force=force)
     commit_outputs()
     from synth.physics.tube import with_file_calibration
 
@@ -652,6 +653,14 @@ def cutlist_command(
                     "pdf": None if pdf_path is None else str(pdf_path),
                     "uncalibrated": {"tube_length_m": ["gap_calibration"] if gap_open else []}})
         return
+    _print_cutlist(rows, inst, table, gap_open, csv_path, png_path, pdf_path, paper)
+
+
+def _print_cutlist(rows, inst, table, gap_open: bool, csv_path: Path, png_path: Path,
+                   pdf_path: Path | None, paper: str) -> None:
+    from synth.reports.cutlist import SAFETY
+    from synth.reports.templates import PRINT_AT_SIZE
+
     heads = ["note", "length mm", "w x t mm", "thinnest", "t@20%", "t@30%", "t@40%", "t@50%",
              "cord holes mm from each end", "cord %L", "mass g",
              "tube mm ~" if gap_open else "tube mm"]

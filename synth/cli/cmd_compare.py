@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import math
-import secrets
 from pathlib import Path
 from typing import Annotated
 
@@ -29,10 +28,7 @@ from synth.cli.common import (
     say_stiffness,
     warn,
 )
-from synth.errors import ConfigError
-
-MAX_TRIALS = 200
-"""Most blind trials one run writes."""
+from synth.reports.compare import MAX_TRIALS
 
 MalletOpt = Annotated[str | None, typer.Option(
     help="Mallet preset (presets/mallets) for every strike that names none; default: each "
@@ -44,19 +40,6 @@ JsonOpt = Annotated[bool, typer.Option("--json", help="Print the report (or the 
 REMINDER = ("Fix the number of trials before listening and score every one of them: stopping "
             "on a lucky run, or adding trials after a poor one, makes the chance figure "
             "meaningless.")
-
-
-def _voicer(preset: Path, *, sample_rate: int, no_tubes: bool, motor_rate: float | None):
-    from synth.io import SAMPLE_RATES_HZ
-    from synth.settings.instrument import load_instrument
-    from synth.voicing import Voicer
-
-    if sample_rate not in SAMPLE_RATES_HZ:
-        raise ConfigError(f"= {sample_rate}: must be one of "
-                          + ", ".join(str(r) for r in SAMPLE_RATES_HZ), source="--sample-rate")
-    inst = load_instrument(preset)
-    return Voicer(inst, sample_rate=float(sample_rate), tubes=not no_tubes,
-                  motor_rate_rev_per_s=motor_rate, channels=2)
 
 
 def _cell(x: float, fmt: str) -> str:
@@ -180,68 +163,59 @@ def compare_command(
     differences per note and over time; --page adds a listening page. With
     --score KEY --answers "..." (or --answers-file FILE) it scores a listener.
     """
-    if score is not None or answers is not None or answers_file is not None:
-        if answers is not None and answers_file is not None:
-            raise ConfigError("give --answers or --answers-file, not both",
-                              source="--answers-file")
-        if score is None or (answers is None and answers_file is None):
-            raise ConfigError("scoring needs --score KEY and --answers \"A,B,...\" (or "
-                              "--answers-file FILE)", source="--score" if score is None else
-                              "--answers")
-        if design_a is not None or design_b is not None:
-            raise ConfigError("--score takes no design presets; give only --score KEY "
-                              "--answers \"...\"", source="--score")
-        _score(score, answers, answers_file, json_out)
-        return
-    if design_a is None or design_b is None:
-        raise ConfigError("give two design presets, A and B (or --score KEY --answers "
-                          "\"...\" to score a blind test)", source="compare")
-    if notes is not None and events is not None:
-        raise ConfigError("give --notes or --events, not both", source="--events")
-    if blind is not None and not 1 <= blind <= MAX_TRIALS:
-        raise ConfigError(f"= {blind}: give between 1 and {MAX_TRIALS} trials (16 or more "
-                          "for a useful test)", source="--blind")
-    if seed is not None and seed < 0:
-        raise ConfigError(f"= {seed}: the seed must be >= 0", source="--seed")
-    if seed is not None and blind is None:
-        warn("--seed has no effect without --blind")
-
-    from synth import io
-    from synth.output import HEARING_CAUTION
+    from synth.io import check_sample_format
     from synth.reports import compare as cmp
 
-    if fmt not in io.SAMPLE_FORMATS:
-        raise ConfigError(f"= {fmt!r}: must be one of " + ", ".join(io.SAMPLE_FORMATS),
-                          source="--format")
+    if score is not None or answers is not None or answers_file is not None:
+        key = cmp.check_score_options(score, answers, answers_file, design_a, design_b)
+        _score(key, answers, answers_file, json_out)
+        return
+    for w in cmp.check_compare_options(design_a, design_b, notes, events, blind, seed):
+        warn(w)
+    assert design_a is not None and design_b is not None
+    check_sample_format(fmt)
     sequence = parse_chord(notes, "--notes") if notes is not None else None  # before reading files
-    if match not in cmp.MATCH_MODES:
-        raise ConfigError(f"= {match!r}: must be one of " + ", ".join(cmp.MATCH_MODES),
-                          source="--match")
+    cmp.check_match(match)
     cmp.check_band_range(band_range)
-    same = design_a.resolve() == design_b.resolve() and not bare_b
-    va = _voicer(design_a, sample_rate=sample_rate, no_tubes=no_tubes, motor_rate=motor_rate)
-    vb = va if same else _voicer(design_b, sample_rate=sample_rate,
-                                 no_tubes=no_tubes or bare_b, motor_rate=motor_rate)
+    va, vb, same = cmp.design_voicers(design_a, design_b, sample_rate=sample_rate,
+                                      no_tubes=no_tubes, bare_b=bare_b, motor_rate=motor_rate)
     if same:
         warn(f"A and B are the same file ({design_a}): the two renders are identical, so any "
              "difference heard is imagined and a blind test can only score by chance")
-    if events is not None:
-        from synth.settings.score import read_events
-
-        passage = cmp.events_passage(read_events(events), tail_s=tail)
-    elif sequence is not None:  # --notes
-        passage = cmp.sequence_passage(sequence, tail_s=tail)
-    else:
-        passage = cmp.default_passage(va.instrument.notes, vb.instrument.notes, tail_s=tail)
+    passage = cmp.choose_passage(events, sequence, va, vb, tail_s=tail)
     gap_samples = cmp.gap_samples(gap, sample_rate)  # checks the range before any work
-
     directory = out or Path("renders") / f"compare-{design_a.stem}-vs-{design_b.stem}"
+    _plan_files(directory, blind, page=page, force=force)
+    comp = _compare(va, vb, passage, mallet=mallet, match=match, band_range=band_range)
+    names = (va.instrument.name, vb.instrument.name)
+    files = (str(design_a), str(design_b))
+    settings = {"command": "compare", "design_a": files[0], "design_b": files[1],
+                "name_a": names[0], "name_b": names[1], "sample_rate_hz": sample_rate,
+                "channels": 2,
+                "events": None if events is None else str(events), "notes": notes}
+    out_files = cmp.write_comparison(comp, directory, names=names, files=files,
+                                     settings=settings, blind=blind, seed=seed, gap=gap,
+                                     gap_s=gap_samples / sample_rate, fmt=fmt, force=force,
+                                     page=page)
+    commit_outputs()
+    _show_outcome(comp, out_files, directory, names=names, files=files, blind=blind,
+                  page=page, gap_s=gap_samples / sample_rate, json_out=json_out,
+                  stiffness=(va.stiffness, vb.stiffness))
+
+
+def _plan_files(directory: Path, blind: int | None, *, page: bool, force: bool) -> None:
+    from synth.reports import compare as cmp
+
     planned = cmp.planned_files(directory, blind, page=page)
     plan_outputs(planned, force=force)
     stale = sorted(p.name for p in directory.glob("blind-*.wav") if p not in set(planned))
     if stale:
         warn(f"{directory} also holds {len(stale)} trial file(s) of an earlier run "
              f"({stale[0]}...); they are not part of this key")
+
+
+def _compare(va, vb, passage, *, mallet: str | None, match: str, band_range: float):
+    from synth.reports import compare as cmp
 
     with Progress(5, "comparing") as step:
         last = [0]
@@ -250,56 +224,31 @@ def compare_command(
             step(done - last[0])
             last[0] = done
 
-        comp = cmp.compare_designs(va, vb, passage, mallet=mallet, match=match,
+        return cmp.compare_designs(va, vb, passage, mallet=mallet, match=match,
                                    band_range_db=band_range, progress=progress)
 
-    names = (va.instrument.name, vb.instrument.name)
-    files = (str(design_a), str(design_b))
-    settings = {"command": "compare", "design_a": files[0], "design_b": files[1],
-                "name_a": names[0], "name_b": names[1], "sample_rate_hz": sample_rate,
-                "channels": 2,
-                "events": None if events is None else str(events), "notes": notes}
-    written = cmp.write_listening_files(comp, directory, gap_s=gap, sample_format=fmt,
-                                        force=force, settings=settings)
-    record = cmp.comparison_record(comp, names=names, files=files)
-    png_bytes = cmp.comparison_png(comp, names=names)
-    png = io.write_bytes(directory / "differences.png", png_bytes, force=force)
-    report = io.write_bytes(directory / "differences.json",
-                            cmp.record_json(record).encode("utf-8"), force=force)
-    trials: list[Path] = []
-    key_path: Path | None = None
-    page_path: Path | None = None
-    run_id = secrets.token_hex(6)  # names this run's answers; says nothing about the key
-    if blind is not None:
-        seed_used = seed if seed is not None else secrets.randbelow(2**31)
-        trials, key_path = cmp.write_blind_trials(comp, directory, blind, seed=seed_used,
-                                                  gap_s=gap, designs=files, run=run_id,
-                                                  sample_format=fmt, force=force,
-                                                  settings=settings)
-    if page:
-        from synth.reports.page import listening_page
 
-        text = listening_page(comp, names=names, png=png_bytes,
-                              trials=[p.name for p in trials], run=run_id,
-                              gap_s=gap_samples / sample_rate)
-        page_path = io.write_bytes(directory / cmp.PAGE_FILE, text.encode("utf-8"),
-                                   force=force)
-    commit_outputs()
+def _show_outcome(comp, out_files, directory: Path, *, names, files, blind: int | None,
+                  page: bool, gap_s: float, json_out: bool, stiffness=(None, None)) -> None:
+    from synth.output import HEARING_CAUTION
+
+    trials, key_path, page_path = out_files.trials, out_files.key_path, out_files.page_path
+    png, report = out_files.png, out_files.report
     if json_out:
-        print_json({**record, "out_dir": str(directory),
-                    "files": [str(p) for p in written] + [str(png), str(report)],
-                    "gap_s": gap_samples / sample_rate,
+        print_json({**out_files.record, "out_dir": str(directory),
+                    "files": [str(p) for p in out_files.written] + [str(png), str(report)],
+                    "gap_s": gap_s,
                     "page": None if page_path is None else str(page_path),
                     "blind": None if blind is None else {
                         "trials": blind, "files": [str(p) for p in trials],
                         "key": str(key_path)}})
     else:
         _print_report(comp, names, files)
-        for letter, v in (("A", va), ("B", vb)):
-            say_stiffness(v.stiffness, prefix=f"design {letter}: ")
+        for letter, s in zip("AB", stiffness, strict=True):
+            say_stiffness(s, prefix=f"design {letter}: ")
         typer.echo("")
         typer.echo(f"wrote {directory}/: A.wav, B.wav, AB.wav (A, gap, B, gap, A, gap, B; "
-                   f"gap {gap_samples / sample_rate:g} s), a .json sidecar beside each, "
+                   f"gap {gap_s:g} s), a .json sidecar beside each, "
                    f"{png.name}, {report.name}")
         if blind is not None and key_path is not None:
             typer.echo(f"blind: {blind} trials {trials[0].name}..{trials[-1].name} (A, gap, B, "

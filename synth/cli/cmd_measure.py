@@ -168,8 +168,7 @@ def measure_command(
     them. An existing calibration file (from tubecal) gets the tables added; a
     table it already holds is replaced only with --force.
     """
-    from synth.reports.measure import calibrate as fit_calibration
-    from synth.reports.measure import measure_file, write_calibration
+    from synth.reports import measure as rm
 
     if recording.is_dir():
         _measure_folder(recording, preset=preset, reference_hz=reference_hz,
@@ -179,71 +178,21 @@ def measure_command(
                                                 ("--out", out), ("--terms", terms))
                                  if v is not None])
         return
-    if plot is not None:
-        raise ConfigError("is only used when RECORDING is a folder", source="--plot")
-    instrument = target = None
-    if note is not None:
-        _check_keyboard_note(note)
+    target = rm.check_measure_options(plot=plot, note=note, calibrate=calibrate, out=out,
+                                      terms=terms, no_tubes=no_tubes,
+                                      keep_overrides=keep_overrides, force=force)
     if calibrate is not None:
-        if note is None or out is None:
-            raise ConfigError("needs --note (the note recorded) and --out (the calibration "
-                              "file to write)", source="--calibrate")
-        from synth.settings.damping import calibration_target
-
-        target = calibration_target(out, ("damping", "stiffness"), force=force)
         plan_outputs([(out, "calibration file")], force=force or target is not None)
-        from synth.settings.instrument import load_instrument
-
-        instrument = load_instrument(calibrate)
-        note = instrument.check_note(note)
-    elif out is not None:
-        raise ConfigError("is only used with --calibrate PRESET", source="--out")
-    elif terms is not None or no_tubes or keep_overrides:
-        raise ConfigError("is only used with --calibrate PRESET",
-                          source="--terms" if terms is not None else
-                          "--no-tubes" if no_tubes else "--keep-overrides")
-    if preset is not None:
-        if calibrate is not None:
-            raise ConfigError("names the preset already given by --calibrate; give one of "
-                              "them", source="--preset")
-        from synth.settings.instrument import load_instrument
-
-        instrument = load_instrument(preset)
-        if note is not None:
-            note = instrument.check_note(note)
-    from synth.pitch import DEFAULT_REFERENCE_HZ
-
-    ref = reference_hz or (instrument.reference_pitch_hz if instrument else
-                           DEFAULT_REFERENCE_HZ)
-    preset_path = preset or calibrate  # the instrument's file, when one was loaded
-    ref_from = ("--reference-hz" if reference_hz else
-                f"{preset_path.name}" if preset_path is not None else
-                "default, ISO 16; --preset or --reference-hz to change")
-    measurement = measure_file(recording, note=note, reference_hz=ref,
-                               max_partials=max_partials, channel=channel)
+    instrument, note = rm.measure_instrument(calibrate, preset, note)
+    ref, ref_from = rm.reference_pitch(reference_hz, instrument, preset or calibrate)
+    measurement = rm.measure_file(recording, note=note, reference_hz=ref,
+                                  max_partials=max_partials, channel=channel)
     fit = path = rel = None
     if calibrate is not None:
-        if instrument is None or note is None:  # both set above with --calibrate
-            raise ModelError("--calibrate: no instrument or note to calibrate")
-        wanted = None
-        if terms is not None:
-            wanted = tuple(t.strip() for t in terms.split(",") if t.strip())
-        try:
-            fit = fit_calibration(measurement, instrument, note, terms=wanted,
-                                  tubes=not no_tubes, tolerance=tolerance)
-        except SynthError:
-            for w in measurement.warnings:
-                warn(w)
-            raise
-        if fit.fallback:  # first line on stderr: the job ran but missed what was asked
-            missed("no loss factor is identifiable from this recording; " + (
-                f"wrote per-mode Q overrides to {out} anyway (--keep-overrides)"
-                if keep_overrides else "nothing written (use --keep-overrides to write "
-                "per-mode Q overrides instead)"))
-        if keep_overrides or not fit.fallback:
-            path = write_calibration(out, fit, target=target, force=force)
-            commit_outputs()  # before a non-zero exit, which discards uncommitted files
-            rel = os.path.relpath(path, Path(calibrate).parent)
+        fit, path, rel = _calibrate(measurement, instrument, note, calibrate=calibrate,
+                                    out=out, terms=terms, no_tubes=no_tubes,
+                                    tolerance=tolerance, keep_overrides=keep_overrides,
+                                    target=target, force=force)
     for w in measurement.warnings + (fit.warnings if fit is not None else ()):
         warn(w)
     if json_out:
@@ -253,8 +202,41 @@ def measure_command(
             doc["calibration"] = {**fit.to_dict(), "file": path and str(path),
                                   "calibration_file": rel}
         print_json(doc)
-        _exit_if_missed(fit)
-        return
+    else:
+        _print_measurement(measurement, note, ref, ref_from, fit, path, rel)
+    _exit_if_missed(fit)
+
+
+def _calibrate(measurement, instrument, note, *, calibrate: Path, out, terms, no_tubes,
+               tolerance, keep_overrides, target, force):
+    """Fit the calibration, say first when it missed, and write it; (fit, path, rel)."""
+    from synth.reports.measure import calibrate as fit_calibration
+    from synth.reports.measure import calibration_terms, write_calibration
+
+    path = rel = None
+    if instrument is None or note is None:  # both set above with --calibrate
+        raise ModelError("--calibrate: no instrument or note to calibrate")
+    wanted = calibration_terms(terms)
+    try:
+        fit = fit_calibration(measurement, instrument, note, terms=wanted,
+                              tubes=not no_tubes, tolerance=tolerance)
+    except SynthError:
+        for w in measurement.warnings:
+            warn(w)
+        raise
+    if fit.fallback:  # first line on stderr: the job ran but missed what was asked
+        missed("no loss factor is identifiable from this recording; " + (
+            f"wrote per-mode Q overrides to {out} anyway (--keep-overrides)"
+            if keep_overrides else "nothing written (use --keep-overrides to write "
+            "per-mode Q overrides instead)"))
+    if keep_overrides or not fit.fallback:
+        path = write_calibration(out, fit, target=target, force=force)
+        commit_outputs()  # before a non-zero exit, which discards uncommitted files
+        rel = os.path.relpath(path, Path(calibrate).parent)
+    return fit, path, rel
+
+
+def _print_measurement(measurement, note, ref, ref_from, fit, path, rel) -> None:
     ch = ("mono" if measurement.n_channels == 1 else
           f"channel {measurement.channel} of {measurement.n_channels}" if measurement.channel
           else f"{measurement.n_channels} channels (mean)")
@@ -285,7 +267,6 @@ def measure_command(
     if path is not None:
         typer.echo(f"wrote {path}; use it from the preset's [damping] table: "
                    f'calibration_file = "{rel}"')
-    _exit_if_missed(fit)
 
 
 def _stiffness_table(fit) -> str:
@@ -307,16 +288,6 @@ def _stiffness_table(fit) -> str:
 def _exit_if_missed(fit) -> None:
     if fit is not None and fit.fallback:
         raise typer.Exit(code=EXIT_MISSED)
-
-
-def _check_keyboard_note(note: str) -> None:
-    """Refuse a --note that is not on a keyboard (C0 to C9, see synth.pitch)."""
-    from synth.pitch import note_to_midi
-
-    try:
-        note_to_midi(note)
-    except ConfigError as exc:
-        raise ConfigError(f"= {note!r}: {exc.detail}", source="--note") from None
 
 
 def _measure_folder(folder: Path, *, preset, reference_hz, max_partials, channel, plot, force,

@@ -62,8 +62,7 @@ def offcut_command(
     worst-case uncertainty, checks the result against the 1-D bar model, and
     with --out writes a material file for the batch.
     """
-    from synth.reports.measure import measure_file
-    from synth.reports.offcut import OffcutInputs, analyse_offcut, material_toml
+    from synth.reports.offcut import OffcutInputs, offcut_from_files
 
     if out is not None:
         plan_outputs([(out, "material file")], force=force)
@@ -72,23 +71,19 @@ def offcut_command(
         mass_kg=mass_g * 1e-3, length_tol_m=length_tol_mm * 1e-3,
         width_tol_m=caliper_tol_mm * 1e-3, thickness_tol_m=caliper_tol_mm * 1e-3,
         mass_tol_kg=mass_tol_g * 1e-3)
-    taps = [measure_file(recording, channel=channel, max_partials=16)]
-    if torsion_recording is not None:
-        taps.append(measure_file(torsion_recording, channel=channel, max_partials=16))
-    result = analyse_offcut(taps, inputs, alloy=alloy)
-    if out is not None:
-        from synth.io import write_bytes
-
-        write_bytes(out, material_toml(result, name=out.stem).encode("utf-8"), force=force)
-    for ms in taps:
-        for w in ms.warnings:
-            warn(w)
-    for w in result.warnings:
+    result, warnings = offcut_from_files(recording, torsion_recording, inputs, alloy=alloy,
+                                         channel=channel, out=out, force=force)
+    for w in warnings:
         warn(w)
     if json_out:
         print_json({**result.to_dict(), "file": str(out) if out else None})
         return
-    typer.echo(f"offcut {length_mm:g} x {width_mm:g} x {thickness_mm:g} mm, {mass_g:g} g "
+    _print_offcut(result, f"{length_mm:g} x {width_mm:g} x {thickness_mm:g} mm, {mass_g:g} g",
+                  out)
+
+
+def _print_offcut(result, size: str, out: Path | None) -> None:
+    typer.echo(f"offcut {size} "
                f"(density {result.density_kg_m3:.0f} kg/m3 +- "
                f"{100 * result.density_rel_tol:.2f} %); base alloy {result.base_alloy}")
     rows = [

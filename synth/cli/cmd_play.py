@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import contextlib
-import io as _bytes_io
 import os
 import sys
 import threading
@@ -208,35 +207,15 @@ def play_command(
     force: Annotated[bool, typer.Option(help="Overwrite --to-wav and --record files.")] = False,
 ) -> None:
     """Play the design live: MIDI in, sound out, through the real-time voice pool."""
-    from synth import io
+    from synth import io, live
 
     if list_ports:
-        names = _input_names()
-        for name in names:
-            typer.echo(name)
-        if not names:
-            info("barwright: no MIDI input ports found")
+        _list_ports()
         return
-    if len({motor_cc, switch_cc, 64, 7}) < 4:
-        raise ConfigError(f"--motor-cc {motor_cc}, --switch-cc {switch_cc}: must differ from "
-                          "each other and from 64 (the sustain pedal) and 7 (volume)",
-                          source="controllers")
-    if to_wav is not None and midi_file is None:
-        raise ConfigError("needs --midi-file FILE (the events to play)", source="--to-wav")
-    if fmt not in io.SAMPLE_FORMATS:
-        raise ConfigError(f"= {fmt!r}: must be one of " + ", ".join(io.SAMPLE_FORMATS),
-                          source="--format")
-    if sample_rate not in io.SAMPLE_RATES_HZ:
-        raise ConfigError(f"= {sample_rate}: must be one of "
-                          + ", ".join(str(r) for r in io.SAMPLE_RATES_HZ), source="--sample-rate")
-    events = None
-    if midi_file is not None:
-        from synth.settings.score import midi_file_events, read_midi
-
-        read_midi(midi_file)   # the offline reader's checks: one line for a bad file
-        events = midi_file_events(midi_file, float(sample_rate))
-    sd = None
-    port_name = None
+    live.check_play_options(motor_cc=motor_cc, switch_cc=switch_cc, to_wav=to_wav,
+                            midi_file=midi_file, fmt=fmt, sample_rate=sample_rate)
+    events = live.file_events(midi_file, sample_rate)
+    sd = port_name = None
     if to_wav is None:
         sd = _audio_module()
         if midi_file is None:
@@ -247,18 +226,10 @@ def play_command(
     if targets:
         plan_outputs(targets, force=force)
     presets = [preset] + ([preset_b] if preset_b is not None else [])
-    t0 = time.perf_counter()
-    player = _player(presets, sample_rate=sample_rate, channels=channels, no_tubes=no_tubes,
-                       motor_rate=motor_rate, layers=layers, voices=voices, gain_db=gain_db,
-                       pedal=pedal, motor_top=motor_top, motor_cc=motor_cc, switch_cc=switch_cc,
-                       workers=workers)
-    levels = ", ".join(f"{d} {20 * np.log10(g) + gain_db:+.2f} dB"
-                       for d, g in zip("AB", player.scales, strict=False))
-    info(f"barwright: planned {player.pool.n_templates} strikes of {len(presets)} design(s) "
-         f"in {time.perf_counter() - t0:.1f} s; output gain re 1 Pa: {levels}")
-    for letter, v in zip("AB", player.voicers, strict=False):
-        if v.stiffness is not None:
-            info(f"barwright: design {letter}: {v.stiffness.describe()}")
+    player = _planned_player(presets, sample_rate=sample_rate, channels=channels,
+                             no_tubes=no_tubes, motor_rate=motor_rate, layers=layers,
+                             voices=voices, gain_db=gain_db, pedal=pedal, motor_top=motor_top,
+                             motor_cc=motor_cc, switch_cc=switch_cc, workers=workers)
     if record is not None:
         player.start_recording()
     if to_wav is not None:
@@ -268,6 +239,36 @@ def play_command(
         info("barwright: set your volume low before you play, especially on headphones; "
              f"output starts at {gain_db:+.0f} dB and never exceeds -1 dBFS")
         _stream(sd, player, block=block, port_name=port_name, events=events)
+    _finish(player, to_wav=to_wav, record=record, force=force)
+
+
+def _list_ports() -> None:
+    names = _input_names()
+    for name in names:
+        typer.echo(name)
+    if not names:
+        info("barwright: no MIDI input ports found")
+
+
+def _planned_player(presets: list[Path], *, gain_db: float, **kwargs):
+    """Plan the player and say how long it took and each design's output gain."""
+    t0 = time.perf_counter()
+    player = _player(presets, gain_db=gain_db, **kwargs)
+    levels = ", ".join(f"{d} {20 * np.log10(g) + gain_db:+.2f} dB"
+                       for d, g in zip("AB", player.scales, strict=False))
+    info(f"barwright: planned {player.pool.n_templates} strikes of {len(presets)} design(s) "
+         f"in {time.perf_counter() - t0:.1f} s; output gain re 1 Pa: {levels}")
+    for letter, v in zip("AB", player.voicers, strict=False):
+        if v.stiffness is not None:
+            info(f"barwright: design {letter}: {v.stiffness.describe()}")
+    return player
+
+
+def _finish(player, *, to_wav: Path | None, record: Path | None, force: bool) -> None:
+    """Warn of strikes not played, write the recording, commit, and say what was written."""
+    from synth import io
+    from synth.live import recorded_midi_bytes
+
     fault = player.pool.fault
     status = player.status()
     if status["off_range"]:
@@ -277,11 +278,8 @@ def play_command(
         warn(f"{status['dropped_events']} event(s) did not fit the engine's queue and were "
              "lost")
     if record is not None:
-        from synth.live import recorded_midi
-
-        buf = _bytes_io.BytesIO()
-        recorded_midi(player.recording, player.sample_rate).save(file=buf)
-        io.write_bytes(record, buf.getvalue(), force=force)
+        io.write_bytes(record, recorded_midi_bytes(player.recording, player.sample_rate),
+                       force=force)
     if fault is not None:
         commit_outputs()   # what was recorded up to the fault is kept
         raise missed(f"output muted: {fault}; the voices were stopped")

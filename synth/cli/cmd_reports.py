@@ -91,24 +91,10 @@ def sustain_command(
     a tube offset solved with the same voice (motor included) and checked by
     re-solving before it is printed; --out-preset writes those tube lengths.
     """
-    from synth import io
-    from synth.errors import ConfigError
-    from synth.reports.sustain import (
-        TARGETS,
-        parse_target_curve,
-        preset_with_tubes,
-        sustain_csv,
-        sustain_png,
-        sustain_report,
-    )
+    from synth.reports import sustain as rs
     from synth.settings.instrument import load_instrument
-    from synth.voicing import Voicer
 
-    if target not in TARGETS:
-        raise ConfigError(f"= {target!r}: must be one of " + ", ".join(TARGETS),
-                          source="--target")
-    if target_t60 is not None and target_curve is not None:
-        raise ConfigError("give --target-t60 or --target-curve, not both", source="--target-curve")
+    rs.check_sustain_options(target, target_t60, target_curve)
     if target_curve is not None:
         check_target_curve(target_curve)
     inst = load_instrument(preset)
@@ -119,52 +105,51 @@ def sustain_command(
     if out_preset is not None:
         planned.append((out_preset, "preset"))
     plan_outputs(planned, force=force)
-    v = Voicer(inst, sample_rate=48000.0, tubes=not no_tubes, motor_rate_rev_per_s=motor_rate,
-               channels=1)
-    curve = parse_target_curve(target_curve, notes) if target_curve else None
+    v = rs.sustain_voicer(inst, no_tubes=no_tubes, motor_rate=motor_rate)
+    curve = rs.parse_target_curve(target_curve, notes) if target_curve else None
     with Progress(len(notes), "sustain") as step:
-        rep = sustain_report(v, notes, target_t60_s=target_t60, target_curve=curve,
-                             target=target, trend_order=trend_order,
-                             tolerance_percent=tolerance, at_time_s=at_time,
-                             min_gain_db=min_gain, max_offset_cents=max_offset_cents,
-                             progress=lambda n: step(1, n), workers=workers)
-    lengths = {r.note: r.suggested_length_m for r in rep.rows
-               if r.suggested_length_m is not None}
-    preset_data = preset_with_tubes(inst, lengths) if out_preset is not None else None
-    io.write_bytes(csv_path, sustain_csv(rep).encode("utf-8"), force=force)
-    io.write_bytes(png_path, sustain_png(rep, f"{inst.name}: sustain"), force=force)
-    if preset_data is not None and out_preset is not None:
-        import tomli_w
-
-        head = (f"# {preset.name} with the tube lengths `barwright sustain` suggested for "
-                f"{', '.join(lengths) or 'no note'}\n# (target: {rep.target_label}; tolerance "
-                f"+-{tolerance:g} %).\n")
-        io.write_bytes(out_preset, (head + tomli_w.dumps(preset_data)).encode("utf-8"),
-                       force=force)
+        rep = rs.sustain_report(v, notes, target_t60_s=target_t60, target_curve=curve,
+                                target=target, trend_order=trend_order,
+                                tolerance_percent=tolerance, at_time_s=at_time,
+                                min_gain_db=min_gain, max_offset_cents=max_offset_cents,
+                                progress=lambda n: step(1, n), workers=workers)
+    lengths = rs.write_sustain_files(rep, inst, preset, csv_path=csv_path, png_path=png_path,
+                                     out_preset=out_preset, tolerance=tolerance, force=force)
     commit_outputs()
     ts = v.tube_settings if rep.tubes else None  # with a calibration file's [tubes]
     open_terms = list(ts.uncalibrated()) if ts is not None else []
     if json_out:
-        print_json({
-            "uncalibrated": {"t60_s": open_terms, "level_difference_db": open_terms},
-            "target": rep.target_label, "tolerance_percent": rep.tolerance_percent,
-            "tubes": rep.tubes, "motor_rate_rev_per_s": rep.motor_rate_rev_per_s,
-            "csv": str(csv_path), "png": str(png_path),
-            "max_offset_cents": rep.max_offset_cents,
-            "solid_correction": rep.solid_correction,
-            "stiffness_calibration": stiffness_record(v.stiffness),
-            "preset": None if out_preset is None else str(out_preset),
-            "notes": [{"note": r.note, "frequency_hz": r.frequency_hz, "cents": r.cents,
-                       "q": list(r.q), "t60_s": r.t60_s[0], "t60_partials_s": list(r.t60_s),
-                       "t60_rendered_s": r.t60_rendered_s, "target_t60_s": r.target_t60_s,
-                       "mismatch_percent": r.mismatch_percent,
-                       "level_difference_db": r.level_difference_db, "flagged": r.flagged,
-                       "suggestion": r.suggestion,
-                       "suggested_offset_cents": r.suggested_offset_cents,
-                       "suggested_tube_length_m": r.suggested_length_m,
-                       "suggested_t60_s": r.suggested_t60_s,
-                       "warnings": list(r.warnings)} for r in rep.rows]})
+        _print_sustain_json(rep, open_terms, csv_path, png_path, out_preset, v.stiffness)
         return
+    _print_sustain(rep, open_terms, at_time=at_time, tolerance=tolerance, csv_path=csv_path,
+                   png_path=png_path, lengths=lengths, out_preset=out_preset,
+                   stiffness=v.stiffness)
+
+
+def _print_sustain_json(rep, open_terms, csv_path, png_path, out_preset, stiffness) -> None:
+    print_json({
+        "uncalibrated": {"t60_s": open_terms, "level_difference_db": open_terms},
+        "target": rep.target_label, "tolerance_percent": rep.tolerance_percent,
+        "tubes": rep.tubes, "motor_rate_rev_per_s": rep.motor_rate_rev_per_s,
+        "csv": str(csv_path), "png": str(png_path),
+        "max_offset_cents": rep.max_offset_cents,
+        "solid_correction": rep.solid_correction,
+        "stiffness_calibration": stiffness_record(stiffness),
+        "preset": None if out_preset is None else str(out_preset),
+        "notes": [{"note": r.note, "frequency_hz": r.frequency_hz, "cents": r.cents,
+                   "q": list(r.q), "t60_s": r.t60_s[0], "t60_partials_s": list(r.t60_s),
+                   "t60_rendered_s": r.t60_rendered_s, "target_t60_s": r.target_t60_s,
+                   "mismatch_percent": r.mismatch_percent,
+                   "level_difference_db": r.level_difference_db, "flagged": r.flagged,
+                   "suggestion": r.suggestion,
+                   "suggested_offset_cents": r.suggested_offset_cents,
+                   "suggested_tube_length_m": r.suggested_length_m,
+                   "suggested_t60_s": r.suggested_t60_s,
+                   "warnings": list(r.warnings)} for r in rep.rows]})
+
+
+def _print_sustain(rep, open_terms, *, at_time, tolerance, csv_path, png_path, lengths,
+                   out_preset, stiffness) -> None:
     rows = [[r.note, f"{r.frequency_hz:.2f}", f"{r.cents + 0.0:+.2f}",
              *[f"{t:.2f}" for t in r.t60_s], f"{r.t60_rendered_s:.2f}",
              f"{r.mismatch_percent:+.0f}", f"{r.level_difference_db:+.1f}",
@@ -179,7 +164,7 @@ def sustain_command(
                f"+-{tolerance:g} %; tubes {'on' if rep.tubes else 'off'}, motor "
                f"{rep.motor_rate_rev_per_s:g} rev/s")
     say_correction(rep.solid_correction)
-    say_stiffness(v.stiffness)
+    say_stiffness(stiffness)
     if open_terms:
         typer.echo("~ uncalibrated: the fundamental's T60 and level under its tube rest on "
                    + " and ".join(open_terms) + " (derived, not measured); fit them with "

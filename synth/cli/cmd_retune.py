@@ -14,10 +14,6 @@ from synth.cli import app
 from synth.cli.common import format_table, handle_errors, missed, print_json, warn
 from synth.errors import ConfigError
 
-MATCH = 0.06
-"""A measured partial is taken as partial n when it lies within this fraction of
-its target (a cut bar is off by tens of cents, 6 % is a semitone)."""
-
 
 def _parse_partials(text: str) -> list[float]:
     out = []
@@ -76,73 +72,37 @@ def retune_command(
     the command says so first and exits with code 3. Wear eye, face and hearing
     protection at the grinder; keep aluminium dust apart from steel grinding.
     """
-    from synth.physics.retune import retune_plan
-    from synth.physics.tuning import instrument_spec
     from synth.reports.cutlist import SAFETY
-    from synth.settings.instrument import load_instrument
+    from synth.reports.retune import check_retune_source, missed_tolerance, retune_step
 
-    if (recording is None) == (partials_hz is None):
-        raise ConfigError("give either --recording or --partials-hz (one of them)",
-                          source="--recording")
+    check_retune_source(recording, partials_hz)
     typed = _parse_partials(partials_hz) if partials_hz is not None else None
-    instrument = load_instrument(preset)
-    note = instrument.check_note(note)
-    spec = instrument_spec(instrument, note)
-    targets = list(spec.targets_hz[:3])
-    geometry = instrument.bar(note)
-    material = spec.material
-    warnings: list[str] = []
-    if typed is None:
-        from synth.reports.measure import measure_file
-
-        m = measure_file(recording, note=note, reference_hz=instrument.reference_pitch_hz)
-        warnings += list(m.warnings)
-        measured = []
-        for k, f_t in enumerate(targets):
-            near = [p for p in m.partials if abs(p.frequency_hz / f_t - 1) <= MATCH]
-            if not near:
-                if k == 0:
-                    raise ConfigError(
-                        f"no partial within {100 * MATCH:g} % of {note}'s fundamental "
-                        f"{f_t:.1f} Hz in {recording} (found "
-                        + ", ".join(f"{p.frequency_hz:.1f}" for p in m.partials)
-                        + " Hz): wrong note, preset or file", source="--recording")
-                warnings.append(f"partial {k + 1} ({f_t:.1f} Hz target) not found in the "
-                                f"recording; planning partials 1-{k} only")
-                break
-            measured.append(min(near, key=lambda p: abs(p.frequency_hz / f_t - 1))
-                            .frequency_hz)
-    else:
-        measured = typed
-    targets = targets[:len(measured)]
-    plan = retune_plan(geometry, material, measured, targets, n_bands=bands,
-                       band_m=band_mm * 1e-3,
-                       max_trim_m=None if max_trim_mm is None else max_trim_mm * 1e-3)
-    if not plan.on_target:
-        worst = max(range(len(targets)),
-                    key=lambda i: abs(plan.predicted_cents[i]) / plan.tolerances_cents[i])
-        raise_later = missed(
-            f"the plan does not reach the tolerance: partial {worst + 1} is predicted "
-            f"{plan.predicted_cents[worst]:+.1f} cents off after the step"
-            + (" (" + "; ".join(plan.limited) + ")" if plan.limited else "")
-            + "; grind it, record again and plan the next step")
-    else:
-        raise_later = None
-    for w in warnings:
+    step = retune_step(preset, note, recording=recording, typed=typed, bands=bands,
+                       band_mm=band_mm, max_trim_mm=max_trim_mm)
+    miss = missed_tolerance(step)
+    raise_later = missed(miss) if miss is not None else None
+    for w in step.warnings:
         warn(w)
     if json_out:
-        print_json({"note": note, **plan.to_dict(), "safety": SAFETY})
-        if raise_later is not None:
-            raise raise_later
-        return
+        print_json({"note": step.note, **step.plan.to_dict(), "safety": SAFETY})
+    else:
+        _print_step(step, preset, band_mm)
+    if raise_later is not None:
+        raise raise_later
+
+
+def _print_step(step, preset: Path, band_mm: float) -> None:
+    from synth.reports.cutlist import SAFETY
+
+    plan, note, geometry = step.plan, step.note, step.geometry
     rows = [(str(i + 1), f"{plan.measured_hz[i]:.2f}", f"{plan.target_hz[i]:.2f}",
              f"{plan.miss_cents[i]:+.1f}", f"{plan.predicted_cents[i]:+.2f}",
              f"{plan.tolerances_cents[i]:g}")
-            for i in range(len(targets))]
+            for i in range(len(step.targets))]
     typer.echo(format_table(["partial", "measured Hz", "target Hz", "off cents",
                              "after step cents", "tolerance"], rows, align="rrrrrr",
                             title=f"{note}: retune step ({preset.name}, A4 = "
-                                  f"{instrument.reference_pitch_hz:g} Hz)"))
+                                  f"{step.instrument.reference_pitch_hz:g} Hz)"))
     typer.echo("")
     brows = []
     for o, d in zip(plan.offsets_m, plan.depths_m, strict=True):
@@ -166,5 +126,3 @@ def retune_command(
     typer.echo("Take a little less than planned, record again and rerun: the plan is a "
                "first-order step on the design's sensitivities.")
     typer.echo(SAFETY)
-    if raise_later is not None:
-        raise raise_later

@@ -2,9 +2,8 @@
 
 from __future__ import annotations
 
-import math
 from pathlib import Path
-from typing import TYPE_CHECKING, Annotated, Any
+from typing import TYPE_CHECKING, Annotated
 
 import numpy as np
 import typer
@@ -85,9 +84,9 @@ def solid_command(
     unknowns) says so first and exits with code 3.
     """
     from synth.cli.cmd_bar import resolve_bar
-    from synth.physics.bar_fe import solve_bar
     from synth.physics.solid import (
         MAX_LEVEL,
+        beside_one_d,
         cached_solver,
         finest_level,
         solve_levels,
@@ -103,21 +102,7 @@ def solid_command(
         result = solve_levels(geometry, material, level=level, accuracy=wanted,
                               n_modes=modes, solver=cached_solver if cache else None,
                               progress=lambda lv: step(1, f"level {lv.level}"))
-    one_d = solve_bar(geometry, material, n_vertical=5, n_lateral=2, n_torsional=3)
-    rows: list[dict[str, Any]] = []
-    for p in result.partials:
-        try:
-            f1 = one_d.mode(p.kind, p.order).frequency_hz
-        except (LookupError, ValueError, IndexError):
-            f1 = None
-        rows.append({
-            "kind": p.kind, "order": p.order, "frequency_hz": p.frequency_hz,
-            "extrapolated_hz": p.extrapolated_hz, "error": p.error,
-            "error_cents": p.error_cents, "observed_order": p.observed_order,
-            "one_d_hz": f1,
-            "cents_1d_minus_3d": None if f1 is None else 1200 * math.log2(f1 / p.frequency_hz),
-            "nodes_m": list(p.nodes_m),
-        })
+    rows = beside_one_d(result, geometry, material)
     worst = watched_error(result)
     short = wanted is not None and worst > wanted
     if short and wanted is not None:
@@ -130,28 +115,32 @@ def solid_command(
         print_json({"bar": label, "material": material.name, "levels": levels,
                     "estimated_error": worst, "partials": rows})
     else:
-        typer.echo(f"{label}: {material.name}, {geometry.length_m * 1e3:.1f} x "
-                   f"{geometry.width_m * 1e3:.1f} x {geometry.thickness_m * 1e3:.2f} mm, "
-                   + (geometry.undercut.describe() if geometry.undercut else "no undercut"))
-        table = [(r["kind"], r["order"], f"{r['frequency_hz']:.2f}",
-                  f"{r['extrapolated_hz']:.2f}", f"{r['error'] * 100:.3f}",
-                  "-" if r["one_d_hz"] is None else f"{r['one_d_hz']:.2f}",
-                  "-" if r["one_d_hz"] is None else f"{r['cents_1d_minus_3d']:+.1f}")
-                 for r in rows]
-        typer.echo(format_table(["kind", "order", "3-D Hz", "extrap. Hz", "est. err %",
-                                 "1-D Hz", "1-D - 3-D c"], table, align="lrrrrrr"))
-        fin = result.finest
-        typer.echo(f"mesh levels {', '.join(str(lv.level) for lv in result.levels)}: finest "
-                   f"{fin.n_elements} quadratic hexahedra, {fin.n_dof} unknowns, "
-                   f"{sum(lv.seconds for lv in result.levels):.1f} s of solving")
-        try:
-            nodes = result.partial("vertical", 1).nodes_m
-            typer.echo("vertical 1 nodes on the top face: "
-                       + ", ".join(f"{x * 1e3:.1f}" for x in nodes) + " mm from the left end")
-        except LookupError:
-            pass
+        _print_solid(label, geometry, material, rows, result)
     if short:
         raise typer.Exit(code=EXIT_MISSED)
+
+
+def _print_solid(label: str, geometry, material, rows, result) -> None:
+    typer.echo(f"{label}: {material.name}, {geometry.length_m * 1e3:.1f} x "
+               f"{geometry.width_m * 1e3:.1f} x {geometry.thickness_m * 1e3:.2f} mm, "
+               + (geometry.undercut.describe() if geometry.undercut else "no undercut"))
+    table = [(r["kind"], r["order"], f"{r['frequency_hz']:.2f}",
+              f"{r['extrapolated_hz']:.2f}", f"{r['error'] * 100:.3f}",
+              "-" if r["one_d_hz"] is None else f"{r['one_d_hz']:.2f}",
+              "-" if r["one_d_hz"] is None else f"{r['cents_1d_minus_3d']:+.1f}")
+             for r in rows]
+    typer.echo(format_table(["kind", "order", "3-D Hz", "extrap. Hz", "est. err %",
+                             "1-D Hz", "1-D - 3-D c"], table, align="lrrrrrr"))
+    fin = result.finest
+    typer.echo(f"mesh levels {', '.join(str(lv.level) for lv in result.levels)}: finest "
+               f"{fin.n_elements} quadratic hexahedra, {fin.n_dof} unknowns, "
+               f"{sum(lv.seconds for lv in result.levels):.1f} s of solving")
+    try:
+        nodes = result.partial("vertical", 1).nodes_m
+        typer.echo("vertical 1 nodes on the top face: "
+                   + ", ".join(f"{x * 1e3:.1f}" for x in nodes) + " mm from the left end")
+    except LookupError:
+        pass
 
 
 # --------------------------------------------------------------------------------------

@@ -52,51 +52,27 @@ def tubecal_command(
     fixes the coupling strength (coupling_calibration) that sets every tube T60
     and gain. Copy both into the preset's [tubes] table.
     """
-    from synth.errors import ConfigError
-    from synth.reports.measure import (
-        calibrate_tube,
-        measure_file,
-        tube_model_hz,
-        tube_resonance,
-    )
-    from synth.settings.instrument import load_instrument
+    from synth.reports.measure import check_tube_source, tube_calibration
 
-    if (tube_hz is None) == (tube_recording is None):
-        raise ConfigError("give either --tube-hz or --tube-recording (one of them)",
-                          source="--tube-hz")
+    check_tube_source(tube_hz, tube_recording)
     target = None
     if out is not None:
         from synth.settings.damping import calibration_target
 
         target = calibration_target(out, ("tubes",), force=force)
         plan_outputs([(out, "tube calibration")], force=force or target is not None)
-    instrument = load_instrument(preset)
-    note = instrument.check_note(note)
-    ref = instrument.reference_pitch_hz
-    tube_q = None
-    extra = []
-    if tube_recording is not None:
-        m_t = measure_file(tube_recording, reference_hz=ref)
-        extra = list(m_t.warnings)
-        tube_hz, tube_q = tube_resonance(m_t, tube_model_hz(instrument, note))
-    if tube_hz is None:  # not reached: the check above asks for one of the two
-        raise ConfigError("give either --tube-hz or --tube-recording", source="--tube-hz")
-    m_bare = measure_file(bare, note=note, reference_hz=ref)
-    m_tube = measure_file(with_tube, note=note, reference_hz=ref)
-    cal = calibrate_tube(instrument, note, tube_hz=tube_hz, bare=m_bare, with_tube=m_tube,
-                         tube_q=tube_q)
-    if out is not None:
-        from synth.io import write_bytes
-
-        text = cal.to_toml(preset.name, (str(tube_recording) if tube_recording else
-                                         f"tube {tube_hz:g} Hz", str(bare), str(with_tube)),
-                           target)
-        write_bytes(out, text.encode("utf-8"), force=force or target is not None)
-    for w in (*extra, *m_bare.warnings, *m_tube.warnings, *cal.warnings):
+    cal, note, warnings = tube_calibration(preset, note, bare=bare, with_tube=with_tube,
+                                           tube_hz=tube_hz, tube_recording=tube_recording,
+                                           out=out, target=target, force=force)
+    for w in warnings:
         warn(w)
     if json_out:
         print_json({**cal.to_dict(), "file": str(out) if out else None})
         return
+    _print_calibration(cal, note, preset, out)
+
+
+def _print_calibration(cal, note: str, preset: Path, out: Path | None) -> None:
     from synth.pitch import cents
 
     rows = [

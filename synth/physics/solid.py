@@ -906,3 +906,26 @@ def solve_bar_3d(geometry: BarGeometry, material: Material, *, level: int | None
     """:func:`solve_levels` with the disk cache; a picklable job for the executor."""
     return solve_levels(geometry, material, level=level, accuracy=accuracy, n_modes=n_modes,
                         watched=watched, solver=cached_solver if cache else None)
+
+
+def beside_one_d(result: SolidResult, geometry: BarGeometry,
+                 material: Material) -> list[dict[str, Any]]:
+    """Set each 3-D partial beside the 1-D model's (its frequency and the cents between)."""
+    from synth.physics.bar_fe import solve_bar
+
+    one_d = solve_bar(geometry, material, n_vertical=5, n_lateral=2, n_torsional=3)
+    rows: list[dict[str, Any]] = []
+    for p in result.partials:
+        try:
+            f1 = one_d.mode(p.kind, p.order).frequency_hz
+        except (LookupError, ValueError, IndexError):
+            f1 = None
+        rows.append({
+            "kind": p.kind, "order": p.order, "frequency_hz": p.frequency_hz,
+            "extrapolated_hz": p.extrapolated_hz, "error": p.error,
+            "error_cents": p.error_cents, "observed_order": p.observed_order,
+            "one_d_hz": f1,
+            "cents_1d_minus_3d": None if f1 is None else 1200 * math.log2(f1 / p.frequency_hz),
+            "nodes_m": list(p.nodes_m),
+        })
+    return rows

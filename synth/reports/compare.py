@@ -1249,3 +1249,132 @@ def comparison_png(comp: Comparison, *, names: tuple[str, str]) -> bytes:
                  fontsize=9)
     fig.tight_layout()
     return figure_png(fig)
+
+
+# --- the compare command's work: option checks, voicers, passage, files ---
+
+MAX_TRIALS: Final = 200
+"""Most blind trials one run writes."""
+
+
+def check_score_options(score: Path | None, answers: str | None, answers_file: Path | None,
+                        design_a: Path | None, design_b: Path | None) -> Path:
+    """Refuse a scoring run that lacks its key or answers, or also names designs; its key."""
+    if answers is not None and answers_file is not None:
+        raise ConfigError("give --answers or --answers-file, not both",
+                          source="--answers-file")
+    if score is None or (answers is None and answers_file is None):
+        raise ConfigError("scoring needs --score KEY and --answers \"A,B,...\" (or "
+                          "--answers-file FILE)", source="--score" if score is None else
+                          "--answers")
+    if design_a is not None or design_b is not None:
+        raise ConfigError("--score takes no design presets; give only --score KEY "
+                          "--answers \"...\"", source="--score")
+    return score
+
+
+def check_compare_options(design_a: Path | None, design_b: Path | None, notes: str | None,
+                          events: Path | None, blind: int | None, seed: int | None) -> list[str]:
+    """Refuse a comparison without two designs or with clashing options; return warnings."""
+    if design_a is None or design_b is None:
+        raise ConfigError("give two design presets, A and B (or --score KEY --answers "
+                          "\"...\" to score a blind test)", source="compare")
+    if notes is not None and events is not None:
+        raise ConfigError("give --notes or --events, not both", source="--events")
+    if blind is not None and not 1 <= blind <= MAX_TRIALS:
+        raise ConfigError(f"= {blind}: give between 1 and {MAX_TRIALS} trials (16 or more "
+                          "for a useful test)", source="--blind")
+    if seed is not None and seed < 0:
+        raise ConfigError(f"= {seed}: the seed must be >= 0", source="--seed")
+    if seed is not None and blind is None:
+        return ["--seed has no effect without --blind"]
+    return []
+
+
+def check_match(match: str) -> None:
+    """Refuse an unknown match mode."""
+    if match not in MATCH_MODES:
+        raise ConfigError(f"= {match!r}: must be one of " + ", ".join(MATCH_MODES),
+                          source="--match")
+
+
+def design_voicer(preset: Path, *, sample_rate: int, no_tubes: bool,
+                  motor_rate: float | None) -> Voicer:
+    """Plan the stereo voices of one design at a checked sample rate."""
+    from synth.settings.instrument import load_instrument
+
+    io.check_sample_rate(sample_rate)
+    inst = load_instrument(preset)
+    return Voicer(inst, sample_rate=float(sample_rate), tubes=not no_tubes,
+                  motor_rate_rev_per_s=motor_rate, channels=2)
+
+
+def design_voicers(design_a: Path, design_b: Path, *, sample_rate: int, no_tubes: bool,
+                   bare_b: bool, motor_rate: float | None) -> tuple[Voicer, Voicer, bool]:
+    """Voice plans of A and B (one plan when they are the same file) and whether they are."""
+    same = design_a.resolve() == design_b.resolve() and not bare_b
+    va = design_voicer(design_a, sample_rate=sample_rate, no_tubes=no_tubes,
+                       motor_rate=motor_rate)
+    vb = va if same else design_voicer(design_b, sample_rate=sample_rate,
+                                       no_tubes=no_tubes or bare_b, motor_rate=motor_rate)
+    return va, vb, same
+
+
+def choose_passage(events: Path | None, sequence: Sequence[tuple[str, float | None]] | None,
+                   va: Voicer, vb: Voicer, *, tail_s: float) -> Passage:
+    """Choose the passage to play: an event file, the given notes, or the default phrase."""
+    if events is not None:
+        from synth.settings.score import read_events
+
+        return events_passage(read_events(events), tail_s=tail_s)
+    if sequence is not None:  # --notes
+        return sequence_passage(sequence, tail_s=tail_s)
+    return default_passage(va.instrument.notes, vb.instrument.notes, tail_s=tail_s)
+
+
+@dataclass(frozen=True)
+class ComparisonFiles:
+    """What one comparison run wrote, and its record."""
+
+    record: dict[str, Any]
+    written: list[Path]
+    png: Path
+    report: Path
+    trials: list[Path]
+    key_path: Path | None
+    page_path: Path | None
+
+
+def write_comparison(comp: Comparison, directory: Path, *, names: tuple[str, str],
+                     files: tuple[str, str], settings: dict[str, Any], blind: int | None,
+                     seed: int | None, gap: float, gap_s: float, fmt: str, force: bool,
+                     page: bool) -> ComparisonFiles:
+    """Write the listening files, the plot, the report, blind trials and the page."""
+    import secrets
+
+    written = write_listening_files(comp, directory, gap_s=gap, sample_format=fmt,
+                                    force=force, settings=settings)
+    record = comparison_record(comp, names=names, files=files)
+    png_bytes = comparison_png(comp, names=names)
+    png = io.write_bytes(directory / "differences.png", png_bytes, force=force)
+    report = io.write_bytes(directory / "differences.json",
+                            record_json(record).encode("utf-8"), force=force)
+    trials: list[Path] = []
+    key_path: Path | None = None
+    page_path: Path | None = None
+    run_id = secrets.token_hex(6)  # names this run's answers; says nothing about the key
+    if blind is not None:
+        seed_used = seed if seed is not None else secrets.randbelow(2**31)
+        trials, key_path = write_blind_trials(comp, directory, blind, seed=seed_used,
+                                              gap_s=gap, designs=files, run=run_id,
+                                              sample_format=fmt, force=force,
+                                              settings=settings)
+    if page:
+        from synth.reports.page import listening_page
+
+        text = listening_page(comp, names=names, png=png_bytes,
+                              trials=[p.name for p in trials], run=run_id,
+                              gap_s=gap_s)
+        page_path = io.write_bytes(directory / PAGE_FILE, text.encode("utf-8"),
+                                   force=force)
+    return ComparisonFiles(record, list(written), png, report, trials, key_path, page_path)

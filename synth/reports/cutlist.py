@@ -141,3 +141,25 @@ def cutlist_csv(rows: list[CutRow]) -> str:
             *[f"{t * 1e3:.3f}" for t in r.station_thickness_m],
         ])
     return buf.getvalue()
+
+
+def write_build_sheet(instrument: Instrument, rows: list[CutRow], csv_path, png_path,
+                      pdf_path=None, *, paper: str = "a4", force: bool = False) -> None:
+    """Write the build sheet's files.
+
+    The CSV, the profile sheet and (with ``pdf_path``) the 1:1 cutting templates
+    (:mod:`synth.reports.templates`).
+    """
+    from synth import io as sio
+    from synth.reports.plots import profile_sheet_png
+    from synth.reports.templates import templates_pdf
+
+    sio.write_bytes(csv_path, cutlist_csv(rows).encode("utf-8"), force=force)
+    sio.write_bytes(png_path, profile_sheet_png(
+        [(r.note, instrument.bar(r.note), r.cord_holes_m) for r in rows],
+        title=f"{instrument.name}: bar profiles (circles: cord holes)"), force=force)
+    if pdf_path is not None:
+        sio.write_bytes(pdf_path, templates_pdf(
+            rows, {r.note: instrument.bar(r.note) for r in rows}, paper=paper,
+            title=instrument.name, workshop=instrument.raw.get("workshop", ""),
+            safety=SAFETY), force=force)

@@ -1790,3 +1790,117 @@ def range_png(rows: list[RangeRow], ratios, *, title: str = "") -> bytes:
     ax0.legend(fontsize=8)
     ax0.set_title(title)
     return figure_png(fig)
+
+
+# --- the measure command's choices: option checks, the instrument, the reference pitch ---
+
+def check_keyboard_note(note: str) -> None:
+    """Refuse a --note that is not on a keyboard (C0 to C9, see synth.pitch)."""
+    from synth.pitch import note_to_midi
+
+    try:
+        note_to_midi(note)
+    except ConfigError as exc:
+        raise ConfigError(f"= {note!r}: {exc.detail}", source="--note") from None
+
+
+def check_measure_options(*, plot: Path | None, note: str | None, calibrate: Path | None,
+                          out: Path | None, terms: str | None, no_tubes: bool,
+                          keep_overrides: bool, force: bool) -> CalibrationTarget | None:
+    """Refuse options that do not go together for one recording; the file to calibrate."""
+    if plot is not None:
+        raise ConfigError("is only used when RECORDING is a folder", source="--plot")
+    if note is not None:
+        check_keyboard_note(note)
+    if calibrate is not None:
+        if note is None or out is None:
+            raise ConfigError("needs --note (the note recorded) and --out (the calibration "
+                              "file to write)", source="--calibrate")
+        from synth.settings.damping import calibration_target
+
+        return calibration_target(out, ("damping", "stiffness"), force=force)
+    if out is not None:
+        raise ConfigError("is only used with --calibrate PRESET", source="--out")
+    if terms is not None or no_tubes or keep_overrides:
+        raise ConfigError("is only used with --calibrate PRESET",
+                          source="--terms" if terms is not None else
+                          "--no-tubes" if no_tubes else "--keep-overrides")
+    return None
+
+
+def measure_instrument(calibrate: Path | None, preset: Path | None,
+                       note: str | None) -> tuple[Instrument | None, str | None]:
+    """Load the instrument named by --calibrate or --preset; the note in its spelling."""
+    from synth.settings.instrument import load_instrument
+
+    instrument = None
+    if calibrate is not None:
+        instrument = load_instrument(calibrate)
+        note = instrument.check_note(cast(str, note))
+    if preset is not None:
+        if calibrate is not None:
+            raise ConfigError("names the preset already given by --calibrate; give one of "
+                              "them", source="--preset")
+        instrument = load_instrument(preset)
+        if note is not None:
+            note = instrument.check_note(note)
+    return instrument, note
+
+
+def reference_pitch(reference_hz: float | None, instrument: Instrument | None,
+                    preset_path: Path | None) -> tuple[float, str]:
+    """Give A4 and where it came from: the option, the preset, or ISO 16's default."""
+    ref = reference_hz or (instrument.reference_pitch_hz if instrument else
+                           DEFAULT_REFERENCE_HZ)
+    ref_from = ("--reference-hz" if reference_hz else
+                f"{preset_path.name}" if preset_path is not None else
+                "default, ISO 16; --preset or --reference-hz to change")
+    return ref, ref_from
+
+
+def calibration_terms(terms: str | None) -> tuple[str, ...] | None:
+    """Split --terms into the loss terms to fit (None: the default set)."""
+    if terms is None:
+        return None
+    return tuple(t.strip() for t in terms.split(",") if t.strip())
+
+
+# --- the tubecal command's work: the tube's source, the measurements, the file ---
+
+def check_tube_source(tube_hz: float | None, tube_recording: Path | None) -> None:
+    """Refuse unless exactly one of --tube-hz and --tube-recording is given."""
+    if (tube_hz is None) == (tube_recording is None):
+        raise ConfigError("give either --tube-hz or --tube-recording (one of them)",
+                          source="--tube-hz")
+
+
+def tube_calibration(preset: Path, note: str, *, bare: Path, with_tube: Path,
+                     tube_hz: float | None, tube_recording: Path | None, out: Path | None,
+                     target: CalibrationTarget | None,
+                     force: bool) -> tuple[TubeCalibration, str, list[str]]:
+    """Measure the recordings, fit the tube and write --out; (fit, note, warnings)."""
+    from synth.settings.instrument import load_instrument
+
+    instrument = load_instrument(preset)
+    note = instrument.check_note(note)
+    ref = instrument.reference_pitch_hz
+    tube_q = None
+    extra = []
+    if tube_recording is not None:
+        m_t = measure_file(tube_recording, reference_hz=ref)
+        extra = list(m_t.warnings)
+        tube_hz, tube_q = tube_resonance(m_t, tube_model_hz(instrument, note))
+    if tube_hz is None:  # not reached: the check above asks for one of the two
+        raise ConfigError("give either --tube-hz or --tube-recording", source="--tube-hz")
+    m_bare = measure_file(bare, note=note, reference_hz=ref)
+    m_tube = measure_file(with_tube, note=note, reference_hz=ref)
+    cal = calibrate_tube(instrument, note, tube_hz=tube_hz, bare=m_bare, with_tube=m_tube,
+                         tube_q=tube_q)
+    if out is not None:
+        from synth.io import write_bytes
+
+        text = cal.to_toml(preset.name, (str(tube_recording) if tube_recording else
+                                         f"tube {tube_hz:g} Hz", str(bare), str(with_tube)),
+                           target)
+        write_bytes(out, text.encode("utf-8"), force=force or target is not None)
+    return cal, note, [*extra, *m_bare.warnings, *m_tube.warnings, *cal.warnings]

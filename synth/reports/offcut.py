@@ -440,3 +440,20 @@ def material_toml(result: OffcutResult, *, name: str) -> str:
         text = v.replace("\\", "/").replace('"', "'")
         lines.append(f'{k} = "{text}"')
     return "\n".join(lines) + "\n"
+
+
+def offcut_from_files(recording, torsion_recording, inputs: OffcutInputs, *, alloy: str,
+                      channel: int | None, out=None, force: bool = False
+                      ) -> tuple[OffcutResult, list[str]]:
+    """Measure the tap recordings, analyse them and write --out; (result, warnings)."""
+    from synth.reports.measure import measure_file
+
+    taps = [measure_file(recording, channel=channel, max_partials=16)]
+    if torsion_recording is not None:
+        taps.append(measure_file(torsion_recording, channel=channel, max_partials=16))
+    result = analyse_offcut(taps, inputs, alloy=alloy)
+    if out is not None:
+        from synth.io import write_bytes
+
+        write_bytes(out, material_toml(result, name=out.stem).encode("utf-8"), force=force)
+    return result, [w for ms in taps for w in ms.warnings] + list(result.warnings)

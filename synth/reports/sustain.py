@@ -498,3 +498,42 @@ def sustain_png(report: SustainReport, title: str) -> bytes:
               frameon=False)
     fig.tight_layout()
     return figure_png(fig)
+
+
+# --- the sustain command's work: option checks, the plan, the files ---
+
+def check_sustain_options(target: str, target_t60: float | None,
+                          target_curve: str | None) -> None:
+    """Refuse an unknown target, or a T60 and a curve given together."""
+    if target not in TARGETS:
+        raise ConfigError(f"= {target!r}: must be one of " + ", ".join(TARGETS),
+                          source="--target")
+    if target_t60 is not None and target_curve is not None:
+        raise ConfigError("give --target-t60 or --target-curve, not both", source="--target-curve")
+
+
+def sustain_voicer(instrument, *, no_tubes: bool, motor_rate: float | None) -> Voicer:
+    """Plan the mono voices the sustain report measures, at 48 kHz."""
+    return Voicer(instrument, sample_rate=48000.0, tubes=not no_tubes,
+                  motor_rate_rev_per_s=motor_rate, channels=1)
+
+
+def write_sustain_files(report: SustainReport, instrument, preset, *, csv_path, png_path,
+                        out_preset, tolerance: float, force: bool) -> dict[str, float]:
+    """Write the table, the plot and (with out_preset) the preset with suggested tubes."""
+    from synth import io
+
+    lengths = {r.note: r.suggested_length_m for r in report.rows
+               if r.suggested_length_m is not None}
+    preset_data = preset_with_tubes(instrument, lengths) if out_preset is not None else None
+    io.write_bytes(csv_path, sustain_csv(report).encode("utf-8"), force=force)
+    io.write_bytes(png_path, sustain_png(report, f"{instrument.name}: sustain"), force=force)
+    if preset_data is not None and out_preset is not None:
+        import tomli_w
+
+        head = (f"# {preset.name} with the tube lengths `barwright sustain` suggested for "
+                f"{', '.join(lengths) or 'no note'}\n# (target: {report.target_label}; "
+                f"tolerance +-{tolerance:g} %).\n")
+        io.write_bytes(out_preset, (head + tomli_w.dumps(preset_data)).encode("utf-8"),
+                       force=force)
+    return lengths
