@@ -358,9 +358,8 @@ def tune_command(
     if solid:
         report_failed_jobs(results, solid_runs)
     if write and out is not None:
-        rt.write_tuned_preset(out, inst, preset, results, stiffness=stiffness,
-                              calibration=calibration, table=None if solid else table,
-                              force=force)
+        rt.write_tuned_preset(out, inst, preset, results, stiffness=stiffness, force=force,
+                              calibration=calibration, table=None if solid else table)
         commit_outputs()
     records = rt.tune_records(results, drift, shop,
                               {n: solid_record(run) for n, run in solid_runs.items()})
@@ -556,12 +555,7 @@ def grind_command(
     kinds = ("vertical", "torsional") if torsion else ("vertical",)
     gm = grind_map(res, n_stations=stations, band_m=band_mm * 1e-3, removal_m=removal_mm * 1e-3,
                    kinds=kinds, max_order=partials)
-    table = correction_of(design) if isinstance(design, Instrument) else None
-    # The predicted frequencies carry the preset's composed correction (3-D table x
-    # stiffness calibration); the cents per mm are relative changes, which a constant
-    # factor on a mode's frequency leaves as they are.
-    correction = model_correction(design) if isinstance(design, Instrument) else None
-    freqs = corrected_frequencies(correction, label, gm.modes, gm.frequencies_hz)
+    table, freqs = _grind_frequencies(design, label, gm)
     keep = [j for j, (k, o) in enumerate(gm.modes) if k == "vertical" or o == 1]
     stiffness = stiffness_in_use(design)
     io.write_bytes(png, grind_map_png(gm, geometry, title=f"{label}: grind map",
@@ -593,6 +587,19 @@ def grind_command(
 # --------------------------------------------------------------------------------------
 # cutlist
 # --------------------------------------------------------------------------------------
+
+
+def _grind_frequencies(design, label: str, gm):
+    """Return the preset's 3-D table (or None) and the grind map's predicted frequencies.
+
+    They carry the preset's composed correction (3-D table x stiffness calibration);
+    the cents per mm are relative changes, which a constant factor on a mode's
+    frequency leaves as they are.
+    """
+    if not isinstance(design, Instrument):
+        return None, gm.frequencies_hz
+    return correction_of(design), corrected_frequencies(model_correction(design), label,
+                                                        gm.modes, gm.frequencies_hz)
 
 
 @app.command("cutlist")
