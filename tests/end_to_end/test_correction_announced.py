@@ -26,8 +26,8 @@ from e2e_common import DEMO, run_json, run_ok
 from synth.analysis import find_partials
 from synth.config import load_toml
 from synth.physics.bar_fe import solve_bar
-from synth.physics.instrument import load_instrument
 from synth.physics.solid_correction import corrected_modes, correction_of
+from synth.settings.instrument import load_instrument
 
 NOTE = "A4"
 ANNOUNCED = "Partials corrected by the preset's 3-D [solid_correction] table: anchors F3..F6"

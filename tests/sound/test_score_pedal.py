@@ -21,7 +21,7 @@ import numpy as np
 import pytest
 
 from synth.engine.render import render
-from synth.engine.score import read_events
+from synth.settings.score import read_events
 from synth.voicing import Voicer
 
 FS = 48000
