@@ -13,9 +13,6 @@ import tempfile
 from pathlib import Path
 
 import mutate
-import pytest
-import typer.main
-import typer.testing
 from hypothesis import HealthCheck, given, settings
 from typer.testing import CliRunner
 
@@ -30,19 +27,6 @@ PRESET_FILE = mutate.PRESETS / "instruments" / "lantern-street-bars.toml"
 BAR = mutate.load("bars/parabolic-example.toml")
 PRESET = mutate.load("instruments/lantern-street-bars.toml")
 EVENTS = mutate.load("events/harbour-waltz.toml")
-
-
-@pytest.fixture(scope="module", autouse=True)
-def _command_tree_built_once():
-    """Build the command tree once for the module's 240 runs (as test_option_properties.py).
-
-    typer converts the app into click commands on every ``CliRunner.invoke`` (about
-    20 ms, half of each run here); the tree it builds is the same each time.
-    """
-    built = typer.main.get_command(app)
-    with pytest.MonkeyPatch.context() as mp:
-        mp.setattr(typer.testing, "_get_command", lambda _app: built, raising=False)
-        yield
 
 
 def _surely_bad(change) -> bool:
