@@ -1,4 +1,4 @@
-"""Shared fixtures: seeded random numbers, one BLAS thread and one build sheet for the run."""
+"""Shared fixtures: seeded random numbers, one BLAS thread, one command tree and one build sheet."""
 
 from __future__ import annotations
 
@@ -24,6 +24,30 @@ def _plan_cache_in_tmp(tmp_path_factory):
     """Keep the voice-plan cache of the test run in a temporary folder, never the user's."""
     with pytest.MonkeyPatch.context() as mp:
         mp.setenv("BARWRIGHT_CACHE", str(tmp_path_factory.mktemp("plan-cache")))
+        yield
+
+
+@pytest.fixture(scope="session", autouse=True)
+def _command_tree_built_once():
+    """Build the ``barwright`` command tree once for every ``CliRunner`` run of the session.
+
+    typer converts the app into click commands on each ``CliRunner.invoke`` (20-50 ms,
+    more as command modules are imported; half of a bad-input property run's time);
+    the tree is the same each time, and its lazy table still imports a command's
+    module on first use.  A test may build its own (test_option_properties.py).
+    """
+    import typer.main
+    import typer.testing
+
+    from synth.cli import app
+
+    built = typer.main.get_command(app)
+
+    def command(typer_app):
+        return built if typer_app is app else typer.main.get_command(typer_app)
+
+    with pytest.MonkeyPatch.context() as mp:
+        mp.setattr(typer.testing, "_get_command", command, raising=False)
         yield
 
 

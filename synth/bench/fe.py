@@ -1,5 +1,7 @@
 """Bar-model benchmark: one converged solve of an undercut bar.
 
+With ``--quick``: medians of 7 repeats instead of 41.
+
 Figures
 -------
 fe.solve_ms_median

@@ -1,7 +1,8 @@
 """Sound benchmarks on the demo instrument.
 
 A strike from the command line, and the sustain report against the rendering it
-analyses.
+analyses.  With ``--quick``: one timed strike instead of the median of 3, and the
+sustain report on every fourth note.
 
 Figures
 -------

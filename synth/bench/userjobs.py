@@ -14,7 +14,9 @@ of this thread (steadier than wall time on a shared machine):
 Each job plans its voices (:class:`synth.voicing.Voicer`) and renders them to a
 48 kHz stereo 24-bit WAV (:func:`synth.output.render_to_wav`), once with an
 empty plan cache (``cold``, what a first render costs) and once with the cache
-filled (``warm``, every later render of the same instrument).
+filled (``warm``, every later render of the same instrument).  Warm runs, the
+kernel-only call and the new-process runs are medians of 5 repeats (single runs
+with ``--quick``; the passage's warm run is always a single run).
 
 Work is counted in delivered mode-samples: for every voice, its modes (a coupled
 pair counts as two) times the samples from its strike to the end of the render,
@@ -229,7 +231,7 @@ def run(quick: bool = False) -> dict[str, float]:
     """Run the suite; return figures keyed by dotted name."""
     inst = load_instrument(_preset())
     figures: dict[str, float] = {}
-    repeats = 3 if quick else 5
+    repeats = 1 if quick else 5
     with tempfile.TemporaryDirectory() as tmp, threadpool_limits(limits=1):
         d = Path(tmp)
         scale_voices = None

@@ -8,9 +8,12 @@ interleaved so that both meet the same load:
 * ``range``: an 8 s stereo strike of each of the 37 notes, one WAV each, plan
   cache empty (every third note with ``--quick``);
 * ``sustain``: :func:`synth.reports.sustain.sustain_report` over the range, plan
-  cache filled;
+  cache filled (every third note with ``--quick``);
 * ``tune``: :func:`synth.physics.tuning.tune_instrument` over the range (1-D, runs
-  of ten neighbouring bars).
+  of ten neighbouring bars; the lowest 20 notes, two runs, with ``--quick``).
+
+Each kind of run is repeated 5 times (once with ``--quick``: the figures are then
+single runs, not medians).
 
 The speed-up is the median wall time on one worker over the median on two
 (target >= 1.7 on two free cores).  On a shared machine the other processes take
@@ -131,23 +134,25 @@ def _range_runner(folder: Path, notes: tuple[str, ...]) -> Callable[[int, int], 
 def run(quick: bool = False) -> dict[str, float]:
     """Run the suite; return figures keyed by dotted name."""
     from synth.bench.userjobs import _cache_in
-    from synth.physics.tuning import tune_instrument
+    from synth.physics.tuning import TUNE_SEGMENT, tune_instrument
     from synth.reports.sustain import sustain_report
 
     inst = load_instrument(_preset())
-    repeats = 3 if quick else 5
+    repeats = 1 if quick else 5
     figures: dict[str, float] = {}
     with tempfile.TemporaryDirectory() as tmp:
         d = Path(tmp)
-        picked = inst.notes[::3] if quick else inst.notes
+        picked = list(inst.notes[::3] if quick else inst.notes)
+        tuned = list(inst.notes[:2 * TUNE_SEGMENT] if quick else inst.notes)
         jobs = {
             "reference": _reference,
-            "range": _range_runner(d, picked),
-            "sustain": lambda w, r: sustain_report(Voicer(inst, channels=1), workers=w),
-            "tune": lambda w, r: tune_instrument(inst, workers=w),
+            "range": _range_runner(d, tuple(picked)),
+            "sustain": lambda w, r: sustain_report(Voicer(inst, channels=1), picked,
+                                                   workers=w),
+            "tune": lambda w, r: tune_instrument(inst, tuned, workers=w),
         }
         with _cache_in(d / "cache"):
-            sustain_report(Voicer(inst, channels=1), workers=1)   # fills the plan cache
+            sustain_report(Voicer(inst, channels=1), picked, workers=1)  # fills the plan cache
             for name, call in jobs.items():
                 for key, value in two_over_one(call, repeats).items():
                     if name != "reference" or key == "2_over_1":

@@ -122,10 +122,15 @@ def test_grind(demo, tmp_path) -> None:
     assert ANNOUNCED in human and f"vertical 1 {got[0]:.2f} Hz" in human
 
 
-def test_cutlist(demo, tmp_path) -> None:
-    """cutlist: each bar's fundamental is the 1-D solve times its factor; line and field."""
-    inst, _, _ = demo
-    data = run_json("cutlist", DEMO, "--out", tmp_path / "j")
+def test_cutlist(demo, demo_cutlist, tmp_path) -> None:
+    """cutlist: each bar's fundamental is the 1-D solve times its factor; line and field.
+
+    The JSON is the run's one `cutlist DEMO --out FOLDER --json` (tests/conftest.py).
+    """
+    result, _ = demo_cutlist
+    assert result.exit_code == 0, (result.exit_code, result.stderr[-2000:])
+    assert "Traceback" not in result.stdout + result.stderr
+    data = json.loads(result.stdout)
     _announced(data["solid_correction"], demo)
     by_note = {b["note"]: b for b in data["bars"]}
     for note in ("F3", NOTE, "F6"):
