@@ -63,6 +63,7 @@ import hashlib
 import json
 import math
 import os
+import re
 import time
 from collections.abc import Callable
 from dataclasses import dataclass, field
@@ -862,8 +863,14 @@ def cache_dir() -> Path:
 
 
 def cache_key(geometry: BarGeometry, material: Material, level: int, n_modes: int) -> str:
-    """Hash of everything a level solve depends on."""
-    text = json.dumps([MODEL_VERSION, repr(geometry), material.youngs_modulus_pa,
+    """Hash of everything a level solve depends on.
+
+    numpy scalars print as ``np.float64(0.25)`` where a plain float prints ``0.25``:
+    they are written as their value, so a tuned bar and the same bar read back from
+    a file share a key.
+    """
+    shape = re.sub(r"np\.\w+\(([^()]*)\)", r"\1", repr(geometry))
+    text = json.dumps([MODEL_VERSION, shape, material.youngs_modulus_pa,
                        material.poisson_ratio, material.density_kg_m3, int(level),
                        int(n_modes)])
     return hashlib.sha256(text.encode("utf-8")).hexdigest()[:32]
