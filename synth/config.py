@@ -576,3 +576,16 @@ def _check_number(sec: Section, name: str, value: Any, *, limit: Limit | None = 
     if le is not None and not value <= le:
         raise fail(f"must be <= {le:g}{u}")
     return value
+
+
+def require_sources(sec: Section, source: Mapping[str, str], keys: Iterable[str],
+                    what: str) -> None:
+    """Refuse a preset whose ``[source]`` table leaves any of ``keys`` unsourced.
+
+    ``what`` names the values in the message ("every value", "every property").
+    """
+    missing = [k for k in keys if k not in source]
+    if missing:
+        raise ConfigError(f"{what} needs its source; missing for " + ", ".join(missing),
+                          source=sec.source, key=sec.key("source"))
+

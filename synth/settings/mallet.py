@@ -12,7 +12,14 @@ import os
 from pathlib import Path
 from typing import Any
 
-from synth.config import Section, find_preset, load_toml, one_line, presets_dir
+from synth.config import (
+    Section,
+    find_preset,
+    load_toml,
+    one_line,
+    presets_dir,
+    require_sources,
+)
 from synth.errors import ConfigError
 from synth.physics.mallet import MALLET_KEYS, Mallet, SoundSettings, check_mallet_values
 
@@ -71,13 +78,7 @@ def _from_section(sec: Section, name: str, *, preset: bool) -> Mallet:
                 raise src.error(key, "must be a non-empty string naming the source")
             source[key] = text
     if preset:
-        missing = [k for k in MALLET_KEYS if k not in source]
-        if missing:
-            raise ConfigError(
-                "every value needs its source; missing for " + ", ".join(missing),
-                source=sec.source,
-                key=sec.key("source"),
-            )
+        require_sources(sec, source, MALLET_KEYS, "every value")
     return Mallet(
         name=sec.string("name", name),
         description=sec.string("description", ""),

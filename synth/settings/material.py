@@ -8,7 +8,14 @@ from __future__ import annotations
 import os
 from typing import Any
 
-from synth.config import Section, find_preset, load_toml, one_line, presets_dir
+from synth.config import (
+    Section,
+    find_preset,
+    load_toml,
+    one_line,
+    presets_dir,
+    require_sources,
+)
 from synth.errors import ConfigError
 from synth.physics.materials import OPTIONAL, REQUIRED, Material
 
@@ -41,13 +48,7 @@ def _from_section(sec: Section, name: str, *, inline: bool) -> Material:
         else:
             raise ConfigError("missing required key", source=sec.source, key=sec.key(key))
     if not inline:
-        missing = [k for k in (*REQUIRED, *OPTIONAL) if k not in source]
-        if missing:
-            raise ConfigError(
-                "every property needs its source; missing for " + ", ".join(missing),
-                source=sec.source,
-                key=sec.key("source"),
-            )
+        require_sources(sec, source, (*REQUIRED, *OPTIONAL), "every property")
     return Material(
         name=sec.string("name", name),
         description=sec.string("description", ""),
