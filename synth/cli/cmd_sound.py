@@ -81,24 +81,15 @@ DurationOpt = Annotated[float | None, typer.Option(
 
 
 def _voicer(preset: Path, opts: RenderOptions):
-    from synth.io import SAMPLE_RATES_HZ
+    from synth.io import check_sample_rate
     from synth.settings.instrument import load_instrument
     from synth.voicing import Voicer
 
-    if opts.sample_rate not in SAMPLE_RATES_HZ:
-        raise ConfigError(f"= {opts.sample_rate}: must be one of "
-                          + ", ".join(str(r) for r in SAMPLE_RATES_HZ), source="--sample-rate")
+    check_sample_rate(opts.sample_rate)
     return Voicer(load_instrument(preset), sample_rate=float(opts.sample_rate),
                   tubes=not opts.no_tubes, motor_rate_rev_per_s=opts.motor_rate,
                   channels=opts.channels)
 
-
-def _check_format(fmt: str) -> None:
-    from synth import io
-
-    if fmt not in io.SAMPLE_FORMATS:
-        raise ConfigError(f"= {fmt!r}: must be one of " + ", ".join(io.SAMPLE_FORMATS),
-                          source="--format")
 
 
 def _render(path: Path, voices, seconds: float | None, voicer, opts: RenderOptions,
@@ -179,7 +170,9 @@ def _finish(preset: Path, name: str, voices, seconds: float | None, *, voicer, o
     Returns the report as a dict; ``report=False`` prints nothing, for a command that
     prints one JSON document of its own.
     """
-    _check_format(opts.fmt)
+    from synth.io import check_sample_format
+
+    check_sample_format(opts.fmt)
     path = wav or opts.out or default_output(preset, f"{name}.wav")
     plan_outputs(wav_targets(path), force=opts.force)
     rep = _render(path, voices, seconds, voicer, opts, {"preset": str(preset), **settings})
@@ -279,9 +272,10 @@ def chord_command(
     decay = None
     if check_decay:
         from synth.cli.cmd_reports import chord_decay_check, decay_png_path
+        from synth.io import check_sample_format
 
         png = decay_png_path(wav)
-        _check_format(render.fmt)
+        check_sample_format(render.fmt)
         plan_outputs([*wav_targets(wav), (png, "decay plot")], force=render.force)
         decay = chord_decay_check(v, items, velocity, mallet, roll_ms, duration, png)
     record = _finish(
