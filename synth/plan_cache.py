@@ -106,41 +106,54 @@ def _feed(digest, value: object) -> None:
 
     import numpy as np
 
+    update = digest.update
+
     def put(tag: str, text: str | bytes = b"") -> None:
         data = text.encode() if isinstance(text, str) else text
-        digest.update(f"{tag}{len(data)}:".encode())
-        digest.update(data)
+        update(f"{tag}{len(data)}:".encode())
+        update(data)
 
-    if value is None or isinstance(value, bool | int | str):
-        put(type(value).__name__, repr(value))
-    elif isinstance(value, float):
-        put("float", value.hex())
-    elif isinstance(value, np.generic):
-        _feed(digest, value.item())
-    elif isinstance(value, np.ndarray):
-        put("array", f"{value.dtype.str}{value.shape}")
-        put("data", np.ascontiguousarray(value).tobytes())
-    elif dataclasses.is_dataclass(value) and not isinstance(value, type):
-        put("dataclass", f"{type(value).__module__}.{type(value).__qualname__}")
-        for f in dataclasses.fields(value):
-            if f.compare:
-                put("field", f.name)
-                _feed(digest, getattr(value, f.name))
-    elif isinstance(value, tuple | list):
-        put(type(value).__name__, str(len(value)))
-        for item in value:
-            _feed(digest, item)
-    elif isinstance(value, dict):
-        put("dict", str(len(value)))
-        for k, v in sorted(value.items(), key=lambda kv: repr(kv[0])):
-            _feed(digest, k)
-            _feed(digest, v)
-    elif isinstance(value, set | frozenset):
-        put("set", str(len(value)))
-        for item in sorted(value, key=repr):
-            _feed(digest, item)
-    else:
-        raise TypeError(f"cannot key a plan on a {type(value).__name__}")
+    def feed(value: object) -> None:
+        if value is None or isinstance(value, bool | int | str):
+            put(type(value).__name__, repr(value))
+        elif isinstance(value, float):
+            put("float", value.hex())
+        elif isinstance(value, np.generic):
+            feed(value.item())
+        elif isinstance(value, np.ndarray):
+            put("array", f"{value.dtype.str}{value.shape}")
+            put("data", np.ascontiguousarray(value).tobytes())
+        elif dataclasses.is_dataclass(value) and not isinstance(value, type):
+            kind = type(value)
+            names = _COMPARED_FIELDS.get(kind)
+            if names is None:
+                names = tuple(f.name for f in dataclasses.fields(value) if f.compare)
+                _COMPARED_FIELDS[kind] = names
+            put("dataclass", f"{kind.__module__}.{kind.__qualname__}")
+            for name in names:
+                put("field", name)
+                feed(getattr(value, name))
+        elif isinstance(value, tuple | list):
+            put(type(value).__name__, str(len(value)))
+            for item in value:
+                feed(item)
+        elif isinstance(value, dict):
+            put("dict", str(len(value)))
+            for k, v in sorted(value.items(), key=lambda kv: repr(kv[0])):
+                feed(k)
+                feed(v)
+        elif isinstance(value, set | frozenset):
+            put("set", str(len(value)))
+            for item in sorted(value, key=repr):
+                feed(item)
+        else:
+            raise TypeError(f"cannot key a plan on a {type(value).__name__}")
+
+    feed(value)
+
+
+_COMPARED_FIELDS: dict[type, tuple[str, ...]] = {}
+"""Names of the compared fields of each dataclass met so far, in declaration order."""
 
 
 def cached(key: str, make: Callable[[], T]) -> T:

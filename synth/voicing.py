@@ -40,6 +40,7 @@ from collections.abc import Sequence
 from dataclasses import dataclass, field, replace
 from functools import cached_property, lru_cache
 from pathlib import Path
+from typing import Final
 
 import numpy as np
 
@@ -267,9 +268,17 @@ class Voicer:
 
     def _plan_key(self, kind: str, note: str, *more) -> str:
         """Disk-cache key: every setting :meth:`_solve_model` reads, and ``more``."""
-        inst = self.instrument
-        return plan_cache.plan_key(kind, note, inst.bars.get(note),
-                                   inst.tube_lengths.get(note), self._settings_key, *more)
+        return plan_cache.plan_key(kind, self._note_key(note), *more)
+
+    def _note_key(self, note: str) -> str:
+        """Return the key of everything one note's plans share (hashed once per note)."""
+        key = self._cache.get(("note-key", note))
+        if key is None:
+            inst = self.instrument
+            key = plan_cache.plan_key("note-settings", note, inst.bars.get(note),
+                                      inst.tube_lengths.get(note), self._settings_key)
+            self._cache[("note-key", note)] = key
+        return key
 
     @cached_property
     def _settings_key(self) -> str:
@@ -648,9 +657,24 @@ def contact_onset(voice: Voice, pulse: tuple[np.ndarray, np.ndarray],
     if not momentum[-1] > 0:
         return voice
     rho = np.interp(tk, t, momentum) / momentum[-1]
-    free = render([_from_zero(voice)], tk.size, sample_rate=sample_rate, channels=1,
-                  retire_db=None)[:, 0]
+    free_voice = _from_zero(voice)
+
+    def free_form() -> np.ndarray:
+        return render([free_voice], tk.size, sample_rate=sample_rate, channels=1,
+                      retire_db=None)[:, 0]
+
+    try:  # the free form is kept on disk like a plan; a voice with curves is made each time
+        key = plan_cache.plan_key("onset-free-form", replace(free_voice, label=""), tk.size,
+                                  float(sample_rate), plan_cache.source_fingerprint(_ENGINE))
+    except TypeError:
+        free = free_form()
+    else:
+        free = plan_cache.cached(key, free_form)
     return replace(voice, onset=(rho - 1.0) * free)
+
+
+_ENGINE: Final[tuple[str, ...]] = ("engine/*.py",)
+"""Modules the onset's free form runs through besides the planning ones (its cache key)."""
 
 
 def _from_zero(voice: Voice) -> Voice:

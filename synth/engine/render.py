@@ -159,8 +159,11 @@ class _Segments:
         for i in range(1, len(starts)):
             nep[i] = nep[i - 1] + self.extra_per_sample[i - 1] * (starts[i] - starts[i - 1])
         self.nepers = nep
+        self.single = len(starts) == 1  # no damping change: one segment for ever
 
     def index(self, m: int) -> int:
+        if self.single:
+            return 0
         return int(np.searchsorted(self.start_m, m, side="right") - 1)
 
     def nepers_at(self, m):
@@ -171,6 +174,10 @@ class _Segments:
 
     def pieces(self, m_lo: int, m_hi: int):
         """Yield (m_from, m_to, segment index) covering [m_lo, m_hi)."""
+        if self.single:
+            if m_lo < m_hi:
+                yield m_lo, m_hi, 0
+            return
         i = self.index(m_lo)
         m = m_lo
         while m < m_hi:
@@ -379,11 +386,30 @@ def _plain_modes(pair: ModePair, extra_rates_per_s: np.ndarray, nyquist_hz: floa
     return (np.abs(omega) / (2 * math.pi), decay, flip * np.abs(b), flip * np.angle(b))
 
 
+def _folded(pair: ModePair, extra_rates_per_s: np.ndarray, nyquist_hz: float,
+            folds: dict | None):
+    """:func:`_plain_modes` of ``pair``, made once per render.
+
+    A render prepares each voice twice (checked before the first block, then
+    made again when it starts); ``folds`` carries the result from the first to
+    the second, keyed by the pair object (which the caller's voices keep alive)
+    and the damping rates, and gives it up there.
+    """
+    if folds is None:
+        return _plain_modes(pair, extra_rates_per_s, nyquist_hz)
+    key = (id(pair), extra_rates_per_s.tobytes(), nyquist_hz)
+    if key in folds:
+        return folds.pop(key)
+    plain = _plain_modes(pair, extra_rates_per_s, nyquist_hz)
+    folds[key] = plain
+    return plain
+
+
 class _Prepared:
     """Validated, unpacked voice with its running state for one render."""
 
     def __init__(self, voice: Voice, sample_rate: float, n_channels: int, n_samples: int,
-                 index: int = 0):
+                 index: int = 0, folds: dict | None = None):
         self.voice = voice
         self.index = index
         where = voice.where
@@ -417,7 +443,7 @@ class _Prepared:
         self.n_bank = bank.n_modes
         self.folded = []
         for pair in voice.pairs:
-            plain = (_plain_modes(pair, self.segments.extra_per_s, nyq)
+            plain = (_folded(pair, self.segments.extra_per_s, nyq, folds)
                      if FOLD_CONSTANT_PAIRS else None)
             if plain is None:
                 pairs.append(pair)
@@ -560,7 +586,7 @@ def _curve_values(curve, first: int, n: int, what: str, where: str) -> tuple[np.
             f"{where}: {what} returned shape {values.shape} for {n} samples from sample "
             f"{first}; it must return n values"
         )
-    biggest = _max_abs(values)
+    biggest = max_abs(values)
     if not math.isfinite(biggest):  # NaN and Inf both surface in the maximum
         bad = first + int(np.flatnonzero(~np.isfinite(values))[0])
         raise ModelError(f"{where}: {what} is not finite at sample {bad}")
@@ -576,7 +602,7 @@ def _check_declared(biggest: float, declared: float | None, what: str, name: str
         )
 
 
-def _max_abs(values: np.ndarray) -> float:
+def max_abs(values: np.ndarray) -> float:
     """Largest magnitude (NaN if any value is NaN), without a temporary array."""
     if not values.size:
         return 0.0
@@ -697,20 +723,22 @@ def render_blocks(
     # validate every voice now (errors before the first block); the state is made
     # again when the voice starts and released when it retires
     order = []
+    folds: dict = {}  # folded pairs, from this check to the voice's start
     for i, v in enumerate(voices):
-        p = _Prepared(v, sample_rate, n_ch, n_samples, i)
+        p = _Prepared(v, sample_rate, n_ch, n_samples, i, folds)
         if p.end > p.start:
             order.append((p.start, i))
     order.sort()
     threshold = 0.0 if retire_db is None else 10.0 ** (retire_db / 20.0)
     return _stream(voices, order, n_samples, n_ch, block_size, gain, dtype, sample_rate,
-                   threshold, progress)
+                   threshold, progress, folds)
 
 
 def _stream(voices, order, n_samples, n_ch, block_size, gain, dtype, sample_rate, threshold,
-            progress):
+            progress, folds):
     active: list[_Prepared] = []
     constants: dict[float, np.ndarray] = {}  # constant pair coefficients, shared
+    batches: dict[tuple, tuple] = {}  # kernel columns of the batches met so far
     tails = _RetiredTails(sample_rate)
     peak_so_far = 0.0
     nxt = 0
@@ -723,7 +751,7 @@ def _stream(voices, order, n_samples, n_ch, block_size, gain, dtype, sample_rate
             started = False
             while nxt < len(order) and order[nxt][0] < c1:
                 i = order[nxt][1]
-                p = _Prepared(voices[i], sample_rate, n_ch, n_samples, i)
+                p = _Prepared(voices[i], sample_rate, n_ch, n_samples, i, folds)
                 for ps in p.pairs:
                     ps.constants = constants
                 active.append(p)
@@ -747,11 +775,11 @@ def _stream(voices, order, n_samples, n_ch, block_size, gain, dtype, sample_rate
                     p.batched = False
                 bound += _render_voice(p, piece, c0, c1, sample_rate)
             for (lo, hi), group in batch.items():
-                _render_batch(group, piece, lo - c0, lo, hi)
+                _render_batch(group, piece, lo - c0, lo, hi, batches)
             for p in active:
                 if p.onset_n and c0 < p.start + p.onset_n:
                     bound += _add_onset(p, piece, c0, c1)
-            peak = _max_abs(piece)
+            peak = max_abs(piece)
             if not (peak <= bound * _RUNAWAY_MARGIN):
                 names = ", ".join(p.where for p in active[:4]) + (" ..." if len(active) > 4
                                                                   else "")
@@ -841,20 +869,43 @@ def _batchable(p: _Prepared, lo: int, hi: int) -> bool:
     return hi > lo and not p.pairs and p.voice.gain_curve is None and p.n_modes > 0
 
 
-def _render_batch(group: list[_Prepared], buf: np.ndarray, o0: int, lo: int, hi: int) -> None:
-    """Add the modes of every voice in ``group`` for output samples ``lo .. hi-1``, one call."""
-    parts = []
-    for p in group:
-        seg = p.segments
-        i = seg.index(lo - p.start)
-        n = p.n_modes
-        parts.append((np.full(n, p.gains[0]), np.full(n, p.gains[-1]), p.cycles,
-                      p.decay_per_sample, p.amplitude, p.phase,
-                      np.full(n, p.start, dtype=np.int64),
-                      np.full(n, seg.start_m[i], dtype=np.int64), np.full(n, seg.nepers[i]),
-                      np.full(n, seg.extra_per_sample[i])))
-    arrays = [np.ascontiguousarray(np.concatenate(column)) for column in zip(*parts,
-                                                                              strict=True)]
+_BATCHES_KEPT: Final[int] = 64
+"""Distinct batches (voices and their damping segments) a render keeps the columns of."""
+
+
+def _render_batch(group: list[_Prepared], buf: np.ndarray, o0: int, lo: int, hi: int,
+                  kept: dict | None = None) -> None:
+    """Add the modes of every voice in ``group`` for output samples ``lo .. hi-1``, one call.
+
+    The kernel's columns depend only on the voices and their damping segments, so
+    ``kept`` (shared by one render) holds them for the pieces that follow.
+    """
+    segments = [p.segments.index(lo - p.start) for p in group]
+    key = tuple(zip([p.index for p in group], segments, strict=True))
+    arrays = None if kept is None else kept.get(key)
+    if arrays is None:
+        counts = [p.n_modes for p in group]
+
+        def per_voice(values, dtype=np.float64) -> np.ndarray:
+            return np.repeat(np.array(values, dtype=dtype), counts)
+
+        arrays = (
+            per_voice([p.gains[0] for p in group]), per_voice([p.gains[-1] for p in group]),
+            np.concatenate([p.cycles for p in group]),
+            np.concatenate([p.decay_per_sample for p in group]),
+            np.concatenate([p.amplitude for p in group]),
+            np.concatenate([p.phase for p in group]),
+            per_voice([p.start for p in group], np.int64),
+            per_voice([p.segments.start_m[i] for p, i in zip(group, segments, strict=True)],
+                      np.int64),
+            per_voice([p.segments.nepers[i] for p, i in zip(group, segments, strict=True)]),
+            per_voice([p.segments.extra_per_sample[i]
+                       for p, i in zip(group, segments, strict=True)]),
+        )
+        if kept is not None:
+            if len(kept) >= _BATCHES_KEPT:
+                kept.clear()
+            kept[key] = arrays
     # mypy cannot count the ten columns in *arrays against the kernel's parameters
     kernels._banks_add(buf, o0, lo, hi, *arrays, ANCHOR_EVERY)  # type: ignore[call-arg]
 
@@ -1023,7 +1074,7 @@ def measure_peak(
                                block_size=block_size, channels=channels,
                                retire_db=retire_db, progress=progress):
         if block.size:
-            peak = max(peak, _max_abs(block))
+            peak = max(peak, max_abs(block))
     return peak
 
 

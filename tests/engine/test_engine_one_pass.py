@@ -16,6 +16,7 @@ import numpy as np
 import pytest
 import soundfile as sf
 
+from synth import output
 from synth.engine import (
     ModeBank,
     ModePair,
@@ -70,8 +71,15 @@ def two_pass(path, vs, n, fmt, gain_db=None):
 @pytest.mark.parametrize("fmt", ["pcm24", "float32", "pcm16"])
 @pytest.mark.parametrize("curves", [False, True])
 @pytest.mark.parametrize("gain_db", [None, -30.0, 20.0])
-def test_one_pass_file_equals_two_pass_file(tmp_path, fmt, curves, gain_db):
-    """Normalised, fixed and limited gains: the same samples bit for bit, the same plan."""
+@pytest.mark.parametrize("held", [None, 0, 300_000])
+def test_one_pass_file_equals_two_pass_file(tmp_path, monkeypatch, fmt, curves, gain_db, held):
+    """Normalised, fixed and limited gains: the same samples bit for bit, the same plan.
+
+    ``held``: the bytes the render keeps in memory before it spills to its temporary
+    file (default: all of these 0.96 MB; 0: all in the file; 300 kB: some of each).
+    """
+    if held is not None:
+        monkeypatch.setattr(output, "SCRATCH_HELD_BYTES", held)
     vs = voices(curves)
     n = 60000
     ref = two_pass(tmp_path / "two.wav", vs, n, fmt, gain_db)
@@ -115,3 +123,26 @@ def test_render_error_leaves_no_file(tmp_path):
     with pytest.raises(ModelError, match="not finite"):
         render_to_wav(tmp_path / "x.wav", vs, 40000, sample_rate=FS)
     assert list(tmp_path.iterdir()) == []
+
+
+def test_ring_out_file_is_the_same_held_or_spilled(tmp_path, monkeypatch):
+    """A rung-out render ends at the same sample and holds the same samples whether its
+    unscaled samples stayed in memory or went partly or wholly to the temporary file.
+
+    Independent path: none outside the writer; the three ways of keeping the samples
+    (memory, file, both) must agree bit for bit, and the length must be the same.
+    """
+    vs = voices(False)
+    n = 200_000
+    files = []
+    for held in (None, 0, 700_000):
+        monkeypatch.setattr(output, "SCRATCH_HELD_BYTES",
+                            output.SCRATCH_HELD_BYTES if held is None else held)
+        path = tmp_path / f"r{held}.wav"
+        rep = render_to_wav(path, vs, n, sample_rate=FS, channels=2, ring_out=True,
+                            end_level_db=-40.0)
+        assert rep.ending is not None and rep.ending.how == "rang out"
+        files.append(sf.read(path, dtype="float64")[0])
+    assert 700_000 < files[0].size * 8 < n * 2 * 8  # it stopped inside the held part's reach
+    for other in files[1:]:
+        assert np.array_equal(files[0], other)

@@ -21,7 +21,7 @@ def _plan_arrays(voice) -> list:
     """Every number of a voice's plan, for exact comparison."""
     bank = voice.modes
     parts = [bank.frequency_hz, bank.decay_per_s, bank.amplitude, bank.phase_rad,
-             np.asarray(voice.channel_gains)]
+             np.asarray(voice.channel_gains), voice.onset]
     for pair in voice.pairs:
         parts.append(np.array([*pair.frequency_hz, *pair.decay_per_s, *pair.amplitude,
                                *pair.phase_rad, pair.weight_1]))
@@ -42,13 +42,15 @@ def test_stored_plan_equals_fresh_plan(demo, tmp_path, monkeypatch) -> None:
     fresh = _strikes(demo)
     monkeypatch.setenv(plan_cache.CACHE_ENV, str(tmp_path))
     _strikes(demo)                       # computes and stores
-    assert len(list((tmp_path / "plans").glob("*.pkl"))) == 6   # a model and a contact each
+    # a model, a contact and the onset's free form each
+    assert len(list((tmp_path / "plans").glob("*.pkl"))) == 9
 
     def refuse(*args, **kwargs):
         raise AssertionError("planned again although the plan is stored")
 
     monkeypatch.setattr(voicing, "solve_bar", refuse)
     monkeypatch.setattr(voicing, "simulate_contact", refuse)
+    monkeypatch.setattr(voicing, "render", refuse)
     stored = _strikes(demo)              # a new Voicer: everything from disk
     for a, b in zip(fresh, stored, strict=True):
         for x, y in zip(_plan_arrays(a), _plan_arrays(b), strict=True):
