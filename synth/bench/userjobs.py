@@ -78,6 +78,14 @@ userjobs.passage_realtime_factor_one_core
 userjobs.warm_strike_wall_s, userjobs.warm_strike_cpu_s
     ``barwright strike PRESET A4 --duration 10`` in a new process, plan cache
     filled, start to WAV: median wall time and the process's CPU time (target < 1 s).
+userjobs.engine_floor_wall_s, userjobs.engine_floor_cpu_s
+    The in-run reference of the warm strike: a new process that imports numpy and
+    the compiled kernels (numba) and makes one call of the batch kernel from
+    numba's cache, 8 samples; what any render in a new process costs before
+    barwright reads a file.  Median wall time and CPU time.
+userjobs.warm_strike_over_floor_s
+    Warm strike wall time less that floor: what the command line, the settings,
+    the plan, the render and the WAV add.
 userjobs.help_wall_s
     ``barwright --help`` in a new process, median wall time (target < 0.3 s).
 """
@@ -211,10 +219,22 @@ def _kernel_only(voices: list[Voice], repeats: int) -> float:
     return f.size * FS / median_time(call, repeats, clock=time.thread_time)
 
 
+_ENGINE_FLOOR = """
+import numpy as np
+from synth.engine import kernels
+k = np.ones(2)
+n = np.zeros(2, dtype=np.int64)
+kernels._banks_add(np.zeros((8, 2)), 0, 0, 8, k, k, 0.01 * k, 0 * k, k, 0 * k, n, n,
+                   0 * k, 0 * k, 1024)
+"""
+"""The engine floor's program (see the module docstring)."""
+
+
 def _subprocess_s(args: list[str], env: dict[str, str]) -> tuple[float, float]:
-    """Run ``python -m synth ARGS``; return (wall s, CPU s of the process)."""
+    """Run ``python -m synth ARGS`` (or ``python ARGS``); return (wall s, CPU s of the process)."""
     t0 = time.perf_counter()
-    proc = subprocess.Popen([sys.executable, "-m", "synth", *args], env=env,
+    command = list(args) if args[0] == "-c" else ["-m", "synth", *args]
+    proc = subprocess.Popen([sys.executable, *command], env=env,
                             stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
     _, status, usage = os.wait4(proc.pid, 0)
     wall = time.perf_counter() - t0
@@ -268,9 +288,16 @@ def run(quick: bool = False) -> dict[str, float]:
         strike = ["strike", str(_preset()), "A4", "--duration", "10", "--out",
                   str(d / "cli.wav"), "--force"]
         _subprocess_s(strike, env)  # fills the plan cache (and numba's)
-        runs = [_subprocess_s(strike, env) for _ in range(repeats)]
+        runs, floor = [], []
+        for _ in range(repeats):  # interleaved, so both meet the same load
+            runs.append(_subprocess_s(strike, env))
+            floor.append(_subprocess_s(["-c", _ENGINE_FLOOR], env))
         figures["userjobs.warm_strike_wall_s"] = statistics.median(r[0] for r in runs)
         figures["userjobs.warm_strike_cpu_s"] = statistics.median(r[1] for r in runs)
+        figures["userjobs.engine_floor_wall_s"] = statistics.median(r[0] for r in floor)
+        figures["userjobs.engine_floor_cpu_s"] = statistics.median(r[1] for r in floor)
+        figures["userjobs.warm_strike_over_floor_s"] = (
+            figures["userjobs.warm_strike_wall_s"] - figures["userjobs.engine_floor_wall_s"])
         figures["userjobs.help_wall_s"] = statistics.median(
             _subprocess_s(["--help"], env)[0] for _ in range(repeats))
     return figures
