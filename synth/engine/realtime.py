@@ -84,7 +84,7 @@ from synth.engine.render import (
     PAIR_MAX_DECAY_PER_SAMPLE,
     _series_coefficients,
 )
-from synth.engine.voice import Voice
+from synth.engine.voice import RotorLaw, Voice
 from synth.errors import ConfigError, ModelError
 
 DEFAULT_VOICES: Final[int] = 64
@@ -135,45 +135,6 @@ class Rotor:
                                   + (" and >= 0" if name != "resting_rad" else ""))
         if self.law not in ("exponential", "linear"):
             raise ConfigError(f"rotor law = {self.law!r}: must be exponential or linear")
-
-
-@dataclass(frozen=True)
-class RotorLaw:
-    """How the rotor modulates one coupled pair (see the module docstring).
-
-    Parameters
-    ----------
-    depth, floor : float
-        ``m = max(1 - depth |cos(theta + offset_rad)|, floor)``; 0 <= depth, floor <= 1.
-    offset_rad : float
-        This pair's angle on the rotor, rad.
-    coupling_open_rad_s : float
-        Coupling at ``m = 1``, rad/s.
-    weight_2_open : float
-        Member-2 output weight at ``m = 1``.
-    decay_2_fixed_per_s, decay_2_per_factor : float
-        Member-2 decay ``g2 = decay_2_fixed_per_s + decay_2_per_factor m``, 1/s (>= 0).
-    """
-
-    depth: float
-    floor: float
-    offset_rad: float
-    coupling_open_rad_s: float
-    weight_2_open: float
-    decay_2_fixed_per_s: float
-    decay_2_per_factor: float
-
-    def __post_init__(self) -> None:
-        for name in ("depth", "floor", "offset_rad", "coupling_open_rad_s", "weight_2_open",
-                     "decay_2_fixed_per_s", "decay_2_per_factor"):
-            v = float(getattr(self, name))
-            if not math.isfinite(v):
-                raise ModelError(f"rotor law: {name} = {v}: must be finite")
-        if not (0.0 <= self.depth <= 1.0 and 0.0 <= self.floor <= 1.0):
-            raise ModelError(f"rotor law: depth = {self.depth}, floor = {self.floor}: must be "
-                             "in [0, 1]")
-        if self.decay_2_fixed_per_s < 0 or self.decay_2_per_factor < 0:
-            raise ModelError("rotor law: member-2 decay parts must be >= 0 /s")
 
 
 @dataclass(frozen=True)
