@@ -1072,8 +1072,8 @@ def _banks_add(out, o0, t0, t1, gain_first, gain_last, cycles_per_sample, decay_
 #
 # rotor float64[6]: sample rate, rate (rev/s), resting angle (rad), start time (s),
 #   spin-up time (s), law (0 exponential, 1 linear).
-# cols float64[_RP_FIELDS, P] (fields _RP_* below); state float64[4, P]:
-#   Re a1, Im a1, Re a2, Im a2 of each pair, updated in place.
+# work float64[_RP_ROWS * _RP_MAX]: row k of pair p at k * _RP_MAX + p (fields _RP_*
+#   below, then the state Re a1, Im a1, Re a2, Im a2, updated in place).
 # ======================================================================================
 
 _RP_ROT_RE = 0     # cos, sin of Im((s1 + s2)/2) dt
@@ -1096,20 +1096,12 @@ _RP_A1R = 15       # state: Re a1, Im a1, Re a2, Im a2 (the caller's in, the ker
 _RP_A1I = 16
 _RP_A2R = 17
 _RP_A2I = 18
-_RP_X = 19         # scratch rows of the kernel
-_RP_EM = 20
-_RP_DR = 21
-_RP_ZR = 22
-_RP_ZI = 23
-_RP_MDT = 24
-_RP_CR = 25
-_RP_CI = 26
-_RP_SR = 27
-_RP_SI = 28
-_RP_ROWS = 29
+_RP_ROWS = 19
 _RP_MAX = 64       # pairs per call: the row length, a constant so that every row of
                    # ``work`` lies at a known distance from the others and the pair
                    # loops vectorise without run-time overlap checks
+_RP_EXP_TERMS = 7      # Taylor terms of exp: (g1 + g2) dt / 2 <= 0.005 needs 7 for 1e-18
+_RP_SERIES_TERMS = 6   # terms of cosh(q dt), sinh(q dt)/(q dt): |q dt|^2 <= 0.028 for 1e-18
 
 _ROTOR_CHUNK = 128
 
@@ -1164,9 +1156,12 @@ def _sin_cos(x):
     c = c * -r2 + 1.0 / 24.0
     c = c * -r2 + 0.5
     c = 1.0 - r2 * c
-    q = k - 4.0 * math.floor(0.25 * k)   # 0, 1, 2, 3
-    sin_x = s if q == 0.0 else (c if q == 1.0 else (-s if q == 2.0 else -c))
-    cos_x = c if q == 0.0 else (-s if q == 1.0 else (-c if q == 2.0 else s))
+    q = k - 4.0 * math.floor(0.25 * k)   # 0, 1, 2, 3: selects, no branches
+    odd = (q == 1.0) | (q == 3.0)
+    a = c if odd else s
+    b = s if odd else c
+    sin_x = -a if q >= 2.0 else a
+    cos_x = -b if (q == 1.0) | (q == 2.0) else b
     return sin_x, cos_x
 
 
@@ -1230,14 +1225,14 @@ def _rotor_pairs_add(out, o0, s0, n, rotor, curve, use_curve, work, n_p, dt,
     + w2[j] Im a2)`` (times ``curve[j]`` if ``use_curve``), from the state at that
     sample; then each state steps to ``j + 1`` with the exponential of its system
     frozen at ``mu`` (rotor half a step later) and ``g2`` (rotor at the sample),
-    as in ``_pair_add``.  The caller keeps ``(g1 + g2) dt / 2`` within the Taylor
-    series of ``exp_coef`` and ``|q dt|^2`` within that of ``cosh_coef`` and
-    ``sinh_coef``.
+    as in ``_pair_add``.  The series have ``_RP_EXP_TERMS`` and
+    ``_RP_SERIES_TERMS`` coefficients (a shorter series padded with zeros at the
+    top gives the same bits: Horner's steps through zeros stay exactly zero), a
+    constant count, so the loops over terms unroll and the loop over pairs is
+    innermost; the caller keeps ``(g1 + g2) dt / 2`` and ``|q dt|^2`` within them.
     """
     M = _RP_MAX
     n_ch = out.shape[1]
-    n_terms = cosh_coef.shape[0]
-    n_exp = exp_coef.shape[0]
     w = work
     cos_n = np.empty(_ROTOR_CHUNK)
     sin_n = np.empty(_ROTOR_CHUNK)
@@ -1248,9 +1243,6 @@ def _rotor_pairs_add(out, o0, s0, n, rotor, curve, use_curve, work, n_p, dt,
         for j in range(_ROTOR_CHUNK):
             ptab[j] = math.exp(-float(j) / (rotor[0] * rotor[4]))
     dt2 = dt * dt
-    e_top = exp_coef[n_exp - 1]
-    c_top = cosh_coef[n_terms - 1]
-    s_top = sinh_coef[n_terms - 1]
     for c0 in range(0, n, _ROTOR_CHUNK):
         nc = min(_ROTOR_CHUNK, n - c0)
         _rotor_sin_cos(rotor, s0 + c0, nc, False, ptab, cos_n, sin_n)
@@ -1274,58 +1266,40 @@ def _rotor_pairs_add(out, o0, s0, n, rotor, curve, use_curve, work, n_p, dt,
                 mu = w[_RP_MU * M + p] * fh
                 g1 = w[_RP_G1 * M + p]
                 g2 = w[_RP_G2 * M + p] + w[_RP_G2M * M + p] * fm
-                y = (w[_RP_W1 * M + p] * w[_RP_A1I * M + p]
-                     + (w[_RP_W2 * M + p] * math.sqrt(fm)) * w[_RP_A2I * M + p])
+                a1i = w[_RP_A1I * M + p]
+                a2i = w[_RP_A2I * M + p]
+                y = w[_RP_W1 * M + p] * a1i + (w[_RP_W2 * M + p] * math.sqrt(fm)) * a2i
                 acc0 += w[_RP_GAIN0 * M + p] * y
                 acc1 += w[_RP_GAIN1 * M + p] * y
                 ddt_im = w[_RP_DDT_IM * M + p]
-                w[_RP_X * M + p] = -0.5 * (g1 + g2) * dt
+                x = -0.5 * (g1 + g2) * dt
                 d = -0.5 * (g1 - g2) * dt
-                w[_RP_DR * M + p] = d
-                w[_RP_ZR * M + p] = d * d - ddt_im * ddt_im - mu * mu * dt2
-                w[_RP_ZI * M + p] = 2.0 * d * ddt_im
-                w[_RP_MDT * M + p] = mu * dt
-                w[_RP_EM * M + p] = e_top
-                w[_RP_CR * M + p] = c_top
-                w[_RP_CI * M + p] = 0.0
-                w[_RP_SR * M + p] = s_top
-                w[_RP_SI * M + p] = 0.0
-            for t in range(n_exp - 2, -1, -1):   # exp(Re(m) dt), Taylor
-                ct = exp_coef[t]
-                for p in range(n_p):
-                    w[_RP_EM * M + p] = w[_RP_EM * M + p] * w[_RP_X * M + p] + ct
-            for t in range(n_terms - 2, -1, -1):   # Horner: cosh(q dt), sinh(q dt)/(q dt)
-                ck = cosh_coef[t]
-                sk = sinh_coef[t]
-                for p in range(n_p):
-                    zr = w[_RP_ZR * M + p]
-                    zi = w[_RP_ZI * M + p]
-                    cr = w[_RP_CR * M + p]
-                    ci = w[_RP_CI * M + p]
-                    sr = w[_RP_SR * M + p]
-                    si = w[_RP_SI * M + p]
-                    w[_RP_CR * M + p] = cr * zr - ci * zi + ck
-                    w[_RP_CI * M + p] = cr * zi + ci * zr
-                    w[_RP_SR * M + p] = sr * zr - si * zi + sk
-                    w[_RP_SI * M + p] = sr * zi + si * zr
-            for p in range(n_p):
+                zr = d * d - ddt_im * ddt_im - mu * mu * dt2
+                zi = 2.0 * d * ddt_im
+                em = 0.0   # exp(Re(m) dt), Taylor
+                for t in range(_RP_EXP_TERMS - 1, -1, -1):
+                    em = em * x + exp_coef[t]
+                cr = 0.0   # Horner: cosh(q dt), sinh(q dt)/(q dt)
+                ci = 0.0
+                sr = 0.0
+                si = 0.0
+                for t in range(_RP_SERIES_TERMS - 1, -1, -1):
+                    u = cr * zr - ci * zi + cosh_coef[t]
+                    ci = cr * zi + ci * zr
+                    cr = u
+                    v = sr * zr - si * zi + sinh_coef[t]
+                    si = sr * zi + si * zr
+                    sr = v
                 # exp(A dt) = em [C I + S (B dt)], B = [[d, i mu], [i mu, -d]]
-                cr = w[_RP_CR * M + p]
-                ci = w[_RP_CI * M + p]
-                sr = w[_RP_SR * M + p]
-                si = w[_RP_SI * M + p]
-                dr = w[_RP_DR * M + p]
-                ddt_im = w[_RP_DDT_IM * M + p]
-                mdt = w[_RP_MDT * M + p]
-                sd_re = sr * dr - si * ddt_im
-                sd_im = sr * ddt_im + si * dr
+                mdt = mu * dt
+                sd_re = sr * d - si * ddt_im
+                sd_im = sr * ddt_im + si * d
                 u_re = cr + sd_re
                 u_im = ci + sd_im
                 v_re = cr - sd_re
                 v_im = ci - sd_im
                 w_re = -si * mdt
                 w_im = sr * mdt
-                em = w[_RP_EM * M + p]
                 er = em * w[_RP_ROT_RE * M + p]
                 ei = em * w[_RP_ROT_IM * M + p]
                 p_re = er * u_re - ei * u_im
@@ -1335,9 +1309,7 @@ def _rotor_pairs_add(out, o0, s0, n, rotor, curve, use_curve, work, n_p, dt,
                 r_re = er * w_re - ei * w_im
                 r_im = er * w_im + ei * w_re
                 a1r = w[_RP_A1R * M + p]
-                a1i = w[_RP_A1I * M + p]
                 a2r = w[_RP_A2R * M + p]
-                a2i = w[_RP_A2I * M + p]
                 w[_RP_A1R * M + p] = p_re * a1r - p_im * a1i + r_re * a2r - r_im * a2i
                 w[_RP_A1I * M + p] = p_re * a1i + p_im * a1r + r_re * a2i + r_im * a2r
                 w[_RP_A2R * M + p] = r_re * a1r - r_im * a1i + q_re * a2r - q_im * a2i

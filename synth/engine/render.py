@@ -242,6 +242,20 @@ class _PairState:
         z_bound = (d_max * self.dt) ** 2 + mu_dt ** 2
         self.cosh_coef, self.sinh_coef = _series_coefficients(z_bound, where)
         self.modal = self._modal_form(pair, extra_rates_per_s)
+        if self.mod is not None:
+            self.rotor_series = self._padded_series(where)
+
+    def _padded_series(self, where: str) -> tuple[np.ndarray, ...]:
+        """Series coefficients padded with zeros to the rotor kernel's fixed term counts."""
+        n_s, n_e = kernels._RP_SERIES_TERMS, kernels._RP_EXP_TERMS
+        if self.cosh_coef.size > n_s or self.exp_coef.size > n_e:
+            raise ModelError(
+                f"{where}: rotor-modulated pair detuned too far for the sample rate (its step "
+                f"series needs {self.cosh_coef.size} terms, at most {n_s}); raise the sample "
+                "rate"
+            )
+        return tuple(np.concatenate((c, np.zeros(n - c.size))) for c, n in (
+            (self.cosh_coef, n_s), (self.sinh_coef, n_s), (self.exp_coef, n_e)))
 
     def _modal_form(self, pair: ModePair, extra_rates_per_s: np.ndarray):
         """Eigenvectors of a pair with constant coefficients, for its output bound.
@@ -1019,8 +1033,10 @@ def _render_rotor_pairs(entries: list[tuple[_Prepared, _PairState, int]], buf: n
         work[:a2i, :n_p] = np.array(
             [np.concatenate((ps.rotor_columns(float(p.segments.extra_per_s[i]), p.gains),
                              ps.state)) for p, ps, i in group]).T
-        series = max((ps for _, ps, _ in group), key=lambda ps: ps.cosh_coef.size)
-        exp = max((ps.exp_coef for _, ps, _ in group), key=len)
+        # the longest series of the group (the shorter ones are the same with zeros on top)
+        cosh, sinh, _ = max((ps for _, ps, _ in group),
+                            key=lambda ps: ps.cosh_coef.size).rotor_series
+        exp = max((ps for _, ps, _ in group), key=lambda ps: ps.exp_coef.size).rotor_series[2]
         mod = group[0][1].mod
         rotor = np.array([sample_rate, mod.rate_rev_per_s, mod.resting_rad, mod.start_s,
                           mod.spin_up_s, mod.rotor_key[4]])
@@ -1028,7 +1044,7 @@ def _render_rotor_pairs(entries: list[tuple[_Prepared, _PairState, int]], buf: n
         kernels._rotor_pairs_add(buf, o0, lo + mod.shift_samples, hi - lo, rotor,
                                  curve if use_curve else np.ones(0), use_curve,
                                  work.reshape(-1), min(width, -(-n_p // 8) * 8),
-                                 1.0 / sample_rate, series.cosh_coef, series.sinh_coef, exp)
+                                 1.0 / sample_rate, cosh, sinh, exp)
         state = work[a1r:a2i, :n_p]
         energy = np.einsum("ij,ij->j", state, state)
         for k, (p, ps, _) in enumerate(group):
