@@ -67,6 +67,8 @@ from threadpoolctl import threadpool_limits
 from synth.bench import bank_kernel_call, median_time
 from synth.engine import ModeBank, ModePair, Voice, kernels, render, render_blocks
 from synth.engine.render import _series_coefficients
+from synth.engine.voice import Curve
+from synth.errors import ModelError
 
 FS = 48000.0
 
@@ -215,6 +217,12 @@ def run(quick: bool = False) -> dict[str, float]:
     return figures
 
 
+def _curve(c) -> Curve:
+    if not callable(c):
+        raise ModelError("bench: the motor's pair carries no curves to check against")
+    return c
+
+
 def _motor_figures(repeats: int, quick: bool) -> dict[str, float]:
     """Render the demo scale with the motor running; one pair against the exact steps."""
     from dataclasses import replace
@@ -252,7 +260,8 @@ def _motor_figures(repeats: int, quick: bool) -> dict[str, float]:
     m = 2000 if quick else 8000
     got = render([Voice(0, ModeBank.empty(), pairs=(pair,))], m, sample_rate=FS,
                  retire_db=None)[:, 0]
-    mu, w2, g2 = pair.coupling_rad_s(0, m), pair.weight_2(0, m), pair.decay_2_curve(0, m)
+    mu, w2, g2 = (_curve(c)(0, m) for c in (pair.coupling_rad_s, pair.weight_2,
+                                            pair.decay_2_curve))
     s1 = complex(-pair.decay_per_s[0], 2 * math.pi * pair.frequency_hz[0])
     om2 = 2 * math.pi * pair.frequency_hz[1]
     a = np.array([pair.amplitude[0] * np.exp(1j * pair.phase_rad[0]),

@@ -143,8 +143,10 @@ class LiveVoice:
 
     ``voice.start_sample``, ``stop_sample`` and ``damping`` are ignored (the
     events decide them); a pair's curves are replaced by its law, so a pair with
-    a curve needs one.  ``release_decay_per_s`` is the extra decay a released
-    voice takes with the dampers fully down, 1/s.
+    a curve needs one (a rotor-modulated pair's own ``modulation.law`` serves
+    when none is given; its angle law is the pool's :class:`Rotor`).
+    ``release_decay_per_s`` is the extra decay a released voice takes with the
+    dampers fully down, 1/s.
     """
 
     voice: Voice
@@ -309,6 +311,8 @@ class VoicePool:
         row[kernels._Q_W1] = pair.weight_1
         row[kernels._Q_D1] = float(pair.damped[0])
         row[kernels._Q_D2] = float(pair.damped[1])
+        if law is None and pair.modulation is not None:
+            law = pair.modulation.law  # the pool's own rotor gives the angle
         if law is None:
             if callable(pair.coupling_rad_s) or callable(pair.weight_2) \
                     or pair.decay_2_curve is not None:

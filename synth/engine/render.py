@@ -18,7 +18,11 @@ rendered together, in one kernel call per stretch of a piece (between the
 voices' damping changes), anchored at the call's first sample and on the output
 clock's grid, so there a block edge moves an anchor and changes the samples by
 rounding only (tests allow it).  A coupled pair with constant coefficients is
-rendered as its two plain modes (:func:`_plain_modes`).
+rendered as its two plain modes (:func:`_plain_modes`).  The pairs that follow
+a rotor (``ModePair.modulation``) of every voice without a gain curve are stepped
+together, one kernel call per rotor and stretch of a piece
+(:func:`_render_rotor_stretches`); the kernel evaluates the rotor law itself, and
+where a call begins changes the samples by rounding only.
 
 Voices start at ``start_sample`` and fall silent at ``stop_sample``, both
 sample-exact; damping changes act from the exact sample given.
@@ -103,7 +107,7 @@ from typing import Final
 import numpy as np
 
 from synth.engine import kernels
-from synth.engine.voice import ModePair, Voice
+from synth.engine.voice import ModePair, PairModulation, Voice
 from synth.errors import ConfigError, ModelError
 
 DEFAULT_BLOCK_SIZE: Final[int] = 16384
@@ -316,8 +320,8 @@ class _PairState:
         within ``g2_fixed + g2_per_factor m`` at its ends (``decay_per_s[1]`` must
         bound it from below) and ``|mu| <= |mu_open| m_max``.
         """
-        law = self.mod.law
-        m_lo, m_hi = self.mod.factor_range()
+        law = self.rotor.law
+        m_lo, m_hi = self.rotor.factor_range()
         lowest = law.decay_2_fixed_per_s + law.decay_2_per_factor * m_lo
         if self.g2 > lowest * (1.0 + 1e-12):
             raise ModelError(
@@ -349,8 +353,8 @@ class _PairState:
         ``sinh(q dt)/(q dt)`` are then summed to the same tolerance as for a curve,
         with the terms these bounds need.
         """
-        law = self.mod.law
-        m_lo, m_hi = self.mod.factor_range()
+        law = self.rotor.law
+        m_lo, m_hi = self.rotor.factor_range()
         x = d_re = 0.0
         for extra in extra_rates_per_s:
             g1 = self.g1 + self.damped_1 * extra
@@ -366,7 +370,7 @@ class _PairState:
         key = (extra_per_s, gains[0], gains[-1])
         col = self.rotor_cols.get(key)
         if col is None:
-            law = self.mod.law
+            law = self.rotor.law
             dt = self.dt
             col = np.empty(kernels._RP_FIELDS)
             m_im = 0.5 * (self.omega[0] + self.omega[1])
@@ -388,6 +392,13 @@ class _PairState:
             self.rotor_cols[key] = col
         return col
 
+    @property
+    def rotor(self) -> PairModulation:
+        """The pair's rotor law (only for a rotor-modulated pair)."""
+        if self.mod is None:
+            raise ModelError("coupled pair: not rotor-modulated")
+        return self.mod
+
     def mu_bound(self) -> float:
         """Bound of ``|mu|`` from here on (constant, or largest so far for a curve)."""
         return self.mu_seen
@@ -395,7 +406,7 @@ class _PairState:
     def weight_2_bound(self) -> float:
         """Bound of ``|weight_2|`` from here on (declared, constant, or largest so far)."""
         if self.mod is not None:
-            return abs(self.mod.law.weight_2_open) * math.sqrt(self.mod.factor_range()[1])
+            return abs(self.rotor.law.weight_2_open) * math.sqrt(self.rotor.factor_range()[1])
         if not callable(self.pair.weight_2):
             return abs(self.pair.weight_2)
         declared = self.pair.weight_2_max
@@ -879,7 +890,7 @@ def _stream(voices, order, n_samples, n_ch, block_size, gain, dtype, sample_rate
                         if p.n_modes:
                             batch.setdefault((p.start + m_a, p.start + m_b), []).append(p)
                         for ps in p.pairs:
-                            rotor_batch.setdefault(ps.mod.rotor_key, []).append(
+                            rotor_batch.setdefault(ps.rotor.rotor_key, []).append(
                                 (p.start + m_a, p.start + m_b, p, ps, i))
                     bound += p.bank_bound + p.pair_bound * p.max_gain
                     p.batched = p.n_modes > 0
@@ -1037,7 +1048,7 @@ def _render_rotor_pairs(entries: list[tuple[_Prepared, _PairState, int]], buf: n
         cosh, sinh, _ = max((ps for _, ps, _ in group),
                             key=lambda ps: ps.cosh_coef.size).rotor_series
         exp = max((ps for _, ps, _ in group), key=lambda ps: ps.exp_coef.size).rotor_series[2]
-        mod = group[0][1].mod
+        mod = group[0][1].rotor
         rotor = np.array([sample_rate, mod.rate_rev_per_s, mod.resting_rad, mod.start_s,
                           mod.spin_up_s, mod.rotor_key[4]])
         use_curve = curve is not None
