@@ -600,6 +600,55 @@ def _rt_bank(mix, j0, j1, v, p, v_int, v_flt, v_re, v_im, p_nmodes, p_cyc, p_dec
         m += 1
 
 
+@njit(cache=True, inline="always")
+def _step_series(zr, zi, cosh_coef, sinh_coef, n_terms):
+    """Horner sums of ``cosh(q dt)`` and ``sinh(q dt)/(q dt)`` in ``z = (q dt)^2 = zr + i zi``.
+
+    From a zero start over all ``n_terms`` coefficients (the first step gives the
+    top coefficient exactly, so zeros padded on top change no bit).
+    """
+    cr = 0.0
+    ci = 0.0
+    sr = 0.0
+    si = 0.0
+    for t in range(n_terms - 1, -1, -1):
+        x = cr * zr - ci * zi + cosh_coef[t]
+        ci = cr * zi + ci * zr
+        cr = x
+        x = sr * zr - si * zi + sinh_coef[t]
+        si = sr * zi + si * zr
+        sr = x
+    return cr, ci, sr, si
+
+
+@njit(cache=True, inline="always")
+def _exact_step(cr, ci, sr, si, dr, ddt_im, mdt, er, ei, a1r, a1i, a2r, a2i):
+    """Apply ``exp(A dt) = em [C I + S (B dt)]`` to the state; return the new state.
+
+    ``C = cr + i ci``, ``S = sr + i si`` (:func:`_step_series`), ``B dt = [[d dt, i
+    mu dt], [i mu dt, -d dt]]`` with ``d dt = dr + i ddt_im``, ``mdt = mu dt`` and
+    ``em = er + i ei = exp(m dt)`` (Moler & Van Loan, section 3).
+    """
+    sd_re = sr * dr - si * ddt_im
+    sd_im = sr * ddt_im + si * dr
+    u_re = cr + sd_re
+    u_im = ci + sd_im
+    w_re = cr - sd_re
+    w_im = ci - sd_im
+    c_re = -si * mdt
+    c_im = sr * mdt
+    p_re = er * u_re - ei * u_im
+    p_im = er * u_im + ei * u_re
+    q_re = er * w_re - ei * w_im
+    q_im = er * w_im + ei * w_re
+    r_re = er * c_re - ei * c_im
+    r_im = er * c_im + ei * c_re
+    return (p_re * a1r - p_im * a1i + r_re * a2r - r_im * a2i,
+            p_re * a1i + p_im * a1r + r_re * a2i + r_im * a2r,
+            r_re * a1r - r_im * a1i + q_re * a2r - q_im * a2i,
+            r_re * a1i + r_im * a1r + q_re * a2i + q_im * a2r)
+
+
 @njit(cache=True, fastmath=True)
 def _rt_pair(mix, j0, j1, v, p, q, v_flt, v_pair, p_pair, p_gain, theta_n, theta_h, dt,
              cosh_coef, sinh_coef):
@@ -654,40 +703,9 @@ def _rt_pair(mix, j0, j1, v, p, q, v_flt, v_pair, p_pair, p_gain, theta_n, theta
         dr = -0.5 * (g1 - g2) * dt
         zr = dr * dr - ddt_im * ddt_im - mu * mu * dt2
         zi = 2.0 * dr * ddt_im
-        cr = cosh_coef[n_terms - 1]
-        ci = 0.0
-        sr = sinh_coef[n_terms - 1]
-        si = 0.0
-        for t in range(n_terms - 2, -1, -1):
-            x = cr * zr - ci * zi + cosh_coef[t]
-            ci = cr * zi + ci * zr
-            cr = x
-            x = sr * zr - si * zi + sinh_coef[t]
-            si = sr * zi + si * zr
-            sr = x
-        mdt = mu * dt
-        sd_re = sr * dr - si * ddt_im
-        sd_im = sr * ddt_im + si * dr
-        u_re = cr + sd_re
-        u_im = ci + sd_im
-        w_re = cr - sd_re
-        w_im = ci - sd_im
-        c_re = -si * mdt
-        c_im = sr * mdt
-        p_re = er * u_re - ei * u_im
-        p_im = er * u_im + ei * u_re
-        q_re = er * w_re - ei * w_im
-        q_im = er * w_im + ei * w_re
-        r_re = er * c_re - ei * c_im
-        r_im = er * c_im + ei * c_re
-        b1r = p_re * a1r - p_im * a1i + r_re * a2r - r_im * a2i
-        b1i = p_re * a1i + p_im * a1r + r_re * a2i + r_im * a2r
-        b2r = r_re * a1r - r_im * a1i + q_re * a2r - q_im * a2i
-        b2i = r_re * a1i + r_im * a1r + q_re * a2i + q_im * a2r
-        a1r = b1r
-        a1i = b1i
-        a2r = b2r
-        a2i = b2i
+        cr, ci, sr, si = _step_series(zr, zi, cosh_coef, sinh_coef, n_terms)
+        a1r, a1i, a2r, a2i = _exact_step(cr, ci, sr, si, dr, ddt_im, mu * dt, er, ei,
+                                         a1r, a1i, a2r, a2i)
     st[0] = a1r
     st[1] = a1i
     st[2] = a2r
@@ -1279,41 +1297,16 @@ def _rotor_pairs_add(out, o0, s0, n, rotor, curve, use_curve, work, n_p, dt,
                 em = 0.0   # exp(Re(m) dt), Taylor
                 for t in range(_RP_EXP_TERMS - 1, -1, -1):
                     em = em * x + exp_coef[t]
-                cr = 0.0   # Horner: cosh(q dt), sinh(q dt)/(q dt)
-                ci = 0.0
-                sr = 0.0
-                si = 0.0
-                for t in range(_RP_SERIES_TERMS - 1, -1, -1):
-                    u = cr * zr - ci * zi + cosh_coef[t]
-                    ci = cr * zi + ci * zr
-                    cr = u
-                    v = sr * zr - si * zi + sinh_coef[t]
-                    si = sr * zi + si * zr
-                    sr = v
-                # exp(A dt) = em [C I + S (B dt)], B = [[d, i mu], [i mu, -d]]
-                mdt = mu * dt
-                sd_re = sr * d - si * ddt_im
-                sd_im = sr * ddt_im + si * d
-                u_re = cr + sd_re
-                u_im = ci + sd_im
-                v_re = cr - sd_re
-                v_im = ci - sd_im
-                w_re = -si * mdt
-                w_im = sr * mdt
-                er = em * w[_RP_ROT_RE * M + p]
-                ei = em * w[_RP_ROT_IM * M + p]
-                p_re = er * u_re - ei * u_im
-                p_im = er * u_im + ei * u_re
-                q_re = er * v_re - ei * v_im
-                q_im = er * v_im + ei * v_re
-                r_re = er * w_re - ei * w_im
-                r_im = er * w_im + ei * w_re
-                a1r = w[_RP_A1R * M + p]
-                a2r = w[_RP_A2R * M + p]
-                w[_RP_A1R * M + p] = p_re * a1r - p_im * a1i + r_re * a2r - r_im * a2i
-                w[_RP_A1I * M + p] = p_re * a1i + p_im * a1r + r_re * a2i + r_im * a2r
-                w[_RP_A2R * M + p] = r_re * a1r - r_im * a1i + q_re * a2r - q_im * a2i
-                w[_RP_A2I * M + p] = r_re * a1i + r_im * a1r + q_re * a2i + q_im * a2r
+                cr, ci, sr, si = _step_series(zr, zi, cosh_coef, sinh_coef,
+                                              _RP_SERIES_TERMS)
+                a1r, a1i, a2r, a2i = _exact_step(
+                    cr, ci, sr, si, d, ddt_im, mu * dt, em * w[_RP_ROT_RE * M + p],
+                    em * w[_RP_ROT_IM * M + p], w[_RP_A1R * M + p], a1i, w[_RP_A2R * M + p],
+                    a2i)
+                w[_RP_A1R * M + p] = a1r
+                w[_RP_A1I * M + p] = a1i
+                w[_RP_A2R * M + p] = a2r
+                w[_RP_A2I * M + p] = a2i
             if use_curve:
                 acc0 *= curve[c0 + j]
                 acc1 *= curve[c0 + j]
