@@ -1142,6 +1142,20 @@ _PIO2_A, _PIO2_B, _PIO2_C = _half_pi_parts()
 _TWO_OVER_PI = 2.0 / math.pi
 
 
+# Taylor coefficients from the highest: 1/17!, 1/15!, ..., 1/3! and 1/18!, ..., 1/2!
+_SIN_TAYLOR = tuple(1.0 / math.factorial(k) for k in range(17, 2, -2))
+_COS_TAYLOR = tuple(1.0 / math.factorial(k) for k in range(18, 1, -2))
+
+
+@njit(cache=True, inline="always")
+def _alternating(r2, coefs):
+    """Horner sum ``c_0 - c_1 r2 + c_2 r2^2 - ...`` of ``coefs`` given from the highest power."""
+    acc = 0.0
+    for ck in coefs:
+        acc = acc * -r2 + ck
+    return acc
+
+
 @njit(cache=True, inline="always")
 def _sin_cos(x):
     """sin(x) and cos(x) to about one unit in the last place for |x| < 1e6 (no branches).
@@ -1155,25 +1169,8 @@ def _sin_cos(x):
     k = math.floor(x * _TWO_OVER_PI + 0.5)
     r = ((x - k * _PIO2_A) - k * _PIO2_B) - k * _PIO2_C
     r2 = r * r
-    s = 1.0 / 355687428096000.0        # 1/17!
-    s = s * -r2 + 1.0 / 1307674368000.0
-    s = s * -r2 + 1.0 / 6227020800.0
-    s = s * -r2 + 1.0 / 39916800.0
-    s = s * -r2 + 1.0 / 362880.0
-    s = s * -r2 + 1.0 / 5040.0
-    s = s * -r2 + 1.0 / 120.0
-    s = s * -r2 + 1.0 / 6.0
-    s = r - r * r2 * s
-    c = 1.0 / 6402373705728000.0       # 1/18!
-    c = c * -r2 + 1.0 / 20922789888000.0
-    c = c * -r2 + 1.0 / 87178291200.0
-    c = c * -r2 + 1.0 / 479001600.0
-    c = c * -r2 + 1.0 / 3628800.0
-    c = c * -r2 + 1.0 / 40320.0
-    c = c * -r2 + 1.0 / 720.0
-    c = c * -r2 + 1.0 / 24.0
-    c = c * -r2 + 0.5
-    c = 1.0 - r2 * c
+    s = r - r * r2 * _alternating(r2, _SIN_TAYLOR)
+    c = 1.0 - r2 * _alternating(r2, _COS_TAYLOR)
     q = k - 4.0 * math.floor(0.25 * k)   # 0, 1, 2, 3: selects, no branches
     odd = (q == 1.0) | (q == 3.0)
     a = c if odd else s
