@@ -34,7 +34,6 @@ samples (:func:`recorded_midi`), so ``render`` makes the same passage offline.
 
 from __future__ import annotations
 
-import math
 from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, replace
 from typing import Any, Final
@@ -45,7 +44,7 @@ from synth.engine.realtime import DEFAULT_VOICES, LiveVoice, Rotor, RotorLaw, Vo
 from synth.errors import ConfigError, ModelError
 from synth.physics.motor import disc_modulation
 from synth.pitch import note_to_midi
-from synth.voicing import LN_1000, Voicer
+from synth.voicing import LN_1000, Voicer, disc_rotor_law
 
 DEFAULT_LAYERS: Final[int] = 8
 """Velocity layers planned per note (each strike costs about 20 ms to plan)."""
@@ -95,13 +94,7 @@ def rotor_law(voicer: Voicer, note: str) -> RotorLaw | None:
     mod = disc_modulation(model.coupling.pair, running, voicer.sample_rate,
                           phase_offset_deg=voicer.disc_phase_deg(note),
                           reference_distance_m=voicer.sound.listening_distance_m)
-    return RotorLaw(depth=motor.block_fraction, floor=mod.floor,
-                    offset_rad=math.radians(mod.phase_offset_deg),
-                    coupling_open_rad_s=mod.coupling_open_rad_s,
-                    weight_2_open=mod.tube_weight_open,
-                    decay_2_fixed_per_s=mod.tube_wall_decay_per_s,
-                    decay_2_per_factor=mod.tube_radiation_decay_per_s)
-
+    return disc_rotor_law(mod)
 
 def rotor_of(voicer: Voicer) -> Rotor:
     """Return the motor's shaft as the pool's rotor (it starts with the stream, as in a render)."""

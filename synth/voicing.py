@@ -53,6 +53,8 @@ from synth.engine.voice import (
     CurveOrConstant,
     ModeBank,
     ModePair,
+    PairModulation,
+    RotorLaw,
     Voice,
     constant_power_pan,
     seconds_to_sample,
@@ -499,15 +501,19 @@ class Voicer:
         weight2: CurveOrConstant = form.weight_tube
         decays, decay_curve = form.decay_per_s, None
         mod = self.modulation(model)
+        rotor = None
         if mod is not None:
+            # the curves for other readers; the engine evaluates the same law itself
             coupling, weight2, decay_curve = mod.coupling_rate, mod.tube_weight, mod.tube_decay
+            rotor = pair_modulation(mod)
             # the engine needs a lower bound of the tube's decay curve
             decays = (decays[0], mod.tube_wall_decay_per_s
                       + mod.tube_radiation_decay_per_s * mod.floor)
         return ModePair(frequency_hz=form.frequency_hz, decay_per_s=decays,
                            amplitude=(float(energy_root), 0.0), phase_rad=(float(phase), 0.0),
                            coupling_rad_s=coupling, weight_1=form.weight_bar,
-                           weight_2=weight2, damped=(True, True), decay_2_curve=decay_curve)
+                           weight_2=weight2, damped=(True, True), decay_2_curve=decay_curve,
+                           modulation=rotor)
 
     def modulation(self, model: NoteModel) -> DiscModulation | None:
         """Return the discs' per-sample streams for a note's tube (None: mouth always open)."""
@@ -688,9 +694,38 @@ def _from_zero(voice: Voice) -> Voice:
 
     pairs = tuple(replace(p, coupling_rad_s=shifted(p.coupling_rad_s),
                           weight_2=shifted(p.weight_2),
-                          decay_2_curve=shifted(p.decay_2_curve)) for p in voice.pairs)
+                          decay_2_curve=shifted(p.decay_2_curve),
+                          modulation=None if p.modulation is None else replace(
+                              p.modulation, shift_samples=p.modulation.shift_samples + start))
+                  for p in voice.pairs)
     return replace(voice, start_sample=0, channel_gains=(1.0,), stop_sample=None, damping=(),
                    gain_curve=shifted(voice.gain_curve), pairs=pairs, onset=None)
+
+
+def disc_rotor_law(mod: DiscModulation) -> RotorLaw:
+    """Return the engine's generic law of one tube under a disc."""
+    return RotorLaw(depth=mod.motor.block_fraction, floor=mod.floor,
+                    offset_rad=math.radians(mod.phase_offset_deg),
+                    coupling_open_rad_s=mod.coupling_open_rad_s,
+                    weight_2_open=mod.tube_weight_open,
+                    decay_2_fixed_per_s=mod.tube_wall_decay_per_s,
+                    decay_2_per_factor=mod.tube_radiation_decay_per_s)
+
+
+def pair_modulation(mod: DiscModulation) -> PairModulation:
+    """Return the declarative form of ``mod`` that the engine evaluates per sample.
+
+    The same law as the streams ``mod.coupling_rate``, ``mod.tube_weight`` and
+    ``mod.tube_decay`` (:mod:`synth.physics.motor`): the shaft's closed-form angle
+    from its resting angle, spin-up law and start time, and the factor
+    ``m = max(1 - beta |cos(theta + offset)|, floor)``.
+    """
+    motor = mod.motor
+    return PairModulation(disc_rotor_law(mod), rate_rev_per_s=motor.rate_rev_per_s,
+                          resting_rad=motor.resting_angle_rad, start_s=motor.start_time_s,
+                          spin_up_s=motor.spin_up_s, spin_up_law=motor.spin_up_law)
+
+
 def plan_strikes(voicer: Voicer, strikes: Sequence[Strike], pedal) -> list[Voice]:
     """Return the voices of ``strikes`` under the pedal curve ``pedal``.
 

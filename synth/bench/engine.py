@@ -6,7 +6,8 @@ run: numpy evaluating the same modes, ``a exp(-g t) sin(2 pi f t + phi)`` in
 float64, block by block.
 
 With ``--quick``: 1 s passages instead of 4 s (the numpy reference over 0.25 s
-instead of 1 s) and medians of 3 repeats instead of 7.
+instead of 1 s) and medians of 3 repeats instead of 7 (the motor scale keeps its
+20 s; its pair is checked over 2000 samples instead of 8000).
 
 Figures
 -------
@@ -30,6 +31,21 @@ engine.pair_note_vs_bank_ratio
     curve, over the same note's bare bank (time ratio).
 engine.pair_decay_note_vs_bank_ratio
     The same with the pair's second decay rate following a curve as well.
+engine.motor_pair_steps_per_s
+    The demo scale (the 37 notes of ``lantern-street-bars`` 0.5 s apart, 20 s at
+    48 kHz, stereo) with the motor at 3 rev/s: every note's bar-tube pair follows
+    the rotor law the engine evaluates itself.  Pair-steps (sum over voices of
+    pairs x samples from the strike to the end) over the thread CPU time of
+    :func:`render_blocks` (modes included), median of 7 renders (3 with
+    ``--quick``).  Target >= 150e6.
+engine.motor_curve_pair_steps_per_s, engine.motor_pair_vs_curve_ratio
+    The same voices with the law given only as per-sample curves (numpy
+    streams, median of 3), and the first figure over it.
+engine.motor_pair_max_error
+    The scale's first pair rendered alone against scipy.linalg.expm of each
+    frozen step (coefficients from the pair's curves), over 8000 samples (2000
+    with ``--quick``): largest error relative to the pair's largest output.
+    Target < 1e-9.
 engine.warm_start_render_s
     A new Python process that imports the engine (kernels from numba's cache)
     and renders a 5 s, 24-mode note at 48 kHz: wall time.
@@ -41,14 +57,18 @@ import functools
 import math
 import subprocess
 import sys
+import tempfile
 import time
+from pathlib import Path
 
 import numpy as np
 from threadpoolctl import threadpool_limits
 
 from synth.bench import bank_kernel_call, median_time
-from synth.engine import ModeBank, ModePair, Voice, kernels, render_blocks
+from synth.engine import ModeBank, ModePair, Voice, kernels, render, render_blocks
 from synth.engine.render import _series_coefficients
+from synth.engine.voice import Curve
+from synth.errors import ModelError
 
 FS = 48000.0
 
@@ -192,5 +212,65 @@ def run(quick: bool = False) -> dict[str, float]:
             _drain(full, 1024)
             t_full = median_time(functools.partial(_drain, full, n), repeats)
             figures[f"engine.{name}"] = t_full / t_bare
+        figures.update(_motor_figures(repeats, quick))
     figures["engine.warm_start_render_s"] = _warm_start_s()
+    return figures
+
+
+def _curve(c) -> Curve:
+    if not callable(c):
+        raise ModelError("bench: the motor's pair carries no curves to check against")
+    return c
+
+
+def _motor_figures(repeats: int, quick: bool) -> dict[str, float]:
+    """Render the demo scale with the motor running; one pair against the exact steps."""
+    from dataclasses import replace
+
+    import scipy.linalg
+
+    from synth.bench.userjobs import _cache_in, _preset, _strikes
+    from synth.settings.instrument import load_instrument
+    from synth.voicing import Voicer
+
+    inst = load_instrument(_preset())
+    strikes, seconds = _strikes("scale", inst.notes, quick)
+    n = int(round(seconds * FS))
+    with tempfile.TemporaryDirectory() as tmp, _cache_in(Path(tmp) / "cache"):
+        voicer = Voicer(inst, sample_rate=FS, motor_rate_rev_per_s=3.0)
+        voices = [voicer.strike_voice(note, time_s=t, velocity=vel, release_s=t)
+                  for note, t, vel in strikes]
+    curves = [replace(v, pairs=tuple(replace(p, modulation=None) for p in v.pairs))
+              for v in voices]
+    steps = sum(len(v.pairs) * (n - v.start_sample) for v in voices)
+
+    def drain(vs) -> None:
+        for _ in render_blocks(vs, n, sample_rate=FS, channels=2):
+            pass
+
+    cpu = time.thread_time
+    figures = {"engine.motor_pair_steps_per_s": steps / median_time(
+                   lambda: drain(voices), repeats, clock=cpu),
+               "engine.motor_curve_pair_steps_per_s": steps / median_time(
+                   lambda: drain(curves), 3, clock=cpu)}
+    figures["engine.motor_pair_vs_curve_ratio"] = (figures["engine.motor_pair_steps_per_s"]
+                                                   / figures["engine.motor_curve_pair_steps_per_s"])
+    # one pair alone against scipy's exponential of each frozen step
+    pair = voices[0].pairs[0]
+    m = 2000 if quick else 8000
+    got = render([Voice(0, ModeBank.empty(), pairs=(pair,))], m, sample_rate=FS,
+                 retire_db=None)[:, 0]
+    mu, w2, g2 = (_curve(c)(0, m) for c in (pair.coupling_rad_s, pair.weight_2,
+                                            pair.decay_2_curve))
+    s1 = complex(-pair.decay_per_s[0], 2 * math.pi * pair.frequency_hz[0])
+    om2 = 2 * math.pi * pair.frequency_hz[1]
+    a = np.array([pair.amplitude[0] * np.exp(1j * pair.phase_rad[0]),
+                  pair.amplitude[1] * np.exp(1j * pair.phase_rad[1])])
+    ref = np.empty(m)
+    for j in range(m):
+        ref[j] = pair.weight_1 * a[0].imag + w2[j] * a[1].imag
+        a = scipy.linalg.expm(np.array([[s1, 1j * mu[j]], [1j * mu[j], complex(-g2[j], om2)]])
+                              / FS) @ a
+    figures["engine.motor_pair_max_error"] = float(np.max(np.abs(got - ref))
+                                                   / np.max(np.abs(ref)))
     return figures

@@ -25,6 +25,8 @@ from synth.engine.render import (
 from synth.engine.voice import (
     ModeBank,
     ModePair,
+    PairModulation,
+    RotorLaw,
     Voice,
     constant_power_pan,
     seconds_to_sample,
@@ -38,6 +40,8 @@ __all__ = [
     "ModePair",
     "GainPlan",
     "ModeBank",
+    "PairModulation",
+    "RotorLaw",
     "Voice",
     "constant_power_pan",
     "measure_peak",

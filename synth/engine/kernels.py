@@ -600,6 +600,55 @@ def _rt_bank(mix, j0, j1, v, p, v_int, v_flt, v_re, v_im, p_nmodes, p_cyc, p_dec
         m += 1
 
 
+@njit(cache=True, inline="always")
+def _step_series(zr, zi, cosh_coef, sinh_coef, n_terms):
+    """Horner sums of ``cosh(q dt)`` and ``sinh(q dt)/(q dt)`` in ``z = (q dt)^2 = zr + i zi``.
+
+    From a zero start over all ``n_terms`` coefficients (the first step gives the
+    top coefficient exactly, so zeros padded on top change no bit).
+    """
+    cr = 0.0
+    ci = 0.0
+    sr = 0.0
+    si = 0.0
+    for t in range(n_terms - 1, -1, -1):
+        x = cr * zr - ci * zi + cosh_coef[t]
+        ci = cr * zi + ci * zr
+        cr = x
+        x = sr * zr - si * zi + sinh_coef[t]
+        si = sr * zi + si * zr
+        sr = x
+    return cr, ci, sr, si
+
+
+@njit(cache=True, inline="always")
+def _exact_step(cr, ci, sr, si, dr, ddt_im, mdt, er, ei, a1r, a1i, a2r, a2i):
+    """Apply ``exp(A dt) = em [C I + S (B dt)]`` to the state; return the new state.
+
+    ``C = cr + i ci``, ``S = sr + i si`` (:func:`_step_series`), ``B dt = [[d dt, i
+    mu dt], [i mu dt, -d dt]]`` with ``d dt = dr + i ddt_im``, ``mdt = mu dt`` and
+    ``em = er + i ei = exp(m dt)`` (Moler & Van Loan, section 3).
+    """
+    sd_re = sr * dr - si * ddt_im
+    sd_im = sr * ddt_im + si * dr
+    u_re = cr + sd_re
+    u_im = ci + sd_im
+    w_re = cr - sd_re
+    w_im = ci - sd_im
+    c_re = -si * mdt
+    c_im = sr * mdt
+    p_re = er * u_re - ei * u_im
+    p_im = er * u_im + ei * u_re
+    q_re = er * w_re - ei * w_im
+    q_im = er * w_im + ei * w_re
+    r_re = er * c_re - ei * c_im
+    r_im = er * c_im + ei * c_re
+    return (p_re * a1r - p_im * a1i + r_re * a2r - r_im * a2i,
+            p_re * a1i + p_im * a1r + r_re * a2i + r_im * a2r,
+            r_re * a1r - r_im * a1i + q_re * a2r - q_im * a2i,
+            r_re * a1i + r_im * a1r + q_re * a2i + q_im * a2r)
+
+
 @njit(cache=True, fastmath=True)
 def _rt_pair(mix, j0, j1, v, p, q, v_flt, v_pair, p_pair, p_gain, theta_n, theta_h, dt,
              cosh_coef, sinh_coef):
@@ -654,40 +703,9 @@ def _rt_pair(mix, j0, j1, v, p, q, v_flt, v_pair, p_pair, p_gain, theta_n, theta
         dr = -0.5 * (g1 - g2) * dt
         zr = dr * dr - ddt_im * ddt_im - mu * mu * dt2
         zi = 2.0 * dr * ddt_im
-        cr = cosh_coef[n_terms - 1]
-        ci = 0.0
-        sr = sinh_coef[n_terms - 1]
-        si = 0.0
-        for t in range(n_terms - 2, -1, -1):
-            x = cr * zr - ci * zi + cosh_coef[t]
-            ci = cr * zi + ci * zr
-            cr = x
-            x = sr * zr - si * zi + sinh_coef[t]
-            si = sr * zi + si * zr
-            sr = x
-        mdt = mu * dt
-        sd_re = sr * dr - si * ddt_im
-        sd_im = sr * ddt_im + si * dr
-        u_re = cr + sd_re
-        u_im = ci + sd_im
-        w_re = cr - sd_re
-        w_im = ci - sd_im
-        c_re = -si * mdt
-        c_im = sr * mdt
-        p_re = er * u_re - ei * u_im
-        p_im = er * u_im + ei * u_re
-        q_re = er * w_re - ei * w_im
-        q_im = er * w_im + ei * w_re
-        r_re = er * c_re - ei * c_im
-        r_im = er * c_im + ei * c_re
-        b1r = p_re * a1r - p_im * a1i + r_re * a2r - r_im * a2i
-        b1i = p_re * a1i + p_im * a1r + r_re * a2i + r_im * a2r
-        b2r = r_re * a1r - r_im * a1i + q_re * a2r - q_im * a2i
-        b2i = r_re * a1i + r_im * a1r + q_re * a2i + q_im * a2r
-        a1r = b1r
-        a1i = b1i
-        a2r = b2r
-        a2i = b2i
+        cr, ci, sr, si = _step_series(zr, zi, cosh_coef, sinh_coef, n_terms)
+        a1r, a1i, a2r, a2i = _exact_step(cr, ci, sr, si, dr, ddt_im, mu * dt, er, ei,
+                                         a1r, a1i, a2r, a2i)
     st[0] = a1r
     st[1] = a1i
     st[2] = a2r
@@ -1054,3 +1072,242 @@ def _banks_add(out, o0, t0, t1, gain_first, gain_last, cycles_per_sample, decay_
                     out[row, 1] += acc[tt - t, 1]
             t = hi
         ta = tb
+
+
+# ======================================================================================
+# Rotor-modulated coupled pairs, many at once (render.py, "rotor pairs").  Every pair
+# of one call follows the same rotor angle theta(t) (synth.engine.voice,
+# "Rotor-modulated pair"); per sample step the kernel evaluates the rotor once,
+# then, with the pairs in the inner loops (independent pairs' dependent chains
+# interleave and the loops vectorise), each pair's factor
+# m = max(1 - depth |cos(theta + offset)|, floor), its mu (half a step later), w2
+# and g2, and applies the exact exponential of the frozen step as ``_pair_add``
+# does (the same series and coefficients).  cos(theta + offset) is taken as
+# cos(theta) cos(offset) - sin(theta) sin(offset), so theta's sine and cosine are
+# computed once per half step for all pairs, by Cody-Waite reduction with pi/2 in
+# three parts and the Taylor series on |r| <= pi/4 (loops that vectorise, unlike
+# the library's cos).
+#
+# rotor float64[6]: sample rate, rate (rev/s), resting angle (rad), start time (s),
+#   spin-up time (s), law (0 exponential, 1 linear).
+# work float64[_RP_ROWS * _RP_MAX]: row k of pair p at k * _RP_MAX + p (fields _RP_*
+#   below, then the state Re a1, Im a1, Re a2, Im a2, updated in place).
+# ======================================================================================
+
+_RP_ROT_RE = 0     # cos, sin of Im((s1 + s2)/2) dt
+_RP_ROT_IM = 1
+_RP_DDT_IM = 2     # Im((s1 - s2)/2) dt
+_RP_G1 = 3         # member 1 decay, damping included, 1/s
+_RP_G2 = 4         # fixed part of member 2's decay, damping included, 1/s
+_RP_G2M = 5        # member 2 decay per unit of m, 1/s
+_RP_MU = 6         # coupling at m = 1, rad/s
+_RP_W1 = 7
+_RP_W2 = 8         # member 2 weight at m = 1
+_RP_DEPTH = 9
+_RP_FLOOR = 10
+_RP_COS = 11       # cos, sin of the pair's offset on the rotor
+_RP_SIN = 12
+_RP_GAIN0 = 13     # gain into the first and the last output channel
+_RP_GAIN1 = 14
+_RP_FIELDS = 15    # the rows the caller fills per pair
+_RP_A1R = 15       # state: Re a1, Im a1, Re a2, Im a2 (the caller's in, the kernel's out)
+_RP_A1I = 16
+_RP_A2R = 17
+_RP_A2I = 18
+_RP_ROWS = 19
+_RP_MAX = 64       # pairs per call: the row length, a constant so that every row of
+                   # ``work`` lies at a known distance from the others and the pair
+                   # loops vectorise without run-time overlap checks
+_RP_EXP_TERMS = 7      # Taylor terms of exp: (g1 + g2) dt / 2 <= 0.005 needs 7 for 1e-18
+_RP_SERIES_TERMS = 6   # terms of cosh(q dt), sinh(q dt)/(q dt): |q dt|^2 <= 0.028 for 1e-18
+
+_ROTOR_CHUNK = 128
+
+
+def _half_pi_parts() -> tuple[float, float, float]:
+    """pi/2 as three doubles of 33, 33 and 53 bits (k * part exact for |k| < 2^20)."""
+    from fractions import Fraction
+    # pi to 50 decimals (common practice, no source)
+    rest = Fraction("3.14159265358979323846264338327950288419716939937510") / 2
+    parts = []
+    for bits in (33, 33, 53):
+        mant, exp = math.frexp(float(rest))
+        x = math.ldexp(math.floor(mant * 2.0 ** bits) / 2.0 ** bits, exp)
+        parts.append(x)
+        rest -= Fraction(x)
+    return parts[0], parts[1], parts[2]
+
+
+_PIO2_A, _PIO2_B, _PIO2_C = _half_pi_parts()
+_TWO_OVER_PI = 2.0 / math.pi
+
+
+# Taylor coefficients from the highest: 1/17!, 1/15!, ..., 1/3! and 1/18!, ..., 1/2!
+_SIN_TAYLOR = tuple(1.0 / math.factorial(k) for k in range(17, 2, -2))
+_COS_TAYLOR = tuple(1.0 / math.factorial(k) for k in range(18, 1, -2))
+
+
+@njit(cache=True, inline="always")
+def _alternating(r2, coefs):
+    """Horner sum ``c_0 - c_1 r2 + c_2 r2^2 - ...`` of ``coefs`` given from the highest power."""
+    acc = 0.0
+    for ck in coefs:
+        acc = acc * -r2 + ck
+    return acc
+
+
+@njit(cache=True, inline="always")
+def _sin_cos(x):
+    """sin(x) and cos(x) to about one unit in the last place for |x| < 1e6 (no branches).
+
+    ``x = k pi/2 + r`` with ``|r| <= pi/4`` (Cody-Waite: pi/2 in three parts, so
+    ``k pi/2`` is subtracted exactly); Taylor series of sin and cos in ``r`` to
+    ``r^17`` and ``r^18`` (first omitted terms below 1e-19); the quadrant ``k mod
+    4`` picks and signs the two.  Not compiled with fastmath: the reduction
+    relies on the order of its subtractions.
+    """
+    k = math.floor(x * _TWO_OVER_PI + 0.5)
+    r = ((x - k * _PIO2_A) - k * _PIO2_B) - k * _PIO2_C
+    r2 = r * r
+    s = r - r * r2 * _alternating(r2, _SIN_TAYLOR)
+    c = 1.0 - r2 * _alternating(r2, _COS_TAYLOR)
+    q = k - 4.0 * math.floor(0.25 * k)   # 0, 1, 2, 3: selects, no branches
+    odd = (q == 1.0) | (q == 3.0)
+    a = c if odd else s
+    b = s if odd else c
+    sin_x = -a if q >= 2.0 else a
+    cos_x = -b if (q == 1.0) | (q == 2.0) else b
+    return sin_x, cos_x
+
+
+@njit(cache=True)
+def _rotor_sin_cos(rotor, s_first, nc, half, ptab, out_cos, out_sin):
+    """Fill the cos and sin of the rotor angle at output samples ``s_first + j (+ 1/2 if half)``.
+
+    The turns follow :mod:`synth.physics.motor`'s closed forms with ``t = (s +
+    offset) / fs``, ``u = max(t - t0, 0)``; the exponential law's ``exp(-u/tau)``
+    is ``exp(-u_0/tau) ptab[j]`` from the chunk's first time ``u_0`` (``ptab[j] =
+    exp(-j / (fs tau))``) where the chunk starts after ``t0``, so the loops
+    vectorise.  Not compiled with fastmath (see ``_sin_cos``).
+    """
+    fs = rotor[0]
+    fr = rotor[1]
+    rest = rotor[2]
+    t0 = rotor[3]
+    tau = rotor[4]
+    off = 0.5 if half else 0.0
+    base = float(s_first) + off
+    t_first = base / fs
+    if fr == 0.0:
+        for j in range(nc):
+            out_sin[j], out_cos[j] = _sin_cos(rest)
+        return
+    if tau == 0.0:
+        for j in range(nc):
+            u = (float(j) + base) / fs - t0
+            u = u if u > 0.0 else 0.0
+            out_sin[j], out_cos[j] = _sin_cos(rest + _TWO_PI * (fr * u))
+    elif rotor[5] == 0.0:
+        if t_first >= t0:
+            e0 = math.exp(-(t_first - t0) / tau)
+            for j in range(nc):
+                u = (float(j) + base) / fs - t0
+                turns = fr * (u + tau * (e0 * ptab[j] - 1.0))
+                out_sin[j], out_cos[j] = _sin_cos(rest + _TWO_PI * turns)
+        else:
+            for j in range(nc):
+                u = (float(j) + base) / fs - t0
+                u = u if u > 0.0 else 0.0
+                turns = fr * (u + tau * math.expm1(-u / tau))
+                out_sin[j], out_cos[j] = _sin_cos(rest + _TWO_PI * turns)
+    else:
+        for j in range(nc):
+            u = (float(j) + base) / fs - t0
+            u = u if u > 0.0 else 0.0
+            turns = fr * (u * u / (2.0 * tau)) if u < tau else fr * (u - 0.5 * tau)
+            out_sin[j], out_cos[j] = _sin_cos(rest + _TWO_PI * turns)
+
+
+@njit(cache=True, fastmath=True)
+def _rotor_pairs_add(out, o0, s0, n, rotor, curve, use_curve, work, n_p, dt,
+                     cosh_coef, sinh_coef, exp_coef):
+    """Advance the ``n_p`` pairs of ``work`` ``n`` samples under one rotor; add into ``out``.
+
+    ``work`` is flat, ``_RP_ROWS`` rows of ``_RP_MAX`` values (row ``k`` of pair
+    ``p`` at ``k * _RP_MAX + p``): the caller's fields and states, the kernel's
+    scratch.  Output rows ``o0 .. o0 + n - 1`` are the output samples ``s0 ..``
+    on the rotor's clock.  The output of sample ``j`` is ``sum_p gain_p (w1 Im a1
+    + w2[j] Im a2)`` (times ``curve[j]`` if ``use_curve``), from the state at that
+    sample; then each state steps to ``j + 1`` with the exponential of its system
+    frozen at ``mu`` (rotor half a step later) and ``g2`` (rotor at the sample),
+    as in ``_pair_add``.  The series have ``_RP_EXP_TERMS`` and
+    ``_RP_SERIES_TERMS`` coefficients (a shorter series padded with zeros at the
+    top gives the same bits: Horner's steps through zeros stay exactly zero), a
+    constant count, so the loops over terms unroll and the loop over pairs is
+    innermost; the caller keeps ``(g1 + g2) dt / 2`` and ``|q dt|^2`` within them.
+    """
+    M = _RP_MAX
+    n_ch = out.shape[1]
+    w = work
+    cos_n = np.empty(_ROTOR_CHUNK)
+    sin_n = np.empty(_ROTOR_CHUNK)
+    cos_h = np.empty(_ROTOR_CHUNK)
+    sin_h = np.empty(_ROTOR_CHUNK)
+    ptab = np.ones(_ROTOR_CHUNK)
+    if rotor[4] > 0.0:
+        for j in range(_ROTOR_CHUNK):
+            ptab[j] = math.exp(-float(j) / (rotor[0] * rotor[4]))
+    dt2 = dt * dt
+    for c0 in range(0, n, _ROTOR_CHUNK):
+        nc = min(_ROTOR_CHUNK, n - c0)
+        _rotor_sin_cos(rotor, s0 + c0, nc, False, ptab, cos_n, sin_n)
+        _rotor_sin_cos(rotor, s0 + c0, nc, True, ptab, cos_h, sin_h)
+        for j in range(nc):
+            ca = cos_n[j]
+            sa = sin_n[j]
+            cb = cos_h[j]
+            sb = sin_h[j]
+            acc0 = 0.0
+            acc1 = 0.0
+            for p in range(n_p):
+                depth = w[_RP_DEPTH * M + p]
+                floor_ = w[_RP_FLOOR * M + p]
+                co = w[_RP_COS * M + p]
+                so = w[_RP_SIN * M + p]
+                fm = 1.0 - depth * abs(ca * co - sa * so)
+                fm = fm if fm > floor_ else floor_
+                fh = 1.0 - depth * abs(cb * co - sb * so)
+                fh = fh if fh > floor_ else floor_
+                mu = w[_RP_MU * M + p] * fh
+                g1 = w[_RP_G1 * M + p]
+                g2 = w[_RP_G2 * M + p] + w[_RP_G2M * M + p] * fm
+                a1i = w[_RP_A1I * M + p]
+                a2i = w[_RP_A2I * M + p]
+                y = w[_RP_W1 * M + p] * a1i + (w[_RP_W2 * M + p] * math.sqrt(fm)) * a2i
+                acc0 += w[_RP_GAIN0 * M + p] * y
+                acc1 += w[_RP_GAIN1 * M + p] * y
+                ddt_im = w[_RP_DDT_IM * M + p]
+                x = -0.5 * (g1 + g2) * dt
+                d = -0.5 * (g1 - g2) * dt
+                zr = d * d - ddt_im * ddt_im - mu * mu * dt2
+                zi = 2.0 * d * ddt_im
+                em = 0.0   # exp(Re(m) dt), Taylor
+                for t in range(_RP_EXP_TERMS - 1, -1, -1):
+                    em = em * x + exp_coef[t]
+                cr, ci, sr, si = _step_series(zr, zi, cosh_coef, sinh_coef,
+                                              _RP_SERIES_TERMS)
+                a1r, a1i, a2r, a2i = _exact_step(
+                    cr, ci, sr, si, d, ddt_im, mu * dt, em * w[_RP_ROT_RE * M + p],
+                    em * w[_RP_ROT_IM * M + p], w[_RP_A1R * M + p], a1i, w[_RP_A2R * M + p],
+                    a2i)
+                w[_RP_A1R * M + p] = a1r
+                w[_RP_A1I * M + p] = a1i
+                w[_RP_A2R * M + p] = a2r
+                w[_RP_A2I * M + p] = a2i
+            if use_curve:
+                acc0 *= curve[c0 + j]
+                acc1 *= curve[c0 + j]
+            row = o0 + c0 + j
+            out[row, 0] += acc0
+            if n_ch == 2:
+                out[row, 1] += acc1

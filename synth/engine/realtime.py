@@ -84,7 +84,7 @@ from synth.engine.render import (
     PAIR_MAX_DECAY_PER_SAMPLE,
     _series_coefficients,
 )
-from synth.engine.voice import Voice
+from synth.engine.voice import RotorLaw, Voice
 from synth.errors import ConfigError, ModelError
 
 DEFAULT_VOICES: Final[int] = 64
@@ -138,52 +138,15 @@ class Rotor:
 
 
 @dataclass(frozen=True)
-class RotorLaw:
-    """How the rotor modulates one coupled pair (see the module docstring).
-
-    Parameters
-    ----------
-    depth, floor : float
-        ``m = max(1 - depth |cos(theta + offset_rad)|, floor)``; 0 <= depth, floor <= 1.
-    offset_rad : float
-        This pair's angle on the rotor, rad.
-    coupling_open_rad_s : float
-        Coupling at ``m = 1``, rad/s.
-    weight_2_open : float
-        Member-2 output weight at ``m = 1``.
-    decay_2_fixed_per_s, decay_2_per_factor : float
-        Member-2 decay ``g2 = decay_2_fixed_per_s + decay_2_per_factor m``, 1/s (>= 0).
-    """
-
-    depth: float
-    floor: float
-    offset_rad: float
-    coupling_open_rad_s: float
-    weight_2_open: float
-    decay_2_fixed_per_s: float
-    decay_2_per_factor: float
-
-    def __post_init__(self) -> None:
-        for name in ("depth", "floor", "offset_rad", "coupling_open_rad_s", "weight_2_open",
-                     "decay_2_fixed_per_s", "decay_2_per_factor"):
-            v = float(getattr(self, name))
-            if not math.isfinite(v):
-                raise ModelError(f"rotor law: {name} = {v}: must be finite")
-        if not (0.0 <= self.depth <= 1.0 and 0.0 <= self.floor <= 1.0):
-            raise ModelError(f"rotor law: depth = {self.depth}, floor = {self.floor}: must be "
-                             "in [0, 1]")
-        if self.decay_2_fixed_per_s < 0 or self.decay_2_per_factor < 0:
-            raise ModelError("rotor law: member-2 decay parts must be >= 0 /s")
-
-
-@dataclass(frozen=True)
 class LiveVoice:
     """A voice template: a generic voice and, per coupled pair, its rotor law or None.
 
     ``voice.start_sample``, ``stop_sample`` and ``damping`` are ignored (the
     events decide them); a pair's curves are replaced by its law, so a pair with
-    a curve needs one.  ``release_decay_per_s`` is the extra decay a released
-    voice takes with the dampers fully down, 1/s.
+    a curve needs one (a rotor-modulated pair's own ``modulation.law`` serves
+    when none is given; its angle law is the pool's :class:`Rotor`).
+    ``release_decay_per_s`` is the extra decay a released voice takes with the
+    dampers fully down, 1/s.
     """
 
     voice: Voice
@@ -348,6 +311,8 @@ class VoicePool:
         row[kernels._Q_W1] = pair.weight_1
         row[kernels._Q_D1] = float(pair.damped[0])
         row[kernels._Q_D2] = float(pair.damped[1])
+        if law is None and pair.modulation is not None:
+            law = pair.modulation.law  # the pool's own rotor gives the angle
         if law is None:
             if callable(pair.coupling_rad_s) or callable(pair.weight_2) \
                     or pair.decay_2_curve is not None:

@@ -18,7 +18,11 @@ rendered together, in one kernel call per stretch of a piece (between the
 voices' damping changes), anchored at the call's first sample and on the output
 clock's grid, so there a block edge moves an anchor and changes the samples by
 rounding only (tests allow it).  A coupled pair with constant coefficients is
-rendered as its two plain modes (:func:`_plain_modes`).
+rendered as its two plain modes (:func:`_plain_modes`).  The pairs that follow
+a rotor (``ModePair.modulation``) of every voice without a gain curve are stepped
+together, one kernel call per rotor and stretch of a piece
+(:func:`_render_rotor_stretches`); the kernel evaluates the rotor law itself, and
+where a call begins changes the samples by rounding only.
 
 Voices start at ``start_sample`` and fall silent at ``stop_sample``, both
 sample-exact; damping changes act from the exact sample given.
@@ -103,7 +107,7 @@ from typing import Final
 import numpy as np
 
 from synth.engine import kernels
-from synth.engine.voice import ModePair, Voice
+from synth.engine.voice import ModePair, PairModulation, Voice
 from synth.errors import ConfigError, ModelError
 
 DEFAULT_BLOCK_SIZE: Final[int] = 16384
@@ -209,6 +213,10 @@ class _PairState:
         self.norm0 = math.hypot(a[0], a[1])
         self.w2_seen = 0.0  # largest |weight_2| met so far (a curve)
         self.mu_seen = 0.0 if callable(pair.coupling_rad_s) else abs(pair.coupling_rad_s)
+        self.mod = pair.modulation
+        self.rotor_cols: dict[tuple, np.ndarray] = {}  # kernel columns per segment, gains
+        if self.mod is not None:
+            self.mu_seen = self._check_rotor(sample_rate, where, extra_rates_per_s)
         self.constants: dict[float, np.ndarray] = {}
         self.dt = 1.0 / sample_rate
         # Number of series terms: enough for the largest |z| = |q dt|^2 this pair can reach,
@@ -217,22 +225,41 @@ class _PairState:
             0.5 * abs(complex(-(g[0] - g[1]), self.omega[0] - self.omega[1]))
             for g in (self.rates(e) for e in extra_rates_per_s)
         )
-        self.vary_decay_2 = pair.decay_2_curve is not None
-        if self.vary_decay_2:
+        self.vary_decay_2 = pair.decay_2_curve is not None or self.mod is not None
+        mu_dt = PAIR_MAX_COUPLING_PER_SAMPLE
+        if self.mod is not None:
+            # the rotor's g2 and mu are known in advance: series for their own bounds
+            x, d_max, mu_dt = self._rotor_series_bounds(extra_rates_per_s)
+        elif self.vary_decay_2:
             # g2 follows a curve, capped so that |Re m| dt <= PAIR_MAX_DECAY_PER_SAMPLE;
             # then |Re d| dt <= that cap too.
             d_max = math.hypot(0.5 * abs(self.omega[0] - self.omega[1]),
                                PAIR_MAX_DECAY_PER_SAMPLE * sample_rate)
             x = PAIR_MAX_DECAY_PER_SAMPLE
+        if self.vary_decay_2:
             n_exp = 1
             while x ** n_exp / math.factorial(n_exp) >= _SERIES_TOL:
                 n_exp += 1
             self.exp_coef = np.array([1.0 / math.factorial(k) for k in range(n_exp)])
         else:
             self.exp_coef = np.ones(1)
-        z_bound = (d_max * self.dt) ** 2 + PAIR_MAX_COUPLING_PER_SAMPLE ** 2
+        z_bound = (d_max * self.dt) ** 2 + mu_dt ** 2
         self.cosh_coef, self.sinh_coef = _series_coefficients(z_bound, where)
         self.modal = self._modal_form(pair, extra_rates_per_s)
+        if self.mod is not None:
+            self.rotor_series = self._padded_series(where)
+
+    def _padded_series(self, where: str) -> tuple[np.ndarray, ...]:
+        """Series coefficients padded with zeros to the rotor kernel's fixed term counts."""
+        n_s, n_e = kernels._RP_SERIES_TERMS, kernels._RP_EXP_TERMS
+        if self.cosh_coef.size > n_s or self.exp_coef.size > n_e:
+            raise ModelError(
+                f"{where}: rotor-modulated pair detuned too far for the sample rate (its step "
+                f"series needs {self.cosh_coef.size} terms, at most {n_s}); raise the sample "
+                "rate"
+            )
+        return tuple(np.concatenate((c, np.zeros(n - c.size))) for c, n in (
+            (self.cosh_coef, n_s), (self.sinh_coef, n_s), (self.exp_coef, n_e)))
 
     def _modal_form(self, pair: ModePair, extra_rates_per_s: np.ndarray):
         """Eigenvectors of a pair with constant coefficients, for its output bound.
@@ -285,12 +312,101 @@ class _PairState:
             bound = min(bound, modal)
         return bound
 
+    def _check_rotor(self, sample_rate: float, where: str,
+                     extra_rates_per_s: np.ndarray) -> float:
+        """Check a rotor-modulated pair against the render's limits; return its ``|mu|`` bound.
+
+        ``m`` stays within :meth:`PairModulation.factor_range`, so ``g2`` does
+        within ``g2_fixed + g2_per_factor m`` at its ends (``decay_per_s[1]`` must
+        bound it from below) and ``|mu| <= |mu_open| m_max``.
+        """
+        law = self.rotor.law
+        m_lo, m_hi = self.rotor.factor_range()
+        lowest = law.decay_2_fixed_per_s + law.decay_2_per_factor * m_lo
+        if self.g2 > lowest * (1.0 + 1e-12):
+            raise ModelError(
+                f"{where}: the rotor's lowest member-2 decay {lowest:g} /s is below the pair's "
+                f"decay_per_s[1] = {self.g2:g} /s, which must bound it"
+            )
+        mu = abs(law.coupling_open_rad_s) * m_hi
+        if mu > PAIR_MAX_COUPLING_PER_SAMPLE * sample_rate:
+            raise ModelError(
+                f"{where}: coupling {mu:g} rad/s exceeds "
+                f"{PAIR_MAX_COUPLING_PER_SAMPLE:g} x sample rate; raise the sample rate"
+            )
+        g2_top = law.decay_2_fixed_per_s + law.decay_2_per_factor * m_hi
+        for extra in extra_rates_per_s:
+            worst = 0.5 * (self.g1 + self.damped_1 * extra + g2_top
+                           + self.damped_2 * extra) / sample_rate
+            if worst > PAIR_MAX_DECAY_PER_SAMPLE:
+                raise ModelError(
+                    f"{where}: coupled pair decays too fast for the sample rate "
+                    f"((g1 + g2) / (2 fs) = {worst:.3g} > {PAIR_MAX_DECAY_PER_SAMPLE:g})"
+                )
+        return mu
+
+    def _rotor_series_bounds(self, extra_rates_per_s: np.ndarray) -> tuple[float, float, float]:
+        """Bounds of ``|Re m| dt``, ``|d|`` and ``|mu| dt`` over every step of a rotor pair.
+
+        ``g2 = g2_fixed + g2_per_factor m`` with ``m`` in its range, plus each damping
+        segment's extra; the series of ``exp(m dt)`` and of ``cosh(q dt)``,
+        ``sinh(q dt)/(q dt)`` are then summed to the same tolerance as for a curve,
+        with the terms these bounds need.
+        """
+        law = self.rotor.law
+        m_lo, m_hi = self.rotor.factor_range()
+        x = d_re = 0.0
+        for extra in extra_rates_per_s:
+            g1 = self.g1 + self.damped_1 * extra
+            for m in (m_lo, m_hi):
+                g2 = law.decay_2_fixed_per_s + law.decay_2_per_factor * m + self.damped_2 * extra
+                x = max(x, 0.5 * (g1 + g2) * self.dt)
+                d_re = max(d_re, 0.5 * abs(g1 - g2))
+        d_max = math.hypot(d_re, 0.5 * abs(self.omega[0] - self.omega[1]))
+        return x, d_max, self.mu_seen * self.dt
+
+    def rotor_columns(self, extra_per_s: float, gains: np.ndarray) -> np.ndarray:
+        """Return the rotor kernel's column of this pair (``kernels._RP_*``), made once per key."""
+        key = (extra_per_s, gains[0], gains[-1])
+        col = self.rotor_cols.get(key)
+        if col is None:
+            law = self.rotor.law
+            dt = self.dt
+            col = np.empty(kernels._RP_FIELDS)
+            m_im = 0.5 * (self.omega[0] + self.omega[1])
+            col[kernels._RP_ROT_RE] = math.cos(m_im * dt)
+            col[kernels._RP_ROT_IM] = math.sin(m_im * dt)
+            col[kernels._RP_DDT_IM] = 0.5 * (self.omega[0] - self.omega[1]) * dt
+            col[kernels._RP_G1] = self.g1 + self.damped_1 * extra_per_s
+            col[kernels._RP_G2] = law.decay_2_fixed_per_s + self.damped_2 * extra_per_s
+            col[kernels._RP_G2M] = law.decay_2_per_factor
+            col[kernels._RP_MU] = law.coupling_open_rad_s
+            col[kernels._RP_W1] = self.pair.weight_1
+            col[kernels._RP_W2] = law.weight_2_open
+            col[kernels._RP_DEPTH] = law.depth
+            col[kernels._RP_FLOOR] = law.floor
+            col[kernels._RP_COS] = math.cos(law.offset_rad)
+            col[kernels._RP_SIN] = math.sin(law.offset_rad)
+            col[kernels._RP_GAIN0] = gains[0]
+            col[kernels._RP_GAIN1] = gains[-1]
+            self.rotor_cols[key] = col
+        return col
+
+    @property
+    def rotor(self) -> PairModulation:
+        """The pair's rotor law (only for a rotor-modulated pair)."""
+        if self.mod is None:
+            raise ModelError("coupled pair: not rotor-modulated")
+        return self.mod
+
     def mu_bound(self) -> float:
         """Bound of ``|mu|`` from here on (constant, or largest so far for a curve)."""
         return self.mu_seen
 
     def weight_2_bound(self) -> float:
         """Bound of ``|weight_2|`` from here on (declared, constant, or largest so far)."""
+        if self.mod is not None:
+            return abs(self.rotor.law.weight_2_open) * math.sqrt(self.rotor.factor_range()[1])
         if not callable(self.pair.weight_2):
             return abs(self.pair.weight_2)
         declared = self.pair.weight_2_max
@@ -353,7 +469,7 @@ def _plain_modes(pair: ModePair, extra_rates_per_s: np.ndarray, nyquist_hz: floa
     (frequency_hz, decay_per_s, amplitude, phase_rad) : four arrays of 2, or None
     """
     if (callable(pair.coupling_rad_s) or callable(pair.weight_2)
-            or pair.decay_2_curve is not None
+            or pair.decay_2_curve is not None or pair.modulation is not None
             or abs(pair.coupling_rad_s) > PAIR_MAX_COUPLING_PER_SAMPLE * 2 * nyquist_hz
             or (not (pair.damped[0] and pair.damped[1]) and np.any(extra_rates_per_s > 0))):
         return None
@@ -465,6 +581,10 @@ class _Prepared:
         self.pairs = [_PairState(p, sample_rate, where, self.segments.extra_per_s)
                       for p in pairs]
         self.bank_bound = float(self.abs_amp.sum())
+        # every pair follows a rotor: the pairs can join the rotor batch
+        self.rotor_only = all(ps.mod is not None for ps in self.pairs)
+        self.pair_bound = sum(ps.norm0 * (abs(ps.pair.weight_1) + ps.weight_2_bound())
+                              for ps in self.pairs)
         self.level0 = (float(self.abs_amp[:self.n_bank].sum()) + sum(p.norm0 for p in self.pairs)
                        + sum(norm0 for _, _, norm0 in self.folded))
         # slowest decay any part of the voice can have (damping only adds to it), 1/s
@@ -762,13 +882,18 @@ def _stream(voices, order, n_samples, n_ch, block_size, gain, dtype, sample_rate
             piece = buf[c0 - b0:c1 - b0]
             bound = 0.0
             batch: dict[tuple[int, int], list[_Prepared]] = {}
+            rotor_batch: dict[tuple, list[tuple[int, int, _Prepared, _PairState, int]]] = {}
             for p in active:
                 lo, hi = max(c0, p.start), min(c1, p.end)
                 if BATCH_BANKS and _batchable(p, lo, hi):
-                    for m_a, m_b, _ in p.segments.pieces(lo - p.start, hi - p.start):
-                        batch.setdefault((p.start + m_a, p.start + m_b), []).append(p)
-                    bound += p.bank_bound
-                    p.batched = True
+                    for m_a, m_b, i in p.segments.pieces(lo - p.start, hi - p.start):
+                        if p.n_modes:
+                            batch.setdefault((p.start + m_a, p.start + m_b), []).append(p)
+                        for ps in p.pairs:
+                            rotor_batch.setdefault(ps.rotor.rotor_key, []).append(
+                                (p.start + m_a, p.start + m_b, p, ps, i))
+                    bound += p.bank_bound + p.pair_bound * p.max_gain
+                    p.batched = p.n_modes > 0
                     continue
                 if p.batched:
                     _reanchor(p, max(c0, p.start) - p.start)
@@ -776,6 +901,8 @@ def _stream(voices, order, n_samples, n_ch, block_size, gain, dtype, sample_rate
                 bound += _render_voice(p, piece, c0, c1, sample_rate)
             for (lo, hi), group in batch.items():
                 _render_batch(group, piece, lo - c0, lo, hi, batches)
+            for stretches in rotor_batch.values():
+                _render_rotor_stretches(stretches, piece, c0, sample_rate)
             for p in active:
                 if p.onset_n and c0 < p.start + p.onset_n:
                     bound += _add_onset(p, piece, c0, c1)
@@ -861,12 +988,88 @@ one kernel call per stretch of a piece between damping changes
 (:func:`_render_batch`); False renders each voice on its own (for tests)."""
 
 
-def _batchable(p: _Prepared, lo: int, hi: int) -> bool:
-    """Whether voice ``p`` can join the batch for output samples ``lo .. hi-1``.
+BATCH_ROTOR_PAIRS = True
+"""Render the rotor-modulated pairs of every voice without a gain curve together, one
+kernel call per rotor and stretch (:func:`_render_rotor_pairs`); False renders them
+voice by voice (for tests)."""
 
-    Its modes then go into one call per stretch between its damping changes.
+
+def _batchable(p: _Prepared, lo: int, hi: int) -> bool:
+    """Whether voice ``p`` can join the batches for output samples ``lo .. hi-1``.
+
+    Its modes then go into one call per stretch between its damping changes, and
+    its pairs, when every one follows a rotor, into one call per rotor and stretch.
     """
-    return hi > lo and not p.pairs and p.voice.gain_curve is None and p.n_modes > 0
+    if hi <= lo or p.voice.gain_curve is not None:
+        return False
+    if p.pairs:
+        return BATCH_ROTOR_PAIRS and p.rotor_only
+    return p.n_modes > 0
+
+
+def _render_rotor_stretches(stretches: list[tuple[int, int, _Prepared, _PairState, int]],
+                            buf: np.ndarray, b0: int, sample_rate: float) -> None:
+    """Render rotor pairs sharing one rotor, each over its own stretch (lo, hi, ...).
+
+    The stretches are cut where any of them starts or ends, and each cut is one
+    kernel call with every pair sounding through it, so a voice that starts in
+    the middle of a piece joins the others from there on.
+    """
+    cuts = sorted({x for lo, hi, *_ in stretches for x in (lo, hi)})
+    for lo, hi in zip(cuts[:-1], cuts[1:], strict=True):
+        entries = [(p, ps, i) for a, b, p, ps, i in stretches if a <= lo and hi <= b]
+        if entries:
+            _render_rotor_pairs(entries, buf, lo - b0, lo, hi, sample_rate)
+
+
+def _render_rotor_pairs(entries: list[tuple[_Prepared, _PairState, int]], buf: np.ndarray,
+                        o0: int, lo: int, hi: int, sample_rate: float,
+                        curve: np.ndarray | None = None) -> None:
+    """Advance rotor-modulated pairs sharing one rotor over output samples ``lo .. hi-1``.
+
+    ``entries`` holds (voice, pair, damping segment) with the segment constant
+    over the stretch; one kernel call per :data:`kernels._RP_MAX` pairs adds them
+    into ``buf`` from row ``o0`` (times ``curve``, one voice's gain curve, when
+    given).  The pairs' states are gathered, stepped and put back, then checked:
+    a state whose magnitude grew (which exact steps cannot do) stops the render.
+    The pair count is padded to a multiple of 8 with silent pairs (all zero), so
+    the kernel's pair loops run whole vectors.
+    """
+    width = kernels._RP_MAX
+    a1r, a2i = kernels._RP_A1R, kernels._RP_A2I + 1
+    for g0 in range(0, len(entries), width):
+        group = entries[g0:g0 + width]
+        n_p = len(group)
+        work = np.zeros((kernels._RP_ROWS, width))
+        work[:a2i, :n_p] = np.array(
+            [np.concatenate((ps.rotor_columns(float(p.segments.extra_per_s[i]), p.gains),
+                             ps.state)) for p, ps, i in group]).T
+        # the longest series of the group (the shorter ones are the same with zeros on top)
+        cosh, sinh, _ = max((ps for _, ps, _ in group),
+                            key=lambda ps: ps.cosh_coef.size).rotor_series
+        exp = max((ps for _, ps, _ in group), key=lambda ps: ps.exp_coef.size).rotor_series[2]
+        mod = group[0][1].rotor
+        rotor = np.array([sample_rate, mod.rate_rev_per_s, mod.resting_rad, mod.start_s,
+                          mod.spin_up_s, mod.rotor_key[4]])
+        use_curve = curve is not None
+        kernels._rotor_pairs_add(buf, o0, lo + mod.shift_samples, hi - lo, rotor,
+                                 curve if use_curve else np.ones(0), use_curve,
+                                 work.reshape(-1), min(width, -(-n_p // 8) * 8),
+                                 1.0 / sample_rate, cosh, sinh, exp)
+        state = work[a1r:a2i, :n_p]
+        energy = np.einsum("ij,ij->j", state, state)
+        for k, (p, ps, _) in enumerate(group):
+            ps.state[:] = state[:, k]
+            _check_energy(p, ps, float(energy[k]), hi)
+
+
+def _check_energy(p: _Prepared, ps: _PairState, energy: float, hi: int) -> None:
+    """Stop the render if pair ``ps`` of voice ``p`` has grown by output sample ``hi``."""
+    if not (energy <= ps.norm0 ** 2 * _PAIR_ENERGY_MARGIN):
+        raise ModelError(
+            f"{p.where}: coupled pair state grew (|a|^2 = {energy:.3g} > "
+            f"{ps.norm0 ** 2:.3g} at the start) by sample {hi}; block muted, render stopped"
+        )
 
 
 _BATCHES_KEPT: Final[int] = 64
@@ -956,6 +1159,13 @@ def _render_voice(p: _Prepared, buf: np.ndarray, b0: int, b1: int, sample_rate: 
     bound = p.bank_bound
     for ps in p.pairs:
         pair = ps.pair
+        if ps.mod is not None:
+            for m_a, m_b, i in seg.pieces(m_lo, m_hi):
+                j0 = m_a - m_lo
+                _render_rotor_pairs([(p, ps, i)], buf, o0 + j0, lo + j0, lo + m_b - m_lo,
+                                    sample_rate, curve[j0:] if use_curve else None)
+            bound += ps.norm0 * (abs(pair.weight_1) + ps.weight_2_bound())
+            continue
         if callable(pair.coupling_rad_s):
             mu, mu_max = _curve_values(pair.coupling_rad_s, lo, n, "coupling curve", p.where)
             ps.mu_seen = max(ps.mu_seen, mu_max)
@@ -1004,12 +1214,7 @@ def _render_voice(p: _Prepared, buf: np.ndarray, b0: int, b1: int, sample_rate: 
                 ps.state, ps.omega, g1, decay_2, ps.vary_decay_2, ps.dt, mu[j0:j1],
                 pair.weight_1, w2[j0:j1], ps.cosh_coef, ps.sinh_coef, ps.exp_coef,
             )
-        energy = float(np.dot(ps.state, ps.state))
-        if not (energy <= ps.norm0 ** 2 * _PAIR_ENERGY_MARGIN):
-            raise ModelError(
-                f"{p.where}: coupled pair state grew (|a|^2 = {energy:.3g} > "
-                f"{ps.norm0 ** 2:.3g} at the start) by sample {hi}; block muted, render stopped"
-            )
+        _check_energy(p, ps, float(np.dot(ps.state, ps.state)), hi)
         bound += ps.norm0 * (abs(pair.weight_1) + w2_max)
     return bound * curve_max * p.max_gain
 
@@ -1126,7 +1331,7 @@ def peak_bound(
         for a, g in zip(p.abs_amp, p.decay_per_s, strict=True):
             terms.append((p.start, float(a) * scale, float(g)))
         for ps in p.pairs:
-            if callable(ps.pair.weight_2) and ps.pair.weight_2_max is None:
+            if ps.mod is None and callable(ps.pair.weight_2) and ps.pair.weight_2_max is None:
                 return None
             if ps.modal is None:
                 w = abs(ps.pair.weight_1) + ps.weight_2_bound()

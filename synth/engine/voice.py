@@ -66,6 +66,25 @@ being applied over the step from ``n`` to ``n + 1`` (evaluate a smooth
 coupling at ``n + 1/2`` for second-order accuracy); the same holds for a
 ``decay_2_curve``.
 
+Rotor-modulated pair
+--------------------
+A pair may instead follow a rotor (``modulation``, a :class:`PairModulation`):
+a shared angle ``theta(t)`` and, per pair, a :class:`RotorLaw` give the factor
+
+    m(t) = max(1 - depth |cos(theta(t) + offset_rad)|, floor)
+
+and from it ``mu = mu_open m`` (taken at ``n + 1/2``: it acts over the step),
+``w2 = w2_open sqrt(m)`` and ``g2 = g2_fixed + g2_per_factor m`` (at the sample
+``n``, as the curves above).  The angle rests at ``resting_rad`` until
+``start_s``, then the rotor spins up to ``rate_rev_per_s``; with ``u = t -
+start_s`` and ``tau = spin_up_s`` the turns made are ``f_r (u + tau expm1(-u /
+tau))`` (``"exponential"``), ``f_r u^2 / (2 tau)`` up to ``u = tau`` then ``f_r (u
+- tau / 2)`` (``"linear"``), or ``f_r u`` (``tau = 0``); ``theta = resting_rad + 2
+pi turns`` with ``t = (n + shift_samples) / sample_rate`` for output sample
+``n``.  The engine evaluates this law itself, per sample, inside its compiled
+loop; the render then ignores ``coupling_rad_s``, ``weight_2`` and
+``decay_2_curve`` (which may carry the same law as curves for other readers).
+
 References
 ----------
 .. [1] Fletcher, N. H. and Rossing, T. D., "The Physics of Musical
@@ -162,6 +181,106 @@ class ModeBank:
 
 
 @dataclass(frozen=True)
+class RotorLaw:
+    """How a rotor modulates one coupled pair (module docstring, "Rotor-modulated pair").
+
+    Parameters
+    ----------
+    depth, floor : float
+        ``m = max(1 - depth |cos(theta + offset_rad)|, floor)``; 0 <= depth, floor <= 1.
+    offset_rad : float
+        This pair's angle on the rotor, rad.
+    coupling_open_rad_s : float
+        Coupling at ``m = 1``, rad/s.
+    weight_2_open : float
+        Member-2 output weight at ``m = 1``.
+    decay_2_fixed_per_s, decay_2_per_factor : float
+        Member-2 decay ``g2 = decay_2_fixed_per_s + decay_2_per_factor m``, 1/s (>= 0).
+    """
+
+    depth: float
+    floor: float
+    offset_rad: float
+    coupling_open_rad_s: float
+    weight_2_open: float
+    decay_2_fixed_per_s: float
+    decay_2_per_factor: float
+
+    def __post_init__(self) -> None:
+        for name in ("depth", "floor", "offset_rad", "coupling_open_rad_s", "weight_2_open",
+                     "decay_2_fixed_per_s", "decay_2_per_factor"):
+            v = float(getattr(self, name))
+            if not math.isfinite(v):
+                raise ModelError(f"rotor law: {name} = {v}: must be finite")
+        if not (0.0 <= self.depth <= 1.0 and 0.0 <= self.floor <= 1.0):
+            raise ModelError(f"rotor law: depth = {self.depth}, floor = {self.floor}: must be "
+                             "in [0, 1]")
+        if self.decay_2_fixed_per_s < 0 or self.decay_2_per_factor < 0:
+            raise ModelError("rotor law: member-2 decay parts must be >= 0 /s")
+
+
+_SPIN_LAWS = ("exponential", "linear")
+
+
+@dataclass(frozen=True)
+class PairModulation:
+    """A rotor's angle law and how it modulates one pair (module docstring).
+
+    Parameters
+    ----------
+    law : RotorLaw
+        Depth, floor, offset and the open-rotor coefficients of the pair.
+    rate_rev_per_s : float
+        Rate the rotor spins up to, rev/s (>= 0; 0 = it stays at rest).
+    resting_rad : float, optional
+        Angle at rest, rad.
+    start_s : float, optional
+        Time the rotor starts on the output clock, s (>= 0).
+    spin_up_s : float, optional
+        Time constant (``"exponential"``) or ramp time (``"linear"``), s (>= 0).
+    spin_up_law : str, optional
+        ``"exponential"`` or ``"linear"``.
+    shift_samples : int, optional
+        Samples added to the output clock before the law is read (a voice moved
+        to another start keeps its rotor).
+    """
+
+    law: RotorLaw
+    rate_rev_per_s: float
+    resting_rad: float = 0.0
+    start_s: float = 0.0
+    spin_up_s: float = 0.0
+    spin_up_law: str = "exponential"
+    shift_samples: int = 0
+
+    def __post_init__(self) -> None:
+        if not isinstance(self.law, RotorLaw):
+            raise ModelError("pair modulation: law must be a RotorLaw")
+        for name in ("rate_rev_per_s", "resting_rad", "start_s", "spin_up_s"):
+            v = float(getattr(self, name))
+            if not math.isfinite(v) or (name != "resting_rad" and v < 0):
+                raise ModelError(f"pair modulation: {name} = {v}: must be finite"
+                                 + (" and >= 0" if name != "resting_rad" else ""))
+            object.__setattr__(self, name, v)
+        if self.spin_up_law not in _SPIN_LAWS:
+            raise ModelError(f"pair modulation: spin_up_law = {self.spin_up_law!r}: must be "
+                             "exponential or linear")
+        object.__setattr__(self, "shift_samples",
+                           _as_sample(self.shift_samples, "shift_samples", "pair modulation"))
+
+    @property
+    def rotor_key(self) -> tuple[float, float, float, float, float, int]:
+        """The rotor's own values (pairs sharing them share its angle)."""
+        return (self.rate_rev_per_s, self.resting_rad, self.start_s, self.spin_up_s,
+                float(_SPIN_LAWS.index(self.spin_up_law)), self.shift_samples)
+
+    def factor_range(self) -> tuple[float, float]:
+        """Smallest and largest value ``m`` can take."""
+        law = self.law
+        return max(1.0 - law.depth, law.floor), max(1.0, law.floor)
+
+
+@dataclass(frozen=True)
 class ModePair:
     """Two complex modes coupled in rotating-wave form (see the module docstring).
 
@@ -199,6 +318,11 @@ class ModePair:
         above it raises ModelError at render time.  Without it the render takes
         the largest value the curve has given so far, and no advance peak bound
         exists.
+    modulation : PairModulation, optional
+        A rotor law the engine evaluates per sample (module docstring,
+        "Rotor-modulated pair"); the render then ignores ``coupling_rad_s``,
+        ``weight_2`` and ``decay_2_curve``.  ``decay_per_s[1]`` must be a lower
+        bound of the modulated ``g2``.
     """
 
     frequency_hz: tuple[float, float]
@@ -211,8 +335,11 @@ class ModePair:
     damped: tuple[bool, bool] = (True, True)
     decay_2_curve: Curve | None = None
     weight_2_max: float | None = None
+    modulation: PairModulation | None = None
 
     def __post_init__(self) -> None:
+        if self.modulation is not None and not isinstance(self.modulation, PairModulation):
+            raise ModelError("coupled pair: modulation must be a PairModulation")
         if self.decay_2_curve is not None and not callable(self.decay_2_curve):
             raise ModelError("coupled pair: decay_2_curve must be a callable (first_sample, n)")
         object.__setattr__(self, "weight_2_max",
