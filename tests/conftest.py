@@ -8,8 +8,10 @@ writer at a time in numba's cache of compiled kernels.
 from __future__ import annotations
 
 import fcntl
+import json
 import math
 import os
+from dataclasses import asdict, dataclass
 from pathlib import Path
 
 import numpy as np
@@ -171,22 +173,52 @@ def _command_tree_built_once():
         yield
 
 
+@dataclass(frozen=True)
+class CommandRun:
+    """What a test reads of a finished command run: exit code, streams, exception."""
+
+    exit_code: int
+    stdout: str
+    stderr: str
+    exception: str | None
+
+
 @pytest.fixture(scope="session")
 def demo_cutlist(tmp_path_factory):
-    """One ``barwright cutlist`` of the demo preset with ``--json``: (result, folder).
+    """One ``barwright cutlist`` of the demo preset with ``--json``: (run, folder).
 
     The build sheet solves all 37 bars; the end-to-end sheet checks, the demo's
-    sheet, the strict-JSON check and the trust marks read this one run.
+    sheet, the strict-JSON check and the trust marks read this one run.  Under
+    pytest-xdist the workers share it: the first to need it runs it in the run's
+    common temporary folder while holding a lock, the others wait and read its
+    record (the tests only read the folder).
     """
+    worker = os.environ.get("PYTEST_XDIST_WORKER")
+    root = tmp_path_factory.getbasetemp()
+    root = root.parent if worker else root   # the run's folder, above each worker's own
+    folder, record = root / "demo-cutlist", root / "demo-cutlist.json"
+    with open(root / "demo-cutlist.lock", "a") as lock:
+        fcntl.flock(lock, fcntl.LOCK_EX)
+        if not record.exists():
+            _run_demo_cutlist(folder, record)
+        run = CommandRun(**json.loads(record.read_text(encoding="utf-8")))
+    return run, folder
+
+
+def _run_demo_cutlist(folder: Path, record: Path) -> None:
     from typer.testing import CliRunner
 
     from synth.cli import app
     from synth.config import presets_dir
 
-    folder = tmp_path_factory.mktemp("demo-cutlist")
     preset = presets_dir() / "instruments" / "lantern-street-bars.toml"
     result = CliRunner().invoke(app, ["cutlist", str(preset), "--out", str(folder), "--json"])
-    return result, folder
+    exception = None if result.exception is None else repr(result.exception)
+    text = json.dumps(asdict(CommandRun(result.exit_code, result.stdout, result.stderr,
+                                        exception)))
+    partial = record.with_suffix(".partial")
+    partial.write_text(text, encoding="utf-8")
+    os.replace(partial, record)
 
 
 @pytest.fixture
