@@ -100,7 +100,7 @@ def _numba_cache_one_writer():
     up naming one signature's file filled with the other's code.  A lock file in
     the cache folder (``flock``, released when the process dies) makes the
     read-index, write-index, write-data step whole.  Process pools forked by the
-    tests inherit the lock; fresh interpreters (subprocess runs) do not.
+    tests inherit the guarded save; fresh interpreters (subprocess runs) do not.
     """
     try:
         from numba.core.caching import IndexDataCacheFile
