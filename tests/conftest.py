@@ -51,6 +51,10 @@ its place after these.  The figures only order the list: a stale one costs speed
 never a check."""
 
 
+CPU_MAX = Path("/sys/fs/cgroup/cpu.max")
+"""A cgroup (v2) CPU quota: "QUOTA PERIOD" in microseconds, or "max PERIOD" for none."""
+
+
 @pytest.hookimpl(optionalhook=True)
 def pytest_xdist_auto_num_workers(config):
     """``-n auto``: one worker per core this process may use, none on a single core.
@@ -65,7 +69,7 @@ def pytest_xdist_auto_num_workers(config):
     cores = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else (
         os.cpu_count() or 1)
     try:
-        quota, period = Path("/sys/fs/cgroup/cpu.max").read_text().split()[:2]
+        quota, period = CPU_MAX.read_text().split()[:2]
         if quota != "max":
             cores = min(cores, max(1, math.ceil(int(quota) / int(period))))
     except (OSError, ValueError):
