@@ -1,10 +1,131 @@
-"""Shared fixtures: seeded random numbers, one BLAS thread, one command tree and one build sheet."""
+"""Shared fixtures: seeded random numbers, one BLAS thread, one command tree and one build sheet.
+
+Also how the default run spreads over processes (pytest-xdist, ``-n auto --dist
+loadfile`` in pyproject.toml): how many workers, which modules start first, and one
+writer at a time in numba's cache of compiled kernels.
+"""
 
 from __future__ import annotations
+
+import fcntl
+import json
+import math
+import os
+from dataclasses import asdict, dataclass
+from pathlib import Path
 
 import numpy as np
 import pytest
 from threadpoolctl import threadpool_limits
+
+# ---------------------------------------------------------------------------------------
+# spreading the run over processes
+# ---------------------------------------------------------------------------------------
+
+MAX_WORKERS = 8
+"""Most workers ``-n auto`` starts.  The default run is about 460 s of work in modules
+that cannot be split (a module's fixtures are made once, on one worker), the longest
+57 s (``bench --quick``): past 8 workers nothing is gained, and each worker costs an
+interpreter that has imported the whole stack."""
+
+HEAVY_FIRST = (
+    # wall seconds of each module in a cold run on two workers (load average 2.6)
+    "end_to_end/test_bench_and_demo.py",          # 57: bench --quick, the demo
+    "end_to_end/test_cutlist_templates.py",       # 42: three build sheets of 37 bars
+    "solid/test_solid_table.py",                  # 41: 3-D level solves (cold cache)
+    "cli/test_outputs_interrupted.py",            # 35: 29 runs forked and killed
+    "solid/test_solid_commands.py",               # 29: tune --solid, a Dask cluster
+    "reference/test_solid3d_self.py",             # 27: 3-D reference solves (cold cache)
+    "reports_measure/test_stiffness_use.py",      # 21: tune and cutlist of the range
+    "errors/test_reader_properties.py",           # 14
+    "solid/test_solid_model.py",                  # 13
+    "browser/test_listening_page.py",             # 12: headless Chromium
+    "sweep/test_sweep.py",                        # 10: a Dask cluster
+)
+"""Modules that run first, longest first, so that no long one is left to the end.
+
+``--dist loadfile`` hands each worker a whole module, in collection order (with
+``--no-loadscope-reorder``), when it has two tests left; a 57 s module taken last
+would leave the other worker idle for most of that time.  A module not listed keeps
+its place after these.  The figures only order the list: a stale one costs speed,
+never a check."""
+
+
+CPU_MAX = Path("/sys/fs/cgroup/cpu.max")
+"""A cgroup (v2) CPU quota: "QUOTA PERIOD" in microseconds, or "max PERIOD" for none."""
+
+
+@pytest.hookimpl(optionalhook=True)
+def pytest_xdist_auto_num_workers(config):
+    """``-n auto``: one worker per core this process may use, none on a single core.
+
+    The cores are those of the process's CPU affinity, fewer under a cgroup CPU quota
+    (``cpu.max``, containers), at most :data:`MAX_WORKERS`.  On one core the run stays
+    in this process (0 workers): a lone worker would only add its start-up.
+    ``PYTEST_XDIST_AUTO_NUM_WORKERS`` still overrides (pytest-xdist reads it).
+    """
+    if os.environ.get("PYTEST_XDIST_AUTO_NUM_WORKERS"):
+        return None
+    cores = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else (
+        os.cpu_count() or 1)
+    try:
+        quota, period = CPU_MAX.read_text().split()[:2]
+        if quota != "max":
+            cores = min(cores, max(1, math.ceil(int(quota) / int(period))))
+    except (OSError, ValueError):
+        pass
+    cores = min(cores, MAX_WORKERS)
+    return 0 if cores <= 1 else cores
+
+
+def pytest_collection_modifyitems(config, items):
+    """Put the modules of :data:`HEAVY_FIRST` first, in its order (stable otherwise)."""
+    rank = {name: i for i, name in enumerate(HEAVY_FIRST)}
+    here = Path(__file__).resolve().parent
+
+    def key(item):
+        try:
+            name = Path(item.path).resolve().relative_to(here).as_posix()
+        except ValueError:
+            return len(HEAVY_FIRST)
+        return rank.get(name, len(HEAVY_FIRST))
+
+    items.sort(key=key)
+
+
+@pytest.fixture(scope="session", autouse=True)
+def _numba_cache_one_writer():
+    """Let one process at a time add an entry to numba's cache of compiled kernels.
+
+    numba writes each cache file whole (a temporary file renamed into place) but
+    picks the data file of a new signature from the index it read just before: two
+    workers compiling two signatures of one kernel at once (``_rt_block`` for
+    float32 and float64 output) can both take ``...-1.nbc``, and the index can end
+    up naming one signature's file filled with the other's code.  A lock file in
+    the cache folder (``flock``, released when the process dies) makes the
+    read-index, write-index, write-data step whole.  Process pools forked by the
+    tests inherit the guarded save; fresh interpreters (subprocess runs) do not.
+    """
+    try:
+        from numba.core.caching import IndexDataCacheFile
+    except ImportError:  # a numba that moved its cache: nothing to guard
+        yield
+        return
+    save = IndexDataCacheFile.save
+
+    def locked_save(self, key, data):
+        try:
+            lock = open(os.path.join(self._cache_path, ".save.lock"), "a")
+        except OSError:  # a folder numba cannot write either: its own error handling
+            return save(self, key, data)
+        with lock:
+            fcntl.flock(lock, fcntl.LOCK_EX)
+            return save(self, key, data)
+
+    with pytest.MonkeyPatch.context() as mp:
+        mp.setattr(IndexDataCacheFile, "save", locked_save)
+        yield
+
 
 
 @pytest.fixture(scope="session", autouse=True)
@@ -14,7 +135,12 @@ def _one_blas_thread():
     The eigenproblems here are small (a few hundred DOF): with two threads on a shared
     machine the same call has taken seconds instead of milliseconds (design outline,
     performance facts).  One thread also makes rounding repeatable between runs.
+    threadpoolctl limits the libraries loaded when it is called: scipy's own
+    OpenBLAS is loaded first (importing scipy.linalg), or it would keep one thread
+    per core in each worker.
     """
+    import scipy.linalg  # noqa: F401  (loads scipy's BLAS so that the limit reaches it)
+
     with threadpool_limits(limits=1):
         yield
 
@@ -51,22 +177,52 @@ def _command_tree_built_once():
         yield
 
 
+@dataclass(frozen=True)
+class CommandRun:
+    """What a test reads of a finished command run: exit code, streams, exception."""
+
+    exit_code: int
+    stdout: str
+    stderr: str
+    exception: str | None
+
+
 @pytest.fixture(scope="session")
 def demo_cutlist(tmp_path_factory):
-    """One ``barwright cutlist`` of the demo preset with ``--json``: (result, folder).
+    """One ``barwright cutlist`` of the demo preset with ``--json``: (run, folder).
 
     The build sheet solves all 37 bars; the end-to-end sheet checks, the demo's
-    sheet, the strict-JSON check and the trust marks read this one run.
+    sheet, the strict-JSON check and the trust marks read this one run.  Under
+    pytest-xdist the workers share it: the first to need it runs it in the run's
+    common temporary folder while holding a lock, the others wait and read its
+    record (the tests only read the folder).
     """
+    worker = os.environ.get("PYTEST_XDIST_WORKER")
+    root = tmp_path_factory.getbasetemp()
+    root = root.parent if worker else root   # the run's folder, above each worker's own
+    folder, record = root / "demo-cutlist", root / "demo-cutlist.json"
+    with open(root / "demo-cutlist.lock", "a") as lock:
+        fcntl.flock(lock, fcntl.LOCK_EX)
+        if not record.exists():
+            _run_demo_cutlist(folder, record)
+        run = CommandRun(**json.loads(record.read_text(encoding="utf-8")))
+    return run, folder
+
+
+def _run_demo_cutlist(folder: Path, record: Path) -> None:
     from typer.testing import CliRunner
 
     from synth.cli import app
     from synth.config import presets_dir
 
-    folder = tmp_path_factory.mktemp("demo-cutlist")
     preset = presets_dir() / "instruments" / "lantern-street-bars.toml"
     result = CliRunner().invoke(app, ["cutlist", str(preset), "--out", str(folder), "--json"])
-    return result, folder
+    exception = None if result.exception is None else repr(result.exception)
+    text = json.dumps(asdict(CommandRun(result.exit_code, result.stdout, result.stderr,
+                                        exception)))
+    partial = record.with_suffix(".partial")
+    partial.write_text(text, encoding="utf-8")
+    os.replace(partial, record)
 
 
 @pytest.fixture
