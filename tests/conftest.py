@@ -1,8 +1,9 @@
 """Shared fixtures: seeded random numbers, one BLAS thread, one command tree and one build sheet.
 
 Also how the default run spreads over processes (pytest-xdist, ``-n auto --dist
-loadfile`` in pyproject.toml): how many workers, which modules start first, and one
-writer at a time in numba's cache of compiled kernels.
+loadfile`` in pyproject.toml): how many workers and which modules start first.  (Two
+workers compiling into numba's cache at once are kept apart by the kernels module
+itself: :func:`synth.engine.kernels._one_cache_writer`.)
 """
 
 from __future__ import annotations
@@ -91,41 +92,6 @@ def pytest_collection_modifyitems(config, items):
         return rank.get(name, len(HEAVY_FIRST))
 
     items.sort(key=key)
-
-
-@pytest.fixture(scope="session", autouse=True)
-def _numba_cache_one_writer():
-    """Let one process at a time add an entry to numba's cache of compiled kernels.
-
-    numba writes each cache file whole (a temporary file renamed into place) but
-    picks the data file of a new signature from the index it read just before: two
-    workers compiling two signatures of one kernel at once (``_rt_block`` for
-    float32 and float64 output) can both take ``...-1.nbc``, and the index can end
-    up naming one signature's file filled with the other's code.  A lock file in
-    the cache folder (``flock``, released when the process dies) makes the
-    read-index, write-index, write-data step whole.  Process pools forked by the
-    tests inherit the guarded save; fresh interpreters (subprocess runs) do not.
-    """
-    try:
-        from numba.core.caching import IndexDataCacheFile
-    except ImportError:  # a numba that moved its cache: nothing to guard
-        yield
-        return
-    save = IndexDataCacheFile.save
-
-    def locked_save(self, key, data):
-        try:
-            lock = open(os.path.join(self._cache_path, ".save.lock"), "a")
-        except OSError:  # a folder numba cannot write either: its own error handling
-            return save(self, key, data)
-        with lock:
-            fcntl.flock(lock, fcntl.LOCK_EX)
-            return save(self, key, data)
-
-    with pytest.MonkeyPatch.context() as mp:
-        mp.setattr(IndexDataCacheFile, "save", locked_save)
-        yield
-
 
 
 @pytest.fixture(scope="session", autouse=True)

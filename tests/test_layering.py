@@ -245,6 +245,7 @@ def test_only_settings_reads_toml_and_midi_files() -> None:
 # synth/settings instead.
 OPENS_FILES = {
     "io.py": "audio and JSON input and output",
+    "engine/kernels.py": "the lock file of numba's cache writes",
     "plan_cache.py": "its own cache files",
     "physics/solid.py": "its own cache of finished 3-D level solves",
     "reports/page.py": "the listening page's assets, package data",

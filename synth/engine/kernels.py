@@ -56,9 +56,54 @@ References
 from __future__ import annotations
 
 import math
+import os
 
 import numpy as np
 from numba import njit
+
+CACHE_LOCK_NAME = ".save.lock"
+"""File in numba's cache folder that one process at a time holds while it adds a kernel."""
+
+
+def _one_cache_writer() -> None:
+    """Let one process at a time add an entry to numba's cache of compiled kernels.
+
+    numba writes each cache file whole (a temporary file renamed into place) but
+    picks the data file of a new signature from the index it read just before: two
+    processes compiling two signatures of one kernel at once (``_rt_block`` for
+    float32 and float64 output, ``_bank_add`` with and without a gain curve) on an
+    empty cache can both take ``...-1.nbc``, and the index can end up naming one
+    signature's file filled with the other's code, which a later process would
+    load and run.  Worker pools and two commands run at once meet exactly that on
+    a fresh install.  A lock file in the cache folder (``flock``, released when the
+    process dies) makes numba's read-index, write-index, write-data step whole.
+    Without ``fcntl`` (not POSIX) or with a numba that moved its cache, nothing is
+    guarded.
+    """
+    try:
+        import fcntl
+
+        from numba.core.caching import IndexDataCacheFile
+    except ImportError:
+        return
+    save = IndexDataCacheFile.save
+    if getattr(save, "one_writer", False):
+        return
+
+    def locked_save(self, key, data):
+        try:
+            lock = open(os.path.join(self._cache_path, CACHE_LOCK_NAME), "a")
+        except OSError:  # a folder numba cannot write either: its own error handling
+            return save(self, key, data)
+        with lock:
+            fcntl.flock(lock, fcntl.LOCK_EX)
+            return save(self, key, data)
+
+    locked_save.one_writer = True  # type: ignore[attr-defined]
+    setattr(IndexDataCacheFile, "save", locked_save)  # noqa: B010 (mypy refuses a method assignment)
+
+
+_one_cache_writer()
 
 _TWO_PI = 2.0 * math.pi
 _PAIR_CHUNK = 256
