@@ -1229,7 +1229,7 @@ def _sin_cos(x):
 def _rotor_sin_cos(rotor, s_first, nc, half, ptab, out_cos, out_sin):
     """Fill the cos and sin of the rotor angle at output samples ``s_first + j (+ 1/2 if half)``.
 
-    The turns follow :mod:`synth.physics.motor`'s closed forms with ``t = (s +
+    The turns follow the closed forms of ``PairModulation`` (engine/voice.py) with ``t = (s +
     offset) / fs``, ``u = max(t - t0, 0)``; the exponential law's ``exp(-u/tau)``
     is ``exp(-u_0/tau) ptab[j]`` from the chunk's first time ``u_0`` (``ptab[j] =
     exp(-j / (fs tau))``) where the chunk starts after ``t0``, so the loops
