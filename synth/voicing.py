@@ -456,12 +456,16 @@ class Voicer:
         memo = ("strike", note, head, speed.hex(), pos.hex(), acr.hex())
         plan = self._cache.get(memo)
         if plan is None:
-            key = self._plan_key("strike", note, head, speed, pos, acr, self.sample_rate,
-                                 self.motor, self.attack, plan_cache.source_fingerprint(_ENGINE))
-            plan = plan_cache.cached(key, lambda: self._make_strike_plan(note, head, speed,
-                                                                         pos, acr))
+            plan = plan_cache.cached(self._strike_key(note, head, speed, pos, acr),
+                                     lambda: self._make_strike_plan(note, head, speed, pos, acr))
             self._cache[memo] = plan
         return plan
+
+    def _strike_key(self, note: str, head: Mallet, speed: float, pos: float,
+                    acr: float) -> str:
+        """Disk-cache key of a :class:`StrikePlan` (:meth:`_strike_plan`)."""
+        return self._plan_key("strike", note, head, speed, pos, acr, self.sample_rate,
+                              self.motor, self.attack, plan_cache.source_fingerprint(_ENGINE))
 
     def _make_strike_plan(self, note: str, head: Mallet, speed: float, pos: float,
                           acr: float) -> StrikePlan:
