@@ -8,9 +8,30 @@ is a SHA-256 over
 * a format tag and the package version,
 * the source text of the modules that compute plans (``synth/physics/*.py``, the
   readers in ``synth/settings/*.py``, ``synth/voicing.py``, ``synth/numerics.py``,
-  ``synth/config.py``), so an edited model never reads a plan made by the old one,
-* the pickled settings (frozen dataclasses, floats, strings, arrays): change any
-  value that matters and the key changes.
+  ``synth/config.py``, this module), so an edited model never reads a plan made by
+  the old one (a plan that also runs through other modules puts their
+  :func:`source_fingerprint` among its settings),
+* the kind of plan and the canonical form of the settings (:func:`canonical_bytes`:
+  frozen dataclasses by their compared fields, floats by their 8 bytes, strings,
+  numbers, tuples, lists, dicts and sets, numeric arrays by dtype, shape and
+  data): change any value that matters and the key changes.
+
+The form is one byte string hashed once: each item starts with a tag byte, and its
+length where it has no fixed size, so no two different settings share it.  Nothing
+in it depends on the process (no addresses, no salted hashes: dicts and sets are
+sorted).  A frozen dataclass whose compared fields can never change (numbers,
+strings, tuples and such dataclasses; no array, list or dict) has its form kept in
+memory by identity, holding the object so that its id is not reused: a mallet or a
+motor met again costs one lookup.
+
+The voice plan (:mod:`synth.voicing`) stores per note its model (``note-model``)
+and per strike its mallet contact (``contact``) and, unless discs turn in the
+tube mouths, the finished strike (``strike``: modes, pairs and onset, keyed by
+the note's settings, the strike, the sample rate, the motor, ``attack`` and the
+engine's source), so a warm strike reads one entry.  Under turning discs a
+strike is assembled from its pieces each time (its pair follows the rotor's
+curves); :func:`synth.voicing.contact_onset` keeps the free form of a voice
+without curves as an entry of its own (``onset-free-form``).
 
 Entries are pickles in ``<cache>/plans/<key>.pkl``, written atomically (a temporary
 file renamed into place), so two processes planning the same note at once both
@@ -61,7 +82,10 @@ def _plans_folder_now() -> str | None:
 
 @cache
 def _plans_folder(value: str | None, xdg: str | None, home: str | None) -> str | None:
-    """The plans' folder for these values of the variables (read at every call)."""
+    """Return the plans' folder for these values of the variables (read at every call).
+
+    ``home`` is only part of the memo's key: :meth:`pathlib.Path.home` reads it.
+    """
     if value is not None and value.strip().lower() == "off":
         return None
     if value:
@@ -117,7 +141,7 @@ def plan_key(kind: str, *settings: object) -> str:
 
 @cache
 def _prefix() -> bytes:
-    """The part of every key that is fixed in one process: format, version, code."""
+    """Return the part of every key fixed in one process: format, version, code."""
     return b"".join(canonical_bytes(part) for part in
                     (_FORMAT, synth.__version__, code_fingerprint()))
 

@@ -736,7 +736,7 @@ def contact_onset(voice: Voice, pulse: tuple[np.ndarray, np.ndarray],
 
 def _onset(voice: Voice, pulse: tuple[np.ndarray, np.ndarray], sample_rate: float, *,
            keep: bool) -> np.ndarray | None:
-    """The onset samples of :func:`contact_onset` (None: none).
+    """Return the onset samples of :func:`contact_onset` (None: none).
 
     ``keep``: the free form is kept on disk as a plan of its own (the caller
     keeps the result otherwise); a voice with curves is rendered each time.

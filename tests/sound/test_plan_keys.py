@@ -78,8 +78,10 @@ def test_a_value_keys_the_same_twice(x) -> None:
 @CASES
 @given(st.lists(_values, min_size=1, max_size=3))
 def test_any_one_change_changes_the_key(xs) -> None:
-    """Each leaf of the settings changed alone (the next float up, a flipped flag, a
-    longer string, one more) changes the key."""
+    """Each leaf of the settings changed alone changes the key.
+
+    The next float up, a flipped flag, a longer string, one more.
+    """
     base = plan_cache.plan_key("k", *xs)
     for path, changed in _leaf_changes(tuple(xs)):
         assert plan_cache.plan_key("k", *changed) != base, path
@@ -190,8 +192,10 @@ def _leaf_changes(obj, path=()):
 
 
 def _settings_objects(v: Voicer) -> dict[str, object]:
-    """The settings objects the voice plan's keys are made of (Voicer._settings_key,
-    _note_key, _strike_key)."""
+    """Return the settings objects the plan's keys are made of.
+
+    What ``Voicer._settings_key``, ``_note_key`` and ``_strike_key`` hash.
+    """
     return {"material": v.material, "supports": v.supports,
             "calibration": v.loss_calibration, "sound": v.sound,
             "tubes": v.tube_settings, "correction": v.correction, "motor": v.motor,
