@@ -171,10 +171,16 @@ def _encode(value: object, out: list[bytes]) -> bool:
         return _encode_array(value, out)
     if dataclasses.is_dataclass(value) and not isinstance(value, type):
         return _encode_dataclass(value, out)
-    # subclasses of the plain types (an IntEnum, a str subclass, a named tuple)
-    for base in (bool, int, float, str, bytes, tuple, list, dict, frozenset, set):
+    # subclasses of the plain types (an IntEnum, a named tuple): their name, then the
+    # value; never memoised (a subclass may hold more than its value)
+    for base in (int, float, str, bytes, tuple, list, dict, frozenset, set):
         if isinstance(value, base):
-            return _BY_TYPE[base](value, out)
+            kind = type(value)
+            name = f"{kind.__module__}.{kind.__qualname__}".encode()
+            out.append(b"c%d:" % len(name))
+            out.append(name)
+            _BY_TYPE[base](value, out)
+            return False
     raise TypeError(f"cannot key a plan on a {type(value).__name__}")
 
 
@@ -212,8 +218,8 @@ def _encode_bytes(value, out) -> bool:
 
 
 def _encode_sequence(value, out) -> bool:
-    out.append(b"(%d:" % len(value) if isinstance(value, tuple) else b"[%d:" % len(value))
     frozen = isinstance(value, tuple)
+    out.append((b"(%d:" if frozen else b"[%d:") % len(value))
     for item in value:
         frozen = _encode(item, out) and frozen
     return frozen
@@ -221,8 +227,9 @@ def _encode_sequence(value, out) -> bool:
 
 def _encode_dict(value, out) -> bool:
     out.append(b"{%d:" % len(value))
-    for k, v in sorted(value.items(), key=lambda kv: repr(kv[0])):
-        _encode(k, out)
+    for form, v in sorted(((canonical_bytes(k), v) for k, v in value.items()),
+                          key=lambda item: item[0]):   # by the keys' forms, never by hashes
+        out.append(form)
         _encode(v, out)
     return False
 
@@ -230,8 +237,12 @@ def _encode_dict(value, out) -> bool:
 def _encode_set(value, out) -> bool:
     out.append(b"<%d:" % len(value))
     frozen = isinstance(value, frozenset)
-    for item in sorted(value, key=repr):
-        frozen = _encode(item, out) and frozen
+    forms = []
+    for item in value:    # in the order of their forms, never of their salted hashes
+        own: list[bytes] = []
+        frozen = _encode(item, own) and frozen
+        forms.append(b"".join(own))
+    out.extend(sorted(forms))
     return frozen
 
 

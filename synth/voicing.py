@@ -453,7 +453,8 @@ class Voicer:
         engine's source (the onset's free form is its render).  The listening
         distance, temperature and channels are among the note's settings.
         """
-        memo = ("strike", note, head, speed.hex(), pos.hex(), acr.hex())
+        # exact values (a float's bits, the mallet's form), as on disk
+        memo = ("strike", note, plan_cache.canonical_bytes((head, speed, pos, acr)))
         plan = self._cache.get(memo)
         if plan is None:
             plan = plan_cache.cached(self._strike_key(note, head, speed, pos, acr),

@@ -9,8 +9,10 @@ process, PEP 456, so a key that depended on them or on addresses would differ).
 
 from __future__ import annotations
 
+import collections
 import copy
 import dataclasses
+import enum
 import math
 import struct
 import subprocess
@@ -87,6 +89,10 @@ def test_any_one_change_changes_the_key(xs) -> None:
         assert plan_cache.plan_key("k", *changed) != base, path
 
 
+class _Level(enum.IntEnum):
+    LOW = 1
+
+
 def test_kind_and_argument_boundaries_are_part_of_the_key() -> None:
     """The kind, and where one argument ends, enter the key."""
     assert plan_cache.plan_key("a", "bc") != plan_cache.plan_key("ab", "c")
@@ -96,6 +102,9 @@ def test_kind_and_argument_boundaries_are_part_of_the_key() -> None:
     assert plan_cache.plan_key("k", True) != plan_cache.plan_key("k", 1)
     assert plan_cache.plan_key("k", -0.0) != plan_cache.plan_key("k", 0.0)
     assert plan_cache.plan_key("k", np.float64(0.5)) == plan_cache.plan_key("k", 0.5)
+    pair = collections.namedtuple("pair", "a b")
+    assert plan_cache.plan_key("k", pair(1, 2)) != plan_cache.plan_key("k", (1, 2))
+    assert plan_cache.plan_key("k", _Level.LOW) != plan_cache.plan_key("k", 1)
 
 
 def test_arrays_key_by_dtype_shape_and_bits() -> None:
@@ -254,7 +263,7 @@ v = Voicer(inst)
 print(v._strike_key('A4', _mallet('medium'), 1.0, 0.45, 0.0))
 print(v._plan_key('contact', 'C5', _mallet('soft'), 1.25, 0.5, 0.1))
 print(plan_cache.plan_key('k', frozenset({'felt', 'yarn', 'rubber'}), {'b': 1.5, 'a': -0.0},
-                          (None, True, 2**80, math.pi)))
+                          (None, True, 2**80, math.pi), {frozenset({'a', 'b'}), frozenset('c')}))
 """
 
 
@@ -263,7 +272,8 @@ def test_keys_are_the_same_in_another_process(demo) -> None:
     here = [_strike_key(demo),
             Voicer(demo)._plan_key("contact", "C5", voicing._mallet("soft"), 1.25, 0.5, 0.1),
             plan_cache.plan_key("k", frozenset({"felt", "yarn", "rubber"}),
-                                {"b": 1.5, "a": -0.0}, (None, True, 2**80, math.pi))]
+                                {"b": 1.5, "a": -0.0}, (None, True, 2**80, math.pi),
+                                {frozenset({"a", "b"}), frozenset("c")})]
     for seed in ("1", "4242"):
         out = subprocess.run([sys.executable, "-c", _IN_ANOTHER_PROCESS], cwd=ROOT,
                              capture_output=True, text=True, timeout=300,
