@@ -122,6 +122,23 @@ class NoteModel:
         return max(0.0, 1.0 / m.q[0] - self.fundamental.eta)
 
 
+@dataclass(frozen=True)
+class StrikePlan:
+    """One strike's voice wherever it starts: what a warm plan reads in one entry.
+
+    ``bank`` holds the frequency, decay, amplitude and phase of the free modes
+    (engine :class:`~synth.engine.voice.ModeBank` order), ``pairs`` the coupled
+    bar-tube pairs (no rotor), ``onset`` the samples of the contact (None
+    without ``attack``), ``pan`` the note's place, -1..1.
+    """
+
+    note: str
+    pan: float
+    bank: tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]
+    pairs: tuple[ModePair, ...]
+    onset: np.ndarray | None
+
+
 @lru_cache(maxsize=512)
 def _solve_sounding(geometry, material) -> BarModes:
     """Solve the modes a strike from above excites (pure, frozen inputs).
@@ -389,7 +406,7 @@ class Voicer:
         mono : bool
             One channel whatever the voicer's channels (for analysis).
         """
-        model = self.model(note)
+        note = self.instrument.check_note(note, option="note")
         s = self.sound
         if speed_m_s is None:
             speed_m_s = 1.0 if velocity is None else s.speed_of(velocity)
@@ -404,11 +421,72 @@ class Voicer:
             raise ConfigError(f"= {acr}: must be between -0.5 and 0.5 (fraction of the width)",
                               key="across")
         head = _mallet(mallet if mallet is not None else s.mallet)
+        if self._motionless:
+            plan = self._strike_plan(note, head, float(speed_m_s), float(pos), float(acr))
+            return self._placed(plan, time_s, release_s, pedal, mono)
+        model = self.model(note)
         amps, phases, pulse = self._excite(model, head, float(speed_m_s), pos, acr)
         voice = self._voice(model, amps, phases, time_s, release_s, pedal, mono)
         if not self.attack:
             return voice
         return contact_onset(voice, pulse, self.sample_rate)
+
+    @cached_property
+    def _motionless(self) -> bool:
+        """No rotor moves a tube's mouth: a strike's voice is the same at any time.
+
+        Its modes, pairs and onset are then a :class:`StrikePlan`, one cache entry
+        per strike (:meth:`_strike_plan`); a voice under turning discs reads the
+        rotor's angle where it starts, and its pieces are cached apart.
+        """
+        return not self.tubes_active or (self.motor.rate_rev_per_s <= 0
+                                         and self.motor.resting == "open")
+
+    def _strike_plan(self, note: str, head: Mallet, speed: float, pos: float,
+                     acr: float) -> StrikePlan:
+        """Return the strike's plan, kept in this instance and on disk.
+
+        Its key: the note's (every setting the note model reads), the strike
+        (mallet, speed, point), and what the voice is then shaped by: the sample
+        rate (modes above 0.45 of it are left out), the motor (at rest, checked by
+        :attr:`_motionless`), whether the contact is rendered (``attack``), and the
+        engine's source (the onset's free form is its render).  The listening
+        distance, temperature and channels are among the note's settings.
+        """
+        # exact values (a float's bits, the mallet's form), as on disk
+        memo = ("strike", note, plan_cache.canonical_bytes((head, speed, pos, acr)))
+        plan = self._cache.get(memo)
+        if plan is None:
+            plan = plan_cache.cached(self._strike_key(note, head, speed, pos, acr),
+                                     lambda: self._make_strike_plan(note, head, speed, pos, acr))
+            self._cache[memo] = plan
+        return plan
+
+    def _strike_key(self, note: str, head: Mallet, speed: float, pos: float,
+                    acr: float) -> str:
+        """Disk-cache key of a :class:`StrikePlan` (:meth:`_strike_plan`)."""
+        return self._plan_key("strike", note, head, speed, pos, acr, self.sample_rate,
+                              self.motor, self.attack, plan_cache.source_fingerprint(_ENGINE))
+
+    def _make_strike_plan(self, note: str, head: Mallet, speed: float, pos: float,
+                          acr: float) -> StrikePlan:
+        model = self.model(note)
+        amps, phases, pulse = self._excite(model, head, speed, pos, acr)
+        voice = self._voice(model, amps, phases, 0.0, None, (), mono=True)
+        onset = _onset(voice, pulse, self.sample_rate, keep=False) if self.attack else None
+        bank = voice.modes
+        return StrikePlan(note, model.pan, (bank.frequency_hz, bank.decay_per_s,
+                                            bank.amplitude, bank.phase_rad),
+                          voice.pairs, onset)
+
+    def _placed(self, plan: StrikePlan, time_s: float, release_s, pedal,
+                mono: bool) -> Voice:
+        """Return the planned strike as a voice starting at ``time_s``."""
+        start = seconds_to_sample(time_s, self.sample_rate)
+        gains = constant_power_pan(plan.pan) if self.channels == 2 and not mono else (1.0,)
+        return Voice(start, ModeBank(*plan.bank), channel_gains=gains,
+                     damping=self._damping(start, release_s, pedal), pairs=plan.pairs,
+                     label=plan.note, onset=plan.onset)
 
     def strike_settings(self, *, velocity: float | None = None, speed_m_s: float | None = None,
                         mallet: str | None = None, position: float | None = None,
@@ -653,30 +731,53 @@ def contact_onset(voice: Voice, pulse: tuple[np.ndarray, np.ndarray],
     the samples before ``t_c`` from the voice's own start (damping changes within
     the contact left out).
     """
+    onset = _onset(voice, pulse, sample_rate, keep=True)
+    return voice if onset is None else replace(voice, onset=onset)
+
+
+def _onset(voice: Voice, pulse: tuple[np.ndarray, np.ndarray], sample_rate: float, *,
+           keep: bool) -> np.ndarray | None:
+    """Return the onset samples of :func:`contact_onset` (None: none).
+
+    ``keep``: the free form is kept on disk as a plan of its own (the caller
+    keeps the result otherwise); a voice with curves is rendered each time.
+    """
     t, force = pulse
     t_c = float(t[-1])
     tk = np.arange(int(math.ceil(t_c * sample_rate))) / sample_rate
     tk = tk[tk < t_c]
     if tk.size == 0 or t.size < 2:
-        return voice
+        return None
     momentum = np.concatenate([[0.0], np.cumsum(0.5 * (force[1:] + force[:-1]) * np.diff(t))])
     if not momentum[-1] > 0:
-        return voice
+        return None
     rho = np.interp(tk, t, momentum) / momentum[-1]
-    free_voice = _from_zero(voice)
 
     def free_form() -> np.ndarray:
-        return render([free_voice], tk.size, sample_rate=sample_rate, channels=1,
+        return render([_from_zero(voice)], tk.size, sample_rate=sample_rate, channels=1,
                       retire_db=None)[:, 0]
 
-    try:  # the free form is kept on disk like a plan; a voice with curves is made each time
-        key = plan_cache.plan_key("onset-free-form", replace(free_voice, label=""), tk.size,
-                                  float(sample_rate), plan_cache.source_fingerprint(_ENGINE))
-    except TypeError:
-        free = free_form()
-    else:
-        free = plan_cache.cached(key, free_form)
-    return replace(voice, onset=(rho - 1.0) * free)
+    key = _free_form_key(voice, tk.size, sample_rate) if keep else None
+    free = free_form() if key is None else plan_cache.cached(key, free_form)
+    return (rho - 1.0) * free
+
+
+def _free_form_key(voice: Voice, n: int, sample_rate: float) -> str | None:
+    """Key of the free form of ``voice`` over ``n`` samples (None: it has curves).
+
+    What :func:`_from_zero` keeps of the voice: its modes, its pairs (a rotor's
+    clock moved by the voice's start) and the gain curve's bound.
+    """
+    if voice.gain_curve is not None or any(
+            callable(p.coupling_rad_s) or callable(p.weight_2) or p.decay_2_curve is not None
+            for p in voice.pairs):
+        return None
+    start = voice.start_sample
+    pairs = tuple(p if p.modulation is None or start == 0 else replace(
+        p, modulation=replace(p.modulation, shift_samples=p.modulation.shift_samples + start))
+        for p in voice.pairs)
+    return plan_cache.plan_key("onset-free-form", voice.modes, pairs, voice.gain_curve_max,
+                               n, float(sample_rate), plan_cache.source_fingerprint(_ENGINE))
 
 
 _ENGINE: Final[tuple[str, ...]] = ("engine/*.py",)

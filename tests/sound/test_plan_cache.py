@@ -9,6 +9,7 @@ import sys
 from pathlib import Path
 
 import numpy as np
+import pytest
 
 import synth.voicing as voicing
 from synth import plan_cache
@@ -42,7 +43,7 @@ def test_stored_plan_equals_fresh_plan(demo, tmp_path, monkeypatch) -> None:
     fresh = _strikes(demo)
     monkeypatch.setenv(plan_cache.CACHE_ENV, str(tmp_path))
     _strikes(demo)                       # computes and stores
-    # a model, a contact and the onset's free form each
+    # a note model, a contact and the strike's plan (modes, pairs, onset) each
     assert len(list((tmp_path / "plans").glob("*.pkl"))) == 9
 
     def refuse(*args, **kwargs):
@@ -53,6 +54,31 @@ def test_stored_plan_equals_fresh_plan(demo, tmp_path, monkeypatch) -> None:
     monkeypatch.setattr(voicing, "render", refuse)
     stored = _strikes(demo)              # a new Voicer: everything from disk
     for a, b in zip(fresh, stored, strict=True):
+        for x, y in zip(_plan_arrays(a), _plan_arrays(b), strict=True):
+            np.testing.assert_array_equal(x, y)
+
+
+@pytest.mark.parametrize("voicer", [
+    {"motor_rate_rev_per_s": 3.0},     # turning discs: the pieces cached apart
+    {"tubes": False}, {"attack": False}, {"channels": 1, "sample_rate": 44100.0}])
+def test_stored_variant_equals_fresh(demo, tmp_path, monkeypatch, voicer) -> None:
+    """Each way of planning a strike reads back from disk what it computes without a cache.
+
+    Independent path: the same settings with the cache switched off; start,
+    damping and the stereo gains included.
+    """
+    def strikes():
+        v = Voicer(demo, **voicer)
+        return [v.strike_voice("A4", time_s=t, velocity=0.6, release_s=t + 0.5,
+                               pedal=((0.0, 1.0), (0.8, 0.2))) for t in (0.0, 0.37)]
+
+    monkeypatch.setenv(plan_cache.CACHE_ENV, "off")
+    fresh = strikes()
+    monkeypatch.setenv(plan_cache.CACHE_ENV, str(tmp_path))
+    strikes()
+    stored = strikes()
+    for a, b in zip(fresh, stored, strict=True):
+        assert (a.start_sample, a.damping, a.label) == (b.start_sample, b.damping, b.label)
         for x, y in zip(_plan_arrays(a), _plan_arrays(b), strict=True):
             np.testing.assert_array_equal(x, y)
 
