@@ -10,10 +10,10 @@ stays at or below full scale, nothing can clip and the samples are streamed
 straight into the WAV; otherwise the temporary file decides whether the gain
 must be lowered.  The default puts the peak at -1 dBFS; a fixed gain is kept
 when asked for, lowered to the ceiling if it would clip, and reported.  Nothing
-ever clips.  Voices are retired once their tails, summed, stay 100 dB below the
-output's peak (``retire_db``).  The file is written atomically and never
-replaces an existing one unless ``force``; a JSON sidecar beside it records the
-resolved settings.
+ever clips.  Voices, and single modes of voices, are retired once their tails,
+summed, stay 100 dB below the output's peak (``retire_db``).  The file is
+written atomically and never replaces an existing one unless ``force``; a JSON
+sidecar beside it records the resolved settings.
 
 Every file ends cleanly, in one of two ways, and says which (:class:`Ending`):
 
@@ -132,12 +132,15 @@ class Ending:
 
     def sentence(self, seconds: float) -> str:
         """One line for the command's summary."""
+        silent = self.last_10ms_db == -math.inf
         if self.how == "rang out":
             return (f"rang out to {self.end_level_db:g} dB re peak at {seconds:.2f} s "
-                    f"(last 10 ms at {self.last_10ms_db:.1f} dB)")
+                    + ("(last 10 ms silent)" if silent
+                       else f"(last 10 ms at {self.last_10ms_db:.1f} dB)"))
         why = (" (had not rung out by the longest length)" if self.longest_reached else "")
         return (f"cut at {seconds:.2f} s with a {self.fade_s * 1000:.0f} ms fade{why}; "
-                f"last 10 ms at {self.last_10ms_db:.1f} dB re peak, below "
+                + ("last 10 ms silent" if silent
+                   else f"last 10 ms at {self.last_10ms_db:.1f} dB re peak") + ", below "
                 f"{self.end_level_db:g} dB")
 
     def record(self) -> dict[str, Any]:
@@ -182,8 +185,8 @@ def render_to_wav(path: str | Path, voices: Sequence[Voice], n_samples: int, *,
 
     ``progress(done, total)`` is called with the samples rendered (total
     ``n_samples``).  ``retire_db`` is the level re the output's peak below which
-    the summed tails of retired voices stay (default -100 dB; ``None`` keeps
-    every voice; see :mod:`synth.engine.render`).  A normalised render keeps its
+    the summed tails of retired voices and modes stay (default -100 dB; ``None``
+    keeps every voice; see :mod:`synth.engine.render`).  A normalised render keeps its
     first :data:`SCRATCH_HELD_BYTES` of unscaled samples in memory; the rest go to
     a temporary file in ``scratch_dir`` (default: the WAV's folder), 8 bytes per
     sample and channel, while the render runs.

@@ -1120,6 +1120,54 @@ def _banks_add(out, o0, t0, t1, gain_first, gain_last, cycles_per_sample, decay_
 
 
 # ======================================================================================
+# Retiring single modes (``_modes_to_retire``): the tail bound of each mode of a bank
+# at voice clock ``m``, ``|a_k| exp(-g_k m - nep) scale``; the smallest go, in
+# ascending order, while ``owed`` plus their sum stays below ``level``.
+# ======================================================================================
+
+
+@njit(cache=True)
+def _modes_to_retire(abs_amp, decay_per_sample, m, nep, scale, owed, level, extra, order,
+                     bounds):
+    """Choose the modes to retire; return (modes kept, owed after, samples to wait).
+
+    ``bounds`` receives every mode's tail bound; ``order`` the kept modes'
+    indices in ascending order, then the retired ones.  The wait is the
+    soonest a kept mode, decaying at ``decay_per_sample + extra``, alone falls
+    below the room left (``level`` less what is owed); infinite if none decays.
+    """
+    n = abs_amp.shape[0]
+    for k in range(n):
+        bounds[k] = abs_amp[k] * math.exp(-decay_per_sample[k] * m - nep) * scale
+    ranked = np.argsort(bounds, kind="mergesort")
+    gone = np.zeros(n, dtype=np.bool_)
+    total = owed
+    n_gone = 0
+    for j in range(n):
+        b = bounds[ranked[j]]
+        if not total + b < level:
+            break
+        total += b
+        gone[ranked[j]] = True
+        n_gone += 1
+    room = level - total
+    wait = math.inf
+    n_keep = 0
+    n_put = 0
+    for k in range(n):
+        if gone[k]:
+            order[n - n_gone + n_put] = k
+            n_put += 1
+            continue
+        order[n_keep] = k
+        n_keep += 1
+        rate = decay_per_sample[k] + extra
+        if rate > 0.0 and room > 0.0:
+            wait = min(wait, math.log(bounds[k] / room) / rate)
+    return n_keep, total, wait
+
+
+# ======================================================================================
 # Rotor-modulated coupled pairs, many at once (render.py, "rotor pairs").  Every pair
 # of one call follows the same rotor angle theta(t) (synth.engine.voice,
 # "Rotor-modulated pair"); per sample step the kernel evaluates the rotor once,

@@ -52,7 +52,15 @@ number of strikes.  The decisions fall on the fixed grid of the output clock
 and take the voices in list order, so they do not depend on the block size
 either.  A voice that is not yet retirable is checked again after half the
 wait its bound's decay predicts (never past its next damping change), which
-only delays retirements.  A gain curve or a pair weight or coupling curve
+only delays retirements.  A voice that stays loses its single bank modes (plain
+modes and the modes of folded pairs) the same way: each mode's tail is bounded
+in closed form like the bank's, the smallest go first while the sum owed stays
+below the level, and each decays at least at its own rate from then on.  Upper
+modes of a struck bar die long before its fundamental, so most of a long tail
+is rendered with a few modes (``RETIRE_MODES = False`` retires whole voices
+only).  A mode check is scheduled where the first remaining mode alone would
+fit the room left, decaying at its present rate (no later than the next
+damping change).  A gain curve or a pair weight or coupling curve
 without a declared bound (``gain_curve_max``, ``weight_2_max``) is taken at
 the largest value it has given so far.  ``retire_db=None`` keeps every voice
 to its stop or the end.
@@ -569,15 +577,11 @@ class _Prepared:
                                     math.hypot(*pair.amplitude)))
                 freq, decay, amp, phase = (np.concatenate([x, y]) for x, y in
                                            zip((freq, decay, amp, phase), plain, strict=True))
-        self.cycles = freq / sample_rate
-        self.decay_per_s = decay  # the bank's modes and the folded pairs' modes
-        self.decay_per_sample = decay / sample_rate
-        self.amplitude = amp
-        self.phase = phase
-        self.n_modes = freq.size
+        # the bank's modes and the folded pairs' modes, one row per quantity
+        self._set_bank(np.array([freq / sample_rate, decay, decay / sample_rate, amp, phase,
+                                 np.abs(amp)], dtype=np.float64).reshape(6, freq.size))
         self.state = np.zeros((2, self.n_modes))       # Re, Im of each mode
         self.clock = np.array([0, -1], dtype=np.int64)  # state's voice clock, last anchor
-        self.abs_amp = np.abs(amp)
         self.pairs = [_PairState(p, sample_rate, where, self.segments.extra_per_s)
                       for p in pairs]
         self.bank_bound = float(self.abs_amp.sum())
@@ -591,6 +595,9 @@ class _Prepared:
         rates = list(decay) + [min(p.g1, p.g2) for p in self.pairs]
         self.slowest_per_s = float(min(rates)) if rates else 0.0
         self.batched = False   # last rendered in a batch: the bank state is stale
+        self.mode_check = 0    # output sample of the next check of single modes
+        self.bank_version = 0  # counts the mode retirements (the batch columns' key)
+        self._columns: tuple | None = None  # (key, floats, ints) of batch_columns
         self.curve_seen = 0.0  # largest gain-curve value met so far
         self.next_check = 0    # output sample of the next retirement check
         self.last_check: tuple[int, float] | None = None  # (sample, bound) of the last one
@@ -603,6 +610,43 @@ class _Prepared:
                             else float(np.max(np.abs(self.onset))) * self.max_gain)
         if self.onset_n:
             self.end = max(self.end, min(self.start + self.onset_n, n_samples))
+
+    def _set_bank(self, bank: np.ndarray) -> None:
+        self._bank = bank
+        (self.cycles, self.decay_per_s, self.decay_per_sample, self.amplitude, self.phase,
+         self.abs_amp) = bank
+        self.n_modes = bank.shape[1]
+
+    def drop_modes(self, keep: np.ndarray) -> None:
+        """Keep only the bank modes at indices ``keep`` (ascending); the rest are retired."""
+        self.n_bank = int(np.count_nonzero(keep < self.n_bank))
+        self._set_bank(self._bank[:, keep])
+        self.state = self.state[:, keep]
+        self.bank_bound = float(self.abs_amp.sum())
+        self.bank_version += 1
+
+    def batch_columns(self, i: int) -> tuple[np.ndarray, np.ndarray]:
+        """Return the batch kernel's columns of this voice's modes in damping segment ``i``.
+
+        Float rows: first and last channel gain, cycles and decay per sample,
+        amplitude, phase, nepers at the segment's start, extra decay per sample;
+        integer rows: start sample, segment start.  Kept until a mode retires.
+        """
+        key = (self.bank_version, i)
+        if self._columns is None or self._columns[0] != key:
+            seg = self.segments
+            n = self.n_modes
+            floats = np.empty((8, n))
+            floats[0] = self.gains[0]
+            floats[1] = self.gains[-1]
+            floats[2:6] = self._bank[[0, 2, 3, 4]]
+            floats[6] = seg.nepers[i]
+            floats[7] = seg.extra_per_sample[i]
+            ints = np.empty((2, n), dtype=np.int64)
+            ints[0] = self.start
+            ints[1] = seg.start_m[i]
+            self._columns = (key, floats, ints)
+        return self._columns[1], self._columns[2]
 
     def curve_bound(self) -> float:
         """Bound of the gain curve's magnitude from here on (1 without a curve)."""
@@ -670,9 +714,16 @@ class _RetiredTails:
         self.rate = np.zeros(0)
         self.t0 = np.zeros(0)
         self.constant = 0.0
+        self._new: list[tuple[np.ndarray, np.ndarray, np.ndarray]] = []  # added since ``at``
 
     def at(self, t: int) -> float:
         """Bound of the sum of the retired tails at output sample ``t`` and later."""
+        if self._new:
+            bounds, rates, t0s = zip(*self._new, strict=True)
+            self.bound = np.concatenate([self.bound, *bounds])
+            self.rate = np.concatenate([self.rate, *rates])
+            self.t0 = np.concatenate([self.t0, *t0s])
+            self._new = []
         if not self.bound.size:
             return self.constant
         now = self.bound * np.exp(-self.rate * ((t - self.t0) / self.sample_rate))
@@ -685,12 +736,15 @@ class _RetiredTails:
         return self.constant + float(np.sum(now))
 
     def add(self, bound: float, rate_per_s: float, t: int) -> None:
-        if rate_per_s <= 0.0:
-            self.constant += bound
-            return
-        self.bound = np.append(self.bound, bound)
-        self.rate = np.append(self.rate, rate_per_s)
-        self.t0 = np.append(self.t0, float(t))
+        self.add_many(np.array([bound]), np.array([rate_per_s]), t)
+
+    def add_many(self, bounds: np.ndarray, rates_per_s: np.ndarray, t: int) -> None:
+        """Add tails ``bounds[k] exp(-rates_per_s[k] (s - t))`` from output sample ``t``."""
+        still = rates_per_s <= 0.0
+        if np.any(still):
+            self.constant += float(np.sum(bounds[still]))
+            bounds, rates_per_s = bounds[~still], rates_per_s[~still]
+        self._new.append((bounds, rates_per_s, np.full(bounds.size, float(t))))
 
 
 def _curve_values(curve, first: int, n: int, what: str, where: str) -> tuple[np.ndarray, float]:
@@ -803,8 +857,9 @@ def render_blocks(
     dtype : numpy dtype, optional
         ``float64`` (default) or ``float32``; the engine works in float64.
     retire_db : float or None, optional
-        Retire voices whose remaining tails, summed, stay this far below the
-        output's peak, dB (< 0; default -100 dB; ``None``: keep every voice).
+        Retire voices, and single modes of sounding voices, whose remaining
+        tails, summed, stay this far below the output's peak, dB (< 0; default
+        -100 dB; ``None``: keep every voice and mode).
         The result differs from ``retire_db=None`` by less than this level re
         its peak (see the module docstring).
     progress : callable, optional
@@ -939,23 +994,66 @@ def _add_onset(p: _Prepared, buf: np.ndarray, b0: int, b1: int) -> float:
 
 def _retire(active: list[_Prepared], t: int, level: float,
             tails: _RetiredTails) -> list[_Prepared]:
-    """Drop the voices (list order) whose tails from sample ``t`` keep the sum below ``level``."""
+    """Drop the voices (list order) whose tails from sample ``t`` keep the sum below ``level``.
+
+    A voice that stays loses, with :data:`RETIRE_MODES`, the single bank modes
+    whose tails, added smallest first, still keep the sum below ``level``
+    (:func:`_retire_modes`).
+    """
     owed = tails.at(t)
     if owed >= level:
         return active
     keep = []
     for p in active:
-        if t < p.next_check:
-            keep.append(p)
-            continue
-        r = p.remaining_bound(t - p.start)
-        if owed + r < level:
-            owed += r
-            tails.add(r, p.slowest_per_s, t)
-        else:
-            keep.append(p)
+        if t >= p.next_check:
+            r = p.remaining_bound(t - p.start)
+            if owed + r < level:
+                owed += r
+                tails.add(r, p.slowest_per_s, t)
+                continue
             _schedule(p, t, r, level - owed)
+        if RETIRE_MODES and p.n_modes and t >= p.mode_check:
+            owed = _retire_modes(p, t, level, owed, tails)
+            if not (p.n_modes or p.pairs or t - p.start < p.onset_n):
+                continue  # nothing left to sound
+        keep.append(p)
     return keep
+
+
+def _retire_modes(p: _Prepared, t: int, level: float, owed: float,
+                  tails: _RetiredTails) -> float:
+    """Retire bank modes of voice ``p`` at output sample ``t``; return what is owed then.
+
+    Each mode's tail from ``t`` is bounded like the voice's bank in
+    :meth:`_Prepared.remaining_bound` (closed-form amplitude, damping so far,
+    the largest channel gain and gain-curve value) and decays at least at the
+    mode's own rate.  The smallest tails go first, as long as their sum plus
+    ``owed`` stays below ``level``; the rest keep sounding.  The next check is
+    set where the first remaining mode's bound, decaying at its present rate,
+    would fit the room left (whole grid steps, at least one,
+    no later than the voice's next damping change).
+    """
+    m = t - p.start
+    seg = p.segments
+    i = seg.index(m)
+    n = p.n_modes
+    order = np.empty(n, dtype=np.int64)
+    bounds = np.empty(n)
+    n_keep, owed, wait = kernels._modes_to_retire(
+        p.abs_amp, p.decay_per_sample, float(m), float(seg.nepers_at(m)),
+        p.curve_bound() * p.max_gain * _RUNAWAY_MARGIN, owed, level,
+        float(seg.extra_per_sample[i]), order, bounds)
+    if n_keep < n:
+        gone = order[n_keep:]
+        tails.add_many(bounds[gone], p.decay_per_s[gone], t)
+        p.drop_modes(order[:n_keep])
+    nxt = t + RETIRE_EVERY * max(1, int(min(wait, 2.0 ** 50) // RETIRE_EVERY))
+    later = seg.start_m[seg.start_m > m]
+    if later.size:  # a damping change may speed the decay up
+        change = p.start + int(later[0])
+        nxt = min(nxt, -(-change // RETIRE_EVERY) * RETIRE_EVERY)
+    p.mode_check = max(nxt, t + RETIRE_EVERY)
+    return owed
 
 
 def _schedule(p: _Prepared, t: int, bound: float, room: float) -> None:
@@ -980,6 +1078,11 @@ def _schedule(p: _Prepared, t: int, bound: float, room: float) -> None:
         nxt = min(nxt, -(-change // RETIRE_EVERY) * RETIRE_EVERY)
     p.next_check = max(nxt, t + RETIRE_EVERY)
     p.last_check = (t, bound)
+
+
+RETIRE_MODES = True
+"""Retire single bank modes of a sounding voice as well as whole voices
+(:func:`_retire_modes`); False retires whole voices only (for tests)."""
 
 
 BATCH_BANKS = True
@@ -1084,27 +1187,20 @@ def _render_batch(group: list[_Prepared], buf: np.ndarray, o0: int, lo: int, hi:
     ``kept`` (shared by one render) holds them for the pieces that follow.
     """
     segments = [p.segments.index(lo - p.start) for p in group]
-    key = tuple(zip([p.index for p in group], segments, strict=True))
+    key = tuple(zip([p.index for p in group], [p.bank_version for p in group], segments,
+                    strict=True))
     arrays = None if kept is None else kept.get(key)
     if arrays is None:
-        counts = [p.n_modes for p in group]
-
-        def per_voice(values, dtype=np.float64) -> np.ndarray:
-            return np.repeat(np.array(values, dtype=dtype), counts)
-
-        arrays = (
-            per_voice([p.gains[0] for p in group]), per_voice([p.gains[-1] for p in group]),
-            np.concatenate([p.cycles for p in group]),
-            np.concatenate([p.decay_per_sample for p in group]),
-            np.concatenate([p.amplitude for p in group]),
-            np.concatenate([p.phase for p in group]),
-            per_voice([p.start for p in group], np.int64),
-            per_voice([p.segments.start_m[i] for p, i in zip(group, segments, strict=True)],
-                      np.int64),
-            per_voice([p.segments.nepers[i] for p, i in zip(group, segments, strict=True)]),
-            per_voice([p.segments.extra_per_sample[i]
-                       for p, i in zip(group, segments, strict=True)]),
-        )
+        blocks = [p.batch_columns(i) for p, i in zip(group, segments, strict=True)]
+        if len(blocks) == 1:
+            floats, ints = blocks[0]
+        else:
+            floats = np.concatenate([f for f, _ in blocks], axis=1)
+            ints = np.concatenate([n for _, n in blocks], axis=1)
+        gain_first, gain_last, cycles, decay, amp, phase, nepers, extra = floats
+        start, seg_start = ints
+        arrays = (gain_first, gain_last, cycles, decay, amp, phase, start, seg_start, nepers,
+                  extra)
         if kept is not None:
             if len(kept) >= _BATCHES_KEPT:
                 kept.clear()

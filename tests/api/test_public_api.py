@@ -87,7 +87,9 @@ def test_readme_example_runs_and_its_numbers_agree(monkeypatch) -> None:
 def test_render_score_is_the_sum_of_its_strikes(tmp_path) -> None:
     """A score of two strikes equals the sum of the two strikes rendered alone.
 
-    Invariance test (style guide section 6): the engine is linear in its voices.
+    Invariance test (style guide section 6): the engine is linear in its voices,
+    up to what each render retires (tails summed below -100 dB re its own peak,
+    the bound proved in :mod:`synth.engine.render`) and rounding (1e-9 of the peak).
     """
     import synth
     from synth.engine.score import Score, Strike
@@ -102,7 +104,9 @@ def test_render_score_is_the_sum_of_its_strikes(tmp_path) -> None:
     c = synth.render_strike(plan, "C5", seconds=0.75, velocity=0.8)
     expected = a.copy()
     expected[int(0.25 * fs):] += c
-    np.testing.assert_allclose(x, expected, rtol=0, atol=1e-9 * np.abs(expected).max())
+    retired = 1e-5 * sum(float(np.abs(y).max()) for y in (x, a, c))
+    np.testing.assert_allclose(x, expected, rtol=0,
+                               atol=retired + 1e-9 * np.abs(expected).max())
 
 
 def test_bad_plan_is_one_clear_error() -> None:

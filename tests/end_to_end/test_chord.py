@@ -75,15 +75,21 @@ def test_report_sidecar_and_wav_agree(written) -> None:
 
 
 def test_chord_is_the_sum_of_its_strikes(written) -> None:
-    """Sample for sample, to float32 rounding of the four files (4 x 2^-25 = 1.2e-7).
+    """Sample for sample, to what each render may leave out plus float32 rounding.
 
-    Measured 4.8e-8 against a peak of 0.72.
+    Each of the four renders retires modes whose tails, summed, stay 100 dB
+    below its own peak (the bound proved in :mod:`synth.engine.render`), so the
+    chord and the sum of its strikes may differ by 1e-5 of the four peaks
+    together, plus the rounding of the four files (4 x 2^-25 = 1.2e-7).
+    Measured 1.1e-6 against a peak of 0.72 (4.8e-8 when nothing was retired).
     """
     folder, _ = written
     chord, _ = sf.read(folder / "chord.wav")
-    total = sum(sf.read(folder / f"{n}.wav")[0] for n in NOTES)
+    strikes = [sf.read(folder / f"{n}.wav")[0] for n in NOTES]
+    total = sum(strikes)
     assert np.max(np.abs(chord)) > 0.1
-    assert np.max(np.abs(chord - total)) <= 4 * FLOAT32_HALF_ULP_BELOW_1
+    retired = 1e-5 * sum(float(np.max(np.abs(x))) for x in [chord, *strikes])
+    assert np.max(np.abs(chord - total)) <= retired + 4 * FLOAT32_HALF_ULP_BELOW_1
 
 
 def test_measured_partials_are_the_plan(written, plan) -> None:

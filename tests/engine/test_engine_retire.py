@@ -137,6 +137,52 @@ def test_single_mode_is_retired_once_below_level():
     assert np.any(y[: int(t_level) - RETIRE_EVERY] != 0.0)  # not before the level is reached
 
 
+def test_fast_modes_retire_while_their_voice_sounds_on(monkeypatch):
+    """Upper modes that decay fast are dropped alone; the slow fundamental rings on.
+
+    Three modes a_k exp(-g_k t) (closed form; physics.md, section 6) with
+    g = 0.5, 40 and 90 1/s: the two fast ones are below 1e-5 of the peak after
+    0.29 s, the fundamental stays above it for 23 s.  Against the render that
+    keeps everything the difference stays below -100 dB re the peak; after 1 s
+    the render equals that of the fundamental alone to rounding (1e-13 of the
+    peak, as for block sizes), and the engine computed fewer mode-samples.
+    """
+    render_mod = importlib.import_module("synth.engine.render")
+    kernels = importlib.import_module("synth.engine.kernels")
+    work = [0]
+    banks_add = kernels._banks_add
+
+    def counting(out, o0, t0, t1, *columns):
+        work[0] += columns[2].size * (t1 - t0)
+        return banks_add(out, o0, t0, t1, *columns)
+
+    monkeypatch.setattr(kernels, "_banks_add", counting)
+    bank = ModeBank([220.0, 871.0, 2156.0], [0.5, 40.0, 90.0], [1.0, 0.6, 0.4], [0.3, 1.1, 2.0])
+    voice = Voice(0, bank, channel_gains=constant_power_pan(0.2))
+    alone = Voice(0, ModeBank([220.0], [0.5], [1.0], [0.3]),
+                  channel_gains=constant_power_pan(0.2))
+    n = int(3.0 * FS)
+    full = render([voice], n, sample_rate=FS, retire_db=None)
+    work_full, work[0] = work[0], 0
+    cut = render([voice], n, sample_rate=FS)
+    work_cut = work[0]
+    fundamental = render([alone], n, sample_rate=FS, retire_db=None)
+    peak = float(np.max(np.abs(full)))
+    diff = np.abs(cut - full)
+    assert np.max(diff) < 1e-5 * peak
+    assert np.max(diff) > 0.0
+    after = int(1.0 * FS)
+    assert np.max(np.abs(cut[after:] - fundamental[after:])) <= 1e-13 * peak
+    assert np.max(np.abs(full[after:] - fundamental[after:])) > 0.0  # kept modes still add
+    # the fast modes went within the first second: at most 1 s of them was computed
+    assert work_cut <= work_full - 2 * (n - after)
+    monkeypatch.setattr(render_mod, "RETIRE_MODES", False)
+    work[0] = 0
+    voices_only = render([voice], n, sample_rate=FS)
+    assert work[0] == work_full  # whole-voice retirement alone keeps all three here
+    assert np.array_equal(voices_only, full)
+
+
 def test_peak_bound_holds_and_is_none_for_undeclared_curves(rng):
     """The advance bound is never below the rendered peak; curves need declared bounds."""
     voices = passage(rng, n_strikes=15)
