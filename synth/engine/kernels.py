@@ -1356,3 +1356,76 @@ def _rotor_pairs_add(out, o0, s0, n, rotor, curve, use_curve, work, n_p, dt,
             out[row, 0] += acc0
             if n_ch == 2:
                 out[row, 1] += acc1
+
+
+# ======================================================================================
+# Output samples: a block scaled by a gain, measured and converted for the file in one
+# pass (render.py, "scale_block").  Each sample is ``v = x * gain`` in float64, as the
+# engine scales; for a float32 file ``v`` is then rounded to float32 and measured as
+# such.  For an integer file the kernel writes ``rint(v * 2^31)`` (nearest, ties to
+# even), at most 2^31 - 1, as int32: the integer at full scale 2^31 that libsndfile
+# itself derives from a double in [-1, 1] before it keeps the top 24 or 16 bits
+# (its clipping conversion, which soundfile switches on).  No fastmath: the
+# comparisons must see NaN, and the rounding must be the one asked for.
+#
+# Returned, for the block: the largest |x|, the largest |v| and that of rows
+# ``tail_from ..`` (over finite samples), the first row holding a sample that is not
+# finite, and the first row holding a finite |v| > 1 (-1: none).  Such a sample's
+# output is 0.
+# ======================================================================================
+
+_INT32_FULL_SCALE = 2147483648.0   # 2^31
+_INT32_TOP = 2147483647.0          # 2^31 - 1
+
+
+@njit(cache=True)
+def _scale_block(block, gain, to_int, out_int, out_f32, tail_from):
+    """Scale ``block`` (rows, channels) by ``gain`` into ``out_int`` or ``out_f32``; measure it.
+
+    ``to_int``: write int32 at full scale 2^31 into ``out_int``; otherwise
+    float32 into ``out_f32`` (the other array is not touched).  Returns
+    ``(peak_in, peak, tail, first_not_finite, first_beyond)``, see the section
+    comment above.
+    """
+    n, n_ch = block.shape
+    peak_in = 0.0
+    peak = 0.0
+    tail = 0.0
+    first_not_finite = -1
+    first_beyond = -1
+    for i in range(n):
+        for c in range(n_ch):
+            x = block[i, c]
+            ax = abs(x)
+            if ax > peak_in:
+                peak_in = ax
+            v = x * gain
+            if not to_int:
+                f = np.float32(v)
+                out_f32[i, c] = f
+                v = float(f)
+            a = abs(v)
+            if a <= 1.0:
+                if a > peak:
+                    peak = a
+                if i >= tail_from and a > tail:
+                    tail = a
+                if to_int:
+                    r = np.rint(v * _INT32_FULL_SCALE)
+                    out_int[i, c] = np.int32(r if r < _INT32_TOP else _INT32_TOP)
+                continue
+            if a - a != 0.0:  # NaN or infinite
+                if first_not_finite < 0:
+                    first_not_finite = i
+            else:
+                if a > peak:
+                    peak = a
+                if i >= tail_from and a > tail:
+                    tail = a
+                if first_beyond < 0:
+                    first_beyond = i
+            if to_int:
+                out_int[i, c] = 0
+            else:
+                out_f32[i, c] = 0.0
+    return peak_in, peak, tail, first_not_finite, first_beyond
