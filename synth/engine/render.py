@@ -1526,6 +1526,7 @@ def scale_block(block: np.ndarray, gain: float, out: np.ndarray, *,
             out.flags.c_contiguous and out.flags.writeable):
         raise ModelError(f"scaled samples: must be a writable C-ordered int32 or float32 "
                          f"array of shape {block.shape}, got {out.dtype} {out.shape}")
+    block = np.ascontiguousarray(block)  # the kernel reads it as one run of samples
     to_int = out.dtype == np.int32
     tail_row = block.shape[0] if tail_from is None else max(0, int(tail_from))
     peak_in, peak, tail, bad, beyond = kernels._scale_block(
