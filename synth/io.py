@@ -26,11 +26,12 @@ Samples are floats with full scale at 1.0.  A sample beyond full scale raises
 clip or wrap it when converting to PCM); the peak planning of
 :mod:`synth.engine.render` makes sure this never happens in a normal render.
 A 16- or 24-bit file may also be written from int32 blocks at full scale 2^31,
-which libsndfile only shifts into place: libsndfile turns a float sample ``v``
-into the integer ``rint(v 2^31)`` (at most ``2^31 - 1``) before it keeps the
-top bits, so a caller that computes that integer itself
-(:func:`synth.engine.render.scale_block`, used by :mod:`synth.output`) gets
-the same file byte for byte and saves libsndfile's conversion.
+which libsndfile only shifts into place: libsndfile (1.2, with the clipping
+that soundfile switches on) turns a float sample ``v`` into the integer
+``rint(v 2^31)`` (at most ``2^31 - 1``) before it keeps the top bits, so a
+caller that computes that integer itself (:func:`synth.engine.render.scale_block`,
+used by :mod:`synth.output`) gets the same file byte for byte and saves
+libsndfile's conversion.
 
 :func:`write_sidecar` writes the JSON record of the settings behind a render
 next to it (``take.wav`` -> ``take.json``), atomically as well.

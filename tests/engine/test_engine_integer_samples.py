@@ -1,7 +1,9 @@
 """Samples scaled for the file in one pass (synth.engine.render.scale_block, synth.output).
 
 External reference: soundfile (libsndfile) writing the same float64 samples
-itself.  libsndfile (1.2, with the clipping conversion soundfile switches on)
+itself (passing with libsndfile 1.2.0 under soundfile 0.12.0, the oldest
+supported, and 1.2.2 under soundfile 0.14.0).  libsndfile (with the clipping
+conversion soundfile switches on)
 turns a double ``v`` in [-1, 1] into the integer ``lrint(v 2^31)`` at full
 scale 2^31, kept below 2^31, and writes its top 24 or 16 bits; an int32 sample
 is written as its top bits too.  The integers :func:`scale_block` computes
@@ -207,3 +209,13 @@ def test_one_buffer_handed_out_again_is_written_block_by_block(tmp_path):
     _write_through_output(tmp_path / "ours.wav", blocks, gain, "pcm24")
     lib = _file_bytes(tmp_path / "lib.wav", [np.concatenate(blocks) * gain], "PCM_24")
     assert (tmp_path / "ours.wav").read_bytes() == lib
+
+
+@pytest.mark.parametrize("fmt, dtype", [("float32", np.int32), ("pcm16", np.int16),
+                                        ("pcm24", np.int64)])
+def test_integer_blocks_only_int32_and_only_for_pcm(tmp_path, fmt, dtype):
+    """write_wav takes int32 blocks for the 16- and 24-bit formats alone; nothing else."""
+    with pytest.raises(AudioError, match="samples must be floats"):
+        write_wav(tmp_path / "x.wav", np.zeros((10, 2), dtype=dtype), sample_rate=FS,
+                  sample_format=fmt)
+    assert list(tmp_path.iterdir()) == []
