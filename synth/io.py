@@ -25,6 +25,13 @@ Samples are floats with full scale at 1.0.  A sample beyond full scale raises
 :class:`~synth.errors.AudioError` rather than being clipped (libsndfile would
 clip or wrap it when converting to PCM); the peak planning of
 :mod:`synth.engine.render` makes sure this never happens in a normal render.
+A 16- or 24-bit file may also be written from int32 blocks at full scale 2^31,
+which libsndfile only shifts into place: libsndfile (1.2, with the clipping
+that soundfile switches on) turns a float sample ``v`` into the integer
+``rint(v 2^31)`` (at most ``2^31 - 1``) before it keeps the top bits, so a
+caller that computes that integer itself (:func:`synth.engine.render.scale_block`,
+used by :mod:`synth.output`) gets the same file byte for byte and saves
+libsndfile's conversion.
 
 :func:`write_sidecar` writes the JSON record of the settings behind a render
 next to it (``take.wav`` -> ``take.json``), atomically as well.
@@ -561,10 +568,13 @@ class OutputPlan:
             self.discard()
 
 
-def _as_block(block: Any, channels: int | None, where: str) -> np.ndarray:
+def _as_block(block: Any, channels: int | None, where: str, integers: bool = False
+              ) -> np.ndarray:
     arr = np.asarray(block)
-    if arr.dtype.kind != "f":
-        raise AudioError(f"{where}: samples must be floats (full scale 1.0), got {arr.dtype}")
+    if arr.dtype.kind != "f" and not (integers and arr.dtype == np.int32):
+        allowed = "floats (full scale 1.0) or int32 (full scale 2^31)" if integers else (
+            "floats (full scale 1.0)")
+        raise AudioError(f"{where}: samples must be {allowed}, got {arr.dtype}")
     if arr.ndim == 1:
         arr = arr[:, None]
     if arr.ndim != 2 or arr.shape[1] not in (1, 2):
@@ -578,17 +588,28 @@ def _as_block(block: Any, channels: int | None, where: str) -> np.ndarray:
 
 
 def _check_range(arr: np.ndarray, where: str, first: int) -> None:
-    if not arr.size:
+    if not arr.size or arr.dtype.kind != "f":
         return
     peak = float(np.max(np.abs(arr)))
     if peak <= 1.0:
         return
     if not math.isfinite(peak):
-        bad = first + int(np.flatnonzero(~np.isfinite(arr).all(axis=1))[0])
-        raise AudioError(f"{where}: sample {bad} is not finite; nothing was written")
-    bad = first + int(np.flatnonzero((np.abs(arr) > 1.0).any(axis=1))[0])
-    raise AudioError(
-        f"{where}: sample {bad} is beyond full scale (peak {peak:.4g} = "
+        raise range_error(where, first + int(np.flatnonzero(~np.isfinite(arr).all(axis=1))[0]),
+                          math.nan)
+    raise range_error(where, first + int(np.flatnonzero((np.abs(arr) > 1.0).any(axis=1))[0]),
+                      peak)
+
+
+def range_error(where: str, sample: int, peak: float) -> AudioError:
+    """Return the refusal of a sample beyond full scale or not finite.
+
+    ``peak`` is the largest magnitude of the sample's block; a peak that is not
+    finite refuses the sample as not finite.
+    """
+    if not math.isfinite(peak):
+        return AudioError(f"{where}: sample {sample} is not finite; nothing was written")
+    return AudioError(
+        f"{where}: sample {sample} is beyond full scale (peak {peak:.4g} = "
         f"{20 * math.log10(peak):+.2f} dBFS) and would clip; lower the gain or normalise "
         "the peak; nothing was written"
     )
@@ -612,7 +633,12 @@ def write_wav(
         Target file (its folder must exist).
     samples : ndarray or iterable of ndarray
         One float array of shape (n,) or (n, channels), or an iterable of such
-        blocks (all with the same number of channels), full scale 1.0.
+        blocks (all with the same number of channels), full scale 1.0.  For
+        ``pcm16`` and ``pcm24`` a block may instead hold int32 samples at full
+        scale 2^31, which libsndfile only shifts (the top 16 or 24 bits go to the
+        file): every value is a valid sample, so such a block is not checked.
+        The source may hand out one buffer again and again: each block is
+        written before the next is asked for.
     sample_rate : int, optional
         44100, 48000 (default) or 96000 Hz.
     sample_format : str, optional
@@ -664,7 +690,8 @@ def write_wav(
         first = next(iterator, None)
         if first is None:
             raise AudioError(f"{where}: no samples to write")
-        first = _as_block(first, channels, where)
+        integers = subtype != "FLOAT"
+        first = _as_block(first, channels, where, integers)
         n_ch = first.shape[1]
         written = 0
         try:
@@ -684,7 +711,7 @@ def write_wav(
                                      ) from None
                 written += block.shape[0]
                 nxt = next(iterator, None)  # errors of the block source pass through as they are
-                block = None if nxt is None else _as_block(nxt, n_ch, where)
+                block = None if nxt is None else _as_block(nxt, n_ch, where, integers)
         except BaseException:
             with contextlib.suppress(Exception):
                 f.close()

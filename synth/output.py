@@ -5,6 +5,16 @@ while the peak is measured: the first :data:`SCRATCH_HELD_BYTES` (32 MiB, 43.7 s
 of 48 kHz stereo) in memory, the rest in a temporary file on disk; the gain is
 then chosen and the samples are scaled as they are copied into the
 WAV: the file equals that of a second render scaled by the engine bit for bit.
+While the render is kept, only its peak is measured, without temporaries; a
+ring-out render also notes the peak of every 10 ms, where the file may stop.
+Each block then goes to the file in one compiled pass
+(:func:`synth.engine.render.scale_block`): the gain (the engine's float64
+product), the peak and that of the last 10 ms, the refusal of a sample beyond
+full scale or not finite (:func:`synth.io.range_error`, as
+:func:`synth.io.write_wav` words it), and, for 16- and 24-bit files, the integers
+libsndfile would derive from the float64 samples (``rint(v 2^31)``), which it
+then only shifts into place: the file is the same byte for byte as one written
+from the float64 samples.  A float32 file gets the float32 samples.
 With a fixed gain whose advance peak bound (:func:`synth.engine.render.peak_bound`)
 stays at or below full scale, nothing can clip and the samples are streamed
 straight into the WAV; otherwise the temporary file decides whether the gain
@@ -59,6 +69,7 @@ from synth.engine.render import (
     plan_gain,
     render_blocks,
     ring_out_sample,
+    scale_block,
 )
 from synth.engine.voice import Voice
 from synth.errors import AudioError, ConfigError
@@ -201,7 +212,6 @@ def render_to_wav(path: str | Path, voices: Sequence[Voice], n_samples: int, *,
     target = io.check_writable(path, force=force)
     side = io.sidecar_path(target)
     io.check_writable(side, force=force)
-    out_dtype = np.float32 if sample_format == "float32" else np.float64
     fade_n = min(int(n_samples), int(round(fade_seconds(end_level_db) * sample_rate)))
     hold = max(1, int(round(END_HOLD_S * sample_rate)))
 
@@ -215,15 +225,15 @@ def render_to_wav(path: str | Path, voices: Sequence[Voice], n_samples: int, *,
         bound = peak_bound(voices, n_samples, sample_rate=sample_rate, channels=channels)
         gain = plan_gain(0.0, target_dbfs=target_dbfs, gain_db=gain_db).gain
         if bound is not None and bound * gain <= 1.0:  # cannot clip: stream it
-            unscaled = _TailMeter(_faded(blocks(), n_out, fade_n), n_out, 0)
-            meter = _TailMeter(_scaled(unscaled, gain, out_dtype), n_out, hold)
+            meter = _ForFile(_faded(blocks(), n_out, fade_n), gain, sample_format,
+                             n_out - hold, str(target))
             io.write_wav(target, meter, sample_rate=sample_rate,
                          sample_format=sample_format, channels=channels, force=force)
-            plan = plan_gain(unscaled.peak, target_dbfs=target_dbfs, gain_db=gain_db)
+            plan = plan_gain(meter.peak_in, target_dbfs=target_dbfs, gain_db=gain_db)
     streamed = plan is not None
     if plan is None:
         with _Scratch(target.parent if scratch_dir is None else Path(scratch_dir),
-                      channels, hold) as scratch:
+                      channels, hold if ring_out else None) as scratch:
             source = blocks() if ring_out else _faded(blocks(), n_out, fade_n)
             peak = scratch.fill(source)
             plan = plan_gain(peak, target_dbfs=target_dbfs, gain_db=gain_db)
@@ -239,7 +249,7 @@ def render_to_wav(path: str | Path, voices: Sequence[Voice], n_samples: int, *,
             rows = scratch.blocks(block_size, n_out)
             if ring_out and faded:
                 rows = _faded(rows, n_out, fade_n)
-            meter = _TailMeter(_scaled(rows, plan.gain, out_dtype), n_out, hold)
+            meter = _ForFile(rows, plan.gain, sample_format, n_out - hold, str(target))
             io.write_wav(target, meter, sample_rate=sample_rate, sample_format=sample_format,
                          channels=channels, force=force)
     tail_db = (20.0 * math.log10(meter.tail / meter.peak) if meter.tail > 0 and meter.peak > 0
@@ -266,14 +276,6 @@ def render_to_wav(path: str | Path, voices: Sequence[Voice], n_samples: int, *,
 # --------------------------------------------------------------------------- one pass
 _LSB = {"pcm16": 2.0 ** -15, "pcm24": 2.0 ** -23}
 """Step of the integer sample formats, full scale."""
-
-
-def _scaled(blocks: Iterable[np.ndarray], gain: float, dtype) -> Iterator[np.ndarray]:
-    """Apply the gain as the engine does (float64 product, then the output type)."""
-    for block in blocks:
-        if gain != 1.0:
-            block = block * gain
-        yield block if dtype == np.float64 else block.astype(dtype)
 
 
 def _faded(blocks: Iterable[np.ndarray], n_rows: int, fade_rows: int) -> Iterator[np.ndarray]:
@@ -308,25 +310,50 @@ def _row_max_abs(block: np.ndarray) -> np.ndarray:
     return row
 
 
-class _TailMeter:
-    """Pass blocks through; keep their largest magnitude and that of the last ``hold`` rows."""
+class _ForFile:
+    """Scale float64 blocks into the file's sample type and measure them, one pass a block.
 
-    def __init__(self, blocks: Iterable[np.ndarray], n_rows: int, hold: int):
+    Iterating yields each block times ``gain`` (the engine's float64 product) as
+    the file holds it: int32 at full scale 2^31 for ``pcm16`` and ``pcm24``, whose
+    top bits libsndfile keeps (the integers it would derive from the float64
+    samples itself, so the file is the same byte for byte), float32 for
+    ``float32`` (:func:`synth.engine.render.scale_block`).  One buffer is handed
+    out again and again: :func:`synth.io.write_wav` writes each block before it
+    asks for the next.  Kept on the way: the largest magnitude before the gain
+    (``peak_in``), after it (``peak``) and over the rows from ``tail_from`` on
+    (``tail``).  A sample beyond full scale or not finite stops the write with
+    :func:`synth.io.range_error`'s refusal (``where``: the file).
+    """
+
+    def __init__(self, blocks: Iterable[np.ndarray], gain: float, sample_format: str,
+                 tail_from: int, where: str):
         self._blocks = blocks
-        self._first = n_rows - hold
+        self._gain = gain
+        self._dtype = np.float32 if sample_format == "float32" else np.int32
+        self._tail_from = tail_from
+        self._where = where
+        self.peak_in = 0.0
         self.peak = 0.0
         self.tail = 0.0
 
     def __iter__(self) -> Iterator[np.ndarray]:
         row = 0
+        buf = np.empty((0, 0), dtype=self._dtype)
         for block in self._blocks:
-            if block.size:
-                self.peak = max(self.peak, max_abs(block))
-                if row + block.shape[0] > self._first:
-                    end = block[max(0, self._first - row):]
-                    self.tail = max(self.tail, max_abs(end))
-            row += block.shape[0]
-            yield block
+            n = block.shape[0]
+            if buf.shape[0] < n or buf.shape[1] != block.shape[1]:
+                buf = np.empty(block.shape, dtype=self._dtype)
+            out = buf[:n]
+            got = scale_block(block, self._gain, out, tail_from=self._tail_from - row)
+            if got.first_not_finite is not None:
+                raise io.range_error(self._where, row + got.first_not_finite, math.nan)
+            if got.first_beyond is not None:
+                raise io.range_error(self._where, row + got.first_beyond, got.peak)
+            self.peak_in = max(self.peak_in, got.peak_in)
+            self.peak = max(self.peak, got.peak)
+            self.tail = max(self.tail, got.tail)
+            row += n
+            yield out
 
 
 SCRATCH_HELD_BYTES = 32 * 2 ** 20
@@ -341,12 +368,13 @@ class _Scratch:
     temporary file (opened when first needed, removed on close).
     """
 
-    def __init__(self, folder: Path, channels: int, chunk: int, held_bytes: int | None = None):
+    def __init__(self, folder: Path, channels: int, chunk: int | None,
+                 held_bytes: int | None = None):
         self.folder = folder
         self.channels = channels
         self.rows = 0
         self.chunk = chunk
-        self._chunks: list[np.ndarray] = []  # largest magnitude per ``chunk`` rows
+        self._chunks: list[np.ndarray] = []  # largest magnitude per ``chunk`` rows, if asked
         self._room = SCRATCH_HELD_BYTES if held_bytes is None else held_bytes
         self._held: list[np.ndarray] = []
         self._file: IO[bytes] | None = None
@@ -371,13 +399,22 @@ class _Scratch:
                 self._file.close()
 
     def fill(self, blocks: Iterable[np.ndarray]) -> float:
-        """Keep every block; return their largest magnitude."""
+        """Keep every block; return their largest magnitude.
+
+        With a ``chunk`` length, the largest magnitude of every ``chunk`` rows is
+        noted too (for :meth:`rung_out_rows`).
+        """
         peak = 0.0
+        chunk = self.chunk
         for block in blocks:
-            if block.size:
+            if not block.size:
+                pass
+            elif chunk is None:
+                peak = max(peak, max_abs(block))
+            else:
                 row_max = _row_max_abs(block)
                 peak = max(peak, float(row_max.max()))
-                self._note_chunks(row_max)
+                self._note_chunks(row_max, chunk)
             data = np.ascontiguousarray(block, dtype=np.float64)
             if self._file is None and data.nbytes <= self._room:
                 self._held.append(data)  # the engine hands out a fresh array per block
@@ -391,12 +428,12 @@ class _Scratch:
             self.rows += block.shape[0]
         return peak
 
-    def _note_chunks(self, row_max: np.ndarray) -> None:
-        ids = (self.rows + np.arange(row_max.size)) // self.chunk
+    def _note_chunks(self, row_max: np.ndarray, chunk: int) -> None:
+        ids = (self.rows + np.arange(row_max.size)) // chunk
         starts = np.flatnonzero(np.diff(ids)) + 1
         starts = np.concatenate([[0], starts])
         values = np.maximum.reduceat(row_max, starts)
-        if self._chunks and self.rows % self.chunk:  # the first chunk goes on from the last
+        if self._chunks and self.rows % chunk:  # the first chunk goes on from the last
             last = self._chunks[-1]
             last[-1] = max(last[-1], values[0])
             values = values[1:]
@@ -405,6 +442,8 @@ class _Scratch:
 
     def rung_out_rows(self, threshold: float) -> int | None:
         """Rows up to one whole chunk after the last chunk reaching ``threshold`` (None: never)."""
+        if self.chunk is None:
+            raise ValueError("a render without a chunk length keeps no chunk maxima")
         chunks = np.concatenate(self._chunks) if self._chunks else np.zeros(0)
         if threshold <= 0:
             return None

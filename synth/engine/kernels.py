@@ -1404,3 +1404,130 @@ def _rotor_pairs_add(out, o0, s0, n, rotor, curve, use_curve, work, n_p, dt,
             out[row, 0] += acc0
             if n_ch == 2:
                 out[row, 1] += acc1
+
+
+# ======================================================================================
+# Output samples: a block scaled by a gain, measured and converted for the file in one
+# pass (render.py, "scale_block").  Each sample is ``v = x * gain`` in float64, as the
+# engine scales; for a float32 file ``v`` is then rounded to float32 and measured as
+# such.  For an integer file the kernel writes ``rint(v * 2^31)`` (nearest, ties to
+# even), at most 2^31 - 1, as int32: the integer at full scale 2^31 that libsndfile
+# itself derives from a double in [-1, 1] before it keeps the top 24 or 16 bits
+# (its clipping conversion, which soundfile switches on).  No fastmath: the
+# comparisons must see NaN, and the rounding must be the one asked for.
+#
+# Returned, for the block: the largest |x|, the largest |v| and that of rows
+# ``tail_from ..`` (over finite samples), the first row holding a sample that is not
+# finite, and the first row holding a finite |v| > 1 (-1: none).  Such a sample's
+# output is 0.
+#
+# The common case takes one loop that vectorises: the largest |x| is the largest of
+# the samples' bit patterns with the sign bit cleared (integers order non-negative
+# doubles as their values, and every NaN above infinity), and for gain > 0 the
+# largest |v| is the largest |x| times the gain, rounded (rounding to nearest never
+# reverses an order; float32 rounding neither).  Only a block whose largest |v|
+# passes full scale, or is not finite, is taken again sample by sample.
+# ======================================================================================
+
+_INT32_FULL_SCALE = 2147483648.0   # 2^31
+_INT32_TOP = 2147483647.0          # 2^31 - 1
+_MAGNITUDE_BITS = 0x7FFFFFFFFFFFFFFF
+
+
+@njit(cache=True)
+def _scale_run(flat, bits, gain, to_int, out_int, out_f32, k0, k1):
+    """Scale ``flat[k0:k1]`` into the flat output; return the largest magnitude's bits.
+
+    Samples that are not finite or beyond full scale get some output here (the
+    caller takes their block again with :func:`_scale_checked`).
+    """
+    top = 0
+    for k in range(k0, k1):
+        b = bits[k] & _MAGNITUDE_BITS
+        top = b if b > top else top
+        v = flat[k] * gain
+        if to_int:
+            r = np.rint(v * _INT32_FULL_SCALE)
+            r = r if r < _INT32_TOP else _INT32_TOP
+            r = r if r > -_INT32_FULL_SCALE else -_INT32_FULL_SCALE  # NaN went to the top
+            out_int[k] = np.int32(r)
+        else:
+            out_f32[k] = np.float32(v)
+    return top
+
+
+@njit(cache=True)
+def _scale_checked(block, gain, to_int, out_int, out_f32, tail_from):
+    """Sample by sample: :func:`_scale_block`'s result for any block."""
+    n, n_ch = block.shape
+    peak_in = 0.0
+    peak = 0.0
+    tail = 0.0
+    first_not_finite = -1
+    first_beyond = -1
+    for i in range(n):
+        for c in range(n_ch):
+            x = block[i, c]
+            ax = abs(x)
+            if ax > peak_in:
+                peak_in = ax
+            v = x * gain
+            if not to_int:
+                f = np.float32(v)
+                out_f32[i, c] = f
+                v = float(f)
+            a = abs(v)
+            if a <= 1.0:
+                if a > peak:
+                    peak = a
+                if i >= tail_from and a > tail:
+                    tail = a
+                if to_int:
+                    r = np.rint(v * _INT32_FULL_SCALE)
+                    out_int[i, c] = np.int32(r if r < _INT32_TOP else _INT32_TOP)
+                continue
+            if a - a != 0.0:  # NaN or infinite
+                if first_not_finite < 0:
+                    first_not_finite = i
+            else:
+                if a > peak:
+                    peak = a
+                if i >= tail_from and a > tail:
+                    tail = a
+                if first_beyond < 0:
+                    first_beyond = i
+            if to_int:
+                out_int[i, c] = 0
+            else:
+                out_f32[i, c] = 0.0
+    return peak_in, peak, tail, first_not_finite, first_beyond
+
+
+@njit(cache=True)
+def _scale_block(block, gain, to_int, out_int, out_f32, tail_from):
+    """Scale ``block`` (rows, channels; C order) by ``gain`` into ``out_int`` or ``out_f32``.
+
+    ``to_int``: write int32 at full scale 2^31 into ``out_int``; otherwise
+    float32 into ``out_f32`` (the other array is not touched); both C order, the
+    block's shape.  Returns ``(peak_in, peak, tail, first_not_finite,
+    first_beyond)``, see the section comment above.
+    """
+    n, n_ch = block.shape
+    size = n * n_ch
+    flat = block.reshape(size)
+    bits = flat.view(np.int64)
+    flat_int = out_int.reshape(out_int.size)
+    flat_f32 = out_f32.reshape(out_f32.size)
+    t0 = min(max(tail_from, 0), n) * n_ch
+    head = _scale_run(flat, bits, gain, to_int, flat_int, flat_f32, 0, t0)
+    rest = _scale_run(flat, bits, gain, to_int, flat_int, flat_f32, t0, size)
+    found = np.array([max(head, rest), rest], dtype=np.int64).view(np.float64)
+    peak_in = found[0]
+    peak = peak_in * gain
+    tail = found[1] * gain
+    if not to_int:
+        peak = float(np.float32(peak))
+        tail = float(np.float32(tail))
+    if gain > 0.0 and peak <= 1.0:  # every |v| within full scale (none is NaN)
+        return peak_in, peak, tail, -1, -1
+    return _scale_checked(block, gain, to_int, out_int, out_f32, tail_from)

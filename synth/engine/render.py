@@ -82,7 +82,8 @@ render runs once: :mod:`synth.output` keeps the unscaled float64 samples in a
 temporary file, measures the peak on the way, chooses the gain with
 :func:`plan_gain` and scales the samples as it writes the WAV (the same
 multiplication the engine would apply, so the file equals that of a second
-render bit for bit).  With a fixed gain, :func:`peak_bound` bounds the peak in
+render bit for bit; :func:`scale_block` applies the gain, measures the block and
+converts it for the file in one pass).  With a fixed gain, :func:`peak_bound` bounds the peak in
 advance from the voices alone; when the bound times the gain stays at or below
 full scale nothing can clip and the samples are streamed straight into the
 file.  :func:`measure_peak` (one render that keeps only the peak) remains for
@@ -1554,6 +1555,81 @@ def plan_gain(
         limited = True
     return GainPlan(peak, gain, _db(gain), _db(peak * gain), "fixed", gain_db, would_clip,
                     limited)
+
+
+
+@dataclass(frozen=True)
+class ScaledBlock:
+    """What :func:`scale_block` measured in one block (rows counted from the block's start).
+
+    Attributes
+    ----------
+    peak_in : float
+        Largest magnitude of the block before the gain.
+    peak : float
+        Largest magnitude of the finite scaled samples (as written: float32 for a
+        float32 output).
+    tail : float
+        The same over the rows from ``tail_from`` on (0 when there are none).
+    first_not_finite : int or None
+        First row holding a scaled sample that is NaN or infinite.
+    first_beyond : int or None
+        First row holding a finite scaled sample beyond full scale (magnitude > 1).
+    """
+
+    peak_in: float
+    peak: float
+    tail: float
+    first_not_finite: int | None
+    first_beyond: int | None
+
+
+_NO_INT32 = np.zeros((0, 0), dtype=np.int32)
+_NO_FLOAT32 = np.zeros((0, 0), dtype=np.float32)
+
+
+def scale_block(block: np.ndarray, gain: float, out: np.ndarray, *,
+                tail_from: int | None = None) -> ScaledBlock:
+    """Scale ``block`` by ``gain`` into ``out`` and measure it, in one compiled pass.
+
+    Each sample becomes ``v = x * gain`` in float64, the product the engine
+    applies (:func:`render_blocks` with ``gain``).  An int32 ``out`` receives
+    ``rint(v * 2^31)`` (ties to even), at most ``2^31 - 1``: integer samples at
+    full scale ``2^31``.  A float32 ``out`` receives ``v`` rounded to float32,
+    and the measures are taken on those values.  A sample that is not finite
+    or beyond full scale is written as 0 and reported.
+
+    Parameters
+    ----------
+    block : ndarray of float64, shape (rows, channels)
+        The samples, full scale 1.0.
+    gain : float
+        Linear gain.
+    out : ndarray of int32 or float32, shape (rows, channels)
+        Where the scaled samples go (C order).
+    tail_from : int, optional
+        First row of the tail measured on its own (default: none).
+
+    Returns
+    -------
+    ScaledBlock
+        Peaks before and after the gain, the tail's peak and the first bad rows.
+    """
+    if block.dtype != np.float64 or block.ndim != 2:
+        raise ModelError(f"samples to scale: must be float64 of shape (rows, channels), "
+                         f"got {block.dtype} {block.shape}")
+    if out.shape != block.shape or out.dtype not in (np.int32, np.float32) or not (
+            out.flags.c_contiguous and out.flags.writeable):
+        raise ModelError(f"scaled samples: must be a writable C-ordered int32 or float32 "
+                         f"array of shape {block.shape}, got {out.dtype} {out.shape}")
+    block = np.ascontiguousarray(block)  # the kernel reads it as one run of samples
+    to_int = out.dtype == np.int32
+    tail_row = block.shape[0] if tail_from is None else max(0, int(tail_from))
+    peak_in, peak, tail, bad, beyond = kernels._scale_block(
+        block, float(gain), to_int, out if to_int else _NO_INT32,
+        _NO_FLOAT32 if to_int else out, tail_row)
+    return ScaledBlock(peak_in, peak, tail, None if bad < 0 else int(bad),
+                       None if beyond < 0 else int(beyond))
 
 
 def ring_out_sample(voices: Sequence[Voice], *, sample_rate: float,
