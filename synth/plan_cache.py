@@ -246,7 +246,7 @@ def _encode_set(value, out) -> bool:
     return frozen
 
 
-def _encode_array(value: np.ndarray, out) -> bool:
+def _encode_array(value, out) -> bool:
     if value.dtype.hasobject:
         raise TypeError("cannot key a plan on an array of objects")
     data = np.ascontiguousarray(value).tobytes()

@@ -475,8 +475,9 @@ class Voicer:
         voice = self._voice(model, amps, phases, 0.0, None, (), mono=True)
         onset = _onset(voice, pulse, self.sample_rate, keep=False) if self.attack else None
         bank = voice.modes
+        phase = np.zeros(bank.n_modes) if bank.phase_rad is None else bank.phase_rad
         return StrikePlan(note, model.pan, (bank.frequency_hz, bank.decay_per_s,
-                                            bank.amplitude, bank.phase_rad),
+                                            bank.amplitude, phase),
                           voice.pairs, onset)
 
     def _placed(self, plan: StrikePlan, time_s: float, release_s, pedal,
