@@ -105,6 +105,40 @@ def _one_cache_writer() -> None:
 
 _one_cache_writer()
 
+
+def _numba_without_blas_probe() -> None:
+    """Load numba's array functions without importing scipy.linalg for them.
+
+    numba loads its implementations of numpy functions on the first call of any
+    kernel, even one read from its cache; one of them (``numba.np.arraymath``)
+    imports ``scipy.linalg.cython_blas`` on import only to learn whether BLAS is
+    there for the inner products of ``np.correlate`` and ``np.convolve``.  No
+    kernel here calls those, but that import (scipy.linalg and what it pulls in)
+    was about 0.2 s of the 0.5-0.6 s a new process spent before its first
+    sample.  So, when neither is loaded yet and no other thread could be
+    importing, ``scipy.linalg`` is answered as absent while that one module
+    loads (numba then takes its plain loop for those two functions), and
+    ``import scipy.linalg`` works as always afterwards.  A process that already
+    holds scipy.linalg is left as it is.
+    """
+    import sys
+    import threading
+
+    if ("numba.np.arraymath" in sys.modules or "scipy.linalg" in sys.modules
+            or threading.active_count() > 1):
+        return
+    sys.modules["scipy.linalg"] = None  # type: ignore[assignment]
+    try:
+        import numba.np.arraymath  # noqa: F401
+    except ImportError:  # a numba that needs scipy.linalg there: load it as usual
+        pass
+    finally:
+        if sys.modules.get("scipy.linalg", 0) is None:
+            del sys.modules["scipy.linalg"]
+
+
+_numba_without_blas_probe()
+
 _TWO_PI = 2.0 * math.pi
 _PAIR_CHUNK = 256
 
