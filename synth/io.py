@@ -31,7 +31,9 @@ that soundfile switches on) turns a float sample ``v`` into the integer
 ``rint(v 2^31)`` (at most ``2^31 - 1``) before it keeps the top bits, so a
 caller that computes that integer itself (:func:`synth.engine.render.scale_block`,
 used by :mod:`synth.output`) gets the same file byte for byte and saves
-libsndfile's conversion.
+libsndfile's conversion.  :func:`write_pcm_wav` goes one step further: it
+takes the samples already packed as 16- or 24-bit PCM bytes and writes the
+canonical WAV header itself, as libsndfile would (same atomic write).
 
 :func:`write_sidecar` writes the JSON record of the settings behind a render
 next to it (``take.wav`` -> ``take.json``), atomically as well.
@@ -63,6 +65,7 @@ import math
 import os
 import re
 import signal
+import struct
 import tempfile
 import threading
 from collections.abc import Iterable, Mapping
@@ -720,6 +723,95 @@ def write_wav(
             f.close()  # libsndfile rewrites the header here
         except (RuntimeError, OSError) as exc:
             raise AudioError(f"{where}: cannot write WAV ({_sf_reason(exc)})") from None
+
+    return _atomic_write(target, ".wav", write, force=force)
+
+
+PCM_WIDTHS: Final[dict[str, int]] = {"pcm16": 2, "pcm24": 3}
+"""Bytes per sample of the integer formats."""
+
+
+def write_pcm_wav(
+    path: str | os.PathLike[str],
+    chunks: Iterable[Any],
+    *,
+    sample_rate: int = DEFAULT_SAMPLE_RATE_HZ,
+    sample_format: str = DEFAULT_SAMPLE_FORMAT,
+    channels: int = 2,
+    force: bool = False,
+) -> Path:
+    """Write packed PCM bytes as a WAV file, atomically.
+
+    Parameters
+    ----------
+    path : path-like
+        Target file (its folder must exist).
+    chunks : iterable of bytes-like
+        Little-endian signed samples of 2 (``pcm16``) or 3 (``pcm24``) bytes,
+        channels interleaved, in whole frames; each chunk is written before the
+        next is asked for (a producer may refill one buffer).
+    sample_rate : int, optional
+        44100, 48000 (default) or 96000 Hz.
+    sample_format : str, optional
+        ``"pcm16"`` or ``"pcm24"`` (default).
+    channels : int, optional
+        1 or 2 (default).
+    force : bool, optional
+        Replace an existing file (default: refuse).
+
+    The file is the canonical WAV layout of the RIFF standard, as libsndfile
+    writes it for these formats: a 44-byte header (``RIFF`` size, ``WAVE``, a
+    16-byte ``fmt `` chunk of format 1, integer PCM, and the ``data`` chunk's
+    size), the samples, and a pad byte after an odd number of data bytes.  The
+    samples reach the disk (fsync) before the file is moved into place; an
+    error or an interrupt leaves the target as it was.
+    """
+    target = Path(path)
+    if sample_rate not in SAMPLE_RATES_HZ:
+        raise AudioError(f"{target}: sample rate {sample_rate} Hz: must be one of "
+                         + ", ".join(str(r) for r in SAMPLE_RATES_HZ))
+    width = PCM_WIDTHS.get(sample_format)
+    if width is None:
+        raise AudioError(f"{target}: sample format {sample_format!r}: must be one of "
+                         + ", ".join(PCM_WIDTHS))
+    if channels not in (1, 2):
+        raise AudioError(f"{target}: channels = {channels}: must be 1 or 2")
+    frame = width * channels
+    where = str(target)
+
+    def header(size: int) -> bytes:
+        return struct.pack("<4sI4s4sIHHIIHH4sI", b"RIFF", 36 + size + size % 2, b"WAVE",
+                           b"fmt ", 16, 1, channels, sample_rate, sample_rate * frame, frame,
+                           8 * width, b"data", size)
+
+    def write(tmp: Path) -> None:
+        try:
+            fill(tmp)
+        except OSError as exc:
+            raise AudioError(f"{where}: cannot write WAV ({_os_reason(exc)})") from None
+
+    def fill(tmp: Path) -> None:
+        with open(tmp, "wb") as fh:
+            fh.write(header(0))
+            size = 0
+            for chunk in chunks:
+                data = memoryview(chunk).cast("B")
+                if len(data) % frame:
+                    raise AudioError(f"{where}: {len(data)} bytes of samples are not whole "
+                                     f"frames of {frame} bytes")
+                fh.write(data)
+                size += len(data)
+            if size == 0:
+                raise AudioError(f"{where}: no samples to write")
+            if 36 + size + size % 2 > 0xFFFFFFFF:
+                raise AudioError(f"{where}: {size} bytes of samples do not fit a WAV file "
+                                 "(4 GiB); render shorter parts")
+            if size % 2:
+                fh.write(b"\0")
+            fh.seek(0)
+            fh.write(header(size))
+            fh.flush()
+            os.fsync(fh.fileno())
 
     return _atomic_write(target, ".wav", write, force=force)
 

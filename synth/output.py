@@ -12,9 +12,11 @@ Each block then goes to the file in one compiled pass
 product), the peak and that of the last 10 ms, the refusal of a sample beyond
 full scale or not finite (:func:`synth.io.range_error`, as
 :func:`synth.io.write_wav` words it), and, for 16- and 24-bit files, the integers
-libsndfile would derive from the float64 samples (``rint(v 2^31)``), which it
-then only shifts into place: the file is the same byte for byte as one written
-from the float64 samples.  A float32 file gets the float32 samples.
+libsndfile would derive from the float64 samples (``rint(v 2^31)``).  Their top
+16 or 24 bits are packed as PCM bytes (:func:`synth.engine.render.pack_pcm`)
+and written with the canonical WAV header (:func:`synth.io.write_pcm_wav`): the
+file is the same byte for byte as libsndfile's from the float64 samples.  A
+float32 file gets the float32 samples, written through libsndfile.
 With a fixed gain whose advance peak bound (:func:`synth.engine.render.peak_bound`)
 stays at or below full scale, nothing can clip and the samples are streamed
 straight into the WAV; otherwise the temporary file decides whether the gain
@@ -65,6 +67,7 @@ from synth.engine.render import (
     DEFAULT_RETIRE_DB,
     GainPlan,
     max_abs,
+    pack_pcm,
     peak_bound,
     plan_gain,
     render_blocks,
@@ -227,8 +230,7 @@ def render_to_wav(path: str | Path, voices: Sequence[Voice], n_samples: int, *,
         if bound is not None and bound * gain <= 1.0:  # cannot clip: stream it
             meter = _ForFile(_faded(blocks(), n_out, fade_n), gain, sample_format,
                              n_out - hold, str(target))
-            io.write_wav(target, meter, sample_rate=sample_rate,
-                         sample_format=sample_format, channels=channels, force=force)
+            _write(target, meter, sample_rate, sample_format, channels, force)
             plan = plan_gain(meter.peak_in, target_dbfs=target_dbfs, gain_db=gain_db)
     streamed = plan is not None
     if plan is None:
@@ -250,8 +252,7 @@ def render_to_wav(path: str | Path, voices: Sequence[Voice], n_samples: int, *,
             if ring_out and faded:
                 rows = _faded(rows, n_out, fade_n)
             meter = _ForFile(rows, plan.gain, sample_format, n_out - hold, str(target))
-            io.write_wav(target, meter, sample_rate=sample_rate, sample_format=sample_format,
-                         channels=channels, force=force)
+            _write(target, meter, sample_rate, sample_format, channels, force)
     tail_db = (20.0 * math.log10(meter.tail / meter.peak) if meter.tail > 0 and meter.peak > 0
                else -math.inf)
     ending = Ending("faded" if faded else "rang out", float(end_level_db),
@@ -276,6 +277,27 @@ def render_to_wav(path: str | Path, voices: Sequence[Voice], n_samples: int, *,
 # --------------------------------------------------------------------------- one pass
 _LSB = {"pcm16": 2.0 ** -15, "pcm24": 2.0 ** -23}
 """Step of the integer sample formats, full scale."""
+
+
+def _write(target: Path, blocks: Iterable[np.ndarray], sample_rate: int, sample_format: str,
+           channels: int, force: bool) -> None:
+    """Write the blocks of :class:`_ForFile`: integers packed as PCM bytes, float32 as it is."""
+    width = io.PCM_WIDTHS.get(sample_format)
+    if width is None:
+        io.write_wav(target, blocks, sample_rate=sample_rate, sample_format=sample_format,
+                     channels=channels, force=force)
+    else:
+        io.write_pcm_wav(target, _packed(blocks, width), sample_rate=sample_rate,
+                         sample_format=sample_format, channels=channels, force=force)
+
+
+def _packed(blocks: Iterable[np.ndarray], width: int) -> Iterator[np.ndarray]:
+    """Pack int32 blocks into PCM bytes of ``width``, one buffer refilled for each."""
+    buf = np.empty(0, dtype=np.uint8)
+    for block in blocks:
+        if buf.size < block.size * width:
+            buf = np.empty(block.size * width, dtype=np.uint8)
+        yield pack_pcm(block, width, buf)
 
 
 def _faded(blocks: Iterable[np.ndarray], n_rows: int, fade_rows: int) -> Iterator[np.ndarray]:
@@ -315,11 +337,11 @@ class _ForFile:
 
     Iterating yields each block times ``gain`` (the engine's float64 product) as
     the file holds it: int32 at full scale 2^31 for ``pcm16`` and ``pcm24``, whose
-    top bits libsndfile keeps (the integers it would derive from the float64
-    samples itself, so the file is the same byte for byte), float32 for
+    top bits the file keeps (the integers libsndfile would derive from the
+    float64 samples itself, so the file is the same byte for byte), float32 for
     ``float32`` (:func:`synth.engine.render.scale_block`).  One buffer is handed
-    out again and again: :func:`synth.io.write_wav` writes each block before it
-    asks for the next.  Kept on the way: the largest magnitude before the gain
+    out again and again: the writer takes each block before it asks for the next.
+    Kept on the way: the largest magnitude before the gain
     (``peak_in``), after it (``peak``) and over the rows from ``tail_from`` on
     (``tail``).  A sample beyond full scale or not finite stops the write with
     :func:`synth.io.range_error`'s refusal (``where``: the file).

@@ -1565,3 +1565,27 @@ def _scale_block(block, gain, to_int, out_int, out_f32, tail_from):
     if gain > 0.0 and peak <= 1.0:  # every |v| within full scale (none is NaN)
         return peak_in, peak, tail, -1, -1
     return _scale_checked(block, gain, to_int, out_int, out_f32, tail_from)
+
+
+# ======================================================================================
+# Packing integer samples (``_pack_pcm``): int32 samples at full scale 2^31 become
+# little-endian PCM bytes of ``width`` 2 or 3, the top 16 or 24 bits of each (what
+# libsndfile keeps of an int32 it writes at that width: ``value >> 16`` or ``>> 8``).
+# ======================================================================================
+
+
+@njit(cache=True)
+def _pack_pcm(flat, out, width):
+    """Write the top ``width`` bytes of each int32 of ``flat`` into ``out``, little-endian."""
+    n = flat.shape[0]
+    if width == 2:
+        for k in range(n):
+            v = flat[k] >> 16
+            out[2 * k] = v & 255
+            out[2 * k + 1] = (v >> 8) & 255
+    else:
+        for k in range(n):
+            v = flat[k] >> 8
+            out[3 * k] = v & 255
+            out[3 * k + 1] = (v >> 8) & 255
+            out[3 * k + 2] = (v >> 16) & 255

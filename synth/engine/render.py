@@ -896,22 +896,30 @@ def render_blocks(
     n_samples = int(n_samples)
     block_size = int(block_size)
     sample_rate = float(sample_rate)
-    # validate every voice now (errors before the first block); the state is made
-    # again when the voice starts and released when it retires
+    # validate every voice now (errors before the first block); a render of up to
+    # PREPARED_KEPT voices keeps what it made, a longer one makes the state again
+    # when the voice starts, so memory follows the voices sounding
     order = []
     folds: dict = {}  # folded pairs, from this check to the voice's start
+    kept: dict[int, _Prepared] | None = {} if len(voices) <= PREPARED_KEPT else None
     for i, v in enumerate(voices):
-        p = _Prepared(v, sample_rate, n_ch, n_samples, i, folds)
+        p = _Prepared(v, sample_rate, n_ch, n_samples, i, None if kept is not None else folds)
         if p.end > p.start:
             order.append((p.start, i))
+            if kept is not None:
+                kept[i] = p
     order.sort()
     threshold = 0.0 if retire_db is None else 10.0 ** (retire_db / 20.0)
     return _stream(voices, order, n_samples, n_ch, block_size, gain, dtype, sample_rate,
-                   threshold, progress, folds)
+                   threshold, progress, folds, kept)
+
+
+PREPARED_KEPT: Final[int] = 256
+"""Voices up to which a render keeps each voice as validated until it starts."""
 
 
 def _stream(voices, order, n_samples, n_ch, block_size, gain, dtype, sample_rate, threshold,
-            progress, folds):
+            progress, folds, kept):
     active: list[_Prepared] = []
     constants: dict[float, np.ndarray] = {}  # constant pair coefficients, shared
     batches: dict[tuple, tuple] = {}  # kernel columns of the batches met so far
@@ -927,7 +935,8 @@ def _stream(voices, order, n_samples, n_ch, block_size, gain, dtype, sample_rate
             started = False
             while nxt < len(order) and order[nxt][0] < c1:
                 i = order[nxt][1]
-                p = _Prepared(voices[i], sample_rate, n_ch, n_samples, i, folds)
+                p = (kept.pop(i) if kept is not None
+                     else _Prepared(voices[i], sample_rate, n_ch, n_samples, i, folds))
                 for ps in p.pairs:
                     ps.constants = constants
                 active.append(p)
@@ -1630,6 +1639,29 @@ def scale_block(block: np.ndarray, gain: float, out: np.ndarray, *,
         _NO_FLOAT32 if to_int else out, tail_row)
     return ScaledBlock(peak_in, peak, tail, None if bad < 0 else int(bad),
                        None if beyond < 0 else int(beyond))
+
+
+def pack_pcm(samples: np.ndarray, width: int, out: np.ndarray | None = None) -> np.ndarray:
+    """Return int32 samples (full scale 2^31) as little-endian PCM bytes, ``width`` 2 or 3.
+
+    Each sample keeps its top 16 or 24 bits (``value >> 16`` or ``>> 8``), as a
+    WAV writer keeps them; the bytes follow the samples' C order (interleaved
+    channels for a (rows, channels) block).  ``out``, a uint8 array of at least
+    ``samples.size * width`` bytes, is filled and its start returned.
+    """
+    if samples.dtype != np.int32:
+        raise ModelError(f"samples to pack: must be int32, got {samples.dtype}")
+    if width not in (2, 3):
+        raise ModelError(f"width = {width!r}: must be 2 or 3 bytes")
+    flat = np.ascontiguousarray(samples).reshape(-1)
+    n = flat.size * width
+    if out is None:
+        out = np.empty(n, dtype=np.uint8)
+    elif out.dtype != np.uint8 or out.ndim != 1 or out.size < n or not out.flags.writeable:
+        raise ModelError(f"packed samples: must be a writable uint8 array of at least {n} "
+                         f"bytes, got {out.dtype} {out.shape}")
+    kernels._pack_pcm(flat, out, width)
+    return out[:n]
 
 
 def ring_out_sample(voices: Sequence[Voice], *, sample_rate: float,

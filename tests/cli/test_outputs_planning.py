@@ -220,14 +220,47 @@ def _no_space(*args, **kwargs):
     raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
 
 
-def test_disk_full_while_writing_a_wav(tmp_path, monkeypatch):
-    """Libsndfile's write fails with ENOSPC halfway: one line, no WAV, sidecar or temporary."""
+class _FullDisk:
+    """A binary file whose writes fail with ENOSPC once its header is written."""
+
+    def __init__(self, path, mode):
+        self._fh = open(path, mode)  # noqa: SIM115 (closed by __exit__)
+        self._writes = 0
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        self._fh.close()
+
+    def write(self, data):
+        self._writes += 1
+        if self._writes > 1:
+            _no_space()
+        return self._fh.write(data)
+
+    def __getattr__(self, name):
+        return getattr(self._fh, name)
+
+
+@pytest.mark.parametrize("fmt", ["pcm24", "float32"])
+def test_disk_full_while_writing_a_wav(tmp_path, monkeypatch, fmt):
+    """The write fails with ENOSPC halfway: one line, no WAV, sidecar or temporary.
+
+    16- and 24-bit files are written by barwright's own writer, float32 through
+    libsndfile: the disk fills under each.
+    """
     import soundfile
 
-    monkeypatch.setattr(soundfile.SoundFile, "write", _no_space)
+    import synth.io
+
+    if fmt == "float32":
+        monkeypatch.setattr(soundfile.SoundFile, "write", _no_space)
+    else:
+        monkeypatch.setattr(synth.io, "open", _FullDisk, raising=False)
     out = tmp_path / "s.wav"
-    line = one_error_line(run("strike", PRESET, "A4",
-                              "--duration", "0.2", "--out", out))
+    line = one_error_line(run("strike", PRESET, "A4", "--duration", "0.2",
+                              "--format", fmt, "--out", out))
     assert f"{out}: cannot write WAV (No space left on device; free some space" in line
     assert _files(tmp_path) == []
 

@@ -100,24 +100,28 @@ def test_retirement_does_not_depend_on_block_size(rng):
 def test_retired_voice_state_is_released(rng):
     """Once retired, a voice's render state is no longer held (memory follows the sounding voices).
 
-    200 plain strikes 0.1 s apart, each decaying by 100 dB in about 0.2 s: by
-    the end only the last few can be held.
+    More plain strikes than a render keeps as validated (``PREPARED_KEPT``), 0.1 s
+    apart, each decaying by 100 dB in about 0.2 s: by the end only the last few can
+    be held.
     """
-    prepared = importlib.import_module("synth.engine.render")._Prepared
-    voices = [Voice(k * 4800, ModeBank([440.0 + k], [60.0], [0.5])) for k in range(200)]
-    blocks = render_blocks(voices, 200 * 4800, sample_rate=FS, block_size=4800)
+    render_mod = importlib.import_module("synth.engine.render")
+    prepared = render_mod._Prepared
+    n_voices = render_mod.PREPARED_KEPT + 44
+    voices = [Voice(k * 4800, ModeBank([440.0 + k], [60.0], [0.5])) for k in range(n_voices)]
+    stop = n_voices - 10
+    blocks = render_blocks(voices, n_voices * 4800, sample_rate=FS, block_size=4800)
     for k, _ in enumerate(blocks):
-        if k == 190:  # the render is suspended here, its sounding voices alive
+        if k == stop:  # the render is suspended here, its sounding voices alive
             gc.collect()
             held = sum(isinstance(o, prepared) for o in gc.get_objects())
     assert 1 <= held <= 10
-    with_all = render_blocks(voices, 200 * 4800, sample_rate=FS, block_size=4800,
+    with_all = render_blocks(voices, n_voices * 4800, sample_rate=FS, block_size=4800,
                              retire_db=None)
     for k, _ in enumerate(with_all):
-        if k == 190:
+        if k == stop:
             gc.collect()
             kept = sum(isinstance(o, prepared) for o in gc.get_objects())
-    assert kept == 191  # without retirement every voice begun is held (the contrast)
+    assert kept == stop + 1  # without retirement every voice begun is held (the contrast)
 
 
 def test_single_mode_is_retired_once_below_level():
