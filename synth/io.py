@@ -619,6 +619,22 @@ def range_error(where: str, sample: int, peak: float) -> AudioError:
 
 
 # --------------------------------------------------------------------------- writing
+def _check_file_settings(target: Path, sample_rate: int, sample_format: str,
+                         formats: Mapping[str, Any], channels: int | None) -> None:
+    """Refuse a rate, a format (one of ``formats``) or a channel count a writer cannot take."""
+    if sample_rate not in SAMPLE_RATES_HZ:
+        raise AudioError(
+            f"{target}: sample rate {sample_rate} Hz: must be one of "
+            + ", ".join(str(r) for r in SAMPLE_RATES_HZ)
+        )
+    if sample_format not in formats:
+        raise AudioError(
+            f"{target}: sample format {sample_format!r}: must be one of " + ", ".join(formats)
+        )
+    if channels is not None and channels not in (1, 2):
+        raise AudioError(f"{target}: channels = {channels}: must be 1 or 2")
+
+
 def write_wav(
     path: str | os.PathLike[str],
     samples: np.ndarray | Iterable[np.ndarray],
@@ -667,18 +683,7 @@ def write_wav(
     .. note:: A sample beyond full scale is refused, never clipped.
     """
     target = Path(path)
-    if sample_rate not in SAMPLE_RATES_HZ:
-        raise AudioError(
-            f"{target}: sample rate {sample_rate} Hz: must be one of "
-            + ", ".join(str(r) for r in SAMPLE_RATES_HZ)
-        )
-    if sample_format not in SAMPLE_FORMATS:
-        raise AudioError(
-            f"{target}: sample format {sample_format!r}: must be one of "
-            + ", ".join(SAMPLE_FORMATS)
-        )
-    if channels is not None and channels not in (1, 2):
-        raise AudioError(f"{target}: channels = {channels}: must be 1 or 2")
+    _check_file_settings(target, sample_rate, sample_format, SAMPLE_FORMATS, channels)
     if isinstance(samples, np.ndarray):
         blocks: Iterable[np.ndarray] = (samples,)
     else:
@@ -767,15 +772,8 @@ def write_pcm_wav(
     error or an interrupt leaves the target as it was.
     """
     target = Path(path)
-    if sample_rate not in SAMPLE_RATES_HZ:
-        raise AudioError(f"{target}: sample rate {sample_rate} Hz: must be one of "
-                         + ", ".join(str(r) for r in SAMPLE_RATES_HZ))
-    width = PCM_WIDTHS.get(sample_format)
-    if width is None:
-        raise AudioError(f"{target}: sample format {sample_format!r}: must be one of "
-                         + ", ".join(PCM_WIDTHS))
-    if channels not in (1, 2):
-        raise AudioError(f"{target}: channels = {channels}: must be 1 or 2")
+    _check_file_settings(target, sample_rate, sample_format, PCM_WIDTHS, channels)
+    width = PCM_WIDTHS[sample_format]
     frame = width * channels
     where = str(target)
 
