@@ -1566,7 +1566,6 @@ def plan_gain(
                     limited)
 
 
-
 @dataclass(frozen=True)
 class ScaledBlock:
     """What :func:`scale_block` measured in one block (rows counted from the block's start).
