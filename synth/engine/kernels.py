@@ -1168,7 +1168,8 @@ def _modes_to_retire(abs_amp, decay_per_sample, m, nep, scale, owed, level, extr
     ``bounds`` receives every mode's tail bound; ``order`` the kept modes'
     indices in ascending order, then the retired ones.  The wait is the
     soonest a kept mode, decaying at ``decay_per_sample + extra``, alone falls
-    below the room left (``level`` less what is owed); infinite if none decays.
+    below the room left (``level`` less what is owed); infinite if none decays,
+    0 when no room is left.
     """
     n = abs_amp.shape[0]
     for k in range(n):
@@ -1185,7 +1186,7 @@ def _modes_to_retire(abs_amp, decay_per_sample, m, nep, scale, owed, level, extr
         gone[ranked[j]] = True
         n_gone += 1
     room = level - total
-    wait = math.inf
+    wait = math.inf if room > 0.0 else 0.0  # no room left: look again at the next check
     n_keep = 0
     n_put = 0
     for k in range(n):
@@ -1198,7 +1199,7 @@ def _modes_to_retire(abs_amp, decay_per_sample, m, nep, scale, owed, level, extr
         rate = decay_per_sample[k] + extra
         if rate > 0.0 and room > 0.0:
             wait = min(wait, math.log(bounds[k] / room) / rate)
-    return n_keep, total, wait
+    return n_keep, total, max(wait, 0.0)
 
 
 # ======================================================================================
