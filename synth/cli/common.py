@@ -159,6 +159,14 @@ def parse_field(text: str, *, option: str, value: str, lo: float, hi: float,
 
 
 def _commit(plans: list) -> None:
+    """Put the planned files in place, unless a signal came and its exception was lost.
+
+    Library code can catch the exception a signal raises and carry on (a run of
+    ``cutlist`` went on to draw and commit its plots after a Ctrl-C); the run
+    must still stop before its files appear, as it would have.
+    """
+    if _STOPPED:
+        raise Terminated if signal.SIGTERM in _STOPPED else KeyboardInterrupt
     while plans:
         plans[0].commit()
         plans.pop(0)
