@@ -106,6 +106,66 @@ def _one_cache_writer() -> None:
 _one_cache_writer()
 
 
+def _signals_wait_for_numba() -> None:
+    """Let SIGINT and SIGTERM wait while numba loads or compiles a kernel; they act after.
+
+    numba reads a cached kernel through LLVM, which calls back into Python
+    through ctypes; an exception a signal handler raises inside such a callback
+    is printed and dropped, and LLVM goes on with a broken buffer.  A Ctrl-C or a
+    SIGTERM landing while a kernel loads (the first call of each kernel in a
+    process, while a render may already be writing its file) was then lost or
+    killed the process without its cleanup.  While numba's ``Dispatcher.compile``
+    runs in the main thread, the two signals' handlers only note the signal; as
+    it returns the former handlers come back and act on what was noted (raise
+    where barwright's cleanup sees it, or the default action).  A signal the
+    process ignored stays ignored.  A compile from an empty cache delays the
+    signal by that compile (seconds).  (Masking the signals would not do: another
+    thread, such as a BLAS worker, would take them.)
+    """
+    try:
+        import signal
+        import threading
+
+        from numba.core.dispatcher import Dispatcher
+    except ImportError:
+        return
+    compile_ = Dispatcher.compile
+    if getattr(compile_, "signals_wait", False):
+        return
+    kinds = (signal.SIGINT, signal.SIGTERM)
+
+    def waiting(self, sig):
+        if threading.current_thread() is not threading.main_thread():
+            return compile_(self, sig)
+        noted: list = []  # (signal number, frame)
+
+        def note(signum, frame):
+            noted.append((signum, frame))
+
+        former: dict = {}
+        for kind in kinds:
+            handler = signal.getsignal(kind)
+            if handler is not signal.SIG_IGN and handler is not None:
+                former[kind] = signal.signal(kind, note)
+        try:
+            return compile_(self, sig)
+        finally:
+            for kind, handler in former.items():
+                signal.signal(kind, handler)
+            for signum, frame in noted:
+                handler = former[signum]
+                if callable(handler):
+                    handler(signum, frame)
+                else:  # the default action: send it again, now unhandled
+                    os.kill(os.getpid(), signum)
+
+    waiting.signals_wait = True  # type: ignore[attr-defined]
+    setattr(Dispatcher, "compile", waiting)  # noqa: B010 (mypy refuses a method assignment)
+
+
+_signals_wait_for_numba()
+
+
 def _numba_without_blas_probe() -> None:
     """Load numba's array functions without importing scipy.linalg for them.
 
