@@ -1,7 +1,8 @@
 """A signal whose exception library code swallowed still stops the run before its files appear.
 
-Runs in a fresh interpreter, so that SIGINT has Python's default handler (a test
-runner's worker may ignore it) and the command's own handlers are installed.
+Runs in a fresh interpreter that first gives SIGINT Python's default handler, as
+a command started from a terminal has it (a test runner's worker may ignore
+SIGINT, and a child inherits that), so that the command installs its own handlers.
 Exit codes 130 and 143 are 128 + SIGINT and 128 + SIGTERM (common practice, no
 source).
 """
@@ -20,6 +21,7 @@ ROOT = Path(__file__).resolve().parents[2]
 
 _RUN = r"""
 import json, os, signal, sys, time
+signal.signal(signal.SIGINT, signal.default_int_handler)
 from pathlib import Path
 import typer
 from synth import io

@@ -20,6 +20,7 @@ ROOT = Path(__file__).resolve().parents[2]
 
 _RUN = r"""
 import json, os, signal
+signal.signal(signal.SIGINT, signal.default_int_handler)  # a runner's worker may ignore it
 import numpy as np
 from numba.core.dispatcher import Dispatcher
 
